@@ -1,0 +1,76 @@
+//! `kernelpress inspect`: a model file's manifest and sizes.
+
+use crate::model::{AnyModel, TensorFile};
+use crate::Result;
+use std::path::PathBuf;
+
+/// Show a model file's manifest and sizes.
+///
+/// Example:
+///   kernelpress inspect models/pump_svm.safetensors
+#[derive(Debug, clap::Args)]
+#[command(verbatim_doc_comment)]
+pub(crate) struct Args {
+    /// Model file.
+    model: PathBuf,
+    /// Print one JSON object (manifest, tensors, sizes).
+    #[arg(long)]
+    json: bool,
+}
+
+fn tensors_json(f: &TensorFile) -> serde_json::Value {
+    let mut m = serde_json::Map::new();
+    for (k, (s, _)) in &f.tensors {
+        m.insert(k.clone(), serde_json::json!(s));
+    }
+    serde_json::Value::Object(m)
+}
+
+pub(crate) fn run(a: Args) -> Result<()> {
+    let (model, file) = AnyModel::load(&a.model)?;
+    let bytes = std::fs::metadata(&a.model).map(|m| m.len()).unwrap_or(0);
+    let params: usize = file.tensors.values().map(|(_, d)| d.len()).sum();
+    if a.json {
+        let v = serde_json::json!({
+            "file": a.model.display().to_string(),
+            "file_bytes": bytes,
+            "parameters": params,
+            "manifest": serde_json::Value::Object(file.manifest.clone()),
+            "tensors": tensors_json(&file),
+        });
+        return super::print_stdout(&format!("{}\n", serde_json::to_string_pretty(&v).unwrap()));
+    }
+    let mut s = String::new();
+    s.push_str(&format!("file            {} ({} bytes)\n", a.model.display(), bytes));
+    match &model {
+        AnyModel::Exact(m) => {
+            s.push_str("kind            exact kernel model\n");
+            s.push_str(&format!("kernel          {}\n", m.kernel()));
+            s.push_str(&format!("task            {}\n", m.task().name()));
+            if !m.labels().is_empty() {
+                s.push_str(&format!("labels          {}\n", m.labels().join(", ")));
+            }
+            s.push_str(&format!("input dim       {}\n", m.input_dim()));
+            s.push_str(&format!(
+                "input scaling   {}\n",
+                if m.scaling().is_some() { "standardize" } else { "none" }
+            ));
+            s.push_str(&format!("support vectors {}\n", m.n_support_vectors()));
+            s.push_str(&format!("outputs         {}\n", m.n_outputs()));
+            s.push_str(&format!(
+                "cost/prediction {} kernel evaluations, ≈{} flops\n",
+                m.n_support_vectors(),
+                2 * m.n_support_vectors() * (m.input_dim() + m.n_outputs())
+            ));
+            if let Some(t) = m.training.get("model") {
+                s.push_str(&format!("trained as      {}\n", t.as_str().unwrap_or("?")));
+            }
+        }
+    }
+    s.push_str(&format!("parameters      {params} (f64)\n"));
+    s.push_str("tensors\n");
+    for (k, (shape, _)) in &file.tensors {
+        s.push_str(&format!("  {k:<22} {shape:?}\n"));
+    }
+    super::print_stdout(&s)
+}

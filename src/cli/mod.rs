@@ -1,0 +1,82 @@
+//! The command line: one file per command, each an argument struct and a `run` function
+//! over the library. `main` maps errors to exit codes: 2 for bad input or usage, 1 for
+//! internal failures.
+
+mod import;
+mod inspect;
+mod kernel_check;
+mod score;
+mod train;
+
+use crate::{Error, ErrorKind, Result};
+use clap::{Parser, Subcommand};
+
+/// kernelpress: compile kernel machines into compact random-feature models.
+#[derive(Debug, Parser)]
+#[command(name = "kernelpress", version, about, long_about = None)]
+pub struct Cli {
+    /// No progress bars or log lines on stderr (warnings still print).
+    #[arg(long, global = true)]
+    pub quiet: bool,
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+enum Command {
+    Train(train::Args),
+    Import(import::Args),
+    Score(score::Args),
+    Inspect(inspect::Args),
+    KernelCheck(kernel_check::Args),
+}
+
+/// Parses the process arguments, runs the command, and returns the exit code.
+pub fn main() -> i32 {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let _ = e.print();
+            return match e.kind() {
+                clap::error::ErrorKind::DisplayHelp | clap::error::ErrorKind::DisplayVersion => 0,
+                _ => 2,
+            };
+        }
+    };
+    crate::progress::set_quiet(cli.quiet);
+    let res = match cli.command {
+        Command::Train(a) => train::run(a),
+        Command::Import(a) => import::run(a),
+        Command::Score(a) => score::run(a),
+        Command::Inspect(a) => inspect::run(a),
+        Command::KernelCheck(a) => kernel_check::run(a),
+    };
+    match res {
+        Ok(()) => 0,
+        Err(e) => {
+            let prefix = match e.kind() {
+                ErrorKind::Input => "error",
+                _ => "internal error",
+            };
+            eprintln!("{prefix}: {e}");
+            e.exit_code()
+        }
+    }
+}
+
+/// Writes `text` to stdout, treating a closed pipe as success.
+pub(crate) fn print_stdout(text: &str) -> Result<()> {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    match out.write_all(text.as_bytes()).and_then(|_| out.flush()) {
+        Ok(()) => Ok(()),
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
+        Err(e) => Err(Error::internal(format!("cannot write to stdout: {e}"))),
+    }
+}
+
+/// Parses a kernel expression given on the command line.
+pub(crate) fn kernel_arg(s: &str) -> Result<crate::kernel::Kernel> {
+    s.parse()
+        .map_err(|e: Error| e.context(format!("--kernel '{s}'")))
+}

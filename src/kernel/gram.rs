@@ -1,0 +1,183 @@
+//! Gram blocks `K(A, B)`.
+//!
+//! Euclidean-distance kernels go through one matrix product,
+//! `‖a‖² + ‖b‖² − 2 a·b` (clamped at 0), dot-product kernels through `A·Bᵀ`; only the L1
+//! Laplacian needs a direct loop. A [`Prepared`] set caches the scaled rows and norms of
+//! one side (the support vectors) so that scoring does not redo them per batch.
+
+use super::Kernel;
+use crate::linalg;
+use ndarray::{Array2, ArrayView2, Axis, Zip};
+
+/// One side of a Gram block with what every kernel in the expression needs precomputed.
+///
+/// ```
+/// use kernelpress::kernel::{Kernel, Prepared};
+/// use ndarray::array;
+/// let k: Kernel = "gaussian(gamma=1)".parse().unwrap();
+/// let sv = array![[0.0, 0.0], [1.0, 0.0]];
+/// let prep = Prepared::new(&k, sv.view());
+/// let g = k.gram_prepared(array![[0.0, 0.0]].view(), &prep);
+/// assert!((g[[0, 1]] - (-1.0f64).exp()).abs() < 1e-15);
+/// ```
+#[derive(Debug, Clone)]
+pub struct Prepared {
+    rows: usize,
+    node: Node,
+}
+
+#[derive(Debug, Clone)]
+enum Node {
+    /// Scaled rows and their squared norms.
+    Euclid { scaled: Array2<f64>, sq: Vec<f64> },
+    /// Scaled rows for the L1 distance.
+    L1 { scaled: Array2<f64> },
+    /// Raw rows and their norms (dot-product kernels).
+    Dot { data: Array2<f64>, norms: Vec<f64> },
+    /// Children of a sum or product.
+    Many(Vec<Node>),
+    /// Child of a scaled kernel.
+    One(Box<Node>),
+}
+
+fn scale_rows(a: ArrayView2<f64>, s: &[f64]) -> Array2<f64> {
+    let mut out = a.to_owned();
+    for mut row in out.rows_mut() {
+        for (v, f) in row.iter_mut().zip(s) {
+            *v *= f;
+        }
+    }
+    out
+}
+
+fn build(k: &Kernel, a: ArrayView2<f64>) -> Node {
+    match k {
+        Kernel::Laplacian { .. } => Node::L1 {
+            scaled: scale_rows(a, &k.inverse_scale(a.ncols()).unwrap()),
+        },
+        k if k.is_shift_invariant() => {
+            let scaled = scale_rows(a, &k.inverse_scale(a.ncols()).unwrap());
+            let sq = scaled.rows().into_iter().map(|r| r.dot(&r)).collect();
+            Node::Euclid { scaled, sq }
+        }
+        Kernel::Sum(v) | Kernel::Product(v) => Node::Many(v.iter().map(|c| build(c, a)).collect()),
+        Kernel::Scaled(_, c) => Node::One(Box::new(build(c, a))),
+        _ => Node::Dot {
+            data: a.as_standard_layout().into_owned(),
+            norms: a.rows().into_iter().map(|r| r.dot(&r).sqrt()).collect(),
+        },
+    }
+}
+
+impl Prepared {
+    /// Precomputes what `k` needs of the rows of `a`. Call [`Kernel::check_dim`] first.
+    pub fn new(k: &Kernel, a: ArrayView2<f64>) -> Prepared {
+        Prepared {
+            rows: a.nrows(),
+            node: build(k, a),
+        }
+    }
+
+    /// Number of rows.
+    pub fn rows(&self) -> usize {
+        self.rows
+    }
+}
+
+fn block(k: &Kernel, a: &Node, b: &Node) -> Array2<f64> {
+    match (k, a, b) {
+        (Kernel::Sum(ks), Node::Many(na), Node::Many(nb)) => {
+            let mut acc = block(&ks[0], &na[0], &nb[0]);
+            for i in 1..ks.len() {
+                acc += &block(&ks[i], &na[i], &nb[i]);
+            }
+            acc
+        }
+        (Kernel::Product(ks), Node::Many(na), Node::Many(nb)) => {
+            let mut acc = block(&ks[0], &na[0], &nb[0]);
+            for i in 1..ks.len() {
+                acc *= &block(&ks[i], &na[i], &nb[i]);
+            }
+            acc
+        }
+        (Kernel::Scaled(c, inner), Node::One(na), Node::One(nb)) => {
+            let mut g = block(inner, na, nb);
+            g.mapv_inplace(|v| v * c);
+            g
+        }
+        (k, Node::Euclid { scaled: sa, sq: qa }, Node::Euclid { scaled: sb, sq: qb }) => {
+            let mut g = linalg::abt_seq(sa.view(), sb.view());
+            for (i, mut row) in g.axis_iter_mut(Axis(0)).enumerate() {
+                for (j, v) in row.iter_mut().enumerate() {
+                    let r2 = (qa[i] + qb[j] - 2.0 * *v).max(0.0);
+                    *v = k.euclidean_profile(r2).unwrap();
+                }
+            }
+            g
+        }
+        (_, Node::L1 { scaled: sa }, Node::L1 { scaled: sb }) => {
+            let mut g = Array2::<f64>::zeros((sa.nrows(), sb.nrows()));
+            Zip::from(g.rows_mut())
+                .and(sa.rows())
+                .for_each(|mut grow, arow| {
+                    for (v, brow) in grow.iter_mut().zip(sb.rows()) {
+                        let l1: f64 = arow.iter().zip(brow).map(|(x, y)| (x - y).abs()).sum();
+                        *v = (-l1).exp();
+                    }
+                });
+            g
+        }
+        (k, Node::Dot { data: da, norms: na }, Node::Dot { data: db, norms: nb }) => {
+            let mut g = linalg::abt_seq(da.view(), db.view());
+            for (i, mut row) in g.axis_iter_mut(Axis(0)).enumerate() {
+                for (j, v) in row.iter_mut().enumerate() {
+                    *v = k.dot_profile(*v, na[i], nb[j]).unwrap();
+                }
+            }
+            g
+        }
+        _ => unreachable!("Prepared built for a different kernel"),
+    }
+}
+
+impl Kernel {
+    /// The Gram block `K(a, b)` (`a.nrows() × b.nrows()`), in parallel over fixed row
+    /// chunks of `a` (deterministic).
+    ///
+    /// # Panics
+    /// If `a` and `b` have different numbers of columns.
+    #[track_caller]
+    pub fn gram(&self, a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
+        assert_eq!(a.ncols(), b.ncols(), "gram: inputs of different widths");
+        let pb = Prepared::new(self, b);
+        self.gram_prepared(a, &pb)
+    }
+
+    /// `K(a, b)` with `b` prepared once.
+    pub fn gram_prepared(&self, a: ArrayView2<f64>, b: &Prepared) -> Array2<f64> {
+        linalg::map_row_chunks(a, b.rows, |chunk| {
+            let pa = Prepared::new(self, chunk);
+            block(self, &pa.node, &b.node)
+        })
+    }
+
+    /// `K(a, b)` for a small block, sequentially (for callers that are already parallel).
+    pub fn gram_block(&self, a: ArrayView2<f64>, b: &Prepared) -> Array2<f64> {
+        let pa = Prepared::new(self, a);
+        block(self, &pa.node, &b.node)
+    }
+
+    /// The diagonal `k(x_i, x_i)` of the rows of `a`.
+    pub fn diag(&self, a: ArrayView2<f64>) -> Vec<f64> {
+        if let Some(c) = self.diagonal_constant() {
+            return vec![c; a.nrows()];
+        }
+        a.rows()
+            .into_iter()
+            .map(|r| {
+                let v = r.to_vec();
+                self.eval(&v, &v)
+            })
+            .collect()
+    }
+}

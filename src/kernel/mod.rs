@@ -1,0 +1,345 @@
+//! Kernels: the expression syntax, exact evaluation of pairs, and Gram blocks.
+//!
+//! A [`Kernel`] is a plain value: it parses from and prints to the expression syntax
+//! documented in the README (`gaussian(gamma=0.5)`, `2.5 * matern(nu=1.5, lengthscale=2)
+//! + linear()`), and `parse(print(k)) == k`. Evaluation never fails once a kernel has been
+//! parsed and [`Kernel::check_dim`] has accepted the input dimension.
+//!
+//! Conventions (stated once here):
+//! - Shift-invariant kernels first scale the difference per dimension, `u = (x − y) ⊙ s`,
+//!   then apply a profile of `u`. For `gamma` on the Gaussian `s = √(2γ)` (so
+//!   `k = exp(−γ‖x−y‖²)`); for `gamma` on the Laplacian `s = γ` (so `k = exp(−γ‖x−y‖₁)`);
+//!   for `lengthscale = ℓ` (scalar or per dimension) `s = 1/ℓ`, with the Gaussian
+//!   `exp(−‖u‖²/2)`.
+//! - Dot-product kernels use `gamma`, `coef0`, `degree` as the ONNX-ML standard does:
+//!   `(γ x·y + coef0)^degree`, `tanh(γ x·y + coef0)`.
+//!
+//! ```
+//! use kernelpress::kernel::Kernel;
+//! let k: Kernel = "gaussian(gamma=0.5)".parse().unwrap();
+//! let v = k.eval(&[0.0, 0.0], &[1.0, 1.0]);
+//! assert!((v - (-1.0f64).exp()).abs() < 1e-15);
+//! assert_eq!(k.to_string().parse::<Kernel>().unwrap(), k);
+//! ```
+
+mod gram;
+mod parse;
+
+pub use gram::Prepared;
+
+use crate::{Error, Result};
+use std::f64::consts::PI;
+
+/// How a shift-invariant kernel's width is given.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Width {
+    /// `gamma = γ` (Gaussian and Laplacian only).
+    Gamma(f64),
+    /// One lengthscale for every dimension.
+    Lengthscale(f64),
+    /// One lengthscale per input dimension.
+    PerDim(Vec<f64>),
+}
+
+/// Smoothness of a Matérn kernel; only the half-integer values with closed forms.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Nu {
+    /// ν = 1/2 (the Euclidean exponential kernel).
+    Half,
+    /// ν = 3/2.
+    ThreeHalves,
+    /// ν = 5/2.
+    FiveHalves,
+}
+
+impl Nu {
+    /// ν as a number.
+    pub fn value(self) -> f64 {
+        match self {
+            Nu::Half => 0.5,
+            Nu::ThreeHalves => 1.5,
+            Nu::FiveHalves => 2.5,
+        }
+    }
+}
+
+/// A kernel expression.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Kernel {
+    /// `exp(−γ‖x−y‖²)`, or `exp(−‖(x−y)/ℓ‖²/2)`.
+    Gaussian {
+        /// Width.
+        width: Width,
+    },
+    /// `exp(−γ‖x−y‖₁)`, or `exp(−‖(x−y)/ℓ‖₁)`.
+    Laplacian {
+        /// Width.
+        width: Width,
+    },
+    /// Matérn with ν ∈ {½, 3⁄2, 5⁄2} on `r = ‖(x−y)/ℓ‖₂`.
+    Matern {
+        /// Smoothness.
+        nu: Nu,
+        /// Lengthscale (never `Gamma`).
+        width: Width,
+    },
+    /// `(1 + r²/(2α))^(−α)` with `r = ‖(x−y)/ℓ‖₂`.
+    RationalQuadratic {
+        /// Shape α > 0.
+        alpha: f64,
+        /// Lengthscale (never `Gamma`).
+        width: Width,
+    },
+    /// `(γ x·y + coef0)^degree`.
+    Polynomial {
+        /// Degree ≥ 1.
+        degree: u32,
+        /// γ > 0.
+        gamma: f64,
+        /// coef0 ≥ 0 (finite).
+        coef0: f64,
+    },
+    /// Cho–Saul arc-cosine kernel of order 0 or 1.
+    ArcCos {
+        /// 0 or 1.
+        order: u32,
+    },
+    /// `x·y`.
+    Linear,
+    /// `tanh(γ x·y + coef0)`; not positive definite in general.
+    Sigmoid {
+        /// γ > 0.
+        gamma: f64,
+        /// coef0 (finite).
+        coef0: f64,
+    },
+    /// Sum of two or more kernels.
+    Sum(Vec<Kernel>),
+    /// Product of two or more kernels.
+    Product(Vec<Kernel>),
+    /// `c * k` with c > 0.
+    Scaled(f64, Box<Kernel>),
+}
+
+impl std::str::FromStr for Kernel {
+    type Err = Error;
+    fn from_str(s: &str) -> Result<Kernel> {
+        parse::parse(s)
+    }
+}
+
+impl std::fmt::Display for Kernel {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        parse::print(self, f)
+    }
+}
+
+impl Kernel {
+    /// Builds the sum of `parts`, flattening nested sums.
+    pub fn sum(parts: Vec<Kernel>) -> Kernel {
+        let mut flat = Vec::new();
+        for p in parts {
+            match p {
+                Kernel::Sum(v) => flat.extend(v),
+                other => flat.push(other),
+            }
+        }
+        if flat.len() == 1 {
+            flat.pop().unwrap()
+        } else {
+            Kernel::Sum(flat)
+        }
+    }
+
+    /// Builds the product of `parts`, flattening nested products.
+    pub fn product(parts: Vec<Kernel>) -> Kernel {
+        let mut flat = Vec::new();
+        for p in parts {
+            match p {
+                Kernel::Product(v) => flat.extend(v),
+                other => flat.push(other),
+            }
+        }
+        if flat.len() == 1 {
+            flat.pop().unwrap()
+        } else {
+            Kernel::Product(flat)
+        }
+    }
+
+    /// The kernel's name in the syntax (`gaussian`, `sum`, …).
+    pub fn name(&self) -> &'static str {
+        match self {
+            Kernel::Gaussian { .. } => "gaussian",
+            Kernel::Laplacian { .. } => "laplacian",
+            Kernel::Matern { .. } => "matern",
+            Kernel::RationalQuadratic { .. } => "rational_quadratic",
+            Kernel::Polynomial { .. } => "polynomial",
+            Kernel::ArcCos { .. } => "arccos",
+            Kernel::Linear => "linear",
+            Kernel::Sigmoid { .. } => "sigmoid",
+            Kernel::Sum(_) => "sum",
+            Kernel::Product(_) => "product",
+            Kernel::Scaled(..) => "scaled",
+        }
+    }
+
+    /// True when the kernel is shift-invariant, `k(x, y) = k(x − y)`.
+    pub fn is_shift_invariant(&self) -> bool {
+        matches!(
+            self,
+            Kernel::Gaussian { .. }
+                | Kernel::Laplacian { .. }
+                | Kernel::Matern { .. }
+                | Kernel::RationalQuadratic { .. }
+        )
+    }
+
+    /// False for kernels that are not positive definite in general (sigmoid, anywhere in
+    /// the expression).
+    pub fn is_positive_definite(&self) -> bool {
+        match self {
+            Kernel::Sigmoid { .. } => false,
+            Kernel::Sum(v) | Kernel::Product(v) => v.iter().all(|k| k.is_positive_definite()),
+            Kernel::Scaled(_, k) => k.is_positive_definite(),
+            _ => true,
+        }
+    }
+
+    /// Checks that the kernel can be evaluated on `d`-dimensional inputs (per-dimension
+    /// lengthscale vectors must have length `d`).
+    pub fn check_dim(&self, d: usize) -> Result<()> {
+        match self {
+            Kernel::Gaussian { width }
+            | Kernel::Laplacian { width }
+            | Kernel::Matern { width, .. }
+            | Kernel::RationalQuadratic { width, .. } => {
+                if let Width::PerDim(v) = width {
+                    if v.len() != d {
+                        return Err(Error::input(format!(
+                            "kernel {}: lengthscale has {} entries but the data have {} features",
+                            self.name(),
+                            v.len(),
+                            d
+                        )));
+                    }
+                }
+                Ok(())
+            }
+            Kernel::Sum(v) | Kernel::Product(v) => v.iter().try_for_each(|k| k.check_dim(d)),
+            Kernel::Scaled(_, k) => k.check_dim(d),
+            _ => Ok(()),
+        }
+    }
+
+    /// Per-dimension scale `s` of a shift-invariant kernel (`u = (x−y) ⊙ s`), for `d` inputs.
+    /// Returns `None` for other kernels.
+    pub fn inverse_scale(&self, d: usize) -> Option<Vec<f64>> {
+        let (width, gaussian) = match self {
+            Kernel::Gaussian { width } => (width, true),
+            Kernel::Laplacian { width } => (width, false),
+            Kernel::Matern { width, .. } | Kernel::RationalQuadratic { width, .. } => {
+                (width, false)
+            }
+            _ => return None,
+        };
+        Some(match width {
+            Width::Gamma(g) if gaussian => vec![(2.0 * g).sqrt(); d],
+            Width::Gamma(g) => vec![*g; d],
+            Width::Lengthscale(l) => vec![1.0 / l; d],
+            Width::PerDim(v) => v.iter().map(|l| 1.0 / l).collect(),
+        })
+    }
+
+    /// The profile of a shift-invariant kernel as a function of the scaled squared
+    /// Euclidean distance `‖u‖²` (Gaussian, Matérn, rational quadratic). `None` for others.
+    pub(crate) fn euclidean_profile(&self, r2: f64) -> Option<f64> {
+        let r2 = r2.max(0.0);
+        Some(match self {
+            Kernel::Gaussian { .. } => (-0.5 * r2).exp(),
+            Kernel::Matern { nu, .. } => {
+                let r = r2.sqrt();
+                match nu {
+                    Nu::Half => (-r).exp(),
+                    Nu::ThreeHalves => {
+                        let a = 3f64.sqrt() * r;
+                        (1.0 + a) * (-a).exp()
+                    }
+                    Nu::FiveHalves => {
+                        let a = 5f64.sqrt() * r;
+                        (1.0 + a + 5.0 * r2 / 3.0) * (-a).exp()
+                    }
+                }
+            }
+            Kernel::RationalQuadratic { alpha, .. } => (1.0 + r2 / (2.0 * alpha)).powf(-alpha),
+            _ => return None,
+        })
+    }
+
+    /// The profile of a dot-product kernel given `x·y` and, for arc-cosine, the norms.
+    pub(crate) fn dot_profile(&self, dot: f64, nx: f64, ny: f64) -> Option<f64> {
+        Some(match self {
+            Kernel::Linear => dot,
+            Kernel::Polynomial {
+                degree,
+                gamma,
+                coef0,
+            } => (gamma * dot + coef0).powi(*degree as i32),
+            Kernel::Sigmoid { gamma, coef0 } => (gamma * dot + coef0).tanh(),
+            Kernel::ArcCos { order } => {
+                let theta = if nx == 0.0 || ny == 0.0 {
+                    PI / 2.0
+                } else {
+                    (dot / (nx * ny)).clamp(-1.0, 1.0).acos()
+                };
+                match order {
+                    0 => 1.0 - theta / PI,
+                    _ => nx * ny / PI * (theta.sin() + (PI - theta) * theta.cos()),
+                }
+            }
+            _ => return None,
+        })
+    }
+
+    /// `k(x, y)` for one pair. Panics if the lengths differ.
+    #[track_caller]
+    pub fn eval(&self, x: &[f64], y: &[f64]) -> f64 {
+        assert_eq!(x.len(), y.len(), "kernel eval: inputs of different lengths");
+        match self {
+            Kernel::Sum(v) => v.iter().map(|k| k.eval(x, y)).sum(),
+            Kernel::Product(v) => v.iter().map(|k| k.eval(x, y)).product(),
+            Kernel::Scaled(c, k) => c * k.eval(x, y),
+            Kernel::Laplacian { .. } => {
+                let s = self.inverse_scale(x.len()).unwrap();
+                let l1: f64 = (0..x.len()).map(|j| ((x[j] - y[j]) * s[j]).abs()).sum();
+                (-l1).exp()
+            }
+            k if k.is_shift_invariant() => {
+                let s = k.inverse_scale(x.len()).unwrap();
+                let r2: f64 = (0..x.len()).map(|j| ((x[j] - y[j]) * s[j]).powi(2)).sum();
+                k.euclidean_profile(r2).unwrap()
+            }
+            k => {
+                let dot: f64 = x.iter().zip(y).map(|(a, b)| a * b).sum();
+                let nx = x.iter().map(|a| a * a).sum::<f64>().sqrt();
+                let ny = y.iter().map(|a| a * a).sum::<f64>().sqrt();
+                k.dot_profile(dot, nx, ny).unwrap()
+            }
+        }
+    }
+
+    /// `k(x, x)` where it does not depend on x (shift-invariant kernels and their
+    /// combinations): `Some(value)`, else `None`.
+    pub fn diagonal_constant(&self) -> Option<f64> {
+        match self {
+            k if k.is_shift_invariant() => Some(1.0),
+            Kernel::Sum(v) => v.iter().map(|k| k.diagonal_constant()).sum(),
+            Kernel::Product(v) => v.iter().map(|k| k.diagonal_constant()).product(),
+            Kernel::Scaled(c, k) => k.diagonal_constant().map(|v| c * v),
+            _ => None,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests;

@@ -1,0 +1,565 @@
+//! Parser and printer for kernel expressions.
+//!
+//! Grammar (whitespace is free):
+//! ```text
+//! expr   := term ('+' term)*
+//! term   := factor ('*' factor)*          numbers in a term scale it: 2.5 * k
+//! factor := NUMBER | call | '(' expr ')'
+//! call   := NAME '(' [param (',' param)*] ')'
+//! param  := NAME '=' (NUMBER | '[' NUMBER (',' NUMBER)* ']')
+//! ```
+
+use super::{Kernel, Nu, Width};
+use crate::{Error, Result};
+use std::fmt;
+
+#[derive(Debug, Clone, PartialEq)]
+enum Tok {
+    Num(f64),
+    Name(String),
+    LParen,
+    RParen,
+    LBracket,
+    RBracket,
+    Comma,
+    Eq,
+    Plus,
+    Star,
+}
+
+fn lex(s: &str) -> Result<Vec<(Tok, usize)>> {
+    let b = s.as_bytes();
+    let mut out = Vec::new();
+    let mut i = 0;
+    while i < b.len() {
+        let c = b[i] as char;
+        let start = i;
+        match c {
+            ' ' | '\t' | '\n' | '\r' => {
+                i += 1;
+                continue;
+            }
+            '(' => out.push((Tok::LParen, i)),
+            ')' => out.push((Tok::RParen, i)),
+            '[' => out.push((Tok::LBracket, i)),
+            ']' => out.push((Tok::RBracket, i)),
+            ',' => out.push((Tok::Comma, i)),
+            '=' => out.push((Tok::Eq, i)),
+            '+' => out.push((Tok::Plus, i)),
+            '*' => out.push((Tok::Star, i)),
+            c if c.is_ascii_digit() || c == '.' || c == '-' => {
+                i += 1;
+                while i < b.len() {
+                    let d = b[i] as char;
+                    let exp_sign = (d == '-' || d == '+') && matches!(b[i - 1], b'e' | b'E');
+                    if d.is_ascii_alphanumeric() || d == '.' || exp_sign {
+                        i += 1;
+                    } else {
+                        break;
+                    }
+                }
+                let text = &s[start..i];
+                let v: f64 = text.parse().map_err(|_| {
+                    Error::input(format!(
+                        "kernel expression: '{text}' at position {} is not a number",
+                        start + 1
+                    ))
+                })?;
+                out.push((Tok::Num(v), start));
+                continue;
+            }
+            c if c.is_ascii_alphabetic() || c == '_' => {
+                i += 1;
+                while i < b.len() && ((b[i] as char).is_ascii_alphanumeric() || b[i] == b'_') {
+                    i += 1;
+                }
+                let name = s[start..i].to_ascii_lowercase();
+                match name.as_str() {
+                    "nan" => out.push((Tok::Num(f64::NAN), start)),
+                    "inf" | "infinity" => out.push((Tok::Num(f64::INFINITY), start)),
+                    _ => out.push((Tok::Name(name), start)),
+                }
+                continue;
+            }
+            other => {
+                return Err(Error::input(format!(
+                    "kernel expression: unexpected character '{other}' at position {}",
+                    i + 1
+                )))
+            }
+        }
+        i += 1;
+    }
+    Ok(out)
+}
+
+struct Parser {
+    toks: Vec<(Tok, usize)>,
+    pos: usize,
+    len: usize,
+}
+
+#[derive(Debug, Clone)]
+enum Value {
+    Num(f64),
+    List(Vec<f64>),
+}
+
+enum Factor {
+    Num(f64),
+    Kernel(Kernel),
+}
+
+impl Parser {
+    fn peek(&self) -> Option<&Tok> {
+        self.toks.get(self.pos).map(|t| &t.0)
+    }
+    fn at(&self) -> usize {
+        self.toks.get(self.pos).map(|t| t.1 + 1).unwrap_or(self.len + 1)
+    }
+    fn err(&self, what: &str) -> Error {
+        let found = match self.peek() {
+            None => "the end".to_string(),
+            Some(t) => format!("{t:?}"),
+        };
+        Error::input(format!(
+            "kernel expression: expected {what} at position {}, found {found}",
+            self.at()
+        ))
+    }
+    fn eat(&mut self, t: &Tok) -> bool {
+        if self.peek() == Some(t) {
+            self.pos += 1;
+            true
+        } else {
+            false
+        }
+    }
+    fn expect(&mut self, t: Tok, what: &str) -> Result<()> {
+        if self.eat(&t) {
+            Ok(())
+        } else {
+            Err(self.err(what))
+        }
+    }
+
+    fn expr(&mut self) -> Result<Kernel> {
+        let mut terms = vec![self.term()?];
+        while self.eat(&Tok::Plus) {
+            terms.push(self.term()?);
+        }
+        Ok(Kernel::sum(terms))
+    }
+
+    fn term(&mut self) -> Result<Kernel> {
+        let start = self.at();
+        let mut coef: Option<f64> = None;
+        let mut ks = Vec::new();
+        loop {
+            match self.factor()? {
+                Factor::Num(v) => {
+                    if !(v > 0.0 && v.is_finite()) {
+                        return Err(Error::input(format!(
+                            "kernel expression: scale factor {v} near position {start} must be a positive finite number"
+                        )));
+                    }
+                    coef = Some(coef.unwrap_or(1.0) * v);
+                }
+                Factor::Kernel(k) => ks.push(k),
+            }
+            if !self.eat(&Tok::Star) {
+                break;
+            }
+        }
+        if ks.is_empty() {
+            return Err(Error::input(format!(
+                "kernel expression: a number alone is not a kernel (near position {start}); write for example 2 * linear()"
+            )));
+        }
+        let k = Kernel::product(ks);
+        Ok(match coef {
+            Some(c) => Kernel::Scaled(c, Box::new(k)),
+            None => k,
+        })
+    }
+
+    fn factor(&mut self) -> Result<Factor> {
+        match self.peek().cloned() {
+            Some(Tok::Num(v)) => {
+                self.pos += 1;
+                Ok(Factor::Num(v))
+            }
+            Some(Tok::LParen) => {
+                self.pos += 1;
+                let k = self.expr()?;
+                self.expect(Tok::RParen, "')'")?;
+                Ok(Factor::Kernel(k))
+            }
+            Some(Tok::Name(name)) => {
+                let at = self.at();
+                self.pos += 1;
+                self.expect(Tok::LParen, &format!("'(' after '{name}'"))?;
+                let mut params: Vec<(String, Value, usize)> = Vec::new();
+                if !self.eat(&Tok::RParen) {
+                    loop {
+                        let pat = self.at();
+                        let key = match self.peek().cloned() {
+                            Some(Tok::Name(k)) => {
+                                self.pos += 1;
+                                k
+                            }
+                            _ => return Err(self.err("a parameter name")),
+                        };
+                        self.expect(Tok::Eq, &format!("'=' after '{key}'"))?;
+                        let v = self.value()?;
+                        if params.iter().any(|p| p.0 == key) {
+                            return Err(Error::input(format!(
+                                "kernel {name}: parameter '{key}' given twice (position {pat})"
+                            )));
+                        }
+                        params.push((key, v, pat));
+                        if self.eat(&Tok::RParen) {
+                            break;
+                        }
+                        self.expect(Tok::Comma, "',' or ')'")?;
+                    }
+                }
+                build(&name, params, at).map(Factor::Kernel)
+            }
+            _ => Err(self.err("a kernel name, a number or '('")),
+        }
+    }
+
+    fn value(&mut self) -> Result<Value> {
+        match self.peek().cloned() {
+            Some(Tok::Num(v)) => {
+                self.pos += 1;
+                Ok(Value::Num(v))
+            }
+            Some(Tok::LBracket) => {
+                self.pos += 1;
+                let mut v = Vec::new();
+                loop {
+                    match self.peek().cloned() {
+                        Some(Tok::Num(x)) => {
+                            self.pos += 1;
+                            v.push(x)
+                        }
+                        _ => return Err(self.err("a number in the list")),
+                    }
+                    if self.eat(&Tok::RBracket) {
+                        break;
+                    }
+                    self.expect(Tok::Comma, "',' or ']'")?;
+                }
+                Ok(Value::List(v))
+            }
+            _ => Err(self.err("a number or a [list]")),
+        }
+    }
+}
+
+/// Parses a kernel expression.
+pub(crate) fn parse(s: &str) -> Result<Kernel> {
+    let toks = lex(s)?;
+    if toks.is_empty() {
+        return Err(Error::input("kernel expression is empty"));
+    }
+    let mut p = Parser {
+        toks,
+        pos: 0,
+        len: s.len(),
+    };
+    let k = p.expr()?;
+    if p.pos != p.toks.len() {
+        return Err(p.err("'+', '*' or the end of the expression"));
+    }
+    Ok(k)
+}
+
+const KERNELS: &str =
+    "gaussian, laplacian, matern, rational_quadratic, polynomial, arccos, linear, sigmoid";
+
+struct Params {
+    kernel: String,
+    at: usize,
+    items: Vec<(String, Value, usize)>,
+}
+
+impl Params {
+    fn take(&mut self, key: &str) -> Option<Value> {
+        let i = self.items.iter().position(|p| p.0 == key)?;
+        Some(self.items.remove(i).1)
+    }
+    fn num(&mut self, key: &str, default: Option<f64>) -> Result<f64> {
+        match self.take(key) {
+            Some(Value::Num(v)) => Ok(v),
+            Some(Value::List(_)) => Err(Error::input(format!(
+                "kernel {}: parameter '{key}' must be one number, not a list",
+                self.kernel
+            ))),
+            None => default.ok_or_else(|| {
+                Error::input(format!(
+                    "kernel {} (position {}): parameter '{key}' is required",
+                    self.kernel, self.at
+                ))
+            }),
+        }
+    }
+    fn positive(&mut self, key: &str, default: Option<f64>) -> Result<f64> {
+        let v = self.num(key, default)?;
+        // `!(v > 0)` also rejects NaN.
+        if !(v > 0.0) || !v.is_finite() {
+            return Err(Error::input(format!(
+                "kernel {}: {key} = {v} is invalid; expected a positive finite number",
+                self.kernel
+            )));
+        }
+        Ok(v)
+    }
+    fn finite(&mut self, key: &str, default: Option<f64>) -> Result<f64> {
+        let v = self.num(key, default)?;
+        if !v.is_finite() {
+            return Err(Error::input(format!(
+                "kernel {}: {key} = {v} is invalid; expected a finite number",
+                self.kernel
+            )));
+        }
+        Ok(v)
+    }
+    /// `gamma=` or `lengthscale=` (scalar or list); exactly one unless `allow_gamma` is false.
+    fn width(&mut self, allow_gamma: bool, default_ls: Option<f64>) -> Result<Width> {
+        let has_gamma = self.items.iter().any(|p| p.0 == "gamma");
+        let has_ls = self.items.iter().any(|p| p.0 == "lengthscale");
+        if has_gamma && !allow_gamma {
+            return Err(Error::input(format!(
+                "kernel {}: takes 'lengthscale', not 'gamma'",
+                self.kernel
+            )));
+        }
+        if has_gamma && has_ls {
+            return Err(Error::input(format!(
+                "kernel {}: give either 'gamma' or 'lengthscale', not both",
+                self.kernel
+            )));
+        }
+        if has_gamma {
+            return Ok(Width::Gamma(self.positive("gamma", None)?));
+        }
+        match self.take("lengthscale") {
+            Some(Value::List(v)) => {
+                if v.is_empty() || v.iter().any(|l| !(*l > 0.0) || !l.is_finite()) {
+                    return Err(Error::input(format!(
+                        "kernel {}: every lengthscale must be a positive finite number, got {v:?}",
+                        self.kernel
+                    )));
+                }
+                Ok(Width::PerDim(v))
+            }
+            Some(Value::Num(l)) => {
+                self.items.push(("lengthscale".into(), Value::Num(l), 0));
+                Ok(Width::Lengthscale(self.positive("lengthscale", None)?))
+            }
+            None => match default_ls {
+                Some(l) => Ok(Width::Lengthscale(l)),
+                None => Err(Error::input(format!(
+                    "kernel {} (position {}): needs 'gamma' or 'lengthscale'",
+                    self.kernel, self.at
+                ))),
+            },
+        }
+    }
+    fn finish(self, allowed: &str) -> Result<()> {
+        if let Some((k, _, at)) = self.items.first() {
+            return Err(Error::input(format!(
+                "kernel {}: unknown parameter '{k}' (position {at}); it takes {allowed}",
+                self.kernel
+            )));
+        }
+        Ok(())
+    }
+}
+
+fn build(name: &str, items: Vec<(String, Value, usize)>, at: usize) -> Result<Kernel> {
+    let mut p = Params {
+        kernel: name.to_string(),
+        at,
+        items,
+    };
+    let k = match name {
+        "gaussian" => {
+            let width = p.width(true, None)?;
+            p.finish("gamma or lengthscale")?;
+            Kernel::Gaussian { width }
+        }
+        "laplacian" => {
+            let width = p.width(true, None)?;
+            p.finish("gamma or lengthscale")?;
+            Kernel::Laplacian { width }
+        }
+        "matern" => {
+            let nu_v = p.num("nu", None)?;
+            let nu = if nu_v == 0.5 {
+                Nu::Half
+            } else if nu_v == 1.5 {
+                Nu::ThreeHalves
+            } else if nu_v == 2.5 {
+                Nu::FiveHalves
+            } else {
+                return Err(Error::input(format!(
+                    "kernel matern: nu = {nu_v} is not supported; expected 0.5, 1.5 or 2.5"
+                )));
+            };
+            let width = p.width(false, Some(1.0))?;
+            p.finish("nu and lengthscale")?;
+            Kernel::Matern { nu, width }
+        }
+        "rational_quadratic" => {
+            let alpha = p.positive("alpha", Some(1.0))?;
+            let width = p.width(false, Some(1.0))?;
+            p.finish("alpha and lengthscale")?;
+            Kernel::RationalQuadratic { alpha, width }
+        }
+        "polynomial" => {
+            let dv = p.num("degree", None)?;
+            if !(dv >= 1.0) || dv.fract() != 0.0 || dv > 32.0 {
+                return Err(Error::input(format!(
+                    "kernel polynomial: degree = {dv} is invalid; expected a whole number from 1 to 32"
+                )));
+            }
+            let gamma = p.positive("gamma", Some(1.0))?;
+            let coef0 = p.finite("coef0", Some(1.0))?;
+            if coef0 < 0.0 {
+                return Err(Error::input(format!(
+                    "kernel polynomial: coef0 = {coef0} is invalid; expected coef0 ≥ 0 (a negative coef0 is not positive definite)"
+                )));
+            }
+            p.finish("degree, gamma and coef0")?;
+            Kernel::Polynomial {
+                degree: dv as u32,
+                gamma,
+                coef0,
+            }
+        }
+        "arccos" => {
+            let o = p.num("order", Some(1.0))?;
+            if o != 0.0 && o != 1.0 {
+                return Err(Error::input(format!(
+                    "kernel arccos: order = {o} is not supported; expected 0 or 1"
+                )));
+            }
+            p.finish("order")?;
+            Kernel::ArcCos { order: o as u32 }
+        }
+        "linear" => {
+            p.finish("no parameters")?;
+            Kernel::Linear
+        }
+        "sigmoid" => {
+            let gamma = p.positive("gamma", Some(1.0))?;
+            let coef0 = p.finite("coef0", Some(0.0))?;
+            p.finish("gamma and coef0")?;
+            Kernel::Sigmoid { gamma, coef0 }
+        }
+        other => {
+            return Err(Error::input(format!(
+                "kernel expression: unknown kernel '{other}' at position {at}; known kernels: {KERNELS}"
+            )))
+        }
+    };
+    Ok(k)
+}
+
+fn fmt_width(w: &Width, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+    match w {
+        Width::Gamma(g) => write!(f, "gamma={g:?}"),
+        Width::Lengthscale(l) => write!(f, "lengthscale={l:?}"),
+        Width::PerDim(v) => {
+            write!(f, "lengthscale=[")?;
+            for (i, l) in v.iter().enumerate() {
+                if i > 0 {
+                    write!(f, ", ")?;
+                }
+                write!(f, "{l:?}")?;
+            }
+            write!(f, "]")
+        }
+    }
+}
+
+/// Prints in the syntax `parse` reads; floats use Rust's shortest round-trip form.
+pub(crate) fn print(k: &Kernel, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+    match k {
+        Kernel::Gaussian { width } => {
+            write!(f, "gaussian(")?;
+            fmt_width(width, f)?;
+            write!(f, ")")
+        }
+        Kernel::Laplacian { width } => {
+            write!(f, "laplacian(")?;
+            fmt_width(width, f)?;
+            write!(f, ")")
+        }
+        Kernel::Matern { nu, width } => {
+            write!(f, "matern(nu={:?}, ", nu.value())?;
+            fmt_width(width, f)?;
+            write!(f, ")")
+        }
+        Kernel::RationalQuadratic { alpha, width } => {
+            write!(f, "rational_quadratic(alpha={alpha:?}, ")?;
+            fmt_width(width, f)?;
+            write!(f, ")")
+        }
+        Kernel::Polynomial {
+            degree,
+            gamma,
+            coef0,
+        } => write!(
+            f,
+            "polynomial(degree={degree}, gamma={gamma:?}, coef0={coef0:?})"
+        ),
+        Kernel::ArcCos { order } => write!(f, "arccos(order={order})"),
+        Kernel::Linear => write!(f, "linear()"),
+        Kernel::Sigmoid { gamma, coef0 } => write!(f, "sigmoid(gamma={gamma:?}, coef0={coef0:?})"),
+        Kernel::Sum(v) => {
+            for (i, t) in v.iter().enumerate() {
+                if i > 0 {
+                    write!(f, " + ")?;
+                }
+                if matches!(t, Kernel::Sum(_)) {
+                    write!(f, "(")?;
+                    print(t, f)?;
+                    write!(f, ")")?;
+                } else {
+                    print(t, f)?;
+                }
+            }
+            Ok(())
+        }
+        Kernel::Product(v) => {
+            for (i, t) in v.iter().enumerate() {
+                if i > 0 {
+                    write!(f, " * ")?;
+                }
+                if matches!(t, Kernel::Sum(_) | Kernel::Scaled(..) | Kernel::Product(_)) {
+                    write!(f, "(")?;
+                    print(t, f)?;
+                    write!(f, ")")?;
+                } else {
+                    print(t, f)?;
+                }
+            }
+            Ok(())
+        }
+        Kernel::Scaled(c, inner) => {
+            write!(f, "{c:?} * ")?;
+            if matches!(**inner, Kernel::Sum(_) | Kernel::Scaled(..)) {
+                write!(f, "(")?;
+                print(inner, f)?;
+                write!(f, ")")
+            } else {
+                print(inner, f)
+            }
+        }
+    }
+}

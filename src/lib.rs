@@ -1,0 +1,34 @@
+//! # kernelpress
+//!
+//! Compile kernel machines (kernel SVMs, kernel ridge regressors) into compact
+//! random-feature models, measure how far they are from the exact model, and export them.
+//!
+//! The data flow is one line: kernel → sampler → feature map → head fit → compiled
+//! model → export, with the error report beside it. Each stage is its own module:
+//!
+//! - [`kernel`]: expression syntax, exact evaluation, Gram blocks;
+//! - [`data`]: CSV and `.npy` readers and writers, input scaling;
+//! - [`model`]: model files (one safetensors file with a JSON manifest);
+//! - [`exact`]: exact teachers (kernel ridge, C-SVM by SMO) and exact scoring;
+//! - [`linalg`]: deterministic dense linear algebra through faer.
+//!
+//! ## Conventions
+//! - Inputs are rows; a batch is an `n × d` array of `f64`.
+//! - A binary model's decision value is positive for the *second* class label.
+//! - One-vs-one models have one decision value per class pair `(i, j)`, `i < j`, in the
+//!   order (0,1), (0,2), …, (1,2), …; a positive value votes for `i`, ties go to the lowest
+//!   class index.
+//! - Everything is deterministic: the same inputs and seed give bit-identical outputs,
+//!   whatever the number of threads.
+#![warn(missing_docs)]
+
+pub mod cli;
+pub mod data;
+mod error;
+pub mod exact;
+pub mod kernel;
+pub mod linalg;
+pub mod model;
+pub mod progress;
+
+pub use error::{Error, ErrorKind, Result};

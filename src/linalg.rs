@@ -1,0 +1,198 @@
+//! Dense linear algebra on ndarray values, through faer.
+//!
+//! Every routine here is deterministic: products are split into fixed-size row chunks
+//! (whatever the number of threads) and each chunk runs faer sequentially, so the same
+//! inputs give bit-identical outputs on 1 or 64 threads.
+
+use faer::linalg::matmul::matmul;
+use faer::prelude::*;
+use faer::{Accum, Mat, MatRef, Par, Side};
+use ndarray::{s, Array2, ArrayView2, Axis};
+use rayon::prelude::*;
+
+use crate::{Error, Result};
+
+/// Rows per parallel chunk of a product. Fixed so results never depend on the thread count.
+pub const CHUNK_ROWS: usize = 256;
+
+fn as_faer<'a>(a: &'a ArrayView2<'a, f64>) -> MatRef<'a, f64> {
+    let (m, n) = a.dim();
+    let st = a.strides();
+    // SAFETY: the pointer, shape and strides come from a live ndarray view of f64.
+    unsafe { MatRef::from_raw_parts(a.as_ptr(), m, n, st[0], st[1]) }
+}
+
+/// `a · bᵀ`, sequential, for one chunk. Panics if the inner dimensions differ.
+#[track_caller]
+pub fn abt_seq(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
+    assert_eq!(a.ncols(), b.ncols(), "abt: inner dimensions differ");
+    let mut out = Array2::<f64>::zeros((a.nrows(), b.nrows()));
+    if a.ncols() == 0 || a.nrows() == 0 || b.nrows() == 0 {
+        return out;
+    }
+    let (m, n) = out.dim();
+    let fa = as_faer(&a);
+    let fb = as_faer(&b);
+    let dst = faer::MatMut::from_row_major_slice_mut(out.as_slice_mut().unwrap(), m, n);
+    matmul(dst, Accum::Replace, fa, fb.transpose(), 1.0, Par::Seq);
+    out
+}
+
+/// `a · b`, sequential, for one chunk. Panics if the inner dimensions differ.
+#[track_caller]
+pub fn ab_seq(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
+    assert_eq!(a.ncols(), b.nrows(), "ab: inner dimensions differ");
+    let mut out = Array2::<f64>::zeros((a.nrows(), b.ncols()));
+    if a.ncols() == 0 || a.nrows() == 0 || b.ncols() == 0 {
+        return out;
+    }
+    let (m, n) = out.dim();
+    let fa = as_faer(&a);
+    let fb = as_faer(&b);
+    let dst = faer::MatMut::from_row_major_slice_mut(out.as_slice_mut().unwrap(), m, n);
+    matmul(dst, Accum::Replace, fa, fb, 1.0, Par::Seq);
+    out
+}
+
+/// Applies `f` to fixed-size row chunks of `a` in parallel and stacks the results
+/// (each `chunk_rows × k`) in row order.
+pub fn map_row_chunks<F>(a: ArrayView2<f64>, k: usize, f: F) -> Array2<f64>
+where
+    F: Fn(ArrayView2<f64>) -> Array2<f64> + Sync,
+{
+    let n = a.nrows();
+    let mut out = Array2::<f64>::zeros((n, k));
+    out.axis_chunks_iter_mut(Axis(0), CHUNK_ROWS)
+        .into_par_iter()
+        .enumerate()
+        .for_each(|(ci, mut dst)| {
+            let start = ci * CHUNK_ROWS;
+            let rows = dst.nrows();
+            let block = f(a.slice(s![start..start + rows, ..]));
+            dst.assign(&block);
+        });
+    out
+}
+
+/// `a · b` in parallel over fixed row chunks.
+pub fn ab(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
+    map_row_chunks(a, b.ncols(), |c| ab_seq(c, b))
+}
+
+/// `aᵀ · a` accumulated over fixed row chunks in a fixed order (deterministic).
+pub fn ata(a: ArrayView2<f64>) -> Array2<f64> {
+    let k = a.ncols();
+    let mut acc = Array2::<f64>::zeros((k, k));
+    for c in a.axis_chunks_iter(Axis(0), 4096) {
+        acc += &ab_seq(c.t(), c);
+    }
+    acc
+}
+
+fn to_faer(a: ArrayView2<f64>) -> Mat<f64> {
+    Mat::from_fn(a.nrows(), a.ncols(), |i, j| a[[i, j]])
+}
+
+fn from_faer(m: MatRef<f64>) -> Array2<f64> {
+    Array2::from_shape_fn((m.nrows(), m.ncols()), |(i, j)| m[(i, j)])
+}
+
+/// Solves the symmetric positive definite system `a · x = b` by Cholesky.
+///
+/// Returns an input error naming `what` when `a` is not numerically positive definite.
+pub fn cholesky_solve(a: ArrayView2<f64>, b: ArrayView2<f64>, what: &str) -> Result<Array2<f64>> {
+    faer::set_global_parallelism(Par::Seq);
+    let fa = to_faer(a);
+    let llt = fa.llt(Side::Lower).map_err(|e| {
+        Error::input(format!(
+            "{what}: matrix is not positive definite ({e:?}); increase the ridge strength"
+        ))
+    })?;
+    let fb = to_faer(b);
+    let x = llt.solve(&fb);
+    Ok(from_faer(x.as_ref()))
+}
+
+/// Eigenvalues of a symmetric matrix, ascending.
+pub fn eigvalsh(a: ArrayView2<f64>) -> Result<Vec<f64>> {
+    faer::set_global_parallelism(Par::Seq);
+    let fa = to_faer(a);
+    fa.self_adjoint_eigenvalues(Side::Lower)
+        .map_err(|e| Error::internal(format!("eigenvalue solver did not converge: {e:?}")))
+}
+
+/// Eigen-decomposition of a symmetric matrix: (ascending eigenvalues, eigenvectors as columns).
+pub fn eigh(a: ArrayView2<f64>) -> Result<(Vec<f64>, Array2<f64>)> {
+    faer::set_global_parallelism(Par::Seq);
+    let fa = to_faer(a);
+    let evd = fa
+        .self_adjoint_eigen(Side::Lower)
+        .map_err(|e| Error::internal(format!("eigen-decomposition did not converge: {e:?}")))?;
+    let s = evd.S();
+    let vals: Vec<f64> = (0..a.nrows()).map(|i| s[i]).collect();
+    Ok((vals, from_faer(evd.U())))
+}
+
+/// Thin QR of a square or tall matrix: returns Q (m × n) with the signs fixed so that
+/// diag(R) ≥ 0 (so Q is Haar-distributed when `a` is Gaussian).
+pub fn qr_q_signfixed(a: ArrayView2<f64>) -> Array2<f64> {
+    faer::set_global_parallelism(Par::Seq);
+    let fa = to_faer(a);
+    let qr = fa.qr();
+    let q = qr.compute_thin_Q();
+    let r = qr.thin_R();
+    let mut out = from_faer(q.as_ref());
+    for j in 0..out.ncols() {
+        if r[(j, j)] < 0.0 {
+            out.column_mut(j).mapv_inplace(|v| -v);
+        }
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    #[test]
+    fn products_match_ndarray_dot() {
+        let a = Array2::from_shape_fn((300, 7), |(i, j)| ((i * 7 + j) as f64).sin());
+        let b = Array2::from_shape_fn((5, 7), |(i, j)| ((i + 3 * j) as f64).cos());
+        let want = a.dot(&b.t());
+        let got = map_row_chunks(a.view(), 5, |c| abt_seq(c, b.view()));
+        assert!((&want - &got).iter().all(|v| v.abs() < 1e-12));
+        let got2 = ab(a.view(), b.t());
+        assert!((&want - &got2).iter().all(|v| v.abs() < 1e-12));
+        let g = ata(a.view());
+        assert!((&g - &a.t().dot(&a)).iter().all(|v| v.abs() < 1e-9));
+    }
+
+    #[test]
+    fn cholesky_solves() {
+        let a = array![[4.0, 1.0], [1.0, 3.0]];
+        let b = array![[1.0], [2.0]];
+        let x = cholesky_solve(a.view(), b.view(), "test").unwrap();
+        let r = a.dot(&x) - &b;
+        assert!(r.iter().all(|v| v.abs() < 1e-12));
+        let bad = array![[1.0, 2.0], [2.0, 1.0]];
+        assert!(cholesky_solve(bad.view(), b.view(), "test").is_err());
+    }
+
+    #[test]
+    fn qr_is_orthogonal_with_positive_r() {
+        let a = Array2::from_shape_fn((6, 6), |(i, j)| ((i * 13 + j * 7 + i * j * i) as f64 * 0.37).sin() + if i == j { 2.0 } else { 0.0 });
+        let q = qr_q_signfixed(a.view());
+        let qtq = q.t().dot(&q);
+        for i in 0..6 {
+            for j in 0..6 {
+                let e = if i == j { 1.0 } else { 0.0 };
+                assert!((qtq[[i, j]] - e).abs() < 1e-12);
+            }
+        }
+        let r = q.t().dot(&a);
+        for j in 0..6 {
+            assert!(r[[j, j]] >= 0.0);
+        }
+    }
+}
