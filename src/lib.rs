@@ -24,6 +24,7 @@
 
 pub mod cli;
 pub mod data;
+pub mod demo;
 mod error;
 pub mod exact;
 pub mod kernel;

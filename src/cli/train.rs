@@ -36,13 +36,13 @@ pub(crate) struct Args {
     #[arg(long, value_enum)]
     model: ModelKind,
     /// SVM box constraint C.
-    #[arg(long, default_value_t = 1.0)]
+    #[arg(long, default_value_t = 1.0, allow_negative_numbers = true)]
     c: f64,
     /// Ridge strength λ for kernel ridge.
-    #[arg(long, default_value_t = 1e-3)]
+    #[arg(long, default_value_t = 1e-3, allow_negative_numbers = true)]
     ridge: f64,
     /// SMO stopping tolerance on the KKT violation.
-    #[arg(long, default_value_t = 1e-3)]
+    #[arg(long, default_value_t = 1e-3, allow_negative_numbers = true)]
     tol: f64,
     /// Kernel cache per binary SMO solver, in MiB.
     #[arg(long, default_value_t = 256)]

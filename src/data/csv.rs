@@ -19,7 +19,7 @@ fn split(line: &str) -> Vec<String> {
 }
 
 /// Reads a CSV file; see [`read_csv_str`].
-pub fn read_csv(path: &Path, target: Option<&str>) -> Result<Table> {
+pub fn read_csv(path: &Path, target: Option<&str>, require_target: bool) -> Result<Table> {
     let bytes = super::read_bytes(path)?;
     let text = String::from_utf8(bytes).map_err(|e| {
         Error::input(format!(
@@ -28,7 +28,20 @@ pub fn read_csv(path: &Path, target: Option<&str>) -> Result<Table> {
             e.utf8_error().valid_up_to()
         ))
     })?;
-    read_csv_str(&text, &path.display().to_string(), target)
+    let src = path.display().to_string();
+    if require_target {
+        if let Some(t) = target {
+            let head = text.lines().find(|l| !l.trim().is_empty()).unwrap_or("");
+            let names = split(head.trim_start_matches('\u{feff}'));
+            if !head.is_empty() && !names.iter().any(|n| n == t) {
+                return Err(Error::input(format!(
+                    "{src}: target column '{t}' not found; columns are {}",
+                    names.join(", ")
+                )));
+            }
+        }
+    }
+    read_csv_str(&text, &src, target)
 }
 
 /// Parses CSV text. `source` names it in errors; `target` is the label column, if any

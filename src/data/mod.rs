@@ -10,9 +10,11 @@
 //! ```
 
 mod csv;
+mod idx;
 mod npy;
 
 pub use csv::{read_csv, read_csv_str, write_csv};
+pub use idx::{read_idx_images, read_idx_labels};
 pub use npy::{parse_npy, read_npy, write_npy_f32, write_npy_f64, NpyArray};
 
 use crate::error::io_error;
@@ -79,7 +81,7 @@ pub fn read_table(path: &Path, target: Option<&str>, require_target: bool) -> Re
             source: path.display().to_string(),
         });
     }
-    let t = read_csv(path, target)?;
+    let t = read_csv(path, target, require_target)?;
     if require_target && t.target.is_none() {
         return Err(Error::input(format!(
             "{}: target column '{}' not found; columns are {}",

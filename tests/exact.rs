@@ -1,0 +1,178 @@
+//! Exact teachers end to end: kernel ridge against numpy.linalg.solve, SMO against its KKT
+//! conditions and an independent scipy QP solution, model files read by the Python
+//! safetensors package, and determinism.
+
+mod common;
+use common::*;
+use kernelpress::exact::{solve_binary, SmoOptions};
+use kernelpress::kernel::Kernel;
+use ndarray::Array2;
+
+fn lcg(seed: u64) -> impl FnMut() -> f64 {
+    let mut s = seed;
+    move || {
+        s = s.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+        ((s >> 11) as f64) / ((1u64 << 53) as f64)
+    }
+}
+
+/// Two noisy interleaved classes in 2-D.
+fn two_class(n: usize, seed: u64) -> (Vec<Vec<f64>>, Vec<String>) {
+    let mut r = lcg(seed);
+    let mut xs = Vec::new();
+    let mut ys = Vec::new();
+    for i in 0..n {
+        let c = i % 2;
+        let t = r() * 6.0;
+        let (cx, cy) = if c == 0 { (t.cos() * 2.0, t.sin()) } else { (t.cos() * 2.0 + 1.0, -t.sin() + 0.5) };
+        xs.push(vec![cx + (r() - 0.5) * 1.2, cy + (r() - 0.5) * 1.2]);
+        ys.push(if c == 0 { "neg".into() } else { "pos".into() });
+    }
+    (xs, ys)
+}
+
+#[test]
+fn ridge_regression_matches_numpy_solve() {
+    let dir = tmpdir("ridge_regression_matches_numpy_solve");
+    let mut r = lcg(1);
+    let rows: Vec<Vec<f64>> = (0..150).map(|_| vec![r() * 4.0, r() * 10.0 - 5.0, r()]).collect();
+    let y: Vec<String> = rows.iter().map(|v| format!("{}", (v[0]).sin() + 0.1 * v[1] + v[2] * v[2])).collect();
+    let train = dir.join("train.csv");
+    write_csv(&train, &["a", "b", "c"], &rows, Some(("y", &y)));
+    let model = dir.join("m.safetensors");
+    ok(&["train", "--data", s(&train), "--target", "y", "--kernel", "gaussian(gamma=0.3)", "--model", "ridge", "--ridge", "0.01", "--standardize", "--out", s(&model)]);
+    let test = dir.join("test.csv");
+    write_csv(&test, &["a", "b", "c"], &rows[..40].iter().map(|v| v.iter().map(|x| x + 0.05).collect()).collect::<Vec<_>>(), Some(("y", &y[..40])));
+    let score = dir.join("score.csv");
+    ok(&["score", s(&model), "--data", s(&test), "--target", "y", "--out", s(&score)]);
+    py("ridge.py", &[s(&model), s(&train), "y", "0.01", s(&test), s(&score)]);
+}
+
+#[test]
+fn ridge_classification_matches_numpy_solve() {
+    let dir = tmpdir("ridge_classification_matches_numpy_solve");
+    let (rows, y) = two_class(120, 5);
+    let train = dir.join("train.csv");
+    write_csv(&train, &["u", "v"], &rows, Some(("kind", &y)));
+    let model = dir.join("m.safetensors");
+    ok(&["train", "--data", s(&train), "--target", "kind", "--kernel", "polynomial(degree=3, gamma=0.5, coef0=1)", "--model", "ridge", "--ridge", "0.1", "--classify", "--out", s(&model)]);
+    let score = dir.join("score.csv");
+    ok(&["score", s(&model), "--data", s(&train), "--target", "kind", "--out", s(&score)]);
+    py("ridge.py", &[s(&model), s(&train), "kind", "0.1", s(&train), s(&score)]);
+    py("score_file.py", &[s(&model), s(&train), "kind", s(&score)]);
+}
+
+fn kkt_violation(k: &Kernel, x: &Array2<f64>, y: &[f64], alpha: &[f64], b: f64, c: f64) -> f64 {
+    // KKT for the C-SVM dual (Platt 1998): with u_t = y_t f(x_t),
+    // α=0 ⇒ u ≥ 1, 0<α<C ⇒ u = 1, α=C ⇒ u ≤ 1. Computed here from scratch.
+    let g = k.gram(x.view(), x.view());
+    let mut worst: f64 = 0.0;
+    for t in 0..y.len() {
+        let f: f64 = (0..y.len()).map(|i| alpha[i] * y[i] * g[[i, t]]).sum::<f64>() + b;
+        let u = y[t] * f;
+        let v = if alpha[t] <= 0.0 {
+            (1.0 - u).max(0.0)
+        } else if alpha[t] >= c {
+            (u - 1.0).max(0.0)
+        } else {
+            (u - 1.0).abs()
+        };
+        worst = worst.max(v);
+    }
+    let eq: f64 = alpha.iter().zip(y).map(|(a, y)| a * y).sum();
+    assert!(eq.abs() < 1e-9, "yᵀα = {eq}");
+    assert!(alpha.iter().all(|a| *a >= 0.0 && *a <= c));
+    worst
+}
+
+#[test]
+fn smo_meets_kkt_conditions_with_full_and_row_cache() {
+    let (rows, ys) = two_class(300, 9);
+    let x = Array2::from_shape_vec((300, 2), rows.concat()).unwrap();
+    let y: Vec<f64> = ys.iter().map(|l| if l == "pos" { 1.0 } else { -1.0 }).collect();
+    let k: Kernel = "gaussian(gamma=0.8)".parse().unwrap();
+    for (cache, name) in [(1 << 30, "full"), (300 * 8 * 20, "20 rows")] {
+        let opts = SmoOptions { c: 5.0, tol: 1e-4, cache_bytes: cache, max_iter: 0 };
+        let sol = solve_binary(&k, x.view(), &y, &opts);
+        assert!(!sol.hit_cap);
+        assert!(sol.gap < 1e-4);
+        let v = kkt_violation(&k, &x, &y, &sol.alpha, sol.b, 5.0);
+        // The stopping rule m − M < tol bounds every KKT violation by tol (Fan et al. 2005).
+        assert!(v < 1e-4 * 1.01, "{name}: KKT violation {v}");
+        let nsv = sol.alpha.iter().filter(|a| **a > 0.0).count();
+        assert!(nsv > 10 && nsv < 300, "{name}: {nsv} SVs");
+    }
+}
+
+#[test]
+fn svm_matches_independent_scipy_qp() {
+    let dir = tmpdir("svm_matches_independent_scipy_qp");
+    let (rows, y) = two_class(200, 3);
+    let train = dir.join("train.csv");
+    write_csv(&train, &["u", "v"], &rows, Some(("kind", &y)));
+    let (trows, ty) = two_class(80, 4);
+    let test = dir.join("test.csv");
+    write_csv(&test, &["u", "v"], &trows, Some(("kind", &ty)));
+    let model = dir.join("m.safetensors");
+    ok(&["train", "--data", s(&train), "--target", "kind", "--kernel", "gaussian(gamma=0.5)", "--model", "svm", "--c", "2", "--tol", "1e-6", "--out", s(&model)]);
+    let score = dir.join("score.csv");
+    ok(&["score", s(&model), "--data", s(&test), "--target", "kind", "--out", s(&score)]);
+    // labels sorted: neg, pos → positive decision means "pos".
+    py("svm_qp.py", &[s(&train), "kind", "pos", "0.5", "2", s(&test), s(&score)]);
+    py("score_file.py", &[s(&model), s(&test), "kind", s(&score)]);
+}
+
+#[test]
+fn multiclass_svm_file_is_read_by_python_and_deterministic() {
+    let dir = tmpdir("multiclass_svm_file_is_read_by_python_and_deterministic");
+    let text = std::fs::read_to_string(root().join("models/pump_train.csv")).unwrap();
+    let small: String = text.lines().take(701).map(|l| format!("{l}\n")).collect();
+    let train = dir.join("train.csv");
+    std::fs::write(&train, small).unwrap();
+    let m1 = dir.join("m1.safetensors");
+    let m2 = dir.join("m2.safetensors");
+    let args = |out: &str| {
+        vec!["train".to_string(), "--data".into(), s(&train).into(), "--target".into(), "condition".into(), "--kernel".into(),
+            "gaussian(gamma=0.25)".into(), "--model".into(), "svm".into(), "--c".into(), "10".into(), "--standardize".into(), "--out".into(), out.into()]
+    };
+    let a1 = args(s(&m1));
+    let o = std::process::Command::new(bin()).args(&a1).env("RAYON_NUM_THREADS", "1").output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let a2 = args(s(&m2));
+    let o = std::process::Command::new(bin()).args(&a2).env("RAYON_NUM_THREADS", "2").output().unwrap();
+    assert!(o.status.success());
+    assert_eq!(std::fs::read(&m1).unwrap(), std::fs::read(&m2).unwrap(), "model files differ across thread counts");
+    let score = dir.join("score.csv");
+    ok(&["score", s(&m1), "--data", s(&root().join("models/pump_test.csv")), "--target", "condition", "--out", s(&score)]);
+    py("score_file.py", &[s(&m1), s(&root().join("models/pump_test.csv")), "condition", s(&score)]);
+    let info = ok(&["inspect", s(&m1), "--json"]);
+    let v: serde_json::Value = serde_json::from_str(&info).unwrap();
+    assert_eq!(v["manifest"]["task"], "ovo");
+    assert_eq!(v["manifest"]["n_outputs"], 6);
+}
+
+#[test]
+fn import_from_arrays_scores_like_the_formula() {
+    let dir = tmpdir("import_from_arrays_scores_like_the_formula");
+    let sv = [0.0, 0.0, 1.0, 0.0, 0.0, 2.0];
+    kernelpress::data::write_npy_f64(&dir.join("sv.npy"), &[3, 2], &sv).unwrap();
+    kernelpress::data::write_npy_f64(&dir.join("coef.npy"), &[3], &[1.0, -2.0, 0.5]).unwrap();
+    let model = dir.join("m.safetensors");
+    ok(&["import", "--support-vectors", s(&dir.join("sv.npy")), "--coef", s(&dir.join("coef.npy")), "--intercept", "-0.25",
+        "--kernel", "gaussian(gamma=0.5)", "--labels", "ok,worn", "--out", s(&model)]);
+    let data = dir.join("d.csv");
+    std::fs::write(&data, "p,q\n0,0\n1,1\n").unwrap();
+    let out = ok(&["score", s(&model), "--data", s(&data)]);
+    let lines: Vec<&str> = out.lines().collect();
+    assert_eq!(lines[0], "decision,label");
+    // By hand: f(0,0) = 1 − 2e^{−½} + 0.5e^{−2} − 0.25.
+    let f0: f64 = 1.0 - 2.0 * (-0.5f64).exp() + 0.5 * (-2.0f64).exp() - 0.25;
+    let got: f64 = lines[1].split(',').next().unwrap().parse().unwrap();
+    assert!((got - f0).abs() < 1e-12);
+    assert!(lines[1].ends_with(if f0 > 0.0 { "worn" } else { "ok" }));
+    py("score_file.py", &[s(&model), s(&data), "none", s(&{
+        let p = dir.join("score.csv");
+        std::fs::write(&p, &out).unwrap();
+        p
+    })]);
+}
