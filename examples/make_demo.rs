@@ -12,7 +12,11 @@ use std::path::Path;
 fn main() -> Result<(), Box<dyn std::error::Error>> {
     let dir = Path::new("models");
     std::fs::create_dir_all(dir)?;
-    let sets = [("pump_train.csv", 5000, 11), ("pump_calib.csv", 8000, 12), ("pump_test.csv", 3000, 13)];
+    let sets = [
+        ("pump_train.csv", 5000, 11),
+        ("pump_calib.csv", 8000, 12),
+        ("pump_test.csv", 3000, 13),
+    ];
     for (name, n, seed) in sets {
         let (x, y) = pump_data(n, seed);
         write_atomic(&dir.join(name), to_csv(&x, &y).as_bytes())?;
@@ -23,8 +27,17 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let s = Standardizer::fit(t.x.view());
     let xs = s.apply(t.x.view());
     let kernel = "gaussian(gamma=0.25)".parse()?;
-    let opts = SmoOptions { c: 10.0, ..SmoOptions::default() };
-    let mut m = fit_svm(&kernel, xs.view(), t.target.as_ref().unwrap(), &opts, Some(s))?;
+    let opts = SmoOptions {
+        c: 10.0,
+        ..SmoOptions::default()
+    };
+    let mut m = fit_svm(
+        &kernel,
+        xs.view(),
+        t.target.as_ref().unwrap(),
+        &opts,
+        Some(s),
+    )?;
     m.feature_names = t.columns.clone();
     m.save(&dir.join("pump_svm.safetensors"))?;
     println!(

@@ -41,14 +41,19 @@ pub fn pump_data(n: usize, seed: u64) -> (Array2<f64>, Vec<String>) {
     for i in 0..n {
         let c: usize = rng.random_range(0..4);
         // Severity of the fault: 0 for healthy, mild to strong otherwise.
-        let sev: f64 = if c == 0 { 0.0 } else { rng.random_range(0.05..1.0) };
+        let sev: f64 = if c == 0 {
+            0.0
+        } else {
+            rng.random_range(0.05..1.0)
+        };
         let load: f64 = rng.random_range(0.4..1.0);
         let e = |rng: &mut rand::rngs::ChaCha20Rng, s: f64| -> f64 {
             let z: f64 = noise.sample(rng);
             z * s
         };
         let base_rms = 1.8 + 1.2 * load;
-        let (mut b1, mut b2, mut bb, mut kurt, mut temp) = (1.0, 0.35, 0.2, 3.0, 45.0 + 15.0 * load);
+        let (mut b1, mut b2, mut bb, mut kurt, mut temp) =
+            (1.0, 0.35, 0.2, 3.0, 45.0 + 15.0 * load);
         match c {
             1 => b1 += 1.6 * sev,
             2 => {

@@ -181,7 +181,9 @@ mod tests {
 
     #[test]
     fn qr_is_orthogonal_with_positive_r() {
-        let a = Array2::from_shape_fn((6, 6), |(i, j)| ((i * 13 + j * 7 + i * j * i) as f64 * 0.37).sin() + if i == j { 2.0 } else { 0.0 });
+        let a = Array2::from_shape_fn((6, 6), |(i, j)| {
+            ((i * 13 + j * 7 + i * j * i) as f64 * 0.37).sin() + if i == j { 2.0 } else { 0.0 }
+        });
         let q = qr_q_signfixed(a.view());
         let qtq = q.t().dot(&q);
         for i in 0..6 {

@@ -14,11 +14,25 @@ fn missing_and_empty_files() {
     let out = dir.join("out.csv");
     let e = bad(&["score", "nope.safetensors", "--data", "x.csv"]);
     assert!(e.contains("nope.safetensors"), "{e}");
-    let e = bad(&["score", &demo_model(), "--data", s(&dir.join("missing.csv")), "--out", s(&out)]);
+    let e = bad(&[
+        "score",
+        &demo_model(),
+        "--data",
+        s(&dir.join("missing.csv")),
+        "--out",
+        s(&out),
+    ]);
     assert!(e.contains("missing.csv"), "{e}");
     let empty = dir.join("empty.csv");
     std::fs::write(&empty, "").unwrap();
-    let e = bad(&["score", &demo_model(), "--data", s(&empty), "--out", s(&out)]);
+    let e = bad(&[
+        "score",
+        &demo_model(),
+        "--data",
+        s(&empty),
+        "--out",
+        s(&out),
+    ]);
     assert!(e.contains("empty"), "{e}");
     let e = bad(&["score", s(&empty), "--data", s(&empty)]);
     assert!(e.contains("empty"), "{e}");
@@ -31,18 +45,69 @@ fn bad_csv_cells_name_row_and_column() {
     let out = dir.join("m.safetensors");
     let p = dir.join("d.csv");
     std::fs::write(&p, "a,b,y\n1,2,x\n3,oops,y\n").unwrap();
-    let e = bad(&["train", "--data", s(&p), "--target", "y", "--kernel", "linear()", "--model", "svm", "--out", s(&out)]);
-    assert!(e.contains("row 2") && e.contains("column 'b'") && e.contains("oops"), "{e}");
+    let e = bad(&[
+        "train",
+        "--data",
+        s(&p),
+        "--target",
+        "y",
+        "--kernel",
+        "linear()",
+        "--model",
+        "svm",
+        "--out",
+        s(&out),
+    ]);
+    assert!(
+        e.contains("row 2") && e.contains("column 'b'") && e.contains("oops"),
+        "{e}"
+    );
     for v in ["NaN", "inf", "-Infinity"] {
         std::fs::write(&p, format!("a,b,y\n1,2,x\n3,{v},y\n")).unwrap();
-        let e = bad(&["train", "--data", s(&p), "--target", "y", "--kernel", "linear()", "--model", "svm", "--out", s(&out)]);
+        let e = bad(&[
+            "train",
+            "--data",
+            s(&p),
+            "--target",
+            "y",
+            "--kernel",
+            "linear()",
+            "--model",
+            "svm",
+            "--out",
+            s(&out),
+        ]);
         assert!(e.contains("finite") && e.contains("row 2"), "{e}");
     }
     std::fs::write(&p, "a,b,y\n1,2,x\n3,4,y\n").unwrap();
-    let e = bad(&["train", "--data", s(&p), "--target", "label", "--kernel", "linear()", "--model", "svm", "--out", s(&out)]);
+    let e = bad(&[
+        "train",
+        "--data",
+        s(&p),
+        "--target",
+        "label",
+        "--kernel",
+        "linear()",
+        "--model",
+        "svm",
+        "--out",
+        s(&out),
+    ]);
     assert!(e.contains("target column 'label' not found"), "{e}");
     std::fs::write(&p, "a,b,y\n1,2,x\n3,4\n").unwrap();
-    let e = bad(&["train", "--data", s(&p), "--target", "y", "--kernel", "linear()", "--model", "svm", "--out", s(&out)]);
+    let e = bad(&[
+        "train",
+        "--data",
+        s(&p),
+        "--target",
+        "y",
+        "--kernel",
+        "linear()",
+        "--model",
+        "svm",
+        "--out",
+        s(&out),
+    ]);
     assert!(e.contains("row 2") && e.contains("fields"), "{e}");
     assert!(!out.exists());
 }
@@ -64,20 +129,38 @@ fn truncated_corrupted_and_absurd_model_files() {
     let good = std::fs::read(root().join("models/pump_svm.safetensors")).unwrap();
     let data = s(&root().join("models/pump_test.csv")).to_string();
     let cases: Vec<(&str, Vec<u8>, &str)> = vec![
-        ("trunc.safetensors", good[..good.len() / 2].to_vec(), "truncated"),
+        (
+            "trunc.safetensors",
+            good[..good.len() / 2].to_vec(),
+            "truncated",
+        ),
         ("tiny.safetensors", good[..5].to_vec(), "truncated"),
-        ("garbage.safetensors", (0..4096u32).map(|i| (i.wrapping_mul(2654435761) >> 13) as u8).collect(), ""),
-        ("absurd.safetensors", {
-            let mut b = good.clone();
-            b[..8].copy_from_slice(&(u64::MAX / 2).to_le_bytes());
-            b
-        }, "header claims"),
-        ("flipped.safetensors", {
-            // Corrupt the JSON header.
-            let mut b = good.clone();
-            b[12] = b'#';
-            b
-        }, "safetensors"),
+        (
+            "garbage.safetensors",
+            (0..4096u32)
+                .map(|i| (i.wrapping_mul(2654435761) >> 13) as u8)
+                .collect(),
+            "",
+        ),
+        (
+            "absurd.safetensors",
+            {
+                let mut b = good.clone();
+                b[..8].copy_from_slice(&(u64::MAX / 2).to_le_bytes());
+                b
+            },
+            "header claims",
+        ),
+        (
+            "flipped.safetensors",
+            {
+                // Corrupt the JSON header.
+                let mut b = good.clone();
+                b[12] = b'#';
+                b
+            },
+            "safetensors",
+        ),
     ];
     for (name, bytes, needle) in cases {
         let p = dir.join(name);
@@ -105,10 +188,36 @@ fn bad_kernels_and_flags() {
         ("matern(nu=3, lengthscale=1)", "nu = 3"),
         ("gaussian(lengthscale=[1, 2, 3])", "3 entries"),
     ] {
-        let e = bad(&["train", "--data", s(&p), "--target", "y", "--kernel", k, "--model", "svm", "--out", s(&out)]);
+        let e = bad(&[
+            "train",
+            "--data",
+            s(&p),
+            "--target",
+            "y",
+            "--kernel",
+            k,
+            "--model",
+            "svm",
+            "--out",
+            s(&out),
+        ]);
         assert!(e.contains(needle), "{k}: {e}");
     }
-    let e = bad(&["train", "--data", s(&p), "--target", "y", "--kernel", "linear()", "--model", "svm", "--c", "-1", "--out", s(&out)]);
+    let e = bad(&[
+        "train",
+        "--data",
+        s(&p),
+        "--target",
+        "y",
+        "--kernel",
+        "linear()",
+        "--model",
+        "svm",
+        "--c",
+        "-1",
+        "--out",
+        s(&out),
+    ]);
     assert!(e.contains("--c"), "{e}");
     let e = bad(&["kernel-check", "--kernel", "linear()"]);
     assert!(e.contains("--dim"), "{e}");

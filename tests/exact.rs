@@ -11,7 +11,9 @@ use ndarray::Array2;
 fn lcg(seed: u64) -> impl FnMut() -> f64 {
     let mut s = seed;
     move || {
-        s = s.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+        s = s
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
         ((s >> 11) as f64) / ((1u64 << 53) as f64)
     }
 }
@@ -24,7 +26,11 @@ fn two_class(n: usize, seed: u64) -> (Vec<Vec<f64>>, Vec<String>) {
     for i in 0..n {
         let c = i % 2;
         let t = r() * 6.0;
-        let (cx, cy) = if c == 0 { (t.cos() * 2.0, t.sin()) } else { (t.cos() * 2.0 + 1.0, -t.sin() + 0.5) };
+        let (cx, cy) = if c == 0 {
+            (t.cos() * 2.0, t.sin())
+        } else {
+            (t.cos() * 2.0 + 1.0, -t.sin() + 0.5)
+        };
         xs.push(vec![cx + (r() - 0.5) * 1.2, cy + (r() - 0.5) * 1.2]);
         ys.push(if c == 0 { "neg".into() } else { "pos".into() });
     }
@@ -35,17 +41,57 @@ fn two_class(n: usize, seed: u64) -> (Vec<Vec<f64>>, Vec<String>) {
 fn ridge_regression_matches_numpy_solve() {
     let dir = tmpdir("ridge_regression_matches_numpy_solve");
     let mut r = lcg(1);
-    let rows: Vec<Vec<f64>> = (0..150).map(|_| vec![r() * 4.0, r() * 10.0 - 5.0, r()]).collect();
-    let y: Vec<String> = rows.iter().map(|v| format!("{}", (v[0]).sin() + 0.1 * v[1] + v[2] * v[2])).collect();
+    let rows: Vec<Vec<f64>> = (0..150)
+        .map(|_| vec![r() * 4.0, r() * 10.0 - 5.0, r()])
+        .collect();
+    let y: Vec<String> = rows
+        .iter()
+        .map(|v| format!("{}", (v[0]).sin() + 0.1 * v[1] + v[2] * v[2]))
+        .collect();
     let train = dir.join("train.csv");
     write_csv(&train, &["a", "b", "c"], &rows, Some(("y", &y)));
     let model = dir.join("m.safetensors");
-    ok(&["train", "--data", s(&train), "--target", "y", "--kernel", "gaussian(gamma=0.3)", "--model", "ridge", "--ridge", "0.01", "--standardize", "--out", s(&model)]);
+    ok(&[
+        "train",
+        "--data",
+        s(&train),
+        "--target",
+        "y",
+        "--kernel",
+        "gaussian(gamma=0.3)",
+        "--model",
+        "ridge",
+        "--ridge",
+        "0.01",
+        "--standardize",
+        "--out",
+        s(&model),
+    ]);
     let test = dir.join("test.csv");
-    write_csv(&test, &["a", "b", "c"], &rows[..40].iter().map(|v| v.iter().map(|x| x + 0.05).collect()).collect::<Vec<_>>(), Some(("y", &y[..40])));
+    write_csv(
+        &test,
+        &["a", "b", "c"],
+        &rows[..40]
+            .iter()
+            .map(|v| v.iter().map(|x| x + 0.05).collect())
+            .collect::<Vec<_>>(),
+        Some(("y", &y[..40])),
+    );
     let score = dir.join("score.csv");
-    ok(&["score", s(&model), "--data", s(&test), "--target", "y", "--out", s(&score)]);
-    py("ridge.py", &[s(&model), s(&train), "y", "0.01", s(&test), s(&score)]);
+    ok(&[
+        "score",
+        s(&model),
+        "--data",
+        s(&test),
+        "--target",
+        "y",
+        "--out",
+        s(&score),
+    ]);
+    py(
+        "ridge.py",
+        &[s(&model), s(&train), "y", "0.01", s(&test), s(&score)],
+    );
 }
 
 #[test]
@@ -55,10 +101,37 @@ fn ridge_classification_matches_numpy_solve() {
     let train = dir.join("train.csv");
     write_csv(&train, &["u", "v"], &rows, Some(("kind", &y)));
     let model = dir.join("m.safetensors");
-    ok(&["train", "--data", s(&train), "--target", "kind", "--kernel", "polynomial(degree=3, gamma=0.5, coef0=1)", "--model", "ridge", "--ridge", "0.1", "--classify", "--out", s(&model)]);
+    ok(&[
+        "train",
+        "--data",
+        s(&train),
+        "--target",
+        "kind",
+        "--kernel",
+        "polynomial(degree=3, gamma=0.5, coef0=1)",
+        "--model",
+        "ridge",
+        "--ridge",
+        "0.1",
+        "--classify",
+        "--out",
+        s(&model),
+    ]);
     let score = dir.join("score.csv");
-    ok(&["score", s(&model), "--data", s(&train), "--target", "kind", "--out", s(&score)]);
-    py("ridge.py", &[s(&model), s(&train), "kind", "0.1", s(&train), s(&score)]);
+    ok(&[
+        "score",
+        s(&model),
+        "--data",
+        s(&train),
+        "--target",
+        "kind",
+        "--out",
+        s(&score),
+    ]);
+    py(
+        "ridge.py",
+        &[s(&model), s(&train), "kind", "0.1", s(&train), s(&score)],
+    );
     py("score_file.py", &[s(&model), s(&train), "kind", s(&score)]);
 }
 
@@ -68,7 +141,10 @@ fn kkt_violation(k: &Kernel, x: &Array2<f64>, y: &[f64], alpha: &[f64], b: f64, 
     let g = k.gram(x.view(), x.view());
     let mut worst: f64 = 0.0;
     for t in 0..y.len() {
-        let f: f64 = (0..y.len()).map(|i| alpha[i] * y[i] * g[[i, t]]).sum::<f64>() + b;
+        let f: f64 = (0..y.len())
+            .map(|i| alpha[i] * y[i] * g[[i, t]])
+            .sum::<f64>()
+            + b;
         let u = y[t] * f;
         let v = if alpha[t] <= 0.0 {
             (1.0 - u).max(0.0)
@@ -89,10 +165,18 @@ fn kkt_violation(k: &Kernel, x: &Array2<f64>, y: &[f64], alpha: &[f64], b: f64, 
 fn smo_meets_kkt_conditions_with_full_and_row_cache() {
     let (rows, ys) = two_class(300, 9);
     let x = Array2::from_shape_vec((300, 2), rows.concat()).unwrap();
-    let y: Vec<f64> = ys.iter().map(|l| if l == "pos" { 1.0 } else { -1.0 }).collect();
+    let y: Vec<f64> = ys
+        .iter()
+        .map(|l| if l == "pos" { 1.0 } else { -1.0 })
+        .collect();
     let k: Kernel = "gaussian(gamma=0.8)".parse().unwrap();
     for (cache, name) in [(1 << 30, "full"), (300 * 8 * 20, "20 rows")] {
-        let opts = SmoOptions { c: 5.0, tol: 1e-4, cache_bytes: cache, max_iter: 0 };
+        let opts = SmoOptions {
+            c: 5.0,
+            tol: 1e-4,
+            cache_bytes: cache,
+            max_iter: 0,
+        };
         let sol = solve_binary(&k, x.view(), &y, &opts);
         assert!(!sol.hit_cap);
         assert!(sol.gap < 1e-4);
@@ -114,11 +198,39 @@ fn svm_matches_independent_scipy_qp() {
     let test = dir.join("test.csv");
     write_csv(&test, &["u", "v"], &trows, Some(("kind", &ty)));
     let model = dir.join("m.safetensors");
-    ok(&["train", "--data", s(&train), "--target", "kind", "--kernel", "gaussian(gamma=0.5)", "--model", "svm", "--c", "2", "--tol", "1e-6", "--out", s(&model)]);
+    ok(&[
+        "train",
+        "--data",
+        s(&train),
+        "--target",
+        "kind",
+        "--kernel",
+        "gaussian(gamma=0.5)",
+        "--model",
+        "svm",
+        "--c",
+        "2",
+        "--tol",
+        "1e-6",
+        "--out",
+        s(&model),
+    ]);
     let score = dir.join("score.csv");
-    ok(&["score", s(&model), "--data", s(&test), "--target", "kind", "--out", s(&score)]);
+    ok(&[
+        "score",
+        s(&model),
+        "--data",
+        s(&test),
+        "--target",
+        "kind",
+        "--out",
+        s(&score),
+    ]);
     // labels sorted: neg, pos → positive decision means "pos".
-    py("svm_qp.py", &[s(&train), "kind", "pos", "0.5", "2", s(&test), s(&score)]);
+    py(
+        "svm_qp.py",
+        &[s(&train), "kind", "pos", "0.5", "2", s(&test), s(&score)],
+    );
     py("score_file.py", &[s(&model), s(&test), "kind", s(&score)]);
 }
 
@@ -132,19 +244,62 @@ fn multiclass_svm_file_is_read_by_python_and_deterministic() {
     let m1 = dir.join("m1.safetensors");
     let m2 = dir.join("m2.safetensors");
     let args = |out: &str| {
-        vec!["train".to_string(), "--data".into(), s(&train).into(), "--target".into(), "condition".into(), "--kernel".into(),
-            "gaussian(gamma=0.25)".into(), "--model".into(), "svm".into(), "--c".into(), "10".into(), "--standardize".into(), "--out".into(), out.into()]
+        vec![
+            "train".to_string(),
+            "--data".into(),
+            s(&train).into(),
+            "--target".into(),
+            "condition".into(),
+            "--kernel".into(),
+            "gaussian(gamma=0.25)".into(),
+            "--model".into(),
+            "svm".into(),
+            "--c".into(),
+            "10".into(),
+            "--standardize".into(),
+            "--out".into(),
+            out.into(),
+        ]
     };
     let a1 = args(s(&m1));
-    let o = std::process::Command::new(bin()).args(&a1).env("RAYON_NUM_THREADS", "1").output().unwrap();
+    let o = std::process::Command::new(bin())
+        .args(&a1)
+        .env("RAYON_NUM_THREADS", "1")
+        .output()
+        .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let a2 = args(s(&m2));
-    let o = std::process::Command::new(bin()).args(&a2).env("RAYON_NUM_THREADS", "2").output().unwrap();
+    let o = std::process::Command::new(bin())
+        .args(&a2)
+        .env("RAYON_NUM_THREADS", "2")
+        .output()
+        .unwrap();
     assert!(o.status.success());
-    assert_eq!(std::fs::read(&m1).unwrap(), std::fs::read(&m2).unwrap(), "model files differ across thread counts");
+    assert_eq!(
+        std::fs::read(&m1).unwrap(),
+        std::fs::read(&m2).unwrap(),
+        "model files differ across thread counts"
+    );
     let score = dir.join("score.csv");
-    ok(&["score", s(&m1), "--data", s(&root().join("models/pump_test.csv")), "--target", "condition", "--out", s(&score)]);
-    py("score_file.py", &[s(&m1), s(&root().join("models/pump_test.csv")), "condition", s(&score)]);
+    ok(&[
+        "score",
+        s(&m1),
+        "--data",
+        s(&root().join("models/pump_test.csv")),
+        "--target",
+        "condition",
+        "--out",
+        s(&score),
+    ]);
+    py(
+        "score_file.py",
+        &[
+            s(&m1),
+            s(&root().join("models/pump_test.csv")),
+            "condition",
+            s(&score),
+        ],
+    );
     let info = ok(&["inspect", s(&m1), "--json"]);
     let v: serde_json::Value = serde_json::from_str(&info).unwrap();
     assert_eq!(v["manifest"]["task"], "ovo");
@@ -158,8 +313,21 @@ fn import_from_arrays_scores_like_the_formula() {
     kernelpress::data::write_npy_f64(&dir.join("sv.npy"), &[3, 2], &sv).unwrap();
     kernelpress::data::write_npy_f64(&dir.join("coef.npy"), &[3], &[1.0, -2.0, 0.5]).unwrap();
     let model = dir.join("m.safetensors");
-    ok(&["import", "--support-vectors", s(&dir.join("sv.npy")), "--coef", s(&dir.join("coef.npy")), "--intercept", "-0.25",
-        "--kernel", "gaussian(gamma=0.5)", "--labels", "ok,worn", "--out", s(&model)]);
+    ok(&[
+        "import",
+        "--support-vectors",
+        s(&dir.join("sv.npy")),
+        "--coef",
+        s(&dir.join("coef.npy")),
+        "--intercept",
+        "-0.25",
+        "--kernel",
+        "gaussian(gamma=0.5)",
+        "--labels",
+        "ok,worn",
+        "--out",
+        s(&model),
+    ]);
     let data = dir.join("d.csv");
     std::fs::write(&data, "p,q\n0,0\n1,1\n").unwrap();
     let out = ok(&["score", s(&model), "--data", s(&data)]);
@@ -170,9 +338,17 @@ fn import_from_arrays_scores_like_the_formula() {
     let got: f64 = lines[1].split(',').next().unwrap().parse().unwrap();
     assert!((got - f0).abs() < 1e-12);
     assert!(lines[1].ends_with(if f0 > 0.0 { "worn" } else { "ok" }));
-    py("score_file.py", &[s(&model), s(&data), "none", s(&{
-        let p = dir.join("score.csv");
-        std::fs::write(&p, &out).unwrap();
-        p
-    })]);
+    py(
+        "score_file.py",
+        &[
+            s(&model),
+            s(&data),
+            "none",
+            s(&{
+                let p = dir.join("score.csv");
+                std::fs::write(&p, &out).unwrap();
+                p
+            }),
+        ],
+    );
 }

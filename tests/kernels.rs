@@ -8,7 +8,9 @@ use ndarray::Array2;
 use serde_json::json;
 
 fn pts(n: usize, d: usize, salt: f64) -> Array2<f64> {
-    Array2::from_shape_fn((n, d), |(i, j)| ((i * d + j) as f64 * 0.7 + salt).sin() * 1.3)
+    Array2::from_shape_fn((n, d), |(i, j)| {
+        ((i * d + j) as f64 * 0.7 + salt).sin() * 1.3
+    })
 }
 
 #[test]
@@ -19,15 +21,42 @@ fn gram_blocks_match_scipy() {
     write_npy_f64(&dir.join("a.npy"), &[40, 3], a.as_slice().unwrap()).unwrap();
     write_npy_f64(&dir.join("b.npy"), &[25, 3], b.as_slice().unwrap()).unwrap();
     let cases = vec![
-        ("gaussian(gamma=0.7)", json!({"name": "gaussian", "gamma": 0.7})),
-        ("gaussian(lengthscale=[1, 2, 0.5])", json!({"name": "gaussian_ls", "lengthscale": [1, 2, 0.5]})),
-        ("laplacian(gamma=0.3)", json!({"name": "laplacian", "gamma": 0.3})),
-        ("matern(nu=0.5, lengthscale=0.8)", json!({"name": "matern", "nu": 0.5, "lengthscale": 0.8})),
-        ("matern(nu=1.5, lengthscale=0.8)", json!({"name": "matern", "nu": 1.5, "lengthscale": 0.8})),
-        ("matern(nu=2.5, lengthscale=1.7)", json!({"name": "matern", "nu": 2.5, "lengthscale": 1.7})),
-        ("rational_quadratic(alpha=0.7, lengthscale=1.5)", json!({"name": "rational_quadratic", "alpha": 0.7, "lengthscale": 1.5})),
-        ("polynomial(degree=3, gamma=0.5, coef0=1)", json!({"name": "polynomial", "degree": 3, "gamma": 0.5, "coef0": 1.0})),
-        ("sigmoid(gamma=0.2, coef0=-0.3)", json!({"name": "sigmoid", "gamma": 0.2, "coef0": -0.3})),
+        (
+            "gaussian(gamma=0.7)",
+            json!({"name": "gaussian", "gamma": 0.7}),
+        ),
+        (
+            "gaussian(lengthscale=[1, 2, 0.5])",
+            json!({"name": "gaussian_ls", "lengthscale": [1, 2, 0.5]}),
+        ),
+        (
+            "laplacian(gamma=0.3)",
+            json!({"name": "laplacian", "gamma": 0.3}),
+        ),
+        (
+            "matern(nu=0.5, lengthscale=0.8)",
+            json!({"name": "matern", "nu": 0.5, "lengthscale": 0.8}),
+        ),
+        (
+            "matern(nu=1.5, lengthscale=0.8)",
+            json!({"name": "matern", "nu": 1.5, "lengthscale": 0.8}),
+        ),
+        (
+            "matern(nu=2.5, lengthscale=1.7)",
+            json!({"name": "matern", "nu": 2.5, "lengthscale": 1.7}),
+        ),
+        (
+            "rational_quadratic(alpha=0.7, lengthscale=1.5)",
+            json!({"name": "rational_quadratic", "alpha": 0.7, "lengthscale": 1.5}),
+        ),
+        (
+            "polynomial(degree=3, gamma=0.5, coef0=1)",
+            json!({"name": "polynomial", "degree": 3, "gamma": 0.5, "coef0": 1.0}),
+        ),
+        (
+            "sigmoid(gamma=0.2, coef0=-0.3)",
+            json!({"name": "sigmoid", "gamma": 0.2, "coef0": -0.3}),
+        ),
         ("arccos(order=0)", json!({"name": "arccos", "order": 0})),
         ("arccos(order=1)", json!({"name": "arccos", "order": 1})),
         ("linear()", json!({"name": "linear"})),
@@ -67,11 +96,23 @@ fn kernel_check_matches_numpy_eigvalsh() {
     let csv = dir.join("p.csv");
     write_csv(&csv, &["a", "b", "c"], &rows, None);
     for (expr, spec, want_psd) in [
-        ("gaussian(gamma=0.5)", json!({"name": "gaussian", "gamma": 0.5}), true),
-        ("matern(nu=1.5, lengthscale=1)", json!({"name": "matern", "nu": 1.5, "lengthscale": 1.0}), true),
+        (
+            "gaussian(gamma=0.5)",
+            json!({"name": "gaussian", "gamma": 0.5}),
+            true,
+        ),
+        (
+            "matern(nu=1.5, lengthscale=1)",
+            json!({"name": "matern", "nu": 1.5, "lengthscale": 1.0}),
+            true,
+        ),
         // tanh(γ x·y + c) with c < 0 is not positive semidefinite (common practice; the
         // ONNX-ML SIGMOID kernel is the same function).
-        ("sigmoid(gamma=1, coef0=-1)", json!({"name": "sigmoid", "gamma": 1.0, "coef0": -1.0}), false),
+        (
+            "sigmoid(gamma=1, coef0=-1)",
+            json!({"name": "sigmoid", "gamma": 1.0, "coef0": -1.0}),
+            false,
+        ),
     ] {
         let v = kernel_check_json(&["--kernel", expr, "--data", s(&csv)]);
         let out = dir.join("check.json");
@@ -97,7 +138,12 @@ fn kernel_check_reference_spectra() {
     let p = dir.join("three.csv");
     std::fs::write(&p, "x\n0\n1\n2\n").unwrap();
     let v = kernel_check_json(&["--kernel", "gaussian(lengthscale=1)", "--data", s(&p)]);
-    let ev: Vec<f64> = v["smallest_eigenvalues"].as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
+    let ev: Vec<f64> = v["smallest_eigenvalues"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|x| x.as_f64().unwrap())
+        .collect();
     for (g, w) in ev.iter().zip([0.2072388, 0.8646647, 1.9280965]) {
         assert!((g - w).abs() < 1e-7, "{ev:?}");
     }
@@ -112,11 +158,39 @@ fn kernel_check_reference_spectra() {
 
 #[test]
 fn kernel_check_draws_points_deterministically() {
-    let a = ok(&["kernel-check", "--kernel", "laplacian(gamma=1)", "--dim", "4", "--points", "60", "--seed", "3", "--json"]);
-    let b = ok(&["kernel-check", "--kernel", "laplacian(gamma=1)", "--dim", "4", "--points", "60", "--seed", "3", "--json"]);
+    let a = ok(&[
+        "kernel-check",
+        "--kernel",
+        "laplacian(gamma=1)",
+        "--dim",
+        "4",
+        "--points",
+        "60",
+        "--seed",
+        "3",
+        "--json",
+    ]);
+    let b = ok(&[
+        "kernel-check",
+        "--kernel",
+        "laplacian(gamma=1)",
+        "--dim",
+        "4",
+        "--points",
+        "60",
+        "--seed",
+        "3",
+        "--json",
+    ]);
     assert_eq!(a, b);
     let v: serde_json::Value = serde_json::from_str(&a).unwrap();
     assert!(v["psd"].as_bool().unwrap());
-    let text = ok(&["kernel-check", "--kernel", "sigmoid(gamma=2, coef0=-1)", "--dim", "3"]);
+    let text = ok(&[
+        "kernel-check",
+        "--kernel",
+        "sigmoid(gamma=2, coef0=-1)",
+        "--dim",
+        "3",
+    ]);
     assert!(text.contains("NOT positive semidefinite"), "{text}");
 }

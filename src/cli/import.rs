@@ -57,9 +57,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
         .intercept
         .split(',')
         .map(|s| {
-            s.trim().parse::<f64>().ok().filter(|v| v.is_finite()).ok_or_else(|| {
-                Error::input(format!("--intercept: '{s}' is not a finite number"))
-            })
+            s.trim()
+                .parse::<f64>()
+                .ok()
+                .filter(|v| v.is_finite())
+                .ok_or_else(|| Error::input(format!("--intercept: '{s}' is not a finite number")))
         })
         .collect::<Result<_>>()?;
     let labels: Vec<String> = a

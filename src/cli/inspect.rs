@@ -41,7 +41,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
         return super::print_stdout(&format!("{}\n", serde_json::to_string_pretty(&v).unwrap()));
     }
     let mut s = String::new();
-    s.push_str(&format!("file            {} ({} bytes)\n", a.model.display(), bytes));
+    s.push_str(&format!(
+        "file            {} ({} bytes)\n",
+        a.model.display(),
+        bytes
+    ));
     match &model {
         AnyModel::Exact(m) => {
             s.push_str("kind            exact kernel model\n");
@@ -53,7 +57,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
             s.push_str(&format!("input dim       {}\n", m.input_dim()));
             s.push_str(&format!(
                 "input scaling   {}\n",
-                if m.scaling().is_some() { "standardize" } else { "none" }
+                if m.scaling().is_some() {
+                    "standardize"
+                } else {
+                    "none"
+                }
             ));
             s.push_str(&format!("support vectors {}\n", m.n_support_vectors()));
             s.push_str(&format!("outputs         {}\n", m.n_outputs()));

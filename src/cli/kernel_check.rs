@@ -138,7 +138,9 @@ pub(crate) fn run(a: Args) -> Result<()> {
     if psd {
         s.push_str("verdict           numerically positive semidefinite on these points (necessary, not sufficient)\n");
     } else {
-        s.push_str("verdict           NOT positive semidefinite: this kernel is not a Mercer kernel\n");
+        s.push_str(
+            "verdict           NOT positive semidefinite: this kernel is not a Mercer kernel\n",
+        );
     }
     super::print_stdout(&s)
 }

@@ -63,9 +63,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     let t = read_table(&a.data, Some(&a.target), true)?;
     let src = a.data.display().to_string();
     check_batch(t.x.view(), t.x.ncols(), &src)?;
-    kernel
-        .check_dim(t.x.ncols())
-        .map_err(|e| e.context(&src))?;
+    kernel.check_dim(t.x.ncols()).map_err(|e| e.context(&src))?;
     let y = t.target.clone().unwrap();
     let (x, scaling) = if a.standardize {
         let s = Standardizer::fit(t.x.view());

@@ -52,7 +52,9 @@ pub fn read_csv_str(text: &str, source: &str, target: Option<&str>) -> Result<Ta
         .enumerate()
         .filter(|(_, l)| !l.trim().is_empty());
     let (_, header) = lines.next().ok_or_else(|| {
-        Error::input(format!("{source}: file is empty; expected a header row and data rows"))
+        Error::input(format!(
+            "{source}: file is empty; expected a header row and data rows"
+        ))
     })?;
     let names = split(header.trim_start_matches('\u{feff}'));
     let tcol = target.and_then(|t| names.iter().position(|n| n == t));
@@ -144,8 +146,14 @@ mod tests {
         assert!(e.to_string().contains("finite"), "{e}");
         let e = read_csv_str("a,b\n1\n", "f.csv", None).unwrap_err();
         assert!(e.to_string().contains("1 fields"), "{e}");
-        assert!(read_csv_str("", "f.csv", None).unwrap_err().to_string().contains("empty"));
-        assert!(read_csv_str("a,b\n", "f.csv", None).unwrap_err().to_string().contains("no data"));
+        assert!(read_csv_str("", "f.csv", None)
+            .unwrap_err()
+            .to_string()
+            .contains("empty"));
+        assert!(read_csv_str("a,b\n", "f.csv", None)
+            .unwrap_err()
+            .to_string()
+            .contains("no data"));
     }
 
     #[test]

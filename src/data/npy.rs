@@ -55,7 +55,9 @@ fn bad(source: &str, what: impl std::fmt::Display) -> Error {
 /// Parses `.npy` bytes; `source` names them in errors.
 pub fn parse_npy(b: &[u8], source: &str) -> Result<NpyArray> {
     if b.is_empty() {
-        return Err(Error::input(format!("{source}: file is empty; expected a .npy array")));
+        return Err(Error::input(format!(
+            "{source}: file is empty; expected a .npy array"
+        )));
     }
     if b.len() < 10 || &b[..6] != b"\x93NUMPY" {
         return Err(bad(source, "missing the \\x93NUMPY magic"));
@@ -81,18 +83,19 @@ pub fn parse_npy(b: &[u8], source: &str) -> Result<NpyArray> {
         .map_err(|_| bad(source, "header is not text"))?;
     let descr = dict_value(header, "descr").ok_or_else(|| bad(source, "no 'descr' in header"))?;
     let descr = descr.trim_matches(|c| c == '\'' || c == '"');
-    let (size, kind) = match descr {
-        "<f8" | "f8" => (8, 'f'),
-        "<f4" | "f4" => (4, 'f'),
-        "<i8" | "i8" => (8, 'i'),
-        "<i4" | "i4" => (4, 'i'),
-        other => {
-            return Err(bad(
+    let (size, kind) =
+        match descr {
+            "<f8" | "f8" => (8, 'f'),
+            "<f4" | "f4" => (4, 'f'),
+            "<i8" | "i8" => (8, 'i'),
+            "<i4" | "i4" => (4, 'i'),
+            other => return Err(bad(
                 source,
-                format!("dtype '{other}' is not supported; expected little-endian float64 or float32"),
-            ))
-        }
-    };
+                format!(
+                    "dtype '{other}' is not supported; expected little-endian float64 or float32"
+                ),
+            )),
+        };
     let fortran = dict_value(header, "fortran_order")
         .map(|v| v.trim() == "True")
         .unwrap_or(false);
@@ -178,7 +181,10 @@ fn npy_bytes(shape: &[usize], descr: &str, body: Vec<u8>) -> Vec<u8> {
         [n] => format!("({n},)"),
         s => format!(
             "({})",
-            s.iter().map(|v| v.to_string()).collect::<Vec<_>>().join(", ")
+            s.iter()
+                .map(|v| v.to_string())
+                .collect::<Vec<_>>()
+                .join(", ")
         ),
     };
     let mut h = format!("{{'descr': '{descr}', 'fortran_order': False, 'shape': {shape_s}, }}");

@@ -24,7 +24,11 @@ pub fn class_labels(y: &[String]) -> Vec<String> {
     v.sort();
     v.dedup();
     if v.iter().all(|s| s.parse::<f64>().is_ok()) {
-        v.sort_by(|a, b| a.parse::<f64>().unwrap().total_cmp(&b.parse::<f64>().unwrap()));
+        v.sort_by(|a, b| {
+            a.parse::<f64>()
+                .unwrap()
+                .total_cmp(&b.parse::<f64>().unwrap())
+        });
     }
     v
 }

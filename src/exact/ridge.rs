@@ -62,7 +62,11 @@ pub(crate) fn targets(y: &[String], classify: bool) -> Result<(Array2<f64>, Task
                 }
             }
         }
-        Ok((Array2::from_shape_vec((n, 1), v).unwrap(), Task::Regression, vec![]))
+        Ok((
+            Array2::from_shape_vec((n, 1), v).unwrap(),
+            Task::Regression,
+            vec![],
+        ))
     }
 }
 
@@ -81,7 +85,9 @@ pub fn fit_ridge_scaled(
         )));
     }
     if x.nrows() != y.len() {
-        return Err(Error::input("number of targets differs from number of rows"));
+        return Err(Error::input(
+            "number of targets differs from number of rows",
+        ));
     }
     kernel.check_dim(x.ncols())?;
     if !kernel.is_positive_definite() {
@@ -91,7 +97,11 @@ pub fn fit_ridge_scaled(
     }
     let (t, task, labels) = targets(y, opts.classify)?;
     let n = x.nrows();
-    let mean: Vec<f64> = t.columns().into_iter().map(|c| c.sum() / n as f64).collect();
+    let mean: Vec<f64> = t
+        .columns()
+        .into_iter()
+        .map(|c| c.sum() / n as f64)
+        .collect();
     let mut tc = t.clone();
     for mut row in tc.rows_mut() {
         for (v, m) in row.iter_mut().zip(&mean) {

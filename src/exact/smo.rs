@@ -124,7 +124,12 @@ impl<'a> RowCache<'a> {
 }
 
 /// Solves one binary C-SVM on the rows of `x` with labels `y ∈ {−1, +1}`.
-pub fn solve_binary(kernel: &Kernel, x: ArrayView2<f64>, y: &[f64], opts: &SmoOptions) -> SmoSolution {
+pub fn solve_binary(
+    kernel: &Kernel,
+    x: ArrayView2<f64>,
+    y: &[f64],
+    opts: &SmoOptions,
+) -> SmoSolution {
     let n = x.nrows();
     let c = opts.c;
     let mut cache = RowCache::new(kernel, x, opts.cache_bytes);
@@ -330,13 +335,17 @@ pub fn fit_svm(
     let pairs: Vec<(usize, usize)> = if k == 2 {
         vec![(0, 1)]
     } else {
-        (0..k).flat_map(|i| (i + 1..k).map(move |j| (i, j))).collect()
+        (0..k)
+            .flat_map(|i| (i + 1..k).map(move |j| (i, j)))
+            .collect()
     };
     let pb = crate::progress::bar(pairs.len() as u64, "SMO pairs");
     let sols: Vec<(Vec<usize>, Vec<f64>, SmoSolution)> = pairs
         .par_iter()
         .map(|&(ci, cj)| {
-            let rows: Vec<usize> = (0..x.nrows()).filter(|&r| idx[r] == ci || idx[r] == cj).collect();
+            let rows: Vec<usize> = (0..x.nrows())
+                .filter(|&r| idx[r] == ci || idx[r] == cj)
+                .collect();
             let sub = x.select(Axis(0), &rows);
             let yy: Vec<f64> = rows
                 .iter()
@@ -386,8 +395,10 @@ pub fn fit_svm(
                 labels[pairs[p].0], labels[pairs[p].1], sol.gap, opts.tol
             ));
         }
-        notes.push(json!({ "pair": [pairs[p].0, pairs[p].1], "iterations": sol.iterations, "gap": sol.gap,
-            "n_sv": sol.alpha.iter().filter(|a| **a > 0.0).count() }));
+        notes.push(
+            json!({ "pair": [pairs[p].0, pairs[p].1], "iterations": sol.iterations, "gap": sol.gap,
+            "n_sv": sol.alpha.iter().filter(|a| **a > 0.0).count() }),
+        );
     }
     let task = if k == 2 { Task::Binary } else { Task::Ovo };
     let mut m = ExactModel::new(

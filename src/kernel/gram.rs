@@ -127,7 +127,17 @@ fn block(k: &Kernel, a: &Node, b: &Node) -> Array2<f64> {
                 });
             g
         }
-        (k, Node::Dot { data: da, norms: na }, Node::Dot { data: db, norms: nb }) => {
+        (
+            k,
+            Node::Dot {
+                data: da,
+                norms: na,
+            },
+            Node::Dot {
+                data: db,
+                norms: nb,
+            },
+        ) => {
             let mut g = linalg::abt_seq(da.view(), db.view());
             for (i, mut row) in g.axis_iter_mut(Axis(0)).enumerate() {
                 for (j, v) in row.iter_mut().enumerate() {

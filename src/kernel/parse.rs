@@ -115,7 +115,10 @@ impl Parser {
         self.toks.get(self.pos).map(|t| &t.0)
     }
     fn at(&self) -> usize {
-        self.toks.get(self.pos).map(|t| t.1 + 1).unwrap_or(self.len + 1)
+        self.toks
+            .get(self.pos)
+            .map(|t| t.1 + 1)
+            .unwrap_or(self.len + 1)
     }
     fn err(&self, what: &str) -> Error {
         let found = match self.peek() {

@@ -89,7 +89,11 @@ fn bad_parameters_are_errors() {
         assert_eq!(err.kind(), crate::ErrorKind::Input);
     }
     let wrong_len = k("gaussian(lengthscale=[1, 2])");
-    assert!(wrong_len.check_dim(3).unwrap_err().to_string().contains("2 entries"));
+    assert!(wrong_len
+        .check_dim(3)
+        .unwrap_err()
+        .to_string()
+        .contains("2 entries"));
     assert!(wrong_len.check_dim(2).is_ok());
 }
 
@@ -116,9 +120,12 @@ mod prop {
     fn leaf() -> impl Strategy<Value = Kernel> {
         let pos = 1e-6f64..1e6;
         prop_oneof![
-            pos.clone().prop_map(|g| Kernel::Gaussian { width: Width::Gamma(g) }),
-            proptest::collection::vec(pos.clone(), 1..4)
-                .prop_map(|v| Kernel::Laplacian { width: Width::PerDim(v) }),
+            pos.clone().prop_map(|g| Kernel::Gaussian {
+                width: Width::Gamma(g)
+            }),
+            proptest::collection::vec(pos.clone(), 1..4).prop_map(|v| Kernel::Laplacian {
+                width: Width::PerDim(v)
+            }),
             (pos.clone(), 0usize..3).prop_map(|(l, n)| Kernel::Matern {
                 nu: [Nu::Half, Nu::ThreeHalves, Nu::FiveHalves][n],
                 width: Width::Lengthscale(l)

@@ -124,7 +124,11 @@ impl TensorFile {
             .map_err(|e| Error::input(format!("{src}: manifest is not valid JSON: {e}")))?;
         let manifest = match manifest {
             serde_json::Value::Object(m) => m,
-            _ => return Err(Error::input(format!("{src}: manifest is not a JSON object"))),
+            _ => {
+                return Err(Error::input(format!(
+                    "{src}: manifest is not a JSON object"
+                )))
+            }
         };
         let mut tensors = BTreeMap::new();
         for (name, view) in st.tensors() {
@@ -164,11 +168,18 @@ impl TensorFile {
     }
 
     /// A tensor by name with the expected shape (`None` entries match any size).
-    pub fn tensor(&self, name: &str, shape: &[Option<usize>], src: &str) -> Result<(Vec<usize>, Vec<f64>)> {
-        let (s, d) = self.tensors.get(name).ok_or_else(|| {
-            Error::input(format!("{src}: tensor '{name}' is missing"))
-        })?;
-        let ok = s.len() == shape.len() && s.iter().zip(shape).all(|(a, b)| b.is_none_or(|b| *a == b));
+    pub fn tensor(
+        &self,
+        name: &str,
+        shape: &[Option<usize>],
+        src: &str,
+    ) -> Result<(Vec<usize>, Vec<f64>)> {
+        let (s, d) = self
+            .tensors
+            .get(name)
+            .ok_or_else(|| Error::input(format!("{src}: tensor '{name}' is missing")))?;
+        let ok =
+            s.len() == shape.len() && s.iter().zip(shape).all(|(a, b)| b.is_none_or(|b| *a == b));
         if !ok {
             return Err(Error::input(format!(
                 "{src}: tensor '{name}' has shape {s:?}; expected {}",
@@ -184,7 +195,11 @@ impl TensorFile {
             .get(key)
             .and_then(|v| v.as_str())
             .map(|s| s.to_string())
-            .ok_or_else(|| Error::input(format!("{src}: manifest field '{key}' is missing or not a string")))
+            .ok_or_else(|| {
+                Error::input(format!(
+                    "{src}: manifest field '{key}' is missing or not a string"
+                ))
+            })
     }
 
     /// An unsigned integer field of the manifest.

@@ -295,7 +295,11 @@ impl ExactModel {
     /// [`crate::data::check_batch`]).
     #[track_caller]
     pub fn decision(&self, x: ArrayView2<f64>) -> Array2<f64> {
-        assert_eq!(x.ncols(), self.input_dim(), "decision: wrong number of features");
+        assert_eq!(
+            x.ncols(),
+            self.input_dim(),
+            "decision: wrong number of features"
+        );
         let xs = self.scale_inputs(x);
         let prep = self.prepared();
         let k = self.n_outputs();
@@ -353,7 +357,11 @@ impl ExactModel {
             vec![n, d],
             self.support_vectors.iter().copied().collect(),
         );
-        f.put("coefficients", vec![n, k], self.coef.iter().copied().collect());
+        f.put(
+            "coefficients",
+            vec![n, k],
+            self.coef.iter().copied().collect(),
+        );
         f.put("intercepts", vec![k], self.intercept.clone());
         if let Some(s) = &self.scaling {
             f.put("input_mean", vec![d], s.mean.clone());
@@ -433,7 +441,10 @@ impl ExactModel {
         )
         .map_err(|e| e.context(src))?;
         if let Some(serde_json::Value::Array(v)) = f.manifest.get("feature_names") {
-            let names: Vec<String> = v.iter().filter_map(|s| s.as_str().map(String::from)).collect();
+            let names: Vec<String> = v
+                .iter()
+                .filter_map(|s| s.as_str().map(String::from))
+                .collect();
             if names.len() == d {
                 m.feature_names = names;
             }

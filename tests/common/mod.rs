@@ -52,7 +52,11 @@ pub fn bad(args: &[&str]) -> String {
         "kernelpress {args:?} should exit 2; stderr: {err}"
     );
     assert!(!err.contains("panicked"), "panic: {err}");
-    assert_eq!(err.trim().lines().count(), 1, "one-line error expected: {err}");
+    assert_eq!(
+        err.trim().lines().count(),
+        1,
+        "one-line error expected: {err}"
+    );
     err
 }
 
@@ -92,7 +96,12 @@ pub fn s(p: &Path) -> &str {
 }
 
 /// Writes a CSV from rows of numbers plus an optional label column.
-pub fn write_csv(path: &Path, names: &[&str], rows: &[Vec<f64>], labels: Option<(&str, &[String])>) {
+pub fn write_csv(
+    path: &Path,
+    names: &[&str],
+    rows: &[Vec<f64>],
+    labels: Option<(&str, &[String])>,
+) {
     let mut t = names.join(",");
     if let Some((n, _)) = labels {
         t.push(',');
