@@ -3,11 +3,11 @@
 //! ```
 //! use kernelpress::exact::{fit_ridge, RidgeOptions};
 //! use ndarray::array;
-//! let x = array![[0.0], [1.0], [2.0]];
-//! let y = vec!["0.0".to_string(), "1.0".into(), "2.0".into()];
+//! let x = array![[-1.0], [0.0], [1.0]];
+//! let y = vec!["-2.0".to_string(), "0.0".into(), "2.0".into()];
 //! let m = fit_ridge(&"linear()".parse().unwrap(), x.view(), &y, &RidgeOptions { ridge: 1e-9, classify: false }).unwrap();
 //! let s = m.decision(array![[3.0]].view());
-//! assert!((s[[0, 0]] - 3.0).abs() < 1e-3);
+//! assert!((s[[0, 0]] - 6.0).abs() < 1e-6);
 //! ```
 
 pub(crate) mod ridge;
