@@ -29,9 +29,11 @@ pub mod data;
 pub mod demo;
 mod error;
 pub mod exact;
+pub mod features;
 pub mod kernel;
 pub mod linalg;
 pub mod model;
 pub mod progress;
+pub mod transform;
 
 pub use error::{Error, ErrorKind, Result};

@@ -1,0 +1,352 @@
+//! [`FeatureSpec`]: the cheap, comparable, serialisable description of a feature map
+//! (kernel, method, input dimension, feature count, seed, options). Sampling it gives a
+//! [`super::FeatureMap`]; the same spec and seed always give the same map.
+
+use crate::kernel::Kernel;
+use crate::{Error, Result};
+use serde_json::{json, Value};
+
+/// A feature-map method (published methods keep their names).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Method {
+    /// i.i.d. random Fourier features (Rahimi & Recht 2007).
+    Fourier,
+    /// Orthogonal random features (Yu et al. 2016).
+    Orthogonal,
+    /// Structured orthogonal features `H D₁ H D₂ H D₃` (Yu et al. 2016).
+    Hadamard,
+    /// Fastfood `S H G Π H B` (Le, Sarlós & Smola 2013).
+    Fastfood,
+    /// Quasi-Monte Carlo frequencies (Yang et al. 2014).
+    Quasi,
+    /// Nyström landmarks (Williams & Seeger 2001).
+    Nystrom,
+    /// Random Maclaurin features (Kar & Karnick 2012).
+    Maclaurin,
+    /// Tensor Sketch (Pham & Pagh 2013).
+    TensorSketch,
+    /// Step / ReLU random features for arc-cosine kernels (Cho & Saul 2009).
+    Relu,
+    /// The exact identity map of the linear kernel.
+    Identity,
+}
+
+impl Method {
+    /// Every method, in documentation order.
+    pub const ALL: [Method; 10] = [
+        Method::Fourier,
+        Method::Orthogonal,
+        Method::Hadamard,
+        Method::Fastfood,
+        Method::Quasi,
+        Method::Nystrom,
+        Method::Maclaurin,
+        Method::TensorSketch,
+        Method::Relu,
+        Method::Identity,
+    ];
+
+    /// The method's name on the command line and in files.
+    pub fn name(self) -> &'static str {
+        match self {
+            Method::Fourier => "fourier",
+            Method::Orthogonal => "orthogonal",
+            Method::Hadamard => "hadamard",
+            Method::Fastfood => "fastfood",
+            Method::Quasi => "quasi",
+            Method::Nystrom => "nystrom",
+            Method::Maclaurin => "maclaurin",
+            Method::TensorSketch => "tensorsketch",
+            Method::Relu => "relu",
+            Method::Identity => "identity",
+        }
+    }
+
+    /// Parses a method name.
+    pub fn parse(s: &str) -> Result<Method> {
+        Method::ALL
+            .iter()
+            .copied()
+            .find(|m| m.name() == s)
+            .ok_or_else(|| {
+                Error::input(format!(
+                    "method '{s}' is unknown; expected one of {}",
+                    Method::ALL.map(|m| m.name()).join(", ")
+                ))
+            })
+    }
+
+    /// True for the methods drawing frequencies of a shift-invariant kernel.
+    pub fn is_spectral(self) -> bool {
+        matches!(
+            self,
+            Method::Fourier | Method::Orthogonal | Method::Hadamard | Method::Fastfood | Method::Quasi
+        )
+    }
+}
+
+/// The methods that can serve a single (non-composite) kernel.
+pub fn methods_for(k: &Kernel) -> Vec<Method> {
+    use Method::*;
+    match k {
+        Kernel::Gaussian { .. } => vec![Fourier, Orthogonal, Hadamard, Fastfood, Quasi, Nystrom],
+        Kernel::Laplacian { .. } => vec![Fourier, Quasi, Nystrom],
+        Kernel::Matern { .. } | Kernel::RationalQuadratic { .. } => {
+            vec![Fourier, Orthogonal, Quasi, Nystrom]
+        }
+        Kernel::Polynomial { .. } => vec![Maclaurin, TensorSketch, Nystrom],
+        Kernel::ArcCos { .. } => vec![Relu, Nystrom],
+        Kernel::Linear => vec![Identity, Nystrom],
+        Kernel::Sigmoid { .. } => vec![Nystrom],
+        Kernel::Sum(_) | Kernel::Product(_) | Kernel::Scaled(..) => {
+            // Composite: Nyström always; otherwise the method every random part admits.
+            let mut v: Vec<Method> = Method::ALL
+                .iter()
+                .copied()
+                .filter(|m| *m != Method::Identity && composite_ok(k, *m))
+                .collect();
+            if !v.contains(&Nystrom) {
+                v.push(Nystrom);
+            }
+            v
+        }
+    }
+}
+
+fn composite_ok(k: &Kernel, m: Method) -> bool {
+    match k {
+        Kernel::Sum(v) | Kernel::Product(v) => v.iter().all(|c| composite_ok(c, m)),
+        Kernel::Scaled(_, c) => composite_ok(c, m),
+        Kernel::Linear => m != Method::Nystrom,
+        leaf => methods_for(leaf).contains(&m),
+    }
+}
+
+/// Paired `[cos, sin]` (default; lower variance) or cos with a random phase.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FourierVariant {
+    /// `√(1/m) [cos(Wx), sin(Wx)]`, `m = D/2` frequencies.
+    Paired,
+    /// `√(2/D) cos(Wx + b)`, `b ~ U[0, 2π)`.
+    Phase,
+}
+
+/// The low-discrepancy sequence of `quasi`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Sequence {
+    /// Halton, scrambled by random digit permutations.
+    Halton,
+    /// Sobol', scrambled by a random digital shift (≤ 1024 dimensions).
+    Sobol,
+}
+
+/// How Nyström picks landmarks from the data it is given.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Landmarks {
+    /// Uniformly without replacement.
+    Uniform,
+    /// k-means++ seeding (D² sampling) in the kernel's feature space.
+    KmeansPP,
+    /// Approximate ridge leverage scores.
+    Leverage,
+}
+
+/// Method options (each has a default).
+#[derive(Debug, Clone, PartialEq)]
+pub struct MapOptions {
+    /// Fourier-type output.
+    pub fourier: FourierVariant,
+    /// QMC sequence.
+    pub sequence: Sequence,
+    /// Scramble QMC points with the seed (default true).
+    pub scramble: bool,
+    /// Nyström landmark rule.
+    pub landmarks: Landmarks,
+    /// Nyström: eigenvalues below `rank_tol · λ_max` are dropped.
+    pub rank_tol: f64,
+}
+
+impl Default for MapOptions {
+    fn default() -> Self {
+        MapOptions {
+            fourier: FourierVariant::Paired,
+            sequence: Sequence::Halton,
+            scramble: true,
+            landmarks: Landmarks::KmeansPP,
+            rank_tol: 1e-10,
+        }
+    }
+}
+
+/// A feature map's description: cheap to build, compare and store.
+///
+/// ```
+/// use kernelpress::features::{FeatureSpec, Method};
+/// let spec = FeatureSpec::new("gaussian(gamma=0.5)".parse().unwrap(), Method::Orthogonal, 8, 256, 42);
+/// let back = FeatureSpec::from_json(&spec.to_json()).unwrap();
+/// assert_eq!(spec, back);
+/// let map = spec.sample(None).unwrap().0;
+/// assert_eq!(map.output_dim(), 256);
+/// ```
+#[derive(Debug, Clone, PartialEq)]
+pub struct FeatureSpec {
+    /// The kernel to approximate.
+    pub kernel: Kernel,
+    /// The method.
+    pub method: Method,
+    /// Input dimension `d`.
+    pub input_dim: usize,
+    /// Requested feature count `D`.
+    pub features: usize,
+    /// Seed of the ChaCha20 generator that draws the map.
+    pub seed: u64,
+    /// Method options.
+    pub options: MapOptions,
+}
+
+/// The random generator every sampler uses, recorded in files.
+pub const RNG_NAME: &str = "ChaCha20 (rand 0.10, seed_from_u64)";
+
+impl FeatureSpec {
+    /// A spec with default options.
+    pub fn new(kernel: Kernel, method: Method, input_dim: usize, features: usize, seed: u64) -> Self {
+        FeatureSpec {
+            kernel,
+            method,
+            input_dim,
+            features,
+            seed,
+            options: MapOptions::default(),
+        }
+    }
+
+    /// Checks the spec: the kernel fits the dimension and the method can serve the kernel.
+    pub fn validate(&self) -> Result<()> {
+        if self.input_dim == 0 {
+            return Err(Error::input("input dimension must be at least 1"));
+        }
+        if self.features == 0 || self.features > 1 << 20 {
+            return Err(Error::input(format!(
+                "--features {} is invalid; expected 1 to {}",
+                self.features,
+                1 << 20
+            )));
+        }
+        self.kernel.check_dim(self.input_dim)?;
+        let ok = methods_for(&self.kernel);
+        if !ok.contains(&self.method) {
+            return Err(Error::input(format!(
+                "method '{}' cannot serve kernel {}; methods that can: {}",
+                self.method.name(),
+                self.kernel,
+                ok.iter().map(|m| m.name()).collect::<Vec<_>>().join(", ")
+            )));
+        }
+        if self.method.is_spectral()
+            && self.options.fourier == FourierVariant::Paired
+            && self.features % 2 == 1
+            && !matches!(self.kernel, Kernel::Sum(_))
+        {
+            return Err(Error::input(format!(
+                "--features {} is odd: paired cos/sin features come in pairs; use an even count or the phase variant",
+                self.features
+            )));
+        }
+        if !(self.options.rank_tol > 0.0 && self.options.rank_tol < 1.0) {
+            return Err(Error::input("rank tolerance must be in (0, 1)"));
+        }
+        Ok(())
+    }
+
+    /// The spec as JSON (stored in model manifests).
+    pub fn to_json(&self) -> Value {
+        json!({
+            "kernel": self.kernel.to_string(),
+            "method": self.method.name(),
+            "input_dim": self.input_dim,
+            "features": self.features,
+            "seed": self.seed,
+            "rng": RNG_NAME,
+            "fourier_variant": match self.options.fourier { FourierVariant::Paired => "paired", FourierVariant::Phase => "phase" },
+            "sequence": match self.options.sequence { Sequence::Halton => "halton", Sequence::Sobol => "sobol" },
+            "scramble": self.options.scramble,
+            "landmarks": match self.options.landmarks { Landmarks::Uniform => "uniform", Landmarks::KmeansPP => "kmeans++", Landmarks::Leverage => "leverage" },
+            "rank_tol": self.options.rank_tol,
+        })
+    }
+
+    /// Reads a spec from JSON.
+    pub fn from_json(v: &Value) -> Result<FeatureSpec> {
+        let s = |k: &str| {
+            v.get(k)
+                .and_then(|x| x.as_str())
+                .ok_or_else(|| Error::input(format!("feature spec: '{k}' missing or not a string")))
+        };
+        let u = |k: &str| {
+            v.get(k)
+                .and_then(|x| x.as_u64())
+                .ok_or_else(|| Error::input(format!("feature spec: '{k}' missing or not a whole number")))
+        };
+        let options = MapOptions {
+            fourier: match s("fourier_variant")? {
+                "paired" => FourierVariant::Paired,
+                "phase" => FourierVariant::Phase,
+                o => return Err(Error::input(format!("feature spec: fourier_variant '{o}' unknown"))),
+            },
+            sequence: parse_sequence(s("sequence")?)?,
+            scramble: v.get("scramble").and_then(|x| x.as_bool()).unwrap_or(true),
+            landmarks: parse_landmarks(s("landmarks")?)?,
+            rank_tol: v.get("rank_tol").and_then(|x| x.as_f64()).unwrap_or(1e-10),
+        };
+        let spec = FeatureSpec {
+            kernel: s("kernel")?.parse()?,
+            method: Method::parse(s("method")?)?,
+            input_dim: u("input_dim")? as usize,
+            features: u("features")? as usize,
+            seed: u("seed")?,
+            options,
+        };
+        spec.validate()?;
+        Ok(spec)
+    }
+}
+
+/// Parses `halton` / `sobol`.
+pub fn parse_sequence(s: &str) -> Result<Sequence> {
+    match s {
+        "halton" => Ok(Sequence::Halton),
+        "sobol" => Ok(Sequence::Sobol),
+        o => Err(Error::input(format!("sequence '{o}' unknown; expected halton or sobol"))),
+    }
+}
+
+/// Parses `uniform` / `kmeans++` / `leverage`.
+pub fn parse_landmarks(s: &str) -> Result<Landmarks> {
+    match s {
+        "uniform" => Ok(Landmarks::Uniform),
+        "kmeans++" | "kmeanspp" => Ok(Landmarks::KmeansPP),
+        "leverage" => Ok(Landmarks::Leverage),
+        o => Err(Error::input(format!(
+            "landmark rule '{o}' unknown; expected uniform, kmeans++ or leverage"
+        ))),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn method_kernel_compatibility() {
+        let k: Kernel = "laplacian(gamma=1)".parse().unwrap();
+        let e = FeatureSpec::new(k, Method::Hadamard, 3, 64, 0).validate().unwrap_err();
+        assert!(e.to_string().contains("methods that can: fourier, quasi, nystrom"), "{e}");
+        let k: Kernel = "sigmoid(gamma=1, coef0=0)".parse().unwrap();
+        assert!(FeatureSpec::new(k, Method::Fourier, 3, 64, 0).validate().is_err());
+        let k: Kernel = "gaussian(gamma=1) + linear()".parse().unwrap();
+        assert!(FeatureSpec::new(k.clone(), Method::Fastfood, 3, 64, 0).validate().is_ok());
+        assert!(FeatureSpec::new(k, Method::Maclaurin, 3, 64, 0).validate().is_err());
+        let k: Kernel = "gaussian(gamma=1)".parse().unwrap();
+        assert!(FeatureSpec::new(k, Method::Fourier, 3, 63, 0).validate().unwrap_err().to_string().contains("odd"));
+    }
+}

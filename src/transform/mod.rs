@@ -1,0 +1,9 @@
+//! Transforms used by the structured feature maps.
+//!
+//! - [`wht`]: the fast Walsh–Hadamard transform, in place, unnormalised
+//!   (`H_{2n} = [[H_n, H_n], [H_n, −H_n]]`, so `H·H = n·I`; divide by `√n` for the
+//!   orthogonal version).
+
+pub mod wht;
+
+pub use wht::{wht_in_place, wht_reference, WhtFloat};
