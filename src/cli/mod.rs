@@ -2,6 +2,7 @@
 //! over the library. `main` maps errors to exit codes: 2 for bad input or usage, 1 for
 //! internal failures.
 
+mod featurize;
 mod import;
 mod inspect;
 mod kernel_check;
@@ -29,6 +30,7 @@ enum Command {
     Score(score::Args),
     Inspect(inspect::Args),
     KernelCheck(kernel_check::Args),
+    Featurize(featurize::Args),
 }
 
 /// Parses the process arguments, runs the command, and returns the exit code.
@@ -50,6 +52,7 @@ pub fn main() -> i32 {
         Command::Score(a) => score::run(a),
         Command::Inspect(a) => inspect::run(a),
         Command::KernelCheck(a) => kernel_check::run(a),
+        Command::Featurize(a) => featurize::run(a),
     };
     match res {
         Ok(()) => 0,

@@ -1,0 +1,149 @@
+//! `kernelpress featurize`: kernel (or a model's kernel) + method + feature count + seed +
+//! data → random features as `.npy` (or CSV).
+
+use crate::data::{check_batch, read_table, write_npy_f64};
+use crate::features::{parse_landmarks, parse_sequence, FeatureSpec, FourierVariant, Method};
+use crate::model::ExactModel;
+use crate::{Error, Result};
+use clap::ValueEnum;
+use std::path::{Path, PathBuf};
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub(crate) enum Variant {
+    /// [cos, sin] pairs (lower variance).
+    Paired,
+    /// cos with a random phase.
+    Phase,
+}
+
+/// Shared feature-map flags (featurize, compile).
+#[derive(Debug, Clone, clap::Args)]
+pub(crate) struct MapArgs {
+    /// Method: fourier, orthogonal, hadamard, fastfood, quasi, nystrom, maclaurin,
+    /// tensorsketch, relu, identity.
+    #[arg(long)]
+    pub method: String,
+    /// Number of features D.
+    #[arg(long)]
+    pub features: usize,
+    /// Seed of the ChaCha20 generator that draws the map.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
+    /// Output of the Fourier-type methods.
+    #[arg(long, value_enum, default_value = "paired")]
+    pub variant: Variant,
+    /// quasi: low-discrepancy sequence (halton or sobol).
+    #[arg(long, default_value = "halton")]
+    pub sequence: String,
+    /// quasi: do not scramble the points (deterministic, seed ignored).
+    #[arg(long)]
+    pub no_scramble: bool,
+    /// nystrom: landmark rule (uniform, kmeans++ or leverage).
+    #[arg(long, default_value = "kmeans++")]
+    pub landmark_rule: String,
+    /// nystrom: take the landmarks from this file (CSV or .npy, raw inputs) instead.
+    #[arg(long)]
+    pub landmarks: Option<PathBuf>,
+}
+
+impl MapArgs {
+    pub(crate) fn spec(&self, kernel: crate::kernel::Kernel, d: usize) -> Result<FeatureSpec> {
+        let mut spec = FeatureSpec::new(kernel, Method::parse(&self.method)?, d, self.features, self.seed);
+        spec.options.fourier = match self.variant {
+            Variant::Paired => FourierVariant::Paired,
+            Variant::Phase => FourierVariant::Phase,
+        };
+        spec.options.sequence = parse_sequence(&self.sequence)?;
+        spec.options.scramble = !self.no_scramble;
+        spec.options.landmarks = parse_landmarks(&self.landmark_rule)?;
+        spec.validate()?;
+        Ok(spec)
+    }
+}
+
+/// Compute random features of a data set and write them as .npy (or CSV).
+///
+/// The features z satisfy ⟨z(x), z(y)⟩ ≈ k(x, y). With --model, the model's kernel and
+/// input scaling are used.
+///
+/// Example:
+///   kernelpress featurize --kernel 'gaussian(gamma=0.25)' --method orthogonal --features 512
+///       --seed 7 --data models/pump_test.csv --target condition --out z.npy
+#[derive(Debug, clap::Args)]
+#[command(verbatim_doc_comment)]
+pub(crate) struct Args {
+    /// Kernel expression.
+    #[arg(long, conflicts_with = "model")]
+    kernel: Option<String>,
+    /// Take the kernel (and input scaling) from this exact model file.
+    #[arg(long)]
+    model: Option<PathBuf>,
+    #[command(flatten)]
+    map: MapArgs,
+    /// Data: CSV with a header row, or .npy.
+    #[arg(long)]
+    data: PathBuf,
+    /// A target column to leave out of the features.
+    #[arg(long)]
+    target: Option<String>,
+    /// Output: .npy (float64), or .csv.
+    #[arg(long)]
+    out: PathBuf,
+}
+
+pub(crate) fn read_landmarks(p: &Path, d: usize, scale: &dyn Fn(ndarray::ArrayView2<f64>) -> ndarray::Array2<f64>) -> Result<ndarray::Array2<f64>> {
+    let t = read_table(p, None, false)?;
+    check_batch(t.x.view(), d, &p.display().to_string())?;
+    Ok(scale(t.x.view()))
+}
+
+pub(crate) fn run(a: Args) -> Result<()> {
+    let (kernel, model) = match (&a.kernel, &a.model) {
+        (Some(k), None) => (super::kernel_arg(k)?, None),
+        (None, Some(m)) => {
+            let em = ExactModel::load(m)?;
+            (em.kernel().clone(), Some(em))
+        }
+        _ => return Err(Error::input("give --kernel EXPR or --model FILE")),
+    };
+    let t = read_table(&a.data, a.target.as_deref(), false)?;
+    let src = a.data.display().to_string();
+    check_batch(t.x.view(), t.x.ncols(), &src)?;
+    kernel.check_dim(t.x.ncols()).map_err(|e| e.context(&src))?;
+    let scale = |x: ndarray::ArrayView2<f64>| match &model {
+        Some(m) => m.scale_inputs(x),
+        None => x.to_owned(),
+    };
+    let x = scale(t.x.view());
+    let spec = a.map.spec(kernel, x.ncols())?;
+    let pool = match &a.map.landmarks {
+        Some(p) => Some(read_landmarks(p, x.ncols(), &scale)?),
+        None => None,
+    };
+    let (map, info) = spec.sample(Some(pool.as_ref().map(|p| p.view()).unwrap_or(x.view())))?;
+    for n in &info.notes {
+        crate::progress::warn(n);
+    }
+    let pb = crate::progress::bar(1, "featurize");
+    let z = map.transform(x.view());
+    pb.finish_and_clear();
+    let is_csv = a.out.extension().map(|e| e.eq_ignore_ascii_case("csv")).unwrap_or(false);
+    if is_csv {
+        let header: Vec<String> = (0..z.ncols()).map(|j| format!("z{j}")).collect();
+        let rows: Vec<Vec<String>> = z.rows().into_iter().map(|r| r.iter().map(|v| format!("{v:?}")).collect()).collect();
+        crate::data::write_csv(&a.out, &header, &rows)?;
+    } else {
+        write_npy_f64(&a.out, &[z.nrows(), z.ncols()], z.as_slice().unwrap())?;
+    }
+    super::print_stdout(&format!(
+        "{} rows × {} features ({} of {}, seed {}; {} stored floats, {} flops/row) → {}\n",
+        z.nrows(),
+        z.ncols(),
+        spec.method.name(),
+        spec.kernel,
+        spec.seed,
+        map.stored_floats(),
+        map.flops_per_row(),
+        a.out.display()
+    ))
+}
