@@ -30,6 +30,7 @@ pub mod demo;
 mod error;
 pub mod exact;
 pub mod features;
+pub mod fit;
 pub mod kernel;
 pub mod linalg;
 pub mod model;

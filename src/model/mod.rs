@@ -24,7 +24,10 @@
 //! assert_eq!(m.labels_of(s.view())[0], "worn");
 //! ```
 
+mod compiled;
 mod file;
+
+pub use compiled::CompiledModel;
 
 pub use file::{TensorFile, FORMAT_VERSION, MANIFEST_KEY, MAX_FILE_BYTES};
 
@@ -465,6 +468,8 @@ impl ExactModel {
 pub enum AnyModel {
     /// An exact kernel model.
     Exact(ExactModel),
+    /// A compiled model.
+    Compiled(CompiledModel),
 }
 
 impl AnyModel {
@@ -475,6 +480,7 @@ impl AnyModel {
         let kind = f.get_str("kind", &src)?;
         match kind.as_str() {
             "exact" => Ok((AnyModel::Exact(ExactModel::from_file(&f, &src)?), f)),
+            "compiled" => Ok((AnyModel::Compiled(CompiledModel::from_file(&f, &src)?), f)),
             other => Err(Error::input(format!(
                 "{src}: model kind '{other}' unknown; expected exact or compiled"
             ))),
@@ -485,6 +491,7 @@ impl AnyModel {
     pub fn input_dim(&self) -> usize {
         match self {
             AnyModel::Exact(m) => m.input_dim(),
+            AnyModel::Compiled(m) => m.input_dim(),
         }
     }
 
@@ -492,6 +499,7 @@ impl AnyModel {
     pub fn decision(&self, x: ArrayView2<f64>) -> Array2<f64> {
         match self {
             AnyModel::Exact(m) => m.decision(x),
+            AnyModel::Compiled(m) => m.decision(x),
         }
     }
 
@@ -499,6 +507,7 @@ impl AnyModel {
     pub fn labels_of(&self, s: ArrayView2<f64>) -> Vec<String> {
         match self {
             AnyModel::Exact(m) => m.labels_of(s),
+            AnyModel::Compiled(m) => m.labels_of(s),
         }
     }
 
@@ -506,6 +515,7 @@ impl AnyModel {
     pub fn task(&self) -> Task {
         match self {
             AnyModel::Exact(m) => m.task(),
+            AnyModel::Compiled(m) => m.task(),
         }
     }
 }

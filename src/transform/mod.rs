@@ -6,4 +6,4 @@
 
 pub mod wht;
 
-pub use wht::{wht_in_place, wht_reference, WhtFloat};
+pub use wht::{wht_in_place, wht_in_place_scalar, wht_isa, wht_reference, WhtFloat};

@@ -52,6 +52,107 @@ fn butterflies<T: WhtFloat>(lo: &mut [T], hi: &mut [T]) {
     }
 }
 
+#[inline(always)]
+fn radix4<T: WhtFloat>(q0: &mut [T], q1: &mut [T], q2: &mut [T], q3: &mut [T]) {
+    for (((a, b), c), d) in q0.iter_mut().zip(q1.iter_mut()).zip(q2.iter_mut()).zip(q3.iter_mut()) {
+        let (x0, x1, x2, x3) = (*a, *b, *c, *d);
+        let (s0, s1, s2, s3) = (x0 + x1, x0 - x1, x2 + x3, x2 - x3);
+        *a = s0 + s2;
+        *c = s0 - s2;
+        *b = s1 + s3;
+        *d = s1 - s3;
+    }
+}
+
+/// The whole transform; `inline(always)` so that each instruction-set entry point below
+/// compiles its own copy.
+#[inline(always)]
+fn wht_body<T: WhtFloat>(x: &mut [T]) {
+    let n = x.len();
+    let mut h = 1;
+    if n >= 8 {
+        for c in x.chunks_exact_mut(8) {
+            radix8(c);
+        }
+        h = 8;
+    }
+    // Two levels per pass over memory (radix 4), then one radix-2 pass if a level is left.
+    while 4 * h <= n {
+        for block in x.chunks_exact_mut(4 * h) {
+            let (a, rest) = block.split_at_mut(h);
+            let (b, rest) = rest.split_at_mut(h);
+            let (c, d) = rest.split_at_mut(h);
+            radix4(a, b, c, d);
+        }
+        h *= 4;
+    }
+    while h < n {
+        for block in x.chunks_exact_mut(2 * h) {
+            let (lo, hi) = block.split_at_mut(h);
+            butterflies(lo, hi);
+        }
+        h *= 2;
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+mod x86 {
+    use super::{wht_body, WhtFloat};
+
+    /// # Safety
+    /// The CPU must support AVX2 (checked by the caller).
+    #[target_feature(enable = "avx2")]
+    pub(super) unsafe fn wht_avx2<T: WhtFloat>(x: &mut [T]) {
+        wht_body(x)
+    }
+
+    /// # Safety
+    /// The CPU must support AVX-512F (checked by the caller).
+    #[target_feature(enable = "avx512f")]
+    pub(super) unsafe fn wht_avx512<T: WhtFloat>(x: &mut [T]) {
+        wht_body(x)
+    }
+}
+
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Isa {
+    Scalar,
+    #[cfg(target_arch = "x86_64")]
+    Avx2,
+    #[cfg(target_arch = "x86_64")]
+    Avx512,
+}
+
+fn isa() -> Isa {
+    static ISA: std::sync::OnceLock<Isa> = std::sync::OnceLock::new();
+    *ISA.get_or_init(|| {
+        #[cfg(target_arch = "x86_64")]
+        {
+            if std::env::var_os("KERNELPRESS_NO_SIMD").is_none() {
+                if std::arch::is_x86_feature_detected!("avx512f") {
+                    return Isa::Avx512;
+                }
+                if std::arch::is_x86_feature_detected!("avx2") {
+                    return Isa::Avx2;
+                }
+            }
+        }
+        Isa::Scalar
+    })
+}
+
+/// The instruction set the transform uses on this CPU (`avx512`, `avx2` or `scalar`),
+/// detected once at first use. Setting `KERNELPRESS_NO_SIMD` forces `scalar`.
+pub fn wht_isa() -> &'static str {
+    match isa() {
+        Isa::Scalar => "scalar",
+        #[cfg(target_arch = "x86_64")]
+        Isa::Avx2 => "avx2",
+        #[cfg(target_arch = "x86_64")]
+        Isa::Avx512 => "avx512",
+    }
+}
+
 /// In-place unnormalised Walsh–Hadamard transform.
 ///
 /// # Panics
@@ -62,20 +163,23 @@ pub fn wht_in_place<T: WhtFloat>(x: &mut [T]) {
     if n == 0 || !n.is_power_of_two() {
         bad_len(n);
     }
-    let mut h = 1;
-    if n >= 8 {
-        for c in x.chunks_exact_mut(8) {
-            radix8(c);
-        }
-        h = 8;
+    match isa() {
+        // SAFETY: the instruction set was detected at run time.
+        #[cfg(target_arch = "x86_64")]
+        Isa::Avx512 => unsafe { x86::wht_avx512(x) },
+        #[cfg(target_arch = "x86_64")]
+        Isa::Avx2 => unsafe { x86::wht_avx2(x) },
+        Isa::Scalar => wht_body(x),
     }
-    while h < n {
-        for block in x.chunks_exact_mut(2 * h) {
-            let (lo, hi) = block.split_at_mut(h);
-            butterflies(lo, hi);
-        }
-        h *= 2;
+}
+
+/// The scalar path regardless of the CPU (for tests that compare paths).
+pub fn wht_in_place_scalar<T: WhtFloat>(x: &mut [T]) {
+    let n = x.len();
+    if n == 0 || !n.is_power_of_two() {
+        bad_len(n);
     }
+    wht_body(x)
 }
 
 /// The definition: `y_i = Σ_j (−1)^{popcount(i & j)} x_j`. `O(n²)`; for tests only.
@@ -132,6 +236,21 @@ mod tests {
         let mut big = [1e250f64, 1e250, 1e250, 1e250];
         wht_in_place(&mut big);
         assert_eq!(big, [4e250, 0.0, 0.0, 0.0]);
+    }
+
+    #[test]
+    fn simd_path_equals_scalar_path() {
+        // Which path ran is reported; both must give the same numbers.
+        assert!(["scalar", "avx2", "avx512"].contains(&wht_isa()));
+        for k in [3, 4, 5, 9, 12, 15] {
+            let n = 1usize << k;
+            let x: Vec<f32> = (0..n).map(|i| ((i * 5 + 1) as f32 * 0.3).sin()).collect();
+            let mut a = x.clone();
+            let mut b = x.clone();
+            wht_in_place(&mut a);
+            wht_in_place_scalar(&mut b);
+            assert_eq!(a, b, "n={n}");
+        }
     }
 
     #[test]

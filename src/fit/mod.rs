@@ -1,0 +1,271 @@
+//! Fitting the linear head of a compiled model (SPEC §5).
+//!
+//! - [`project`]: no data: the exact model's dual expansion pushed through the feature map,
+//!   `W = Z(SV)ᵀ · coef`, `b` = the exact intercepts.
+//! - [`Distiller`]: ridge regression from features to the teacher's decision values (all
+//!   outputs at once). Sufficient statistics (`ZᵀZ`, `Zᵀy`, sums) are accumulated chunk by
+//!   chunk, separately for a training and a held-out part, so memory does not grow with the
+//!   number of rows; the ridge strength is chosen by held-out mean squared error, computed
+//!   from the statistics alone; the final head is refit on both parts.
+//! - The `labels` fit is the same solver with ±1 (one-vs-rest) or numeric targets.
+//!
+//! ```
+//! use kernelpress::fit::{Distiller, RidgeGrid};
+//! use ndarray::array;
+//! // Targets that are exactly linear in the features are recovered.
+//! let z = array![[1.0, 0.0], [0.0, 1.0], [1.0, 1.0], [2.0, 1.0], [1.0, 3.0], [0.5, 0.5]];
+//! let y = z.dot(&array![[2.0], [-1.0]]) + 0.5;
+//! let mut d = Distiller::new(2, 1);
+//! d.add(z.view(), y.view(), |i| i % 3 == 0);
+//! let fit = d.solve(&RidgeGrid::fixed(1e-10)).unwrap();
+//! assert!((fit.head[[0, 0]] - 2.0).abs() < 1e-6 && (fit.intercept[0] - 0.5).abs() < 1e-6);
+//! ```
+
+use crate::features::FeatureMap;
+use crate::linalg;
+use crate::model::ExactModel;
+use crate::{Error, Result};
+use ndarray::{Array1, Array2, ArrayView2, Axis};
+use rayon::prelude::*;
+use serde_json::{json, Value};
+
+/// `W = Z(SV)ᵀ · coef` and the exact intercepts: the head that reproduces the dual
+/// expansion when `⟨z(x), z(sv)⟩ = k(x, sv)`.
+pub fn project(exact: &ExactModel, map: &FeatureMap) -> (Array2<f64>, Vec<f64>) {
+    let zsv = map.transform(exact.support_vectors());
+    let head = linalg::ab(zsv.t().as_standard_layout().view(), exact.coef());
+    (head, exact.intercept().to_vec())
+}
+
+/// `aᵀ·b` for tall `a`, `b`, deterministic and parallel over column blocks of the output.
+fn atb(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
+    let (p, q) = (a.ncols(), b.ncols());
+    let mut out = Array2::<f64>::zeros((p, q));
+    let width = 128;
+    let at = a.t().as_standard_layout().into_owned();
+    out.axis_chunks_iter_mut(Axis(1), width)
+        .into_par_iter()
+        .enumerate()
+        .for_each(|(ci, mut dst)| {
+            let c0 = ci * width;
+            let cols = dst.ncols();
+            let bb = b.slice(ndarray::s![.., c0..c0 + cols]).as_standard_layout().into_owned();
+            dst.assign(&linalg::ab_seq(at.view(), bb.view()));
+        });
+    out
+}
+
+#[derive(Debug, Clone)]
+struct Stats {
+    n: usize,
+    zz: Array2<f64>,
+    zy: Array2<f64>,
+    sz: Array1<f64>,
+    sy: Array1<f64>,
+    yy: Array1<f64>,
+}
+
+impl Stats {
+    fn new(p: usize, k: usize) -> Self {
+        Stats {
+            n: 0,
+            zz: Array2::zeros((p, p)),
+            zy: Array2::zeros((p, k)),
+            sz: Array1::zeros(p),
+            sy: Array1::zeros(k),
+            yy: Array1::zeros(k),
+        }
+    }
+    fn add(&mut self, z: ArrayView2<f64>, y: ArrayView2<f64>) {
+        if z.nrows() == 0 {
+            return;
+        }
+        self.n += z.nrows();
+        self.zz += &atb(z, z);
+        self.zy += &atb(z, y);
+        self.sz += &z.sum_axis(Axis(0));
+        self.sy += &y.sum_axis(Axis(0));
+        self.yy += &y.mapv(|v| v * v).sum_axis(Axis(0));
+    }
+    fn merged(&self, o: &Stats) -> Stats {
+        Stats {
+            n: self.n + o.n,
+            zz: &self.zz + &o.zz,
+            zy: &self.zy + &o.zy,
+            sz: &self.sz + &o.sz,
+            sy: &self.sy + &o.sy,
+            yy: &self.yy + &o.yy,
+        }
+    }
+}
+
+/// Candidate ridge strengths, relative to `trace(ZᵀZ_centred)/(n·D)` (the mean feature
+/// variance), so the grid means the same at every feature count.
+#[derive(Debug, Clone)]
+pub struct RidgeGrid {
+    /// Relative strengths tried (held-out choice when more than one).
+    pub relative: Vec<f64>,
+}
+
+impl RidgeGrid {
+    /// The default grid: 1e-7 … 1e-1 relative.
+    pub fn standard() -> Self {
+        RidgeGrid {
+            relative: vec![1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 1e-1],
+        }
+    }
+    /// One fixed relative strength.
+    pub fn fixed(rel: f64) -> Self {
+        RidgeGrid { relative: vec![rel] }
+    }
+}
+
+/// A fitted head.
+#[derive(Debug, Clone)]
+pub struct HeadFit {
+    /// `D × k` weights.
+    pub head: Array2<f64>,
+    /// `k` intercepts.
+    pub intercept: Vec<f64>,
+    /// Chosen absolute ridge strength.
+    pub ridge: f64,
+    /// Chosen relative strength.
+    pub ridge_relative: f64,
+    /// Held-out MSE per candidate (empty when there was no held-out part).
+    pub holdout_mse: Vec<(f64, f64)>,
+    /// What the solver had to do (jitter added on ill-conditioning, …).
+    pub notes: Vec<String>,
+    /// Rows used for training / held out.
+    pub rows: (usize, usize),
+}
+
+impl HeadFit {
+    /// Fit settings as JSON for manifests.
+    pub fn to_json(&self) -> Value {
+        json!({
+            "ridge": self.ridge,
+            "ridge_relative": self.ridge_relative,
+            "holdout_mse": self.holdout_mse.iter().map(|(r, m)| json!([r, m])).collect::<Vec<_>>(),
+            "rows_train": self.rows.0,
+            "rows_holdout": self.rows.1,
+            "notes": self.notes,
+        })
+    }
+}
+
+/// Streams `(features, targets)` chunks into sufficient statistics and solves the ridge
+/// problem with the held-out choice of strength.
+#[derive(Debug, Clone)]
+pub struct Distiller {
+    train: Stats,
+    hold: Stats,
+    seen: usize,
+}
+
+impl Distiller {
+    /// For `p` features and `k` targets.
+    pub fn new(p: usize, k: usize) -> Self {
+        Distiller {
+            train: Stats::new(p, k),
+            hold: Stats::new(p, k),
+            seen: 0,
+        }
+    }
+
+    /// Adds a chunk; `held_out(i)` says whether global row `i` goes to the held-out part.
+    pub fn add(&mut self, z: ArrayView2<f64>, y: ArrayView2<f64>, held_out: impl Fn(usize) -> bool) {
+        assert_eq!(z.nrows(), y.nrows(), "distill: rows differ");
+        let idx_h: Vec<usize> = (0..z.nrows()).filter(|&i| held_out(self.seen + i)).collect();
+        let idx_t: Vec<usize> = (0..z.nrows()).filter(|&i| !held_out(self.seen + i)).collect();
+        self.train.add(z.select(Axis(0), &idx_t).view(), y.select(Axis(0), &idx_t).view());
+        self.hold.add(z.select(Axis(0), &idx_h).view(), y.select(Axis(0), &idx_h).view());
+        self.seen += z.nrows();
+    }
+
+    fn centred(s: &Stats) -> (Array2<f64>, Array2<f64>, Array1<f64>, Array1<f64>) {
+        let n = s.n.max(1) as f64;
+        let mz = &s.sz / n;
+        let my = &s.sy / n;
+        let mut a = s.zz.clone();
+        let mzc = mz.view().insert_axis(Axis(1));
+        a -= &(mzc.dot(&mzc.t()) * n);
+        let myr = my.view().insert_axis(Axis(0));
+        let b = &s.zy - &(mzc.dot(&myr) * n);
+        (a, b, mz, my)
+    }
+
+    fn solve_one(a: &Array2<f64>, b: &Array2<f64>, lam: f64, notes: &mut Vec<String>) -> Result<(Array2<f64>, f64)> {
+        let p = a.nrows();
+        let mut lam = lam;
+        for attempt in 0..8 {
+            let mut m = a.clone();
+            for i in 0..p {
+                m[[i, i]] += lam;
+            }
+            match linalg::cholesky_solve(m.view(), b.view(), "distillation") {
+                Ok(w) => return Ok((w, lam)),
+                Err(_) => {
+                    let next = if lam > 0.0 { lam * 10.0 } else { 1e-12 };
+                    notes.push(format!(
+                        "ridge system not positive definite at λ = {lam:.3e}; retried with λ = {next:.3e} (attempt {})",
+                        attempt + 1
+                    ));
+                    lam = next;
+                }
+            }
+        }
+        Err(Error::internal("distillation: ridge system stayed singular after 8 increases of λ"))
+    }
+
+    fn mse(s: &Stats, w: &Array2<f64>, b: &Array1<f64>) -> f64 {
+        // Σ‖zW + b − y‖² from the statistics: tr(WᵀZᵀZW) + 2bᵀWᵀΣz + n‖b‖² − 2tr(WᵀZᵀY) − 2bᵀΣy + Σ‖y‖².
+        let n = s.n as f64;
+        let zzw = s.zz.dot(w);
+        let t1: f64 = (w * &zzw).sum();
+        let t2: f64 = 2.0 * b.dot(&w.t().dot(&s.sz));
+        let t3: f64 = n * b.dot(b);
+        let t4: f64 = 2.0 * (w * &s.zy).sum();
+        let t5: f64 = 2.0 * b.dot(&s.sy);
+        let t6: f64 = s.yy.sum();
+        (t1 + t2 + t3 - t4 - t5 + t6) / (n * w.ncols() as f64)
+    }
+
+    /// Chooses the strength on the held-out part (if any) and refits on all rows.
+    pub fn solve(&self, grid: &RidgeGrid) -> Result<HeadFit> {
+        if self.train.n == 0 {
+            return Err(Error::input("no rows to fit the head on"));
+        }
+        let mut notes = Vec::new();
+        let (a, b, _, _) = Self::centred(&self.train);
+        let p = a.nrows();
+        let scale = (a.diag().sum() / (self.train.n as f64 * p as f64)).max(1e-300) * self.train.n as f64;
+        let mut holdout = Vec::new();
+        let mut best = (grid.relative[0], f64::INFINITY);
+        if grid.relative.len() > 1 && self.hold.n > 0 {
+            for &rel in &grid.relative {
+                let (w, _) = Self::solve_one(&a, &b, rel * scale, &mut notes)?;
+                let (_, _, mz, my) = Self::centred(&self.train);
+                let bias = &my - &w.t().dot(&mz);
+                let e = Self::mse(&self.hold, &w, &bias);
+                holdout.push((rel, e));
+                if e < best.1 {
+                    best = (rel, e);
+                }
+            }
+        }
+        let all = self.train.merged(&self.hold);
+        let (a, b, mz, my) = Self::centred(&all);
+        let scale_all = (a.diag().sum() / (all.n as f64 * p as f64)).max(1e-300) * all.n as f64;
+        let (w, lam) = Self::solve_one(&a, &b, best.0 * scale_all, &mut notes)?;
+        let bias = &my - &w.t().dot(&mz);
+        Ok(HeadFit {
+            head: w,
+            intercept: bias.to_vec(),
+            ridge: lam,
+            ridge_relative: lam / scale_all,
+            holdout_mse: holdout,
+            notes,
+            rows: (self.train.n, self.hold.n),
+        })
+    }
+}

@@ -1,0 +1,270 @@
+//! Compiled models: a sampled feature map plus a linear head,
+//! `f(x) = z(s(x)) · W + b` with `s` the stored input scaling.
+
+use super::{label_indices, FORMAT_VERSION, TensorFile, Task};
+use crate::data::Standardizer;
+use crate::features::FeatureMap;
+use crate::linalg;
+use crate::{Error, Result};
+use ndarray::{Array2, ArrayView2};
+use serde_json::{json, Value};
+use std::path::Path;
+
+/// A compiled model: feature map + head.
+///
+/// ```
+/// use kernelpress::features::{FeatureSpec, Method};
+/// use kernelpress::model::{CompiledModel, Task};
+/// use ndarray::{array, Array2};
+/// let spec = FeatureSpec::new("gaussian(gamma=1)".parse().unwrap(), Method::Fourier, 1, 64, 3);
+/// let (map, _) = spec.sample(None).unwrap();
+/// let head = Array2::zeros((64, 1));
+/// let m = CompiledModel::new(map, head, vec![0.25], Task::Regression, vec![], None).unwrap();
+/// assert_eq!(m.decision(array![[0.5]].view())[[0, 0]], 0.25);
+/// ```
+#[derive(Debug, Clone)]
+pub struct CompiledModel {
+    map: FeatureMap,
+    head: Array2<f64>,
+    intercept: Vec<f64>,
+    task: Task,
+    labels: Vec<String>,
+    scaling: Option<Standardizer>,
+    /// Fit settings (`fit` in the manifest).
+    pub fit: Value,
+    /// Report summary stored with the model (`report` in the manifest).
+    pub report: Value,
+    /// Feature names, if known.
+    pub feature_names: Vec<String>,
+}
+
+impl CompiledModel {
+    /// Builds and validates a compiled model.
+    pub fn new(
+        map: FeatureMap,
+        head: Array2<f64>,
+        intercept: Vec<f64>,
+        task: Task,
+        labels: Vec<String>,
+        scaling: Option<Standardizer>,
+    ) -> Result<CompiledModel> {
+        let dd = map.output_dim();
+        if head.nrows() != dd {
+            return Err(Error::input(format!(
+                "head has {} rows but the feature map has {dd} outputs",
+                head.nrows()
+            )));
+        }
+        let k = head.ncols();
+        if intercept.len() != k {
+            return Err(Error::input(format!("{} intercepts for {k} head columns", intercept.len())));
+        }
+        if let Some(want) = task.outputs_for(labels.len()) {
+            if want != k || labels.len() < 2 {
+                return Err(Error::input(format!(
+                    "a {} model with {} labels needs {want} decision columns, the head has {k}",
+                    task.name(),
+                    labels.len()
+                )));
+            }
+        }
+        if let Some(s) = &scaling {
+            if s.mean.len() != map.input_dim() {
+                return Err(Error::input("input scaling length differs from the input dimension"));
+            }
+        }
+        let d = map.input_dim();
+        Ok(CompiledModel {
+            map,
+            head,
+            intercept,
+            task,
+            labels,
+            scaling,
+            fit: json!({}),
+            report: json!({}),
+            feature_names: (0..d).map(|j| format!("x{j}")).collect(),
+        })
+    }
+
+    /// The feature map.
+    pub fn map(&self) -> &FeatureMap {
+        &self.map
+    }
+    /// Head weights `D × k`.
+    pub fn head(&self) -> ArrayView2<'_, f64> {
+        self.head.view()
+    }
+    /// Intercepts.
+    pub fn intercept(&self) -> &[f64] {
+        &self.intercept
+    }
+    /// Task.
+    pub fn task(&self) -> Task {
+        self.task
+    }
+    /// Class labels.
+    pub fn labels(&self) -> &[String] {
+        &self.labels
+    }
+    /// Input scaling.
+    pub fn scaling(&self) -> Option<&Standardizer> {
+        self.scaling.as_ref()
+    }
+    /// Input dimension.
+    pub fn input_dim(&self) -> usize {
+        self.map.input_dim()
+    }
+    /// Decision values per row.
+    pub fn n_outputs(&self) -> usize {
+        self.head.ncols()
+    }
+
+    /// Decision values for raw inputs.
+    ///
+    /// # Panics
+    /// If `x` does not have [`Self::input_dim`] columns.
+    #[track_caller]
+    pub fn decision(&self, x: ArrayView2<f64>) -> Array2<f64> {
+        let xs = match &self.scaling {
+            Some(s) => s.apply(x),
+            None => x.to_owned(),
+        };
+        let z = self.map.transform(xs.view());
+        let mut s = linalg::ab(z.view(), self.head.view());
+        for mut row in s.rows_mut() {
+            row.iter_mut().zip(&self.intercept).for_each(|(v, b)| *v += b);
+        }
+        s
+    }
+
+    /// Decision values for one raw row, sequentially (single-row latency).
+    pub fn decision_one(&self, x: &[f64]) -> Vec<f64> {
+        let xs: Vec<f64> = match &self.scaling {
+            Some(s) => x.iter().enumerate().map(|(j, v)| (v - s.mean[j]) / s.scale[j]).collect(),
+            None => x.to_vec(),
+        };
+        let z = self.map.transform_one(&xs);
+        let k = self.head.ncols();
+        let mut out = self.intercept.clone();
+        for (zi, row) in z.iter().zip(self.head.rows()) {
+            for c in 0..k {
+                out[c] += zi * row[c];
+            }
+        }
+        out
+    }
+
+    /// Labels of decision values (empty strings for regression).
+    pub fn labels_of(&self, s: ArrayView2<f64>) -> Vec<String> {
+        if !self.task.is_classifier() {
+            return vec![String::new(); s.nrows()];
+        }
+        label_indices(self.task, self.labels.len(), s)
+            .into_iter()
+            .map(|i| self.labels[i].clone())
+            .collect()
+    }
+
+    /// Floats stored (map + head + intercepts + scaling).
+    pub fn parameter_floats(&self) -> usize {
+        self.map.stored_floats()
+            + self.head.len()
+            + self.intercept.len()
+            + self.scaling.as_ref().map(|s| 2 * s.mean.len()).unwrap_or(0)
+    }
+
+    /// Flops per prediction (analytic).
+    pub fn flops(&self) -> usize {
+        self.map.flops_per_row() + 2 * self.head.len()
+    }
+
+    /// The model as a [`TensorFile`].
+    pub fn to_file(&self) -> TensorFile {
+        let mut f = TensorFile::default();
+        self.map.write_to(&mut f);
+        f.put("head", vec![self.head.nrows(), self.head.ncols()], self.head.iter().copied().collect());
+        f.put("intercepts", vec![self.intercept.len()], self.intercept.clone());
+        let d = self.input_dim();
+        if let Some(s) = &self.scaling {
+            f.put("input_mean", vec![d], s.mean.clone());
+            f.put("input_scale", vec![d], s.scale.clone());
+        }
+        let spec = &self.map.spec;
+        let entries = [
+            ("format_version", json!(FORMAT_VERSION)),
+            ("kind", json!("compiled")),
+            ("kernel", json!(spec.kernel.to_string())),
+            ("task", json!(self.task.name())),
+            ("labels", json!(self.labels)),
+            ("input_dim", json!(d)),
+            ("n_outputs", json!(self.n_outputs())),
+            ("input_scaling", json!(if self.scaling.is_some() { "standardize" } else { "none" })),
+            ("method", json!(spec.method.name())),
+            ("features", json!(self.map.output_dim())),
+            ("features_requested", json!(spec.features)),
+            ("seed", json!(spec.seed)),
+            ("rng", json!(crate::features::RNG_NAME)),
+            ("fit", self.fit.clone()),
+            ("report", self.report.clone()),
+            ("feature_names", json!(self.feature_names)),
+            ("generator", json!(format!("kernelpress {}", env!("CARGO_PKG_VERSION")))),
+        ];
+        for (k, v) in entries {
+            f.manifest.insert(k.into(), v);
+        }
+        f
+    }
+
+    /// Writes the model atomically.
+    pub fn save(&self, path: &Path) -> Result<()> {
+        self.to_file().write(path)
+    }
+
+    /// Reads a compiled model from a parsed file.
+    pub fn from_file(f: &TensorFile, src: &str) -> Result<CompiledModel> {
+        let kind = f.get_str("kind", src)?;
+        if kind != "compiled" {
+            return Err(Error::input(format!("{src}: model kind is '{kind}'; expected a compiled model")));
+        }
+        let map = FeatureMap::read_from(f, src)?;
+        let dd = map.output_dim();
+        let k = f.get_u64("n_outputs", src)? as usize;
+        let (_, head) = f.tensor("head", &[Some(dd), Some(k)], src)?;
+        let (_, b) = f.tensor("intercepts", &[Some(k)], src)?;
+        let task = Task::parse(&f.get_str("task", src)?).map_err(|e| e.context(src))?;
+        let labels: Vec<String> = f
+            .manifest
+            .get("labels")
+            .and_then(|v| v.as_array())
+            .map(|v| v.iter().filter_map(|s| s.as_str().map(String::from)).collect())
+            .ok_or_else(|| Error::input(format!("{src}: manifest 'labels' missing")))?;
+        let d = map.input_dim();
+        let scaling = match f.get_str("input_scaling", src)?.as_str() {
+            "none" => None,
+            "standardize" => {
+                let (_, mean) = f.tensor("input_mean", &[Some(d)], src)?;
+                let (_, scale) = f.tensor("input_scale", &[Some(d)], src)?;
+                Some(Standardizer { mean, scale })
+            }
+            o => return Err(Error::input(format!("{src}: input_scaling '{o}' unknown"))),
+        };
+        let mut m = CompiledModel::new(map, Array2::from_shape_vec((dd, k), head).unwrap(), b, task, labels, scaling)
+            .map_err(|e| e.context(src))?;
+        m.fit = f.manifest.get("fit").cloned().unwrap_or(json!({}));
+        m.report = f.manifest.get("report").cloned().unwrap_or(json!({}));
+        if let Some(Value::Array(v)) = f.manifest.get("feature_names") {
+            let names: Vec<String> = v.iter().filter_map(|s| s.as_str().map(String::from)).collect();
+            if names.len() == d {
+                m.feature_names = names;
+            }
+        }
+        Ok(m)
+    }
+
+    /// Reads a compiled model file.
+    pub fn load(path: &Path) -> Result<CompiledModel> {
+        let f = TensorFile::read(path)?;
+        Self::from_file(&f, &path.display().to_string())
+    }
+}
