@@ -21,7 +21,9 @@ fn wht_vs_fft(c: &mut Criterion) {
         });
         let mut planner = rustfft::FftPlanner::<f32>::new();
         let fft = planner.plan_fft_forward(n);
-        let mut buf: Vec<Complex<f32>> = (0..n).map(|i| Complex::new((i as f32 * 0.1).sin(), 0.0)).collect();
+        let mut buf: Vec<Complex<f32>> = (0..n)
+            .map(|i| Complex::new((i as f32 * 0.1).sin(), 0.0))
+            .collect();
         let mut scratch = vec![Complex::new(0.0, 0.0); fft.get_inplace_scratch_len()];
         g.bench_with_input(BenchmarkId::new("rustfft_c32", n), &n, |b, _| {
             b.iter(|| fft.process_with_scratch(black_box(&mut buf), &mut scratch))
@@ -34,7 +36,9 @@ fn maps(c: &mut Criterion) {
     let d = 784;
     let dd = 4096;
     let rows = 256;
-    let x = Array2::from_shape_fn((rows, d), |(i, j)| (((i * d + j) % 97) as f64 / 97.0 - 0.5) * 2.0);
+    let x = Array2::from_shape_fn((rows, d), |(i, j)| {
+        (((i * d + j) % 97) as f64 / 97.0 - 0.5) * 2.0
+    });
     let mut g = c.benchmark_group("maps");
     g.sample_size(10);
     g.throughput(Throughput::Elements(rows as u64));
@@ -45,11 +49,19 @@ fn maps(c: &mut Criterion) {
         ("gaussian(gamma=0.0012755)", Method::Fastfood),
         ("gaussian(gamma=0.0012755)", Method::Quasi),
         ("gaussian(gamma=0.0012755)", Method::Nystrom),
-        ("polynomial(degree=3, gamma=0.01, coef0=1)", Method::Maclaurin),
-        ("polynomial(degree=3, gamma=0.01, coef0=1)", Method::TensorSketch),
+        (
+            "polynomial(degree=3, gamma=0.01, coef0=1)",
+            Method::Maclaurin,
+        ),
+        (
+            "polynomial(degree=3, gamma=0.01, coef0=1)",
+            Method::TensorSketch,
+        ),
         ("arccos(order=1)", Method::Relu),
     ];
-    let pool = Array2::from_shape_fn((dd, d), |(i, j)| (((i * 31 + j * 7) % 89) as f64 / 89.0 - 0.5) * 2.0);
+    let pool = Array2::from_shape_fn((dd, d), |(i, j)| {
+        (((i * 31 + j * 7) % 89) as f64 / 89.0 - 0.5) * 2.0
+    });
     for (k, m) in cases {
         let spec = FeatureSpec::new(k.parse().unwrap(), m, d, dd, 1);
         let (map, _) = spec.sample(Some(pool.view())).unwrap();

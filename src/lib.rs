@@ -35,6 +35,7 @@ pub mod kernel;
 pub mod linalg;
 pub mod model;
 pub mod progress;
+pub mod report;
 pub mod transform;
 
 pub use error::{Error, ErrorKind, Result};

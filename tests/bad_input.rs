@@ -228,7 +228,14 @@ fn bad_kernels_and_flags() {
 
 #[test]
 fn help_has_an_example_on_every_command() {
-    for c in ["train", "import", "score", "inspect", "kernel-check", "featurize"] {
+    for c in [
+        "train",
+        "import",
+        "score",
+        "inspect",
+        "kernel-check",
+        "featurize",
+    ] {
         let h = ok(&[c, "--help"]);
         assert!(h.contains("Example"), "{c}: {h}");
     }

@@ -42,23 +42,83 @@ fn unbiased_for_every_pair_that_claims_it() {
     let x = [0.3, -0.5, 0.8];
     let y = [-0.2, 0.4, 0.5];
     let cases: Vec<(&str, Method, FourierVariant)> = vec![
-        ("gaussian(gamma=0.5)", Method::Fourier, FourierVariant::Paired),
-        ("gaussian(gamma=0.5)", Method::Fourier, FourierVariant::Phase),
-        ("laplacian(gamma=0.7)", Method::Fourier, FourierVariant::Paired),
-        ("matern(nu=0.5, lengthscale=1.2)", Method::Fourier, FourierVariant::Paired),
-        ("matern(nu=1.5, lengthscale=1.2)", Method::Fourier, FourierVariant::Paired),
-        ("matern(nu=2.5, lengthscale=0.8)", Method::Fourier, FourierVariant::Phase),
-        ("rational_quadratic(alpha=1.5, lengthscale=0.9)", Method::Fourier, FourierVariant::Paired),
-        ("gaussian(lengthscale=[1, 2, 0.5])", Method::Orthogonal, FourierVariant::Paired),
-        ("matern(nu=1.5, lengthscale=1)", Method::Orthogonal, FourierVariant::Paired),
-        ("rational_quadratic(alpha=0.8, lengthscale=1)", Method::Orthogonal, FourierVariant::Paired),
-        ("polynomial(degree=3, gamma=0.5, coef0=1)", Method::Maclaurin, FourierVariant::Paired),
-        ("polynomial(degree=2, gamma=1, coef0=0.5)", Method::TensorSketch, FourierVariant::Paired),
+        (
+            "gaussian(gamma=0.5)",
+            Method::Fourier,
+            FourierVariant::Paired,
+        ),
+        (
+            "gaussian(gamma=0.5)",
+            Method::Fourier,
+            FourierVariant::Phase,
+        ),
+        (
+            "laplacian(gamma=0.7)",
+            Method::Fourier,
+            FourierVariant::Paired,
+        ),
+        (
+            "matern(nu=0.5, lengthscale=1.2)",
+            Method::Fourier,
+            FourierVariant::Paired,
+        ),
+        (
+            "matern(nu=1.5, lengthscale=1.2)",
+            Method::Fourier,
+            FourierVariant::Paired,
+        ),
+        (
+            "matern(nu=2.5, lengthscale=0.8)",
+            Method::Fourier,
+            FourierVariant::Phase,
+        ),
+        (
+            "rational_quadratic(alpha=1.5, lengthscale=0.9)",
+            Method::Fourier,
+            FourierVariant::Paired,
+        ),
+        (
+            "gaussian(lengthscale=[1, 2, 0.5])",
+            Method::Orthogonal,
+            FourierVariant::Paired,
+        ),
+        (
+            "matern(nu=1.5, lengthscale=1)",
+            Method::Orthogonal,
+            FourierVariant::Paired,
+        ),
+        (
+            "rational_quadratic(alpha=0.8, lengthscale=1)",
+            Method::Orthogonal,
+            FourierVariant::Paired,
+        ),
+        (
+            "polynomial(degree=3, gamma=0.5, coef0=1)",
+            Method::Maclaurin,
+            FourierVariant::Paired,
+        ),
+        (
+            "polynomial(degree=2, gamma=1, coef0=0.5)",
+            Method::TensorSketch,
+            FourierVariant::Paired,
+        ),
         ("arccos(order=0)", Method::Relu, FourierVariant::Paired),
         ("arccos(order=1)", Method::Relu, FourierVariant::Paired),
-        ("2 * gaussian(gamma=0.5) + laplacian(gamma=1)", Method::Fourier, FourierVariant::Paired),
-        ("gaussian(gamma=0.5) * matern(nu=2.5, lengthscale=1)", Method::Fourier, FourierVariant::Paired),
-        ("gaussian(gamma=0.5) * linear()", Method::Fourier, FourierVariant::Paired),
+        (
+            "2 * gaussian(gamma=0.5) + laplacian(gamma=1)",
+            Method::Fourier,
+            FourierVariant::Paired,
+        ),
+        (
+            "gaussian(gamma=0.5) * matern(nu=2.5, lengthscale=1)",
+            Method::Fourier,
+            FourierVariant::Paired,
+        ),
+        (
+            "gaussian(gamma=0.5) * linear()",
+            Method::Fourier,
+            FourierVariant::Paired,
+        ),
     ];
     for (e, m, v) in cases {
         let mut spec = FeatureSpec::new(k(e), m, 3, 32, 0);
@@ -80,7 +140,10 @@ fn fourier_variance_matches_sutherland_schneider() {
     // D·Var_paired = 0.3995764, D·Var_phase = 0.6997882.
     let x = [0.0, 0.0];
     let y = [0.6, 0.8];
-    for (variant, want) in [(FourierVariant::Paired, 0.3995764), (FourierVariant::Phase, 0.6997882)] {
+    for (variant, want) in [
+        (FourierVariant::Paired, 0.3995764),
+        (FourierVariant::Phase, 0.6997882),
+    ] {
         let dd = 16usize;
         let mut spec = FeatureSpec::new(k("gaussian(gamma=0.5)"), Method::Fourier, 2, dd, 0);
         spec.options.fourier = variant;
@@ -121,12 +184,27 @@ fn orthogonal_and_hadamard_beat_fourier_at_d_frequencies() {
         // Relative standard error of a sample variance is about √(2/(S−1)) for near-normal
         // estimates; allow 4.5 of them (kurtosis of these estimates is modest).
         let rel = 4.5 * (2.0 / (seeds as f64 - 1.0)).sqrt();
-        assert!((rff / rff_ref - 1.0).abs() < rel * 1.5, "d={d}: RFF var {rff} vs {rff_ref}");
+        assert!(
+            (rff / rff_ref - 1.0).abs() < rel * 1.5,
+            "d={d}: RFF var {rff} vs {rff_ref}"
+        );
         let ratio = orf / rff_ref;
-        assert!((ratio / ratio_ref - 1.0).abs() < rel * 2.0, "d={d}: ORF ratio {ratio} vs {ratio_ref}");
-        eprintln!("d={d}: rff {rff} (ref {rff_ref}) orf ratio {ratio} (ref {ratio_ref}) sorf ratio {}", sorf / rff_ref);
-        assert!(orf < rff && sorf < rff, "d={d}: orf {orf} sorf {sorf} rff {rff}");
-        assert!(sorf < 0.5 * rff, "d={d}: SORF should be far below RFF: {sorf} vs {rff}");
+        assert!(
+            (ratio / ratio_ref - 1.0).abs() < rel * 2.0,
+            "d={d}: ORF ratio {ratio} vs {ratio_ref}"
+        );
+        eprintln!(
+            "d={d}: rff {rff} (ref {rff_ref}) orf ratio {ratio} (ref {ratio_ref}) sorf ratio {}",
+            sorf / rff_ref
+        );
+        assert!(
+            orf < rff && sorf < rff,
+            "d={d}: orf {orf} sorf {sorf} rff {rff}"
+        );
+        assert!(
+            sorf < 0.5 * rff,
+            "d={d}: SORF should be far below RFF: {sorf} vs {rff}"
+        );
     }
 }
 
@@ -154,19 +232,39 @@ fn monte_carlo_error_falls_like_inverse_sqrt_d_and_qmc_beats_it() {
     for m in [Method::Fourier, Method::Fastfood] {
         let errs: Vec<f64> = ds
             .iter()
-            .map(|&dd| gram_error(&FeatureSpec::new(k("gaussian(gamma=0.4)"), m, 3, dd, 0), &x, 6))
+            .map(|&dd| {
+                gram_error(
+                    &FeatureSpec::new(k("gaussian(gamma=0.4)"), m, 3, dd, 0),
+                    &x,
+                    6,
+                )
+            })
             .collect();
         let lx: Vec<f64> = ds.iter().map(|v| (*v as f64).ln()).collect();
         let ly: Vec<f64> = errs.iter().map(|v| v.ln()).collect();
         let (mx, my) = (lx.iter().sum::<f64>() / 4.0, ly.iter().sum::<f64>() / 4.0);
-        let slope = lx.iter().zip(&ly).map(|(a, b)| (a - mx) * (b - my)).sum::<f64>()
+        let slope = lx
+            .iter()
+            .zip(&ly)
+            .map(|(a, b)| (a - mx) * (b - my))
+            .sum::<f64>()
             / lx.iter().map(|a| (a - mx).powi(2)).sum::<f64>();
         eprintln!("{m:?}: slope {slope}, errors {errs:?}");
-        assert!((-0.6..=-0.4).contains(&slope), "{m:?}: slope {slope}, errors {errs:?}");
+        assert!(
+            (-0.6..=-0.4).contains(&slope),
+            "{m:?}: slope {slope}, errors {errs:?}"
+        );
     }
     for dd in [64usize, 256, 1024] {
-        let mc = gram_error(&FeatureSpec::new(k("gaussian(gamma=0.4)"), Method::Fourier, 3, dd, 0), &x, 6);
-        for seq in [kernelpress::features::Sequence::Halton, kernelpress::features::Sequence::Sobol] {
+        let mc = gram_error(
+            &FeatureSpec::new(k("gaussian(gamma=0.4)"), Method::Fourier, 3, dd, 0),
+            &x,
+            6,
+        );
+        for seq in [
+            kernelpress::features::Sequence::Halton,
+            kernelpress::features::Sequence::Sobol,
+        ] {
             let mut spec = FeatureSpec::new(k("gaussian(gamma=0.4)"), Method::Quasi, 3, dd, 0);
             spec.options.sequence = seq;
             let q = gram_error(&spec, &x, 6);
@@ -197,14 +295,48 @@ fn featurize_gram_matches_scipy() {
     let data = dir.join("x.csv");
     write_csv(&data, &["a", "b", "c", "d"], &rows, None);
     for (expr, spec, method) in [
-        ("gaussian(gamma=0.5)", r#"{"name":"gaussian","gamma":0.5}"#, "orthogonal"),
-        ("laplacian(gamma=0.3)", r#"{"name":"laplacian","gamma":0.3}"#, "fourier"),
-        ("matern(nu=1.5, lengthscale=1)", r#"{"name":"matern","nu":1.5,"lengthscale":1.0}"#, "quasi"),
-        ("polynomial(degree=2, gamma=1, coef0=1)", r#"{"name":"polynomial","degree":2,"gamma":1.0,"coef0":1.0}"#, "tensorsketch"),
-        ("gaussian(gamma=0.5)", r#"{"name":"gaussian","gamma":0.5}"#, "nystrom"),
+        (
+            "gaussian(gamma=0.5)",
+            r#"{"name":"gaussian","gamma":0.5}"#,
+            "orthogonal",
+        ),
+        (
+            "laplacian(gamma=0.3)",
+            r#"{"name":"laplacian","gamma":0.3}"#,
+            "fourier",
+        ),
+        (
+            "matern(nu=1.5, lengthscale=1)",
+            r#"{"name":"matern","nu":1.5,"lengthscale":1.0}"#,
+            "quasi",
+        ),
+        (
+            "polynomial(degree=2, gamma=1, coef0=1)",
+            r#"{"name":"polynomial","degree":2,"gamma":1.0,"coef0":1.0}"#,
+            "tensorsketch",
+        ),
+        (
+            "gaussian(gamma=0.5)",
+            r#"{"name":"gaussian","gamma":0.5}"#,
+            "nystrom",
+        ),
     ] {
         let z = dir.join(format!("z_{method}.npy"));
-        ok(&["featurize", "--kernel", expr, "--method", method, "--features", "4096", "--seed", "1", "--data", s(&data), "--out", s(&z)]);
+        ok(&[
+            "featurize",
+            "--kernel",
+            expr,
+            "--method",
+            method,
+            "--features",
+            "4096",
+            "--seed",
+            "1",
+            "--data",
+            s(&data),
+            "--out",
+            s(&z),
+        ]);
         // Bound: Monte-Carlo error ~ c/√D; 0.1 relative Frobenius error is loose at D = 4096
         // for these smooth kernels (common practice), and Nyström with 80 ≤ D is exact.
         let tol = if method == "nystrom" { "1e-8" } else { "0.1" };
@@ -218,11 +350,35 @@ fn featurize_writes_csv_and_refuses_bad_pairs() {
     let data = dir.join("x.csv");
     std::fs::write(&data, "a,b\n1,2\n3,4\n").unwrap();
     let out = dir.join("z.csv");
-    ok(&["featurize", "--kernel", "gaussian(gamma=1)", "--method", "hadamard", "--features", "8", "--data", s(&data), "--out", s(&out)]);
+    ok(&[
+        "featurize",
+        "--kernel",
+        "gaussian(gamma=1)",
+        "--method",
+        "hadamard",
+        "--features",
+        "8",
+        "--data",
+        s(&data),
+        "--out",
+        s(&out),
+    ]);
     let text = std::fs::read_to_string(&out).unwrap();
     assert_eq!(text.lines().count(), 3);
     assert_eq!(text.lines().next().unwrap().split(',').count(), 8);
-    let e = bad(&["featurize", "--kernel", "laplacian(gamma=1)", "--method", "fastfood", "--features", "8", "--data", s(&data), "--out", s(&dir.join("y.npy"))]);
+    let e = bad(&[
+        "featurize",
+        "--kernel",
+        "laplacian(gamma=1)",
+        "--method",
+        "fastfood",
+        "--features",
+        "8",
+        "--data",
+        s(&data),
+        "--out",
+        s(&dir.join("y.npy")),
+    ]);
     assert!(e.contains("fourier, quasi, nystrom"), "{e}");
     assert!(!dir.join("y.npy").exists());
 }

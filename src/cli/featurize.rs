@@ -38,8 +38,9 @@ pub(crate) struct MapArgs {
     /// quasi: do not scramble the points (deterministic, seed ignored).
     #[arg(long)]
     pub no_scramble: bool,
-    /// nystrom: landmark rule (uniform, kmeans++ or leverage).
-    #[arg(long, default_value = "kmeans++")]
+    /// nystrom: landmark rule (uniform, kmeans++ or leverage). k-means++ costs one kernel
+    /// column over all rows per landmark.
+    #[arg(long, default_value = "uniform")]
     pub landmark_rule: String,
     /// nystrom: take the landmarks from this file (CSV or .npy, raw inputs) instead.
     #[arg(long)]
@@ -48,7 +49,13 @@ pub(crate) struct MapArgs {
 
 impl MapArgs {
     pub(crate) fn spec(&self, kernel: crate::kernel::Kernel, d: usize) -> Result<FeatureSpec> {
-        let mut spec = FeatureSpec::new(kernel, Method::parse(&self.method)?, d, self.features, self.seed);
+        let mut spec = FeatureSpec::new(
+            kernel,
+            Method::parse(&self.method)?,
+            d,
+            self.features,
+            self.seed,
+        );
         spec.options.fourier = match self.variant {
             Variant::Paired => FourierVariant::Paired,
             Variant::Phase => FourierVariant::Phase,
@@ -91,7 +98,11 @@ pub(crate) struct Args {
     out: PathBuf,
 }
 
-pub(crate) fn read_landmarks(p: &Path, d: usize, scale: &dyn Fn(ndarray::ArrayView2<f64>) -> ndarray::Array2<f64>) -> Result<ndarray::Array2<f64>> {
+pub(crate) fn read_landmarks(
+    p: &Path,
+    d: usize,
+    scale: &dyn Fn(ndarray::ArrayView2<f64>) -> ndarray::Array2<f64>,
+) -> Result<ndarray::Array2<f64>> {
     let t = read_table(p, None, false)?;
     check_batch(t.x.view(), d, &p.display().to_string())?;
     Ok(scale(t.x.view()))
@@ -127,10 +138,18 @@ pub(crate) fn run(a: Args) -> Result<()> {
     let pb = crate::progress::bar(1, "featurize");
     let z = map.transform(x.view());
     pb.finish_and_clear();
-    let is_csv = a.out.extension().map(|e| e.eq_ignore_ascii_case("csv")).unwrap_or(false);
+    let is_csv = a
+        .out
+        .extension()
+        .map(|e| e.eq_ignore_ascii_case("csv"))
+        .unwrap_or(false);
     if is_csv {
         let header: Vec<String> = (0..z.ncols()).map(|j| format!("z{j}")).collect();
-        let rows: Vec<Vec<String>> = z.rows().into_iter().map(|r| r.iter().map(|v| format!("{v:?}")).collect()).collect();
+        let rows: Vec<Vec<String>> = z
+            .rows()
+            .into_iter()
+            .map(|r| r.iter().map(|v| format!("{v:?}")).collect())
+            .collect();
         crate::data::write_csv(&a.out, &header, &rows)?;
     } else {
         write_npy_f64(&a.out, &[z.nrows(), z.ncols()], z.as_slice().unwrap())?;

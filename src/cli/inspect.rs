@@ -78,7 +78,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
             let spec = &m.map().spec;
             s.push_str("kind            compiled (feature map + linear head)\n");
             s.push_str(&format!("kernel          {}\n", spec.kernel));
-            s.push_str(&format!("method          {} (seed {})\n", spec.method.name(), spec.seed));
+            s.push_str(&format!(
+                "method          {} (seed {})\n",
+                spec.method.name(),
+                spec.seed
+            ));
             s.push_str(&format!(
                 "features        {} (requested {})\n",
                 m.map().output_dim(),
@@ -91,7 +95,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
             s.push_str(&format!("input dim       {}\n", m.input_dim()));
             s.push_str(&format!(
                 "input scaling   {}\n",
-                if m.scaling().is_some() { "standardize" } else { "none" }
+                if m.scaling().is_some() {
+                    "standardize"
+                } else {
+                    "none"
+                }
             ));
             s.push_str(&format!("outputs         {}\n", m.n_outputs()));
             s.push_str(&format!("cost/prediction ≈{} flops\n", m.flops()));
@@ -99,7 +107,9 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 s.push_str(&format!("head fit        {fit}\n"));
             }
             if let Some(a) = m.report.get("agreement").and_then(|v| v.as_f64()) {
-                s.push_str(&format!("agreement       {a:.4} with the exact model (at compile time)\n"));
+                s.push_str(&format!(
+                    "agreement       {a:.4} with the exact model (at compile time)\n"
+                ));
             }
         }
     }

@@ -2,10 +2,12 @@
 //! over the library. `main` maps errors to exit codes: 2 for bad input or usage, 1 for
 //! internal failures.
 
+mod compile;
 mod featurize;
 mod import;
 mod inspect;
 mod kernel_check;
+mod report;
 mod score;
 mod train;
 
@@ -31,6 +33,8 @@ enum Command {
     Inspect(inspect::Args),
     KernelCheck(kernel_check::Args),
     Featurize(featurize::Args),
+    Compile(compile::Args),
+    Report(report::Args),
 }
 
 /// Parses the process arguments, runs the command, and returns the exit code.
@@ -53,6 +57,8 @@ pub fn main() -> i32 {
         Command::Inspect(a) => inspect::run(a),
         Command::KernelCheck(a) => kernel_check::run(a),
         Command::Featurize(a) => featurize::run(a),
+        Command::Compile(a) => compile::run(a),
+        Command::Report(a) => report::run(a),
     };
     match res {
         Ok(()) => 0,

@@ -83,19 +83,20 @@ pub fn parse_npy(b: &[u8], source: &str) -> Result<NpyArray> {
         .map_err(|_| bad(source, "header is not text"))?;
     let descr = dict_value(header, "descr").ok_or_else(|| bad(source, "no 'descr' in header"))?;
     let descr = descr.trim_matches(|c| c == '\'' || c == '"');
-    let (size, kind) =
-        match descr {
-            "<f8" | "f8" => (8, 'f'),
-            "<f4" | "f4" => (4, 'f'),
-            "<i8" | "i8" => (8, 'i'),
-            "<i4" | "i4" => (4, 'i'),
-            other => return Err(bad(
+    let (size, kind) = match descr {
+        "<f8" | "f8" => (8, 'f'),
+        "<f4" | "f4" => (4, 'f'),
+        "<i8" | "i8" => (8, 'i'),
+        "<i4" | "i4" => (4, 'i'),
+        other => {
+            return Err(bad(
                 source,
                 format!(
                     "dtype '{other}' is not supported; expected little-endian float64 or float32"
                 ),
-            )),
-        };
+            ))
+        }
+    };
     let fortran = dict_value(header, "fortran_order")
         .map(|v| v.trim() == "True")
         .unwrap_or(false);

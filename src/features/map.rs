@@ -113,7 +113,15 @@ impl Freq {
                 }
                 out
             }
-            Freq::Fastfood { d, d_pad, m, b, perm, g, scale } => {
+            Freq::Fastfood {
+                d,
+                d_pad,
+                m,
+                b,
+                perm,
+                g,
+                scale,
+            } => {
                 let blocks = b.nrows();
                 let mut out = Array2::zeros((x.nrows(), *m));
                 let mut buf = vec![0.0; *d_pad];
@@ -261,7 +269,9 @@ impl Node {
                         Trig::Phase(p) => p.len(),
                     }
             }
-            Node::Nystrom { landmarks, proj, .. } => landmarks.len() + proj.len(),
+            Node::Nystrom {
+                landmarks, proj, ..
+            } => landmarks.len() + proj.len(),
             Node::Maclaurin { coef, w, .. } => coef.len() + w.len(),
             Node::TensorSketch { hash, .. } => 2 * hash.iter().map(|h| h.len()).sum::<usize>(),
             Node::Relu { w, .. } | Node::Projection { w } => w.len(),
@@ -288,7 +298,9 @@ impl Node {
                     }
                 }
             }
-            Node::Nystrom { landmarks, proj, .. } => 3 * landmarks.len() + 2 * proj.len(),
+            Node::Nystrom {
+                landmarks, proj, ..
+            } => 3 * landmarks.len() + 2 * proj.len(),
             Node::Maclaurin { coef, w, .. } => 2 * w.len() + coef.len(),
             Node::TensorSketch { degree, out, .. } => 5 * (degree + 1) * out * lg(*out),
             Node::Relu { w, .. } | Node::Projection { w } => 2 * w.len(),
@@ -328,13 +340,20 @@ impl Node {
                         let f = (2.0 / m as f64).sqrt();
                         let mut out = p;
                         for mut o in out.rows_mut() {
-                            o.iter_mut().zip(b).for_each(|(v, b)| *v = f * (*v + b).cos());
+                            o.iter_mut()
+                                .zip(b)
+                                .for_each(|(v, b)| *v = f * (*v + b).cos());
                         }
                         out
                     }
                 }
             }
-            Node::Nystrom { kernel, landmarks, proj, prepared } => {
+            Node::Nystrom {
+                kernel,
+                landmarks,
+                proj,
+                prepared,
+            } => {
                 let prep = prepared.get_or_init(|| Prepared::new(kernel, landmarks.view()));
                 let g = kernel.gram_block(x, prep);
                 linalg::ab_seq(g.view(), proj.view())
@@ -355,9 +374,14 @@ impl Node {
                 }
                 out
             }
-            Node::TensorSketch { degree, gamma, coef0, out, hash, sign } => {
-                tensor_sketch(x, *degree, *gamma, *coef0, *out, hash, sign)
-            }
+            Node::TensorSketch {
+                degree,
+                gamma,
+                coef0,
+                out,
+                hash,
+                sign,
+            } => tensor_sketch(x, *degree, *gamma, *coef0, *out, hash, sign),
             Node::Relu { order, w } => {
                 let mut p = linalg::abt_seq(x, w.view());
                 let f = (2.0 / w.nrows() as f64).sqrt();
@@ -406,7 +430,11 @@ impl Node {
     pub(crate) fn to_json(&self, prefix: &str, f: &mut TensorFile) -> Value {
         let arr = |f: &mut TensorFile, name: &str, a: &Array2<f64>| {
             let key = format!("{prefix}.{name}");
-            f.put(&key, vec![a.nrows(), a.ncols()], a.iter().copied().collect());
+            f.put(
+                &key,
+                vec![a.nrows(), a.ncols()],
+                a.iter().copied().collect(),
+            );
             key
         };
         match self {
@@ -418,8 +446,17 @@ impl Node {
                     Freq::Hadamard { d, d_pad, m, signs } => {
                         json!({"kind": "hadamard", "d": d, "d_pad": d_pad, "m": m, "signs": arr(f, "signs", signs)})
                     }
-                    Freq::Fastfood { d, d_pad, m, b, perm, g, scale } => {
-                        let p = Array2::from_shape_fn((perm.len(), *d_pad), |(i, j)| perm[i][j] as f64);
+                    Freq::Fastfood {
+                        d,
+                        d_pad,
+                        m,
+                        b,
+                        perm,
+                        g,
+                        scale,
+                    } => {
+                        let p =
+                            Array2::from_shape_fn((perm.len(), *d_pad), |(i, j)| perm[i][j] as f64);
                         json!({"kind": "fastfood", "d": d, "d_pad": d_pad, "m": m, "b": arr(f, "b", b),
                             "perm": arr(f, "perm", &p), "g": arr(f, "g", g), "s": arr(f, "s", scale)})
                     }
@@ -434,17 +471,34 @@ impl Node {
                 };
                 json!({"node": "spectral", "scale": sk, "freq": fj, "trig": tj})
             }
-            Node::Nystrom { kernel, landmarks, proj, .. } => json!({"node": "nystrom", "kernel": kernel.to_string(),
+            Node::Nystrom {
+                kernel,
+                landmarks,
+                proj,
+                ..
+            } => json!({"node": "nystrom", "kernel": kernel.to_string(),
                 "landmarks": arr(f, "landmarks", landmarks), "proj": arr(f, "proj", proj)}),
             Node::Maclaurin { degree, coef, w } => {
                 let dk = format!("{prefix}.degree");
-                f.put(&dk, vec![degree.len()], degree.iter().map(|v| *v as f64).collect());
+                f.put(
+                    &dk,
+                    vec![degree.len()],
+                    degree.iter().map(|v| *v as f64).collect(),
+                );
                 let ck = format!("{prefix}.coef");
                 f.put(&ck, vec![coef.len()], coef.clone());
                 json!({"node": "maclaurin", "degree": dk, "coef": ck, "w": arr(f, "w", w)})
             }
-            Node::TensorSketch { degree, gamma, coef0, out, hash, sign } => {
-                let h = Array2::from_shape_fn((hash.len(), hash[0].len()), |(i, j)| hash[i][j] as f64);
+            Node::TensorSketch {
+                degree,
+                gamma,
+                coef0,
+                out,
+                hash,
+                sign,
+            } => {
+                let h =
+                    Array2::from_shape_fn((hash.len(), hash[0].len()), |(i, j)| hash[i][j] as f64);
                 let sg = Array2::from_shape_fn((sign.len(), sign[0].len()), |(i, j)| sign[i][j]);
                 json!({"node": "tensorsketch", "degree": degree, "gamma": gamma, "coef0": coef0, "out": out,
                     "hash": arr(f, "hash", &h), "sign": arr(f, "sign", &sg)})
@@ -452,17 +506,36 @@ impl Node {
             Node::Relu { order, w } => json!({"node": "relu", "order": order, "w": arr(f, "w", w)}),
             Node::Projection { w } => json!({"node": "projection", "w": arr(f, "w", w)}),
             Node::Identity { d } => json!({"node": "identity", "d": d}),
-            Node::Concat(v) => json!({"node": "concat", "parts": v.iter().enumerate().map(|(i, n)| n.to_json(&format!("{prefix}.{i}"), f)).collect::<Vec<_>>()}),
-            Node::Product(v) => json!({"node": "product", "parts": v.iter().enumerate().map(|(i, n)| n.to_json(&format!("{prefix}.{i}"), f)).collect::<Vec<_>>()}),
-            Node::Scaled(c, n) => json!({"node": "scaled", "c": c, "inner": n.to_json(&format!("{prefix}.0"), f)}),
+            Node::Concat(v) => {
+                json!({"node": "concat", "parts": v.iter().enumerate().map(|(i, n)| n.to_json(&format!("{prefix}.{i}"), f)).collect::<Vec<_>>()})
+            }
+            Node::Product(v) => {
+                json!({"node": "product", "parts": v.iter().enumerate().map(|(i, n)| n.to_json(&format!("{prefix}.{i}"), f)).collect::<Vec<_>>()})
+            }
+            Node::Scaled(c, n) => {
+                json!({"node": "scaled", "c": c, "inner": n.to_json(&format!("{prefix}.0"), f)})
+            }
         }
     }
 
     pub(crate) fn from_json(v: &Value, f: &TensorFile, src: &str, d: usize) -> Result<Node> {
         let bad = |what: &str| Error::input(format!("{src}: feature map: {what}"));
-        let st = |k: &str| v.get(k).and_then(|x| x.as_str()).ok_or_else(|| bad(&format!("'{k}' missing")));
-        let num = |k: &str| v.get(k).and_then(|x| x.as_u64()).map(|x| x as usize).ok_or_else(|| bad(&format!("'{k}' missing")));
-        let fl = |k: &str| v.get(k).and_then(|x| x.as_f64()).ok_or_else(|| bad(&format!("'{k}' missing")));
+        let st = |k: &str| {
+            v.get(k)
+                .and_then(|x| x.as_str())
+                .ok_or_else(|| bad(&format!("'{k}' missing")))
+        };
+        let num = |k: &str| {
+            v.get(k)
+                .and_then(|x| x.as_u64())
+                .map(|x| x as usize)
+                .ok_or_else(|| bad(&format!("'{k}' missing")))
+        };
+        let fl = |k: &str| {
+            v.get(k)
+                .and_then(|x| x.as_f64())
+                .ok_or_else(|| bad(&format!("'{k}' missing")))
+        };
         let mat = |key: &str, rows: Option<usize>, cols: Option<usize>| -> Result<Array2<f64>> {
             let (s, data) = f.tensor(key, &[rows, cols], src)?;
             Ok(Array2::from_shape_vec((s[0], s[1]), data).unwrap())
@@ -472,15 +545,28 @@ impl Node {
             "spectral" => {
                 let (_, scale) = f.tensor(st("scale")?, &[Some(d)], src)?;
                 let fj = v.get("freq").ok_or_else(|| bad("'freq' missing"))?;
-                let fs = |k: &str| fj.get(k).and_then(|x| x.as_str()).ok_or_else(|| bad(&format!("freq '{k}' missing")));
-                let fu = |k: &str| fj.get(k).and_then(|x| x.as_u64()).map(|x| x as usize).ok_or_else(|| bad(&format!("freq '{k}' missing")));
+                let fs = |k: &str| {
+                    fj.get(k)
+                        .and_then(|x| x.as_str())
+                        .ok_or_else(|| bad(&format!("freq '{k}' missing")))
+                };
+                let fu = |k: &str| {
+                    fj.get(k)
+                        .and_then(|x| x.as_u64())
+                        .map(|x| x as usize)
+                        .ok_or_else(|| bad(&format!("freq '{k}' missing")))
+                };
                 let freq = match fs("kind")? {
                     "dense" => Freq::Dense(mat(fs("w")?, None, Some(d))?),
                     "hadamard" => {
                         let d_pad = fu("d_pad")?;
                         let signs = mat(fs("signs")?, None, Some(d_pad))?;
                         let m = fu("m")?;
-                        if !d_pad.is_power_of_two() || d_pad < d || signs.nrows() % 3 != 0 || m > signs.nrows() / 3 * d_pad {
+                        if !d_pad.is_power_of_two()
+                            || d_pad < d
+                            || signs.nrows() % 3 != 0
+                            || m > signs.nrows() / 3 * d_pad
+                        {
                             return Err(bad("inconsistent hadamard sizes"));
                         }
                         Freq::Hadamard { d, d_pad, m, signs }
@@ -510,14 +596,25 @@ impl Node {
                             }
                             perm.push(row);
                         }
-                        Freq::Fastfood { d, d_pad, m, b, perm, g, scale }
+                        Freq::Fastfood {
+                            d,
+                            d_pad,
+                            m,
+                            b,
+                            perm,
+                            g,
+                            scale,
+                        }
                     }
                     o => return Err(bad(&format!("frequency kind '{o}' unknown"))),
                 };
                 let trig = match v.get("trig") {
                     Some(Value::String(s)) if s == "paired" => Trig::Paired,
                     Some(t) => {
-                        let k = t.get("phase").and_then(|x| x.as_str()).ok_or_else(|| bad("bad trig"))?;
+                        let k = t
+                            .get("phase")
+                            .and_then(|x| x.as_str())
+                            .ok_or_else(|| bad("bad trig"))?;
                         let (_, b) = f.tensor(k, &[Some(freq.m())], src)?;
                         Trig::Phase(b)
                     }
@@ -530,7 +627,12 @@ impl Node {
                 kernel.check_dim(d)?;
                 let landmarks = mat(st("landmarks")?, None, Some(d))?;
                 let proj = mat(st("proj")?, Some(landmarks.nrows()), None)?;
-                Node::Nystrom { kernel, landmarks, proj, prepared: Arc::new(OnceLock::new()) }
+                Node::Nystrom {
+                    kernel,
+                    landmarks,
+                    proj,
+                    prepared: Arc::new(OnceLock::new()),
+                }
             }
             "maclaurin" => {
                 let (_, deg) = f.tensor(st("degree")?, &[None], src)?;
@@ -553,29 +655,55 @@ impl Node {
                     gamma: fl("gamma")?,
                     coef0: fl("coef0")?,
                     out,
-                    hash: h.rows().into_iter().map(|r| r.iter().map(|v| *v as u32).collect()).collect(),
+                    hash: h
+                        .rows()
+                        .into_iter()
+                        .map(|r| r.iter().map(|v| *v as u32).collect())
+                        .collect(),
                     sign: sg.rows().into_iter().map(|r| r.to_vec()).collect(),
                 }
             }
-            "relu" => Node::Relu { order: num("order")? as u32, w: mat(st("w")?, None, Some(d))? },
-            "projection" => Node::Projection { w: mat(st("w")?, None, Some(d))? },
+            "relu" => Node::Relu {
+                order: num("order")? as u32,
+                w: mat(st("w")?, None, Some(d))?,
+            },
+            "projection" => Node::Projection {
+                w: mat(st("w")?, None, Some(d))?,
+            },
             "identity" => Node::Identity { d },
             "concat" | "product" => {
-                let parts = v.get("parts").and_then(|p| p.as_array()).ok_or_else(|| bad("'parts' missing"))?;
-                let nodes: Vec<Node> = parts.iter().map(|p| Node::from_json(p, f, src, d)).collect::<Result<_>>()?;
+                let parts = v
+                    .get("parts")
+                    .and_then(|p| p.as_array())
+                    .ok_or_else(|| bad("'parts' missing"))?;
+                let nodes: Vec<Node> = parts
+                    .iter()
+                    .map(|p| Node::from_json(p, f, src, d))
+                    .collect::<Result<_>>()?;
                 if nodes.is_empty() {
                     return Err(bad("no parts"));
                 }
                 if node == "concat" {
                     Node::Concat(nodes)
                 } else {
-                    if nodes.iter().any(|n| n.output_dim() != nodes[0].output_dim()) {
+                    if nodes
+                        .iter()
+                        .any(|n| n.output_dim() != nodes[0].output_dim())
+                    {
                         return Err(bad("product parts of different sizes"));
                     }
                     Node::Product(nodes)
                 }
             }
-            "scaled" => Node::Scaled(fl("c")?, Box::new(Node::from_json(v.get("inner").ok_or_else(|| bad("'inner' missing"))?, f, src, d)?)),
+            "scaled" => Node::Scaled(
+                fl("c")?,
+                Box::new(Node::from_json(
+                    v.get("inner").ok_or_else(|| bad("'inner' missing"))?,
+                    f,
+                    src,
+                    d,
+                )?),
+            ),
             o => return Err(bad(&format!("node '{o}' unknown"))),
         })
     }
@@ -594,7 +722,11 @@ fn tensor_sketch(
     let mut planner = rustfft::FftPlanner::<f64>::new();
     let fwd = planner.plan_fft_forward(out);
     let inv = planner.plan_fft_inverse(out);
-    let mut scratch = vec![Complex::new(0.0, 0.0); fwd.get_inplace_scratch_len().max(inv.get_inplace_scratch_len())];
+    let mut scratch = vec![
+        Complex::new(0.0, 0.0);
+        fwd.get_inplace_scratch_len()
+            .max(inv.get_inplace_scratch_len())
+    ];
     let sg = gamma.sqrt();
     let sc = coef0.sqrt();
     let d = x.ncols();

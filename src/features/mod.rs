@@ -67,7 +67,13 @@ impl FeatureSpec {
     /// Samples the map. `data` (rows in the kernel's input space) is needed by `nystrom`.
     pub fn sample(&self, data: Option<ArrayView2<f64>>) -> Result<(FeatureMap, SampleInfo)> {
         let (root, info) = sampler::sample(self, data)?;
-        Ok((FeatureMap { spec: self.clone(), root }, info))
+        Ok((
+            FeatureMap {
+                spec: self.clone(),
+                root,
+            },
+            info,
+        ))
     }
 }
 
@@ -109,8 +115,16 @@ impl FeatureMap {
     /// If the shapes do not match.
     #[track_caller]
     pub fn transform_into(&self, x: ArrayView2<f64>, out: ArrayViewMut2<f64>) {
-        assert_eq!(x.ncols(), self.input_dim(), "feature map: wrong number of input features");
-        assert_eq!(out.dim(), (x.nrows(), self.output_dim()), "feature map: output buffer has the wrong shape");
+        assert_eq!(
+            x.ncols(),
+            self.input_dim(),
+            "feature map: wrong number of input features"
+        );
+        assert_eq!(
+            out.dim(),
+            (x.nrows(), self.output_dim()),
+            "feature map: output buffer has the wrong shape"
+        );
         map::apply_into(&self.root, x, out);
     }
 
@@ -123,17 +137,23 @@ impl FeatureMap {
     /// Stores the map in `f` (tensors `map.*`, manifest key `feature_map`).
     pub fn write_to(&self, f: &mut TensorFile) {
         let tree = self.root.to_json("map", f);
-        f.manifest.insert("feature_spec".into(), self.spec.to_json());
+        f.manifest
+            .insert("feature_spec".into(), self.spec.to_json());
         f.manifest.insert("feature_map".into(), tree);
     }
 
     /// Reads a map stored by [`Self::write_to`].
     pub fn read_from(f: &TensorFile, src: &str) -> Result<FeatureMap> {
         let spec = FeatureSpec::from_json(
-            f.manifest.get("feature_spec").ok_or_else(|| Error::input(format!("{src}: manifest has no feature_spec")))?,
+            f.manifest
+                .get("feature_spec")
+                .ok_or_else(|| Error::input(format!("{src}: manifest has no feature_spec")))?,
         )
         .map_err(|e| e.context(src))?;
-        let tree = f.manifest.get("feature_map").ok_or_else(|| Error::input(format!("{src}: manifest has no feature_map")))?;
+        let tree = f
+            .manifest
+            .get("feature_map")
+            .ok_or_else(|| Error::input(format!("{src}: manifest has no feature_map")))?;
         let root = Node::from_json(tree, f, src, spec.input_dim)?;
         Ok(FeatureMap { spec, root })
     }

@@ -17,7 +17,11 @@ pub fn primes(n: usize) -> Vec<u64> {
     let mut out = Vec::with_capacity(n);
     let mut c = 2u64;
     while out.len() < n {
-        if out.iter().take_while(|p| **p * **p <= c).all(|p| c % p != 0) {
+        if out
+            .iter()
+            .take_while(|p| **p * **p <= c)
+            .all(|p| !c.is_multiple_of(*p))
+        {
             out.push(c);
         }
         c += 1;
@@ -36,7 +40,9 @@ pub fn halton(n: usize, dim: usize, start: u64, seed: Option<u64>) -> Vec<f64> {
         .map(|(j, &b)| {
             let mut p: Vec<u64> = (0..b).collect();
             if let Some(s) = seed {
-                let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(s ^ (j as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15));
+                let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(
+                    s ^ (j as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15),
+                );
                 p[1..].shuffle(&mut rng);
             }
             p
@@ -133,7 +139,16 @@ mod tests {
     fn halton_reference_points() {
         // REFERENCES §5: bases (2,3), skipping index 0.
         let p = halton(4, 2, 1, None);
-        let want = [0.5, 1.0 / 3.0, 0.25, 2.0 / 3.0, 0.75, 1.0 / 9.0, 0.125, 4.0 / 9.0];
+        let want = [
+            0.5,
+            1.0 / 3.0,
+            0.25,
+            2.0 / 3.0,
+            0.75,
+            1.0 / 9.0,
+            0.125,
+            4.0 / 9.0,
+        ];
         for (a, b) in p.iter().zip(want) {
             assert!((a - b).abs() < 1e-15);
         }

@@ -45,7 +45,9 @@ pub fn sample(spec: &FeatureSpec, data: Option<ArrayView2<f64>>) -> Result<(Node
     }
     let node = if spec.method == Method::Nystrom {
         let data = data.ok_or_else(|| {
-            Error::input("nystrom needs data to draw landmarks from (calibration data or --landmarks FILE)")
+            Error::input(
+                "nystrom needs data to draw landmarks from (calibration data or --landmarks FILE)",
+            )
         })?;
         nystrom(spec, data, &mut info)?
     } else {
@@ -57,18 +59,25 @@ pub fn sample(spec: &FeatureSpec, data: Option<ArrayView2<f64>>) -> Result<(Node
 fn plan(k: &Kernel, spec: &FeatureSpec, dd: usize, seed: u64, in_product: bool) -> Result<Node> {
     let d = spec.input_dim;
     match k {
-        Kernel::Scaled(c, inner) => Ok(Node::Scaled(c.sqrt(), Box::new(plan(inner, spec, dd, seed, in_product)?))),
+        Kernel::Scaled(c, inner) => Ok(Node::Scaled(
+            c.sqrt(),
+            Box::new(plan(inner, spec, dd, seed, in_product)?),
+        )),
         Kernel::Sum(parts) => {
             let lin = parts.iter().filter(|p| matches!(p, Kernel::Linear)).count();
             let rnd = parts.len() - lin;
-            let rest = if in_product { dd } else { dd.saturating_sub(lin * d) };
+            let rest = if in_product {
+                dd
+            } else {
+                dd.saturating_sub(lin * d)
+            };
             if rnd > 0 && rest < 2 * rnd {
                 return Err(Error::input(format!(
                     "--features {dd} is too few for kernel {k}: linear parts take {d} each and every other part needs at least 2"
                 )));
             }
             let even = |v: usize| v - v % 2;
-            let base = if rnd > 0 { even(rest / rnd) } else { 0 };
+            let base = rest.checked_div(rnd).map(even).unwrap_or(0);
             let mut nodes = Vec::new();
             let mut first = true;
             for (i, p) in parts.iter().enumerate() {
@@ -76,7 +85,11 @@ fn plan(k: &Kernel, spec: &FeatureSpec, dd: usize, seed: u64, in_product: bool) 
                 if matches!(p, Kernel::Linear) && !in_product {
                     nodes.push(Node::Identity { d });
                 } else {
-                    let n = if first { even(rest - base * (rnd - 1)) } else { base };
+                    let n = if first {
+                        even(rest - base * (rnd - 1))
+                    } else {
+                        base
+                    };
                     first = false;
                     nodes.push(plan(p, spec, n, s, in_product)?);
                 }
@@ -100,12 +113,24 @@ fn plan(k: &Kernel, spec: &FeatureSpec, dd: usize, seed: u64, in_product: bool) 
     }
 }
 
-fn leaf_map(k: &Kernel, spec: &FeatureSpec, dd: usize, seed: u64, in_product: bool) -> Result<Node> {
+fn leaf_map(
+    k: &Kernel,
+    spec: &FeatureSpec,
+    dd: usize,
+    seed: u64,
+    in_product: bool,
+) -> Result<Node> {
     let d = spec.input_dim;
     let mut rng = Rng::seed_from_u64(seed);
     if let Kernel::Linear = k {
         if in_product {
-            let w = Array2::from_shape_simple_fn((dd, d), || if rng.random::<bool>() { 1.0 } else { -1.0 });
+            let w = Array2::from_shape_simple_fn((dd, d), || {
+                if rng.random::<bool>() {
+                    1.0
+                } else {
+                    -1.0
+                }
+            });
             return Ok(Node::Projection { w });
         }
         return Ok(Node::Identity { d });
@@ -114,37 +139,84 @@ fn leaf_map(k: &Kernel, spec: &FeatureSpec, dd: usize, seed: u64, in_product: bo
         let phase = in_product || spec.options.fourier == FourierVariant::Phase;
         let m = if phase { dd } else { dd / 2 };
         if m == 0 {
-            return Err(Error::input(format!("--features {dd} is too few for kernel {k}")));
+            return Err(Error::input(format!(
+                "--features {dd} is too few for kernel {k}"
+            )));
         }
         let method = spec.method;
         if !super::spec::methods_for(k).contains(&method) {
             return Err(Error::input(format!(
                 "method '{}' cannot serve kernel {k}; methods that can: {}",
                 method.name(),
-                super::spec::methods_for(k).iter().map(|m| m.name()).collect::<Vec<_>>().join(", ")
+                super::spec::methods_for(k)
+                    .iter()
+                    .map(|m| m.name())
+                    .collect::<Vec<_>>()
+                    .join(", ")
             )));
         }
         let freq = match method {
             Method::Fourier => Freq::Dense(spectral::iid(k, d, m, &mut rng)),
             Method::Orthogonal => Freq::Dense(spectral::orthogonal(k, d, m, &mut rng)),
             Method::Quasi => {
-                let s = if spec.options.scramble { Some(seed) } else { None };
+                let s = if spec.options.scramble {
+                    Some(seed)
+                } else {
+                    None
+                };
                 Freq::Dense(spectral::quasi(k, d, m, spec.options.sequence, s)?)
             }
             Method::Hadamard => hadamard(d, m, &mut rng),
             Method::Fastfood => fastfood(d, m, &mut rng),
             other => unreachable!("{other:?} is not spectral"),
         };
-        let trig = if phase { Trig::Phase(spectral::phases(m, &mut rng)) } else { Trig::Paired };
-        return Ok(Node::Spectral { scale: k.inverse_scale(d).unwrap(), freq, trig });
+        let trig = if phase {
+            Trig::Phase(spectral::phases(m, &mut rng))
+        } else {
+            Trig::Paired
+        };
+        return Ok(Node::Spectral {
+            scale: k.inverse_scale(d).unwrap(),
+            freq,
+            trig,
+        });
     }
     match (k, spec.method) {
-        (Kernel::Polynomial { degree, gamma, coef0 }, Method::Maclaurin) => Ok(maclaurin(*degree as usize, *gamma, *coef0, d, dd, &mut rng)),
-        (Kernel::Polynomial { degree, gamma, coef0 }, Method::TensorSketch) => {
+        (
+            Kernel::Polynomial {
+                degree,
+                gamma,
+                coef0,
+            },
+            Method::Maclaurin,
+        ) => Ok(maclaurin(*degree as usize, *gamma, *coef0, d, dd, &mut rng)),
+        (
+            Kernel::Polynomial {
+                degree,
+                gamma,
+                coef0,
+            },
+            Method::TensorSketch,
+        ) => {
             let p = *degree as usize;
-            let hash = (0..p).map(|_| (0..=d).map(|_| rng.random_range(0..dd as u32)).collect()).collect();
-            let sign = (0..p).map(|_| (0..=d).map(|_| if rng.random::<bool>() { 1.0 } else { -1.0 }).collect()).collect();
-            Ok(Node::TensorSketch { degree: p, gamma: *gamma, coef0: *coef0, out: dd, hash, sign })
+            let hash = (0..p)
+                .map(|_| (0..=d).map(|_| rng.random_range(0..dd as u32)).collect())
+                .collect();
+            let sign = (0..p)
+                .map(|_| {
+                    (0..=d)
+                        .map(|_| if rng.random::<bool>() { 1.0 } else { -1.0 })
+                        .collect()
+                })
+                .collect();
+            Ok(Node::TensorSketch {
+                degree: p,
+                gamma: *gamma,
+                coef0: *coef0,
+                out: dd,
+                hash,
+                sign,
+            })
         }
         (Kernel::ArcCos { order }, Method::Relu) => {
             let w = Array2::from_shape_simple_fn((dd, d), || rng.sample::<f64, _>(StandardNormal));
@@ -153,13 +225,19 @@ fn leaf_map(k: &Kernel, spec: &FeatureSpec, dd: usize, seed: u64, in_product: bo
         (k, m) => Err(Error::input(format!(
             "method '{}' cannot serve kernel {k}; methods that can: {}",
             m.name(),
-            super::spec::methods_for(k).iter().map(|m| m.name()).collect::<Vec<_>>().join(", ")
+            super::spec::methods_for(k)
+                .iter()
+                .map(|m| m.name())
+                .collect::<Vec<_>>()
+                .join(", ")
         ))),
     }
 }
 
 fn signs(rng: &mut Rng, n: usize) -> Vec<f64> {
-    (0..n).map(|_| if rng.random::<bool>() { 1.0 } else { -1.0 }).collect()
+    (0..n)
+        .map(|_| if rng.random::<bool>() { 1.0 } else { -1.0 })
+        .collect()
 }
 
 fn hadamard(d: usize, m: usize, rng: &mut Rng) -> Freq {
@@ -167,9 +245,16 @@ fn hadamard(d: usize, m: usize, rng: &mut Rng) -> Freq {
     let blocks = m.div_ceil(d_pad);
     let mut s = Array2::zeros((3 * blocks, d_pad));
     for mut row in s.rows_mut() {
-        row.iter_mut().zip(signs(rng, d_pad)).for_each(|(a, b)| *a = b);
+        row.iter_mut()
+            .zip(signs(rng, d_pad))
+            .for_each(|(a, b)| *a = b);
     }
-    Freq::Hadamard { d, d_pad, m, signs: s }
+    Freq::Hadamard {
+        d,
+        d_pad,
+        m,
+        signs: s,
+    }
 }
 
 fn fastfood(d: usize, m: usize, rng: &mut Rng) -> Freq {
@@ -181,7 +266,10 @@ fn fastfood(d: usize, m: usize, rng: &mut Rng) -> Freq {
     let mut perm = Vec::with_capacity(blocks);
     let chi = rand_distr::ChiSquared::new(d_pad as f64).unwrap();
     for bl in 0..blocks {
-        b.row_mut(bl).iter_mut().zip(signs(rng, d_pad)).for_each(|(a, v)| *a = v);
+        b.row_mut(bl)
+            .iter_mut()
+            .zip(signs(rng, d_pad))
+            .for_each(|(a, v)| *a = v);
         let mut p: Vec<u32> = (0..d_pad as u32).collect();
         p.shuffle(rng);
         perm.push(p);
@@ -194,7 +282,15 @@ fn fastfood(d: usize, m: usize, rng: &mut Rng) -> Freq {
             sc[[bl, i]] = s.sqrt() / gn;
         }
     }
-    Freq::Fastfood { d, d_pad, m, b, perm, g, scale: sc }
+    Freq::Fastfood {
+        d,
+        d_pad,
+        m,
+        b,
+        perm,
+        g,
+        scale: sc,
+    }
 }
 
 fn binom(n: usize, k: usize) -> f64 {
@@ -203,7 +299,13 @@ fn binom(n: usize, k: usize) -> f64 {
 
 fn maclaurin(p: usize, gamma: f64, coef0: f64, d: usize, dd: usize, rng: &mut Rng) -> Node {
     // (γ x·y + c)^p = Σ_n a_n (x·y)^n, a_n = C(p,n) γ^n c^{p−n}; P[N = n] = 2^{−(n+1)}.
-    let a = |n: usize| if n > p { 0.0 } else { binom(p, n) * gamma.powi(n as i32) * coef0.powi((p - n) as i32) };
+    let a = |n: usize| {
+        if n > p {
+            0.0
+        } else {
+            binom(p, n) * gamma.powi(n as i32) * coef0.powi((p - n) as i32)
+        }
+    };
     let mut degree = Vec::with_capacity(dd);
     let mut coef = Vec::with_capacity(dd);
     let mut rows: Vec<f64> = Vec::new();
@@ -220,11 +322,21 @@ fn maclaurin(p: usize, gamma: f64, coef0: f64, d: usize, dd: usize, rng: &mut Rn
         }
     }
     let total: usize = degree.iter().sum();
-    Node::Maclaurin { degree, coef, w: Array2::from_shape_vec((total, d), rows).unwrap() }
+    Node::Maclaurin {
+        degree,
+        coef,
+        w: Array2::from_shape_vec((total, d), rows).unwrap(),
+    }
 }
 
 /// Picks landmark row indices from `x` by `rule`.
-pub fn pick_landmarks(k: &Kernel, x: ArrayView2<f64>, m: usize, rule: Landmarks, rng: &mut Rng) -> Vec<usize> {
+pub fn pick_landmarks(
+    k: &Kernel,
+    x: ArrayView2<f64>,
+    m: usize,
+    rule: Landmarks,
+    rng: &mut Rng,
+) -> Vec<usize> {
     let n = x.nrows();
     if m >= n {
         return (0..n).collect();
@@ -322,14 +434,23 @@ pub fn pick_landmarks(k: &Kernel, x: ArrayView2<f64>, m: usize, rule: Landmarks,
 }
 
 /// Nyström map from landmarks `l`: `P = U_r Λ_r^{−½}` over eigenvalues `> tol·λ_max`.
-pub fn nystrom_from_landmarks(k: &Kernel, l: Array2<f64>, tol: f64, info: &mut SampleInfo) -> Result<Node> {
+pub fn nystrom_from_landmarks(
+    k: &Kernel,
+    l: Array2<f64>,
+    tol: f64,
+    info: &mut SampleInfo,
+) -> Result<Node> {
     let kmm = k.gram(l.view(), l.view());
     let kmm = (&kmm + &kmm.t()) * 0.5;
     let (vals, vecs) = linalg::eigh(kmm.view())?;
     let lmax = vals.iter().fold(0.0f64, |a, v| a.max(*v));
-    let keep: Vec<usize> = (0..vals.len()).filter(|&i| vals[i] > tol * lmax && vals[i] > 0.0).collect();
+    let keep: Vec<usize> = (0..vals.len())
+        .filter(|&i| vals[i] > tol * lmax && vals[i] > 0.0)
+        .collect();
     if keep.is_empty() {
-        return Err(Error::input(format!("Nyström: the landmark Gram matrix of {k} has no positive eigenvalue")));
+        return Err(Error::input(format!(
+            "Nyström: the landmark Gram matrix of {k} has no positive eigenvalue"
+        )));
     }
     let r = keep.len();
     let mut proj = Array2::zeros((l.nrows(), r));
@@ -348,7 +469,12 @@ pub fn nystrom_from_landmarks(k: &Kernel, l: Array2<f64>, tol: f64, info: &mut S
     }
     info.rank = Some(r);
     info.landmarks = Some(l.nrows());
-    Ok(Node::Nystrom { kernel: k.clone(), landmarks: l, proj, prepared: Arc::new(OnceLock::new()) })
+    Ok(Node::Nystrom {
+        kernel: k.clone(),
+        landmarks: l,
+        proj,
+        prepared: Arc::new(OnceLock::new()),
+    })
 }
 
 fn nystrom(spec: &FeatureSpec, data: ArrayView2<f64>, info: &mut SampleInfo) -> Result<Node> {

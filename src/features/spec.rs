@@ -80,7 +80,11 @@ impl Method {
     pub fn is_spectral(self) -> bool {
         matches!(
             self,
-            Method::Fourier | Method::Orthogonal | Method::Hadamard | Method::Fastfood | Method::Quasi
+            Method::Fourier
+                | Method::Orthogonal
+                | Method::Hadamard
+                | Method::Fastfood
+                | Method::Quasi
         )
     }
 }
@@ -172,7 +176,7 @@ impl Default for MapOptions {
             fourier: FourierVariant::Paired,
             sequence: Sequence::Halton,
             scramble: true,
-            landmarks: Landmarks::KmeansPP,
+            landmarks: Landmarks::Uniform,
             rank_tol: 1e-10,
         }
     }
@@ -209,7 +213,13 @@ pub const RNG_NAME: &str = "ChaCha20 (rand 0.10, seed_from_u64)";
 
 impl FeatureSpec {
     /// A spec with default options.
-    pub fn new(kernel: Kernel, method: Method, input_dim: usize, features: usize, seed: u64) -> Self {
+    pub fn new(
+        kernel: Kernel,
+        method: Method,
+        input_dim: usize,
+        features: usize,
+        seed: u64,
+    ) -> Self {
         FeatureSpec {
             kernel,
             method,
@@ -283,15 +293,19 @@ impl FeatureSpec {
                 .ok_or_else(|| Error::input(format!("feature spec: '{k}' missing or not a string")))
         };
         let u = |k: &str| {
-            v.get(k)
-                .and_then(|x| x.as_u64())
-                .ok_or_else(|| Error::input(format!("feature spec: '{k}' missing or not a whole number")))
+            v.get(k).and_then(|x| x.as_u64()).ok_or_else(|| {
+                Error::input(format!("feature spec: '{k}' missing or not a whole number"))
+            })
         };
         let options = MapOptions {
             fourier: match s("fourier_variant")? {
                 "paired" => FourierVariant::Paired,
                 "phase" => FourierVariant::Phase,
-                o => return Err(Error::input(format!("feature spec: fourier_variant '{o}' unknown"))),
+                o => {
+                    return Err(Error::input(format!(
+                        "feature spec: fourier_variant '{o}' unknown"
+                    )))
+                }
             },
             sequence: parse_sequence(s("sequence")?)?,
             scramble: v.get("scramble").and_then(|x| x.as_bool()).unwrap_or(true),
@@ -316,7 +330,9 @@ pub fn parse_sequence(s: &str) -> Result<Sequence> {
     match s {
         "halton" => Ok(Sequence::Halton),
         "sobol" => Ok(Sequence::Sobol),
-        o => Err(Error::input(format!("sequence '{o}' unknown; expected halton or sobol"))),
+        o => Err(Error::input(format!(
+            "sequence '{o}' unknown; expected halton or sobol"
+        ))),
     }
 }
 
@@ -339,14 +355,30 @@ mod tests {
     #[test]
     fn method_kernel_compatibility() {
         let k: Kernel = "laplacian(gamma=1)".parse().unwrap();
-        let e = FeatureSpec::new(k, Method::Hadamard, 3, 64, 0).validate().unwrap_err();
-        assert!(e.to_string().contains("methods that can: fourier, quasi, nystrom"), "{e}");
+        let e = FeatureSpec::new(k, Method::Hadamard, 3, 64, 0)
+            .validate()
+            .unwrap_err();
+        assert!(
+            e.to_string()
+                .contains("methods that can: fourier, quasi, nystrom"),
+            "{e}"
+        );
         let k: Kernel = "sigmoid(gamma=1, coef0=0)".parse().unwrap();
-        assert!(FeatureSpec::new(k, Method::Fourier, 3, 64, 0).validate().is_err());
+        assert!(FeatureSpec::new(k, Method::Fourier, 3, 64, 0)
+            .validate()
+            .is_err());
         let k: Kernel = "gaussian(gamma=1) + linear()".parse().unwrap();
-        assert!(FeatureSpec::new(k.clone(), Method::Fastfood, 3, 64, 0).validate().is_ok());
-        assert!(FeatureSpec::new(k, Method::Maclaurin, 3, 64, 0).validate().is_err());
+        assert!(FeatureSpec::new(k.clone(), Method::Fastfood, 3, 64, 0)
+            .validate()
+            .is_ok());
+        assert!(FeatureSpec::new(k, Method::Maclaurin, 3, 64, 0)
+            .validate()
+            .is_err());
         let k: Kernel = "gaussian(gamma=1)".parse().unwrap();
-        assert!(FeatureSpec::new(k, Method::Fourier, 3, 63, 0).validate().unwrap_err().to_string().contains("odd"));
+        assert!(FeatureSpec::new(k, Method::Fourier, 3, 63, 0)
+            .validate()
+            .unwrap_err()
+            .to_string()
+            .contains("odd"));
     }
 }

@@ -183,7 +183,11 @@ pub fn gamma_ppf(a: f64, p: f64) -> f64 {
         let dens = ((a - 1.0) * x.ln() - x - ln_gamma(a)).exp();
         let mut nx = if dens > 0.0 { x - f / dens } else { f64::NAN };
         if !(nx > lo && nx < hi) {
-            nx = if hi.is_finite() { 0.5 * (lo + hi) } else { 2.0 * x.max(lo) + 1.0 };
+            nx = if hi.is_finite() {
+                0.5 * (lo + hi)
+            } else {
+                2.0 * x.max(lo) + 1.0
+            };
         }
         if (nx - x).abs() <= 1e-15 * x.max(1e-300) {
             return nx;

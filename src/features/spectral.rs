@@ -36,12 +36,16 @@ pub fn draw(k: &Kernel, d: usize, rng: &mut Rng) -> Vec<f64> {
             let two_nu = 2.0 * nu.value();
             let v: f64 = ChiSquared::new(two_nu).unwrap().sample(rng);
             let f = (two_nu / v).sqrt();
-            (0..d).map(|_| f * rng.sample::<f64, _>(StandardNormal)).collect()
+            (0..d)
+                .map(|_| f * rng.sample::<f64, _>(StandardNormal))
+                .collect()
         }
         Kernel::RationalQuadratic { alpha, .. } => {
             let tau: f64 = Gamma::new(*alpha, 1.0 / alpha).unwrap().sample(rng);
             let f = tau.sqrt();
-            (0..d).map(|_| f * rng.sample::<f64, _>(StandardNormal)).collect()
+            (0..d)
+                .map(|_| f * rng.sample::<f64, _>(StandardNormal))
+                .collect()
         }
         _ => unreachable!("not a shift-invariant leaf"),
     }
@@ -91,7 +95,13 @@ fn extra_dims(k: &Kernel) -> usize {
 
 /// `m × d` quasi-Monte Carlo frequencies: points `1..=m` of the sequence (origin skipped),
 /// scrambled with `seed` when given, mapped through the inverse CDFs.
-pub fn quasi(k: &Kernel, d: usize, m: usize, seq: Sequence, seed: Option<u64>) -> Result<Array2<f64>> {
+pub fn quasi(
+    k: &Kernel,
+    d: usize,
+    m: usize,
+    seq: Sequence,
+    seed: Option<u64>,
+) -> Result<Array2<f64>> {
     let q = d + extra_dims(k);
     let pts = match seq {
         Sequence::Halton => qmc::halton(m, q, 1, seed),

@@ -11,9 +11,13 @@ fn fastfood_row_norms_and_orf_orthogonality() {
     // REFERENCES §4: every Fastfood row has norm s_i/σ (here σ = 1: gamma = ½).
     let spec = FeatureSpec::new(k("gaussian(gamma=0.5)"), Method::Fastfood, 16, 64, 3);
     let (map, _) = spec.sample(None).unwrap();
-    let Node::Spectral { freq, .. } = &map.root else { panic!() };
+    let Node::Spectral { freq, .. } = &map.root else {
+        panic!()
+    };
     let w = freq.dense(16);
-    let Freq::Fastfood { g, scale, .. } = freq else { panic!() };
+    let Freq::Fastfood { g, scale, .. } = freq else {
+        panic!()
+    };
     for bl in 0..2 {
         let gn = g.row(bl).dot(&g.row(bl)).sqrt();
         for i in 0..16 {
@@ -26,7 +30,9 @@ fn fastfood_row_norms_and_orf_orthogonality() {
     // REFERENCES §3: ORF rows are orthogonal within a block, W Wᵀ = diag(s²).
     let spec = FeatureSpec::new(k("gaussian(gamma=0.5)"), Method::Orthogonal, 8, 32, 5);
     let (map, _) = spec.sample(None).unwrap();
-    let Node::Spectral { freq, .. } = &map.root else { panic!() };
+    let Node::Spectral { freq, .. } = &map.root else {
+        panic!()
+    };
     let w = freq.dense(8);
     for bl in 0..2 {
         let b = w.slice(ndarray::s![bl * 8..bl * 8 + 8, ..]);
@@ -42,7 +48,9 @@ fn fastfood_row_norms_and_orf_orthogonality() {
     // Hadamard rows have norm exactly √d' (normalised H blocks scaled by √d').
     let spec = FeatureSpec::new(k("gaussian(gamma=0.5)"), Method::Hadamard, 8, 16, 5);
     let (map, _) = spec.sample(None).unwrap();
-    let Node::Spectral { freq, .. } = &map.root else { panic!() };
+    let Node::Spectral { freq, .. } = &map.root else {
+        panic!()
+    };
     let w = freq.dense(8);
     for r in w.rows() {
         assert!((r.dot(&r) - 8.0).abs() < 1e-10);
@@ -56,7 +64,9 @@ fn quasi_frequencies_are_inverse_cdf_of_halton() {
     let mut spec = FeatureSpec::new(k("gaussian(lengthscale=1)"), Method::Quasi, 2, 8, 0);
     spec.options.scramble = false;
     let (map, _) = spec.sample(None).unwrap();
-    let Node::Spectral { freq, .. } = &map.root else { panic!() };
+    let Node::Spectral { freq, .. } = &map.root else {
+        panic!()
+    };
     let w = freq.dense(2);
     let want = [
         [0.0, -0.4307273],
@@ -95,27 +105,50 @@ fn nystrom_reference_example() {
     // Linear Gram of (1,0),(0,1),(1,1): Nyström with the first two points is exact (§12).
     let lin = k("linear()");
     let p = array![[1.0, 0.0], [0.0, 1.0], [1.0, 1.0]];
-    let node = nystrom_from_landmarks(&lin, p.slice(ndarray::s![..2, ..]).to_owned(), 1e-12, &mut info).unwrap();
+    let node = nystrom_from_landmarks(
+        &lin,
+        p.slice(ndarray::s![..2, ..]).to_owned(),
+        1e-12,
+        &mut info,
+    )
+    .unwrap();
     let z = node.apply_chunk(p.view());
-    assert!((&z.dot(&z.t()) - &lin.gram(p.view(), p.view())).iter().all(|v| v.abs() < 1e-12));
+    assert!((&z.dot(&z.t()) - &lin.gram(p.view(), p.view()))
+        .iter()
+        .all(|v| v.abs() < 1e-12));
 }
 
 #[test]
 fn nystrom_uses_all_rows_when_short_and_reproduces_landmarks() {
     let x = Array2::from_shape_fn((30, 3), |(i, j)| ((i * 3 + j) as f64 * 0.41).sin());
     for rule in [Landmarks::Uniform, Landmarks::KmeansPP, Landmarks::Leverage] {
-        let mut spec = FeatureSpec::new(k("matern(nu=2.5, lengthscale=0.7)"), Method::Nystrom, 3, 12, 9);
+        let mut spec = FeatureSpec::new(
+            k("matern(nu=2.5, lengthscale=0.7)"),
+            Method::Nystrom,
+            3,
+            12,
+            9,
+        );
         spec.options.landmarks = rule;
         let (map, info) = spec.sample(Some(x.view())).unwrap();
-        let Node::Nystrom { landmarks, .. } = &map.root else { panic!() };
+        let Node::Nystrom { landmarks, .. } = &map.root else {
+            panic!()
+        };
         let z = map.transform(landmarks.view());
         let g = spec.kernel.gram(landmarks.view(), landmarks.view());
-        assert!((&z.dot(&z.t()) - &g).iter().all(|v| v.abs() < 1e-8), "{rule:?}");
+        assert!(
+            (&z.dot(&z.t()) - &g).iter().all(|v| v.abs() < 1e-8),
+            "{rule:?}"
+        );
         assert_eq!(info.landmarks, Some(12));
     }
     let spec = FeatureSpec::new(k("gaussian(gamma=1)"), Method::Nystrom, 3, 100, 9);
     let (_, info) = spec.sample(Some(x.view())).unwrap();
-    assert!(info.notes.iter().any(|n| n.contains("using them all")), "{:?}", info.notes);
+    assert!(
+        info.notes.iter().any(|n| n.contains("using them all")),
+        "{:?}",
+        info.notes
+    );
     assert_eq!(info.landmarks, Some(30));
 }
 
@@ -128,8 +161,14 @@ fn maps_round_trip_through_files_and_buffers() {
         ("gaussian(gamma=0.3)", Method::Fastfood),
         ("laplacian(lengthscale=[1, 2, 3, 4, 5])", Method::Quasi),
         ("matern(nu=1.5, lengthscale=2)", Method::Orthogonal),
-        ("polynomial(degree=3, gamma=0.5, coef0=1)", Method::Maclaurin),
-        ("polynomial(degree=2, gamma=1, coef0=1)", Method::TensorSketch),
+        (
+            "polynomial(degree=3, gamma=0.5, coef0=1)",
+            Method::Maclaurin,
+        ),
+        (
+            "polynomial(degree=2, gamma=1, coef0=1)",
+            Method::TensorSketch,
+        ),
         ("arccos(order=1)", Method::Relu),
         ("gaussian(gamma=1) + 0.5 * linear()", Method::Fourier),
         ("gaussian(gamma=1) * linear()", Method::Fourier),
@@ -160,8 +199,12 @@ fn maps_round_trip_through_files_and_buffers() {
 
 #[test]
 fn methods_that_cannot_serve_say_which_can() {
-    let e = FeatureSpec::new(k("arccos(order=0)"), Method::Fourier, 3, 64, 0).sample(None).unwrap_err();
+    let e = FeatureSpec::new(k("arccos(order=0)"), Method::Fourier, 3, 64, 0)
+        .sample(None)
+        .unwrap_err();
     assert!(e.to_string().contains("relu, nystrom"), "{e}");
-    let e = FeatureSpec::new(k("gaussian(gamma=1)"), Method::Nystrom, 3, 64, 0).sample(None).unwrap_err();
+    let e = FeatureSpec::new(k("gaussian(gamma=1)"), Method::Nystrom, 3, 64, 0)
+        .sample(None)
+        .unwrap_err();
     assert!(e.to_string().contains("needs data"), "{e}");
 }

@@ -21,6 +21,10 @@
 //! assert!((fit.head[[0, 0]] - 2.0).abs() < 1e-6 && (fit.intercept[0] - 0.5).abs() < 1e-6);
 //! ```
 
+mod compile;
+
+pub use compile::{compile_exact, compile_labels, held_out, HeadKind, FIT_CHUNK};
+
 use crate::features::FeatureMap;
 use crate::linalg;
 use crate::model::ExactModel;
@@ -49,7 +53,10 @@ fn atb(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
         .for_each(|(ci, mut dst)| {
             let c0 = ci * width;
             let cols = dst.ncols();
-            let bb = b.slice(ndarray::s![.., c0..c0 + cols]).as_standard_layout().into_owned();
+            let bb = b
+                .slice(ndarray::s![.., c0..c0 + cols])
+                .as_standard_layout()
+                .into_owned();
             dst.assign(&linalg::ab_seq(at.view(), bb.view()));
         });
     out
@@ -116,7 +123,9 @@ impl RidgeGrid {
     }
     /// One fixed relative strength.
     pub fn fixed(rel: f64) -> Self {
-        RidgeGrid { relative: vec![rel] }
+        RidgeGrid {
+            relative: vec![rel],
+        }
     }
 }
 
@@ -173,12 +182,27 @@ impl Distiller {
     }
 
     /// Adds a chunk; `held_out(i)` says whether global row `i` goes to the held-out part.
-    pub fn add(&mut self, z: ArrayView2<f64>, y: ArrayView2<f64>, held_out: impl Fn(usize) -> bool) {
+    pub fn add(
+        &mut self,
+        z: ArrayView2<f64>,
+        y: ArrayView2<f64>,
+        held_out: impl Fn(usize) -> bool,
+    ) {
         assert_eq!(z.nrows(), y.nrows(), "distill: rows differ");
-        let idx_h: Vec<usize> = (0..z.nrows()).filter(|&i| held_out(self.seen + i)).collect();
-        let idx_t: Vec<usize> = (0..z.nrows()).filter(|&i| !held_out(self.seen + i)).collect();
-        self.train.add(z.select(Axis(0), &idx_t).view(), y.select(Axis(0), &idx_t).view());
-        self.hold.add(z.select(Axis(0), &idx_h).view(), y.select(Axis(0), &idx_h).view());
+        let idx_h: Vec<usize> = (0..z.nrows())
+            .filter(|&i| held_out(self.seen + i))
+            .collect();
+        let idx_t: Vec<usize> = (0..z.nrows())
+            .filter(|&i| !held_out(self.seen + i))
+            .collect();
+        self.train.add(
+            z.select(Axis(0), &idx_t).view(),
+            y.select(Axis(0), &idx_t).view(),
+        );
+        self.hold.add(
+            z.select(Axis(0), &idx_h).view(),
+            y.select(Axis(0), &idx_h).view(),
+        );
         self.seen += z.nrows();
     }
 
@@ -194,7 +218,12 @@ impl Distiller {
         (a, b, mz, my)
     }
 
-    fn solve_one(a: &Array2<f64>, b: &Array2<f64>, lam: f64, notes: &mut Vec<String>) -> Result<(Array2<f64>, f64)> {
+    fn solve_one(
+        a: &Array2<f64>,
+        b: &Array2<f64>,
+        lam: f64,
+        notes: &mut Vec<String>,
+    ) -> Result<(Array2<f64>, f64)> {
         let p = a.nrows();
         let mut lam = lam;
         for attempt in 0..8 {
@@ -214,7 +243,9 @@ impl Distiller {
                 }
             }
         }
-        Err(Error::internal("distillation: ridge system stayed singular after 8 increases of λ"))
+        Err(Error::internal(
+            "distillation: ridge system stayed singular after 8 increases of λ",
+        ))
     }
 
     fn mse(s: &Stats, w: &Array2<f64>, b: &Array1<f64>) -> f64 {
@@ -238,7 +269,8 @@ impl Distiller {
         let mut notes = Vec::new();
         let (a, b, _, _) = Self::centred(&self.train);
         let p = a.nrows();
-        let scale = (a.diag().sum() / (self.train.n as f64 * p as f64)).max(1e-300) * self.train.n as f64;
+        let scale =
+            (a.diag().sum() / (self.train.n as f64 * p as f64)).max(1e-300) * self.train.n as f64;
         let mut holdout = Vec::new();
         let mut best = (grid.relative[0], f64::INFINITY);
         if grid.relative.len() > 1 && self.hold.n > 0 {
@@ -267,5 +299,29 @@ impl Distiller {
             notes,
             rows: (self.train.n, self.hold.n),
         })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::Array2;
+
+    #[test]
+    fn exact_least_squares_on_many_rows() {
+        let z = Array2::from_shape_fn((400, 4), |(i, j)| {
+            ((i * 4 + j) as f64 * 0.31 + (i * j) as f64 * 0.07).cos() * 2.0
+        });
+        let w = Array2::from_shape_fn((4, 2), |(i, j)| i as f64 - j as f64 * 0.5);
+        let y = z.dot(&w) + 0.3;
+        let mut d = Distiller::new(4, 2);
+        d.add(z.view(), y.view(), |i| i % 5 == 4);
+        let fit = d.solve(&RidgeGrid::fixed(1e-12)).unwrap();
+        for (a, b) in fit.head.iter().zip(w.iter()) {
+            assert!((a - b).abs() < 1e-8, "{a} vs {b}");
+        }
+        let fit = d.solve(&RidgeGrid::standard()).unwrap();
+        assert_eq!(fit.holdout_mse.len(), 7);
+        assert!(fit.ridge_relative <= 1e-6, "{}", fit.ridge_relative);
     }
 }

@@ -1,7 +1,7 @@
 //! Compiled models: a sampled feature map plus a linear head,
 //! `f(x) = z(s(x)) · W + b` with `s` the stored input scaling.
 
-use super::{label_indices, FORMAT_VERSION, TensorFile, Task};
+use super::{label_indices, Task, TensorFile, FORMAT_VERSION};
 use crate::data::Standardizer;
 use crate::features::FeatureMap;
 use crate::linalg;
@@ -57,7 +57,10 @@ impl CompiledModel {
         }
         let k = head.ncols();
         if intercept.len() != k {
-            return Err(Error::input(format!("{} intercepts for {k} head columns", intercept.len())));
+            return Err(Error::input(format!(
+                "{} intercepts for {k} head columns",
+                intercept.len()
+            )));
         }
         if let Some(want) = task.outputs_for(labels.len()) {
             if want != k || labels.len() < 2 {
@@ -70,7 +73,9 @@ impl CompiledModel {
         }
         if let Some(s) = &scaling {
             if s.mean.len() != map.input_dim() {
-                return Err(Error::input("input scaling length differs from the input dimension"));
+                return Err(Error::input(
+                    "input scaling length differs from the input dimension",
+                ));
             }
         }
         let d = map.input_dim();
@@ -133,7 +138,9 @@ impl CompiledModel {
         let z = self.map.transform(xs.view());
         let mut s = linalg::ab(z.view(), self.head.view());
         for mut row in s.rows_mut() {
-            row.iter_mut().zip(&self.intercept).for_each(|(v, b)| *v += b);
+            row.iter_mut()
+                .zip(&self.intercept)
+                .for_each(|(v, b)| *v += b);
         }
         s
     }
@@ -141,7 +148,11 @@ impl CompiledModel {
     /// Decision values for one raw row, sequentially (single-row latency).
     pub fn decision_one(&self, x: &[f64]) -> Vec<f64> {
         let xs: Vec<f64> = match &self.scaling {
-            Some(s) => x.iter().enumerate().map(|(j, v)| (v - s.mean[j]) / s.scale[j]).collect(),
+            Some(s) => x
+                .iter()
+                .enumerate()
+                .map(|(j, v)| (v - s.mean[j]) / s.scale[j])
+                .collect(),
             None => x.to_vec(),
         };
         let z = self.map.transform_one(&xs);
@@ -183,8 +194,16 @@ impl CompiledModel {
     pub fn to_file(&self) -> TensorFile {
         let mut f = TensorFile::default();
         self.map.write_to(&mut f);
-        f.put("head", vec![self.head.nrows(), self.head.ncols()], self.head.iter().copied().collect());
-        f.put("intercepts", vec![self.intercept.len()], self.intercept.clone());
+        f.put(
+            "head",
+            vec![self.head.nrows(), self.head.ncols()],
+            self.head.iter().copied().collect(),
+        );
+        f.put(
+            "intercepts",
+            vec![self.intercept.len()],
+            self.intercept.clone(),
+        );
         let d = self.input_dim();
         if let Some(s) = &self.scaling {
             f.put("input_mean", vec![d], s.mean.clone());
@@ -199,7 +218,14 @@ impl CompiledModel {
             ("labels", json!(self.labels)),
             ("input_dim", json!(d)),
             ("n_outputs", json!(self.n_outputs())),
-            ("input_scaling", json!(if self.scaling.is_some() { "standardize" } else { "none" })),
+            (
+                "input_scaling",
+                json!(if self.scaling.is_some() {
+                    "standardize"
+                } else {
+                    "none"
+                }),
+            ),
             ("method", json!(spec.method.name())),
             ("features", json!(self.map.output_dim())),
             ("features_requested", json!(spec.features)),
@@ -208,7 +234,10 @@ impl CompiledModel {
             ("fit", self.fit.clone()),
             ("report", self.report.clone()),
             ("feature_names", json!(self.feature_names)),
-            ("generator", json!(format!("kernelpress {}", env!("CARGO_PKG_VERSION")))),
+            (
+                "generator",
+                json!(format!("kernelpress {}", env!("CARGO_PKG_VERSION"))),
+            ),
         ];
         for (k, v) in entries {
             f.manifest.insert(k.into(), v);
@@ -225,7 +254,9 @@ impl CompiledModel {
     pub fn from_file(f: &TensorFile, src: &str) -> Result<CompiledModel> {
         let kind = f.get_str("kind", src)?;
         if kind != "compiled" {
-            return Err(Error::input(format!("{src}: model kind is '{kind}'; expected a compiled model")));
+            return Err(Error::input(format!(
+                "{src}: model kind is '{kind}'; expected a compiled model"
+            )));
         }
         let map = FeatureMap::read_from(f, src)?;
         let dd = map.output_dim();
@@ -237,7 +268,11 @@ impl CompiledModel {
             .manifest
             .get("labels")
             .and_then(|v| v.as_array())
-            .map(|v| v.iter().filter_map(|s| s.as_str().map(String::from)).collect())
+            .map(|v| {
+                v.iter()
+                    .filter_map(|s| s.as_str().map(String::from))
+                    .collect()
+            })
             .ok_or_else(|| Error::input(format!("{src}: manifest 'labels' missing")))?;
         let d = map.input_dim();
         let scaling = match f.get_str("input_scaling", src)?.as_str() {
@@ -249,12 +284,22 @@ impl CompiledModel {
             }
             o => return Err(Error::input(format!("{src}: input_scaling '{o}' unknown"))),
         };
-        let mut m = CompiledModel::new(map, Array2::from_shape_vec((dd, k), head).unwrap(), b, task, labels, scaling)
-            .map_err(|e| e.context(src))?;
+        let mut m = CompiledModel::new(
+            map,
+            Array2::from_shape_vec((dd, k), head).unwrap(),
+            b,
+            task,
+            labels,
+            scaling,
+        )
+        .map_err(|e| e.context(src))?;
         m.fit = f.manifest.get("fit").cloned().unwrap_or(json!({}));
         m.report = f.manifest.get("report").cloned().unwrap_or(json!({}));
         if let Some(Value::Array(v)) = f.manifest.get("feature_names") {
-            let names: Vec<String> = v.iter().filter_map(|s| s.as_str().map(String::from)).collect();
+            let names: Vec<String> = v
+                .iter()
+                .filter_map(|s| s.as_str().map(String::from))
+                .collect();
             if names.len() == d {
                 m.feature_names = names;
             }

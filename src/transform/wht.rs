@@ -54,7 +54,12 @@ fn butterflies<T: WhtFloat>(lo: &mut [T], hi: &mut [T]) {
 
 #[inline(always)]
 fn radix4<T: WhtFloat>(q0: &mut [T], q1: &mut [T], q2: &mut [T], q3: &mut [T]) {
-    for (((a, b), c), d) in q0.iter_mut().zip(q1.iter_mut()).zip(q2.iter_mut()).zip(q3.iter_mut()) {
+    for (((a, b), c), d) in q0
+        .iter_mut()
+        .zip(q1.iter_mut())
+        .zip(q2.iter_mut())
+        .zip(q3.iter_mut())
+    {
         let (x0, x1, x2, x3) = (*a, *b, *c, *d);
         let (s0, s1, s2, s3) = (x0 + x1, x0 - x1, x2 + x3, x2 - x3);
         *a = s0 + s2;
@@ -188,7 +193,13 @@ pub fn wht_reference(x: &[f64]) -> Vec<f64> {
     (0..n)
         .map(|i| {
             (0..n)
-                .map(|j| if (i & j).count_ones() % 2 == 0 { x[j] } else { -x[j] })
+                .map(|j| {
+                    if (i & j).count_ones() % 2 == 0 {
+                        x[j]
+                    } else {
+                        -x[j]
+                    }
+                })
                 .sum()
         })
         .collect()
@@ -202,7 +213,9 @@ mod tests {
     fn matches_reference_all_sizes_f64_f32() {
         for k in 0..12 {
             let n = 1usize << k;
-            let x: Vec<f64> = (0..n).map(|i| ((i * 7 + 3) as f64 * 0.61).sin() * 1e3).collect();
+            let x: Vec<f64> = (0..n)
+                .map(|i| ((i * 7 + 3) as f64 * 0.61).sin() * 1e3)
+                .collect();
             let want = wht_reference(&x);
             let mut got = x.clone();
             wht_in_place(&mut got);

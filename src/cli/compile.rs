@@ -1,0 +1,260 @@
+//! `kernelpress compile`: exact model (+ calibration data) → compiled model, or kernel +
+//! labelled data → random-feature model fitted to the labels.
+
+use super::featurize::{read_landmarks, MapArgs};
+use crate::data::{check_batch, read_table, write_atomic};
+use crate::fit::{compile_exact, compile_labels, held_out, HeadKind, RidgeGrid};
+use crate::model::ExactModel;
+use crate::report::{self, ReportOptions};
+use crate::{Error, Result};
+use clap::ValueEnum;
+use ndarray::Axis;
+use std::path::PathBuf;
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub(crate) enum Head {
+    /// Ridge regression to the exact model's decision values (needs --calib).
+    Distill,
+    /// The dual expansion pushed through the map (no data needed).
+    Project,
+}
+
+/// Compile an exact kernel model into a feature map plus a linear head.
+///
+/// With MODEL and --calib, the head is distilled from the model's decision values on the
+/// calibration inputs (ridge strength chosen on every fifth row, held out). The report is
+/// printed on stdout: on --eval if given, else on the held-out calibration rows (which also
+/// enter the final refit, so it is slightly optimistic).
+/// Without MODEL, --kernel, --data and --target fit the features to labels directly.
+///
+/// Examples:
+///   kernelpress compile models/pump_svm.safetensors --calib models/pump_calib.csv --target condition
+///       --method orthogonal --features 1024 --seed 1 --out pump_compiled.safetensors --report r.json
+///   kernelpress compile --kernel 'gaussian(gamma=0.25)' --data models/pump_train.csv --target condition
+///       --standardize --method fourier --features 1024 --out direct.safetensors
+#[derive(Debug, clap::Args)]
+#[command(verbatim_doc_comment)]
+pub(crate) struct Args {
+    /// Exact model file.
+    model: Option<PathBuf>,
+    /// Calibration inputs (CSV or .npy); labels are not needed.
+    #[arg(long)]
+    calib: Option<PathBuf>,
+    /// Evaluation data for the compile report (defaults to the held-out calibration rows).
+    #[arg(long)]
+    eval: Option<PathBuf>,
+    /// Target column in --calib/--eval/--data (ignored as a feature; used for accuracy).
+    #[arg(long)]
+    target: Option<String>,
+    /// Kernel expression (labels mode, without MODEL).
+    #[arg(long)]
+    kernel: Option<String>,
+    /// Labelled data (labels mode).
+    #[arg(long)]
+    data: Option<PathBuf>,
+    /// Labels mode: treat the target as a numeric regression target.
+    #[arg(long)]
+    regression: bool,
+    /// Labels mode: standardise the inputs (stored in the model).
+    #[arg(long)]
+    standardize: bool,
+    #[command(flatten)]
+    map: MapArgs,
+    /// How to fit the head.
+    #[arg(long, value_enum, default_value = "distill")]
+    head: Head,
+    /// Fix the relative ridge strength instead of choosing it on held-out rows.
+    #[arg(long)]
+    ridge_rel: Option<f64>,
+    /// Warn when label agreement with the exact model falls below this.
+    #[arg(long, default_value_t = 0.99)]
+    min_agreement: f64,
+    /// Skip the latency measurements in the report.
+    #[arg(long)]
+    no_timing: bool,
+    /// Output compiled model file.
+    #[arg(long)]
+    out: PathBuf,
+    /// Also write the report as JSON here.
+    #[arg(long)]
+    report: Option<PathBuf>,
+}
+
+pub(crate) fn run(a: Args) -> Result<()> {
+    let grid = match a.ridge_rel {
+        Some(r) if r > 0.0 && r.is_finite() => RidgeGrid::fixed(r),
+        Some(r) => {
+            return Err(Error::input(format!(
+                "--ridge-rel {r} must be a positive finite number"
+            )))
+        }
+        None => RidgeGrid::standard(),
+    };
+    if !(0.0..=1.0).contains(&a.min_agreement) {
+        return Err(Error::input("--min-agreement must be between 0 and 1"));
+    }
+    let Some(model_path) = &a.model else {
+        return run_labels(&a, &grid);
+    };
+    if a.kernel.is_some() || a.data.is_some() {
+        return Err(Error::input(
+            "give either MODEL (with --calib) or --kernel with --data, not both",
+        ));
+    }
+    let exact = ExactModel::load(model_path)?;
+    let d = exact.input_dim();
+    let calib = match &a.calib {
+        Some(p) => {
+            let t = read_table(p, a.target.as_deref(), false)?;
+            check_batch(t.x.view(), d, &p.display().to_string())?;
+            Some(t)
+        }
+        None => None,
+    };
+    let kind = match a.head {
+        Head::Distill if calib.is_none() => {
+            return Err(Error::input(
+                "--head distill needs --calib FILE (or use --head project)",
+            ))
+        }
+        Head::Distill => HeadKind::Distill,
+        Head::Project => HeadKind::Project,
+    };
+    let spec = a.map.spec(exact.kernel().clone(), d)?;
+    let lm = match &a.map.landmarks {
+        Some(p) => Some(read_landmarks(p, d, &|x| x.to_owned())?),
+        None => None,
+    };
+    let (mut model, info) = compile_exact(
+        &exact,
+        calib.as_ref().map(|t| t.x.view()),
+        &spec,
+        kind,
+        &grid,
+        lm.as_ref().map(|l| l.view()),
+    )?;
+    for n in &info.notes {
+        crate::progress::warn(n);
+    }
+    for n in model
+        .fit
+        .get("notes")
+        .and_then(|v| v.as_array())
+        .cloned()
+        .unwrap_or_default()
+    {
+        crate::progress::warn(n.as_str().unwrap_or(""));
+    }
+    // Evaluation rows for the report.
+    let (ex, truth, on) = match &a.eval {
+        Some(p) => {
+            let t = read_table(p, a.target.as_deref(), false)?;
+            check_batch(t.x.view(), d, &p.display().to_string())?;
+            (t.x, t.target, format!("{}", p.display()))
+        }
+        None => match &calib {
+            Some(t) => {
+                let idx: Vec<usize> = (0..t.x.nrows()).filter(|&i| held_out(i)).collect();
+                let y = t
+                    .target
+                    .as_ref()
+                    .map(|y| idx.iter().map(|&i| y[i].clone()).collect());
+                (
+                    t.x.select(Axis(0), &idx),
+                    y,
+                    "calibration hold-out (every fifth row; also in the final refit)".to_string(),
+                )
+            }
+            None => {
+                return finish(&a, &mut model, None);
+            }
+        },
+    };
+    let opts = ReportOptions {
+        min_agreement: a.min_agreement,
+        timing: !a.no_timing,
+        ..ReportOptions::default()
+    };
+    let pb = crate::progress::bar(1, "report");
+    let mut rep = report::build(&model, &exact, ex.view(), truth.as_deref(), None, &opts);
+    pb.finish_and_clear();
+    rep["evaluated_on"] = serde_json::json!(on);
+    finish(&a, &mut model, Some(rep))
+}
+
+fn finish(
+    a: &Args,
+    model: &mut crate::model::CompiledModel,
+    rep: Option<serde_json::Value>,
+) -> Result<()> {
+    if let Some(r) = &rep {
+        model.report = r.clone();
+    }
+    let mut text = String::new();
+    if let Some(r) = &rep {
+        if let Some(serde_json::Value::Array(w)) = r.get("warnings") {
+            for x in w {
+                crate::progress::warn(x.as_str().unwrap_or(""));
+            }
+        }
+        if let Some(p) = &a.report {
+            write_atomic(
+                p,
+                format!("{}\n", serde_json::to_string_pretty(r).unwrap()).as_bytes(),
+            )?;
+        }
+        text.push_str(&report::render_text(r));
+        text.push('\n');
+    }
+    model.save(&a.out)?;
+    text.push_str(&format!(
+        "wrote {} ({} features, {} stored floats)\n",
+        a.out.display(),
+        model.map().output_dim(),
+        model.parameter_floats()
+    ));
+    super::print_stdout(&text)
+}
+
+fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {
+    let (Some(k), Some(data)) = (&a.kernel, &a.data) else {
+        return Err(Error::input(
+            "give MODEL (an exact model file), or --kernel EXPR with --data FILE --target COL",
+        ));
+    };
+    let target = a
+        .target
+        .as_deref()
+        .ok_or_else(|| Error::input("labels mode needs --target COL"))?;
+    let kernel = super::kernel_arg(k)?;
+    let t = read_table(data, Some(target), true)?;
+    let src = data.display().to_string();
+    check_batch(t.x.view(), t.x.ncols(), &src)?;
+    kernel.check_dim(t.x.ncols()).map_err(|e| e.context(&src))?;
+    let spec = a.map.spec(kernel, t.x.ncols())?;
+    let y = t.target.clone().unwrap();
+    let (mut model, info) =
+        compile_labels(&spec, t.x.view(), &y, !a.regression, a.standardize, grid)?;
+    for n in &info.notes {
+        crate::progress::warn(n);
+    }
+    model.feature_names = t.columns.clone();
+    let s = model.decision(t.x.view());
+    let idx: Vec<usize> = (0..t.x.nrows()).filter(|&i| held_out(i)).collect();
+    let mut msg = format!(
+        "fitted {} features ({} of {}) to the labels of {} rows",
+        model.map().output_dim(),
+        spec.method.name(),
+        spec.kernel,
+        t.x.nrows()
+    );
+    if model.task().is_classifier() {
+        let pred = model.labels_of(s.view());
+        let acc = idx.iter().filter(|&&i| pred[i] == y[i]).count() as f64 / idx.len().max(1) as f64;
+        msg.push_str(&format!("; accuracy on the held-out rows {acc:.4}"));
+        model.report = serde_json::json!({"accuracy_holdout": acc, "n_rows": idx.len()});
+    }
+    model.save(&a.out)?;
+    msg.push_str(&format!("\nwrote {}\n", a.out.display()));
+    super::print_stdout(&msg)
+}

@@ -1,0 +1,150 @@
+//! Orchestration of a compile: sample the map, stream calibration chunks through the
+//! teacher and the map into a [`Distiller`], solve, build the [`CompiledModel`].
+
+use super::{project, Distiller, HeadFit, RidgeGrid};
+use crate::data::Standardizer;
+use crate::exact::ridge::targets;
+use crate::features::{FeatureSpec, SampleInfo};
+use crate::model::{CompiledModel, ExactModel};
+use crate::{Error, Result};
+use ndarray::{s, Array2, ArrayView2};
+use serde_json::json;
+
+/// How the head is fitted.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum HeadKind {
+    /// Dual expansion pushed through the map (no data).
+    Project,
+    /// Ridge regression to the teacher's decision values.
+    Distill,
+}
+
+/// Rows per streamed chunk.
+pub const FIT_CHUNK: usize = 2048;
+
+/// Held-out rule of distillation: every fifth row (row index ≡ 4 mod 5), 20%.
+pub fn held_out(i: usize) -> bool {
+    i % 5 == 4
+}
+
+/// Compiles an exact model. `calib` are raw inputs (the model's scaling is applied here).
+/// `landmarks` (raw) replaces the calibration rows as the Nyström landmark pool.
+pub fn compile_exact(
+    exact: &ExactModel,
+    calib: Option<ArrayView2<f64>>,
+    spec: &FeatureSpec,
+    kind: HeadKind,
+    grid: &RidgeGrid,
+    landmarks: Option<ArrayView2<f64>>,
+) -> Result<(CompiledModel, SampleInfo)> {
+    let d = exact.input_dim();
+    if spec.input_dim != d {
+        return Err(Error::input(format!(
+            "feature spec has input_dim {} but the model has {d}",
+            spec.input_dim
+        )));
+    }
+    if spec.kernel != *exact.kernel() {
+        return Err(Error::input(
+            "feature spec kernel differs from the model's kernel",
+        ));
+    }
+    let calib_s = calib.map(|c| exact.scale_inputs(c));
+    let pool = landmarks.map(|l| exact.scale_inputs(l));
+    let pool_view = pool
+        .as_ref()
+        .map(|p| p.view())
+        .or(calib_s.as_ref().map(|c| c.view()));
+    let (map, info) = spec.sample(pool_view)?;
+    let k = exact.n_outputs();
+    let (head, intercept, fit) = match kind {
+        HeadKind::Project => {
+            let (h, b) = project(exact, &map);
+            (h, b, json!({"head": "project"}))
+        }
+        HeadKind::Distill => {
+            let xs = calib_s
+                .as_ref()
+                .ok_or_else(|| Error::input("distillation needs calibration data (--calib)"))?;
+            let x = calib.unwrap();
+            let n = x.nrows();
+            if n < 10 {
+                return Err(Error::input(format!(
+                    "distillation needs at least 10 calibration rows, got {n}"
+                )));
+            }
+            let mut dist = Distiller::new(map.output_dim(), k);
+            let chunks = n.div_ceil(FIT_CHUNK);
+            let pb = crate::progress::bar(chunks as u64 + 1, "distilling");
+            for c in 0..chunks {
+                let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
+                let y = exact.decision(x.slice(s![r.clone(), ..]));
+                let z = map.transform(xs.slice(s![r, ..]));
+                dist.add(z.view(), y.view(), held_out);
+                pb.inc(1);
+            }
+            pb.set_message("ridge solve");
+            let fit = dist.solve(grid)?;
+            pb.finish_and_clear();
+            let j = with_kind(&fit, "distill");
+            (fit.head, fit.intercept, j)
+        }
+    };
+    let mut m = CompiledModel::new(
+        map,
+        head,
+        intercept,
+        exact.task(),
+        exact.labels().to_vec(),
+        exact.scaling().cloned(),
+    )?;
+    m.fit = fit;
+    m.feature_names = exact.feature_names.clone();
+    Ok((m, info))
+}
+
+fn with_kind(fit: &HeadFit, kind: &str) -> serde_json::Value {
+    let mut j = fit.to_json();
+    j["head"] = json!(kind);
+    j
+}
+
+/// Fits a random-feature model directly to labels (no teacher): `x` raw inputs, `y` labels
+/// or values, `classify` for ±1 one-vs-rest targets. With `standardize`, the inputs are
+/// standardised and the scaling stored.
+pub fn compile_labels(
+    spec: &FeatureSpec,
+    x: ArrayView2<f64>,
+    y: &[String],
+    classify: bool,
+    standardize: bool,
+    grid: &RidgeGrid,
+) -> Result<(CompiledModel, SampleInfo)> {
+    let (t, task, labels) = targets(y, classify)?;
+    let scaling = if standardize {
+        Some(Standardizer::fit(x))
+    } else {
+        None
+    };
+    let xs: Array2<f64> = match &scaling {
+        Some(s) => s.apply(x),
+        None => x.to_owned(),
+    };
+    let (map, info) = spec.sample(Some(xs.view()))?;
+    let n = xs.nrows();
+    let mut dist = Distiller::new(map.output_dim(), t.ncols());
+    let chunks = n.div_ceil(FIT_CHUNK);
+    let pb = crate::progress::bar(chunks as u64 + 1, "fitting");
+    for c in 0..chunks {
+        let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
+        let z = map.transform(xs.slice(s![r.clone(), ..]));
+        dist.add(z.view(), t.slice(s![r, ..]), held_out);
+        pb.inc(1);
+    }
+    let fit = dist.solve(grid)?;
+    pb.finish_and_clear();
+    let j = with_kind(&fit, "labels");
+    let mut m = CompiledModel::new(map, fit.head, fit.intercept, task, labels, scaling)?;
+    m.fit = j;
+    Ok((m, info))
+}

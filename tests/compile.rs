@@ -1,0 +1,372 @@
+//! compile → report → score end to end, the distillation's exactness on a teacher that is
+//! linear in the features, and numpy recomputations of compiled models and reports.
+
+mod common;
+use common::*;
+use kernelpress::features::{FeatureSpec, Method};
+use kernelpress::fit::{compile_exact, HeadKind, RidgeGrid};
+use kernelpress::model::{ExactModel, Task};
+use ndarray::Array2;
+
+fn head_lines(src: &std::path::Path, dst: &std::path::Path, n: usize) {
+    let text = std::fs::read_to_string(src).unwrap();
+    let t: String = text.lines().take(n + 1).map(|l| format!("{l}\n")).collect();
+    std::fs::write(dst, t).unwrap();
+}
+
+#[test]
+fn compile_report_score_agree_and_match_numpy() {
+    let dir = tmpdir("compile_report_score_agree_and_match_numpy");
+    let calib = dir.join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 2000);
+    let test = dir.join("test.csv");
+    head_lines(&root().join("models/pump_test.csv"), &test, 600);
+    let exact = root().join("models/pump_svm.safetensors");
+    for (method, extra) in [
+        ("orthogonal", vec![]),
+        ("hadamard", vec![]),
+        ("fastfood", vec!["--variant", "phase"]),
+        ("nystrom", vec![]),
+    ] {
+        let out = dir.join(format!("c_{method}.safetensors"));
+        let rep = dir.join(format!("r_{method}.json"));
+        let mut args = vec![
+            "compile",
+            s(&exact),
+            "--calib",
+            s(&calib),
+            "--target",
+            "condition",
+            "--method",
+            method,
+            "--features",
+            "256",
+            "--seed",
+            "3",
+            "--no-timing",
+            "--out",
+            s(&out),
+        ];
+        args.extend(extra);
+        ok(&args);
+        ok(&[
+            "report",
+            s(&out),
+            "--exact",
+            s(&exact),
+            "--data",
+            s(&test),
+            "--target",
+            "condition",
+            "--no-timing",
+            "--json",
+            s(&rep),
+        ]);
+        let sc = dir.join(format!("sc_{method}.csv"));
+        let se = dir.join("se.csv");
+        ok(&[
+            "score",
+            s(&out),
+            "--data",
+            s(&test),
+            "--target",
+            "condition",
+            "--out",
+            s(&sc),
+        ]);
+        ok(&[
+            "score",
+            s(&exact),
+            "--data",
+            s(&test),
+            "--target",
+            "condition",
+            "--out",
+            s(&se),
+        ]);
+        py(
+            "compiled_check.py",
+            &[s(&out), s(&test), "condition", s(&sc), s(&se), s(&rep)],
+        );
+        let r: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+        for key in [
+            "method",
+            "features",
+            "seed",
+            "kernel_max_abs_error",
+            "kernel_rmse",
+            "gram_rel_frobenius_error",
+            "decision_rmse",
+            "decision_r2",
+            "decision_max_abs_error",
+            "agreement",
+            "agreement_ci95",
+            "accuracy_exact",
+            "accuracy_compiled",
+            "bytes_exact",
+            "bytes_compiled",
+            "flops_exact",
+            "flops_compiled",
+            "latency_us_exact_p50",
+            "latency_us_compiled_p50",
+            "latency_us_compiled_p99",
+            "throughput_rows_per_s_exact",
+            "throughput_rows_per_s_compiled",
+            "speedup_single",
+            "speedup_batch",
+            "n_rows",
+        ] {
+            assert!(r.get(key).is_some(), "{method}: report lacks {key}");
+        }
+        assert!(
+            r["agreement"].as_f64().unwrap() > 0.9,
+            "{method}: {}",
+            r["agreement"]
+        );
+        assert!(
+            r["decision_r2"].as_f64().unwrap() > 0.9,
+            "{method}: {}",
+            r["decision_r2"]
+        );
+    }
+}
+
+#[test]
+fn report_measures_latency_and_warns_below_tolerance() {
+    let dir = tmpdir("report_measures_latency_and_warns_below_tolerance");
+    let calib = dir.join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 1000);
+    let exact = root().join("models/pump_svm.safetensors");
+    let out = dir.join("tiny.safetensors");
+    let rep = dir.join("r.json");
+    let o = run(&[
+        "compile",
+        s(&exact),
+        "--calib",
+        s(&calib),
+        "--target",
+        "condition",
+        "--method",
+        "fourier",
+        "--features",
+        "8",
+        "--out",
+        s(&out),
+        "--report",
+        s(&rep),
+    ]);
+    assert!(o.status.success());
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("warning: label agreement"), "{err}");
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    assert_eq!(r["agreement_below_min"], true);
+    assert!(r["latency_us_compiled_p50"].as_f64().unwrap() > 0.0);
+    assert!(
+        r["latency_us_compiled_p99"].as_f64().unwrap()
+            >= r["latency_us_compiled_p50"].as_f64().unwrap()
+    );
+    assert!(r["throughput_rows_per_s_exact"].as_f64().unwrap() > 0.0);
+    let text = ok(&[
+        "report",
+        s(&out),
+        "--exact",
+        s(&exact),
+        "--data",
+        s(&calib),
+        "--target",
+        "condition",
+        "--reps",
+        "30",
+        "--min-agreement",
+        "0.5",
+    ]);
+    assert!(
+        text.contains("speedup") && !text.contains("WARNING"),
+        "{text}"
+    );
+}
+
+fn linear_teacher() -> (ExactModel, Array2<f64>) {
+    let sv = Array2::from_shape_fn((5, 4), |(i, j)| ((i * 4 + j) as f64 * 0.7).sin());
+    let coef = Array2::from_shape_fn((5, 2), |(i, j)| (i as f64 - 2.0) * (j as f64 + 0.5));
+    let m = ExactModel::new(
+        "linear()".parse().unwrap(),
+        sv,
+        coef,
+        vec![0.3, -0.2],
+        Task::Regression,
+        vec![],
+        None,
+    )
+    .unwrap();
+    let x = Array2::from_shape_fn((400, 4), |(i, j)| {
+        ((i * 4 + j) as f64 * 0.31 + (i * j * j) as f64 * 0.013).cos() * 2.0
+    });
+    (m, x)
+}
+
+#[test]
+fn distillation_recovers_a_linear_teacher_exactly() {
+    // A teacher that is itself linear in the features: f(x) = (SVᵀ coef)ᵀ x + b with the
+    // identity map. Least squares with a negligible ridge must return W = SVᵀ coef and b.
+    let (teacher, x) = linear_teacher();
+    let spec = FeatureSpec::new("linear()".parse().unwrap(), Method::Identity, 4, 4, 0);
+    let (m, _) = compile_exact(
+        &teacher,
+        Some(x.view()),
+        &spec,
+        HeadKind::Distill,
+        &RidgeGrid::fixed(1e-12),
+        None,
+    )
+    .unwrap();
+    let want = teacher.support_vectors().t().dot(&teacher.coef());
+    for (a, b) in m.head().iter().zip(want.iter()) {
+        assert!((a - b).abs() < 1e-6, "{a} vs {b}");
+    }
+    assert!((m.intercept()[0] - 0.3).abs() < 1e-6 && (m.intercept()[1] + 0.2).abs() < 1e-6);
+    // Nyström with the teacher's support vectors as landmarks spans the teacher exactly
+    // (Williams & Seeger 2001): both distill and project reproduce its decisions.
+    let sv = Array2::from_shape_fn((30, 3), |(i, j)| ((i * 3 + j) as f64 * 0.53).sin());
+    let coef = Array2::from_shape_fn((30, 1), |(i, _)| ((i * 7) as f64).cos());
+    let g = ExactModel::new(
+        "gaussian(gamma=0.7)".parse().unwrap(),
+        sv.clone(),
+        coef,
+        vec![0.1],
+        Task::Regression,
+        vec![],
+        None,
+    )
+    .unwrap();
+    let xc = Array2::from_shape_fn((500, 3), |(i, j)| {
+        ((i * 3 + j) as f64 * 0.17 + (i * j * j) as f64 * 0.011).cos()
+    });
+    let spec = FeatureSpec::new(g.kernel().clone(), Method::Nystrom, 3, 30, 0);
+    for kind in [HeadKind::Distill, HeadKind::Project] {
+        let (m, _) = compile_exact(
+            &g,
+            Some(xc.view()),
+            &spec,
+            kind,
+            &RidgeGrid::fixed(1e-13),
+            Some(sv.view()),
+        )
+        .unwrap();
+        let a = g.decision(xc.view());
+        let b = m.decision(xc.view());
+        let worst = (&a - &b).iter().fold(0.0f64, |w, v| w.max(v.abs()));
+        assert!(worst < 1e-5, "{kind:?}: {worst}");
+    }
+}
+
+#[test]
+fn labels_mode_fits_without_a_teacher() {
+    let dir = tmpdir("labels_mode_fits_without_a_teacher");
+    let out = dir.join("direct.safetensors");
+    let text = ok(&[
+        "compile",
+        "--kernel",
+        "gaussian(gamma=0.25)",
+        "--data",
+        s(&root().join("models/pump_train.csv")),
+        "--target",
+        "condition",
+        "--standardize",
+        "--method",
+        "orthogonal",
+        "--features",
+        "512",
+        "--out",
+        s(&out),
+    ]);
+    let acc: f64 = text
+        .split("held-out rows ")
+        .nth(1)
+        .unwrap()
+        .split_whitespace()
+        .next()
+        .unwrap()
+        .parse()
+        .unwrap();
+    // The exact SVM reaches 0.77 on test data; a 512-feature ridge fit should be close.
+    assert!(acc > 0.7, "{text}");
+    let sc = ok(&[
+        "score",
+        s(&out),
+        "--data",
+        s(&root().join("models/pump_test.csv")),
+        "--target",
+        "condition",
+    ]);
+    assert!(
+        sc.starts_with("decision_0,decision_1,decision_2,decision_3,label"),
+        "{}",
+        &sc[..80]
+    );
+    let info = ok(&["inspect", s(&out)]);
+    assert!(
+        info.contains("compiled") && info.contains("orthogonal"),
+        "{info}"
+    );
+}
+
+#[test]
+fn compile_bad_input() {
+    let dir = tmpdir("compile_bad_input");
+    let exact = root().join("models/pump_svm.safetensors");
+    let out = dir.join("c.safetensors");
+    let e = bad(&[
+        "compile",
+        s(&exact),
+        "--method",
+        "fourier",
+        "--features",
+        "64",
+        "--out",
+        s(&out),
+    ]);
+    assert!(e.contains("--calib"), "{e}");
+    let wrong = dir.join("w.csv");
+    std::fs::write(&wrong, "a,b\n1,2\n").unwrap();
+    let e = bad(&[
+        "compile",
+        s(&exact),
+        "--calib",
+        s(&wrong),
+        "--method",
+        "fourier",
+        "--features",
+        "64",
+        "--out",
+        s(&out),
+    ]);
+    assert!(e.contains("expects 8"), "{e}");
+    let e = bad(&[
+        "compile",
+        s(&exact),
+        "--calib",
+        s(&root().join("models/pump_calib.csv")),
+        "--target",
+        "condition",
+        "--method",
+        "tensorsketch",
+        "--features",
+        "64",
+        "--out",
+        s(&out),
+    ]);
+    assert!(e.contains("methods that can"), "{e}");
+    let e = bad(&[
+        "report",
+        s(&exact),
+        "--exact",
+        s(&exact),
+        "--data",
+        s(&wrong),
+    ]);
+    assert!(e.contains("expected a compiled model"), "{e}");
+    assert!(!out.exists());
+}
