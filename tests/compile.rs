@@ -370,3 +370,54 @@ fn compile_bad_input() {
     assert!(e.contains("expected a compiled model"), "{e}");
     assert!(!out.exists());
 }
+
+#[test]
+fn compiled_files_are_bit_identical_across_thread_counts() {
+    let dir = tmpdir("compiled_files_are_bit_identical_across_thread_counts");
+    let calib = dir.join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 3000);
+    let exact = root().join("models/pump_svm.safetensors");
+    for method in ["orthogonal", "fastfood", "nystrom"] {
+        let mut files = Vec::new();
+        for threads in ["1", "2"] {
+            let out = dir.join(format!("{method}_{threads}.safetensors"));
+            let o = std::process::Command::new(bin())
+                .args([
+                    "compile",
+                    s(&exact),
+                    "--calib",
+                    s(&calib),
+                    "--target",
+                    "condition",
+                    "--method",
+                    method,
+                    "--features",
+                    "300",
+                    "--seed",
+                    "5",
+                    "--out",
+                    s(&out),
+                ])
+                .env("RAYON_NUM_THREADS", threads)
+                .output()
+                .unwrap();
+            assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+            files.push(std::fs::read(&out).unwrap());
+        }
+        assert_eq!(
+            files[0], files[1],
+            "{method}: compiled files differ between 1 and 2 threads"
+        );
+        // Reading and writing again gives the same bytes.
+        let m =
+            kernelpress::model::CompiledModel::load(&dir.join(format!("{method}_1.safetensors")))
+                .unwrap();
+        let again = dir.join(format!("{method}_again.safetensors"));
+        m.save(&again).unwrap();
+        assert_eq!(
+            std::fs::read(&again).unwrap(),
+            files[0],
+            "{method}: rewrite differs"
+        );
+    }
+}

@@ -188,7 +188,18 @@ fn finish(
     rep: Option<serde_json::Value>,
 ) -> Result<()> {
     if let Some(r) = &rep {
-        model.report = r.clone();
+        // The manifest keeps the deterministic part of the report: timings vary run to run
+        // and would break bit-identical model files.
+        let mut summary = r.clone();
+        if let Some(m) = summary.as_object_mut() {
+            m.retain(|k, _| {
+                !(k.starts_with("latency")
+                    || k.starts_with("throughput")
+                    || k.starts_with("speedup")
+                    || k == "threads")
+            });
+        }
+        model.report = summary;
     }
     let mut text = String::new();
     if let Some(r) = &rep {

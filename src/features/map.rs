@@ -269,9 +269,8 @@ impl Node {
                         Trig::Phase(p) => p.len(),
                     }
             }
-            Node::Nystrom {
-                landmarks, proj, ..
-            } => landmarks.len() + proj.len(),
+            // The projection is recomputed from the landmarks on load, not stored.
+            Node::Nystrom { landmarks, .. } => landmarks.len(),
             Node::Maclaurin { coef, w, .. } => coef.len() + w.len(),
             Node::TensorSketch { hash, .. } => 2 * hash.iter().map(|h| h.len()).sum::<usize>(),
             Node::Relu { w, .. } | Node::Projection { w } => w.len(),
@@ -427,7 +426,7 @@ impl Node {
         }
     }
 
-    pub(crate) fn to_json(&self, prefix: &str, f: &mut TensorFile) -> Value {
+    pub(crate) fn to_json(&self, prefix: &str, f: &mut TensorFile, nystrom_tol: f64) -> Value {
         let arr = |f: &mut TensorFile, name: &str, a: &Array2<f64>| {
             let key = format!("{prefix}.{name}");
             f.put(
@@ -471,13 +470,15 @@ impl Node {
                 };
                 json!({"node": "spectral", "scale": sk, "freq": fj, "trig": tj})
             }
+            // The projection is a deterministic function of kernel, landmarks and tolerance:
+            // recomputed on load instead of stored (files hold L·d floats, not L·d + L·r).
             Node::Nystrom {
                 kernel,
                 landmarks,
                 proj,
                 ..
             } => json!({"node": "nystrom", "kernel": kernel.to_string(),
-                "landmarks": arr(f, "landmarks", landmarks), "proj": arr(f, "proj", proj)}),
+                "landmarks": arr(f, "landmarks", landmarks), "rank": proj.ncols(), "rank_tol": nystrom_tol}),
             Node::Maclaurin { degree, coef, w } => {
                 let dk = format!("{prefix}.degree");
                 f.put(
@@ -507,13 +508,13 @@ impl Node {
             Node::Projection { w } => json!({"node": "projection", "w": arr(f, "w", w)}),
             Node::Identity { d } => json!({"node": "identity", "d": d}),
             Node::Concat(v) => {
-                json!({"node": "concat", "parts": v.iter().enumerate().map(|(i, n)| n.to_json(&format!("{prefix}.{i}"), f)).collect::<Vec<_>>()})
+                json!({"node": "concat", "parts": v.iter().enumerate().map(|(i, n)| n.to_json(&format!("{prefix}.{i}"), f, nystrom_tol)).collect::<Vec<_>>()})
             }
             Node::Product(v) => {
-                json!({"node": "product", "parts": v.iter().enumerate().map(|(i, n)| n.to_json(&format!("{prefix}.{i}"), f)).collect::<Vec<_>>()})
+                json!({"node": "product", "parts": v.iter().enumerate().map(|(i, n)| n.to_json(&format!("{prefix}.{i}"), f, nystrom_tol)).collect::<Vec<_>>()})
             }
             Node::Scaled(c, n) => {
-                json!({"node": "scaled", "c": c, "inner": n.to_json(&format!("{prefix}.0"), f)})
+                json!({"node": "scaled", "c": c, "inner": n.to_json(&format!("{prefix}.0"), f, nystrom_tol)})
             }
         }
     }
@@ -626,13 +627,17 @@ impl Node {
                 let kernel: Kernel = st("kernel")?.parse()?;
                 kernel.check_dim(d)?;
                 let landmarks = mat(st("landmarks")?, None, Some(d))?;
-                let proj = mat(st("proj")?, Some(landmarks.nrows()), None)?;
-                Node::Nystrom {
-                    kernel,
-                    landmarks,
-                    proj,
-                    prepared: Arc::new(OnceLock::new()),
+                let rank = num("rank")?;
+                let tol = fl("rank_tol")?;
+                let mut info = super::SampleInfo::default();
+                let node = super::nystrom_from_landmarks(&kernel, landmarks, tol, &mut info)?;
+                if node.output_dim() != rank {
+                    return Err(bad(&format!(
+                        "Nyström rank {} recomputed from the landmarks differs from the stored {rank}",
+                        node.output_dim()
+                    )));
                 }
+                node
             }
             "maclaurin" => {
                 let (_, deg) = f.tensor(st("degree")?, &[None], src)?;

@@ -136,7 +136,7 @@ impl FeatureMap {
 
     /// Stores the map in `f` (tensors `map.*`, manifest key `feature_map`).
     pub fn write_to(&self, f: &mut TensorFile) {
-        let tree = self.root.to_json("map", f);
+        let tree = self.root.to_json("map", f, self.spec.options.rank_tol);
         f.manifest
             .insert("feature_spec".into(), self.spec.to_json());
         f.manifest.insert("feature_map".into(), tree);

@@ -3,7 +3,7 @@
 
 use super::{label_indices, Task, TensorFile, FORMAT_VERSION};
 use crate::data::Standardizer;
-use crate::features::FeatureMap;
+use crate::features::{FeatureMap, Node};
 use crate::linalg;
 use crate::{Error, Result};
 use ndarray::{Array2, ArrayView2};
@@ -36,6 +36,9 @@ pub struct CompiledModel {
     pub report: Value,
     /// Feature names, if known.
     pub feature_names: Vec<String>,
+    /// Nyström only: the head folded into the landmarks, `F = P·W` (`L × k`), so that
+    /// `f(x) = K(x, L)·F + b` (one kernel block and one product per prediction).
+    folded: Option<Array2<f64>>,
 }
 
 impl CompiledModel {
@@ -79,7 +82,12 @@ impl CompiledModel {
             }
         }
         let d = map.input_dim();
+        let folded = match &map.root {
+            Node::Nystrom { proj, .. } => Some(linalg::ab_seq(proj.view(), head.view())),
+            _ => None,
+        };
         Ok(CompiledModel {
+            folded,
             map,
             head,
             intercept,
@@ -135,8 +143,23 @@ impl CompiledModel {
             Some(s) => s.apply(x),
             None => x.to_owned(),
         };
-        let z = self.map.transform(xs.view());
-        let mut s = linalg::ab(z.view(), self.head.view());
+        let mut s = match (&self.folded, &self.map.root) {
+            (
+                Some(f),
+                Node::Nystrom {
+                    kernel, landmarks, ..
+                },
+            ) => {
+                let prep = crate::kernel::Prepared::new(kernel, landmarks.view());
+                linalg::map_row_chunks(xs.view(), f.ncols(), |c| {
+                    linalg::ab_seq(kernel.gram_block(c, &prep).view(), f.view())
+                })
+            }
+            _ => {
+                let z = self.map.transform(xs.view());
+                linalg::ab(z.view(), self.head.view())
+            }
+        };
         for mut row in s.rows_mut() {
             row.iter_mut()
                 .zip(&self.intercept)
@@ -155,10 +178,22 @@ impl CompiledModel {
                 .collect(),
             None => x.to_vec(),
         };
-        let z = self.map.transform_one(&xs);
+        let (z, head) = match (&self.folded, &self.map.root) {
+            (
+                Some(f),
+                Node::Nystrom {
+                    kernel, landmarks, ..
+                },
+            ) => {
+                let row = ArrayView2::from_shape((1, xs.len()), &xs[..]).expect("one row");
+                let prep = crate::kernel::Prepared::new(kernel, landmarks.view());
+                (kernel.gram_block(row, &prep).into_raw_vec_and_offset().0, f)
+            }
+            _ => (self.map.transform_one(&xs), &self.head),
+        };
         let k = self.head.ncols();
         let mut out = self.intercept.clone();
-        for (zi, row) in z.iter().zip(self.head.rows()) {
+        for (zi, row) in z.iter().zip(head.rows()) {
             for c in 0..k {
                 out[c] += zi * row[c];
             }
@@ -180,25 +215,47 @@ impl CompiledModel {
     /// Floats stored (map + head + intercepts + scaling).
     pub fn parameter_floats(&self) -> usize {
         self.map.stored_floats()
-            + self.head.len()
+            + self
+                .folded
+                .as_ref()
+                .map(|f| f.len())
+                .unwrap_or(self.head.len())
             + self.intercept.len()
             + self.scaling.as_ref().map(|s| 2 * s.mean.len()).unwrap_or(0)
     }
 
     /// Flops per prediction (analytic).
     pub fn flops(&self) -> usize {
-        self.map.flops_per_row() + 2 * self.head.len()
+        match (&self.folded, &self.map.root) {
+            (Some(f), Node::Nystrom { landmarks, .. }) => 3 * landmarks.len() + 2 * f.len(),
+            _ => self.map.flops_per_row() + 2 * self.head.len(),
+        }
     }
 
     /// The model as a [`TensorFile`].
     pub fn to_file(&self) -> TensorFile {
         let mut f = TensorFile::default();
         self.map.write_to(&mut f);
-        f.put(
-            "head",
-            vec![self.head.nrows(), self.head.ncols()],
-            self.head.iter().copied().collect(),
-        );
+        match &self.folded {
+            // Nyström: store F = P·W; W is recovered on load as Pᵀ·K(L, L)·F.
+            Some(fh) => {
+                f.put(
+                    "nystrom_head",
+                    vec![fh.nrows(), fh.ncols()],
+                    fh.iter().copied().collect(),
+                );
+                f.manifest
+                    .insert("head_form".into(), json!("nystrom_folded"));
+            }
+            None => {
+                f.put(
+                    "head",
+                    vec![self.head.nrows(), self.head.ncols()],
+                    self.head.iter().copied().collect(),
+                );
+                f.manifest.insert("head_form".into(), json!("features"));
+            }
+        }
         f.put(
             "intercepts",
             vec![self.intercept.len()],
@@ -261,7 +318,34 @@ impl CompiledModel {
         let map = FeatureMap::read_from(f, src)?;
         let dd = map.output_dim();
         let k = f.get_u64("n_outputs", src)? as usize;
-        let (_, head) = f.tensor("head", &[Some(dd), Some(k)], src)?;
+        let mut stored_fold: Option<Array2<f64>> = None;
+        let head: Vec<f64> = match (
+            f.manifest.get("head_form").and_then(|v| v.as_str()),
+            &map.root,
+        ) {
+            (
+                Some("nystrom_folded"),
+                Node::Nystrom {
+                    kernel,
+                    landmarks,
+                    proj,
+                    ..
+                },
+            ) => {
+                let (_, fh) = f.tensor("nystrom_head", &[Some(landmarks.nrows()), Some(k)], src)?;
+                let fh = Array2::from_shape_vec((landmarks.nrows(), k), fh).unwrap();
+                let kll = kernel.gram(landmarks.view(), landmarks.view());
+                let w = linalg::ab_seq(linalg::ab_seq(proj.t(), kll.view()).view(), fh.view());
+                stored_fold = Some(fh);
+                w.iter().copied().collect()
+            }
+            (Some("nystrom_folded"), _) => {
+                return Err(Error::input(format!(
+                    "{src}: head_form nystrom_folded on a map that is not Nyström"
+                )))
+            }
+            _ => f.tensor("head", &[Some(dd), Some(k)], src)?.1,
+        };
         let (_, b) = f.tensor("intercepts", &[Some(k)], src)?;
         let task = Task::parse(&f.get_str("task", src)?).map_err(|e| e.context(src))?;
         let labels: Vec<String> = f
@@ -293,6 +377,10 @@ impl CompiledModel {
             scaling,
         )
         .map_err(|e| e.context(src))?;
+        if stored_fold.is_some() {
+            // Score with exactly the stored F.
+            m.folded = stored_fold;
+        }
         m.fit = f.manifest.get("fit").cloned().unwrap_or(json!({}));
         m.report = f.manifest.get("report").cloned().unwrap_or(json!({}));
         if let Some(Value::Array(v)) = f.manifest.get("feature_names") {

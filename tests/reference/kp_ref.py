@@ -197,8 +197,13 @@ def feature_map(node, tensors, x):
             return np.concatenate([np.cos(p), np.sin(p)], axis=1) / np.sqrt(m)
         return np.sqrt(2.0 / m) * np.cos(p + tensors[node["trig"]["phase"]])
     if kind == "nystrom":
+        # P = U_r Λ_r^{-1/2} over eigenvalues > rank_tol·λ_max of K(L, L) (Williams & Seeger
+        # 2001); eigenvector signs are arbitrary, so only Z Zᵀ is comparable across codes.
         L = tensors[node["landmarks"]]
-        return gram(spec_from_expression(node["kernel"]), x, L) @ tensors[node["proj"]]
+        spec = spec_from_expression(node["kernel"])
+        ev, U = np.linalg.eigh(gram(spec, L, L))
+        keep = ev > node["rank_tol"] * ev.max()
+        return gram(spec, x, L) @ (U[:, keep] / np.sqrt(ev[keep]))
     if kind == "identity":
         return x
     if kind == "concat":
@@ -214,5 +219,10 @@ def compiled_decision(path, x):
     assert man["kind"] == "compiled", man["kind"]
     if man["input_scaling"] == "standardize":
         x = (x - t["input_mean"]) / t["input_scale"]
+    if man.get("head_form") == "nystrom_folded":
+        # f(x) = K(x, L) F + b with F = P W stored (kernelpress model docs).
+        node = man["feature_map"]
+        k = gram(spec_from_expression(node["kernel"]), x, t[node["landmarks"]])
+        return k @ t["nystrom_head"] + t["intercepts"], man
     z = feature_map(man["feature_map"], t, x)
     return z @ t["head"] + t["intercepts"], man
