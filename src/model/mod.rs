@@ -465,6 +465,7 @@ impl ExactModel {
 
 /// Any model file kernelpress reads.
 #[derive(Debug, Clone)]
+#[allow(clippy::large_enum_variant)] // one value per command; boxing buys nothing
 pub enum AnyModel {
     /// An exact kernel model.
     Exact(ExactModel),
