@@ -13,5 +13,7 @@ if [ ! -x "$PYENV/bin/python" ] || ! "$PYENV/bin/python" -c "import numpy, scipy
   "$PYENV/bin/pip" install --quiet --disable-pip-version-check $REQS
 fi
 export KP_PYTHON="$PWD/$PYENV/bin/python"
-cargo test --all-targets "$@"
+cargo test --lib --bins --tests --examples "$@"
 cargo test --doc "$@"
+# Benches are compiled (not run: speed claims live in benchmarks, not in tests).
+cargo bench --no-run --quiet

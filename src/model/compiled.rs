@@ -147,12 +147,15 @@ impl CompiledModel {
             (
                 Some(f),
                 Node::Nystrom {
-                    kernel, landmarks, ..
+                    kernel,
+                    landmarks,
+                    prepared,
+                    ..
                 },
             ) => {
-                let prep = crate::kernel::Prepared::new(kernel, landmarks.view());
+                let prep = prepared.get_or_init(|| crate::kernel::Prepared::new(kernel, landmarks.view()));
                 linalg::map_row_chunks(xs.view(), f.ncols(), |c| {
-                    linalg::ab_seq(kernel.gram_block(c, &prep).view(), f.view())
+                    linalg::ab_seq(kernel.gram_block(c, prep).view(), f.view())
                 })
             }
             _ => {
@@ -182,12 +185,15 @@ impl CompiledModel {
             (
                 Some(f),
                 Node::Nystrom {
-                    kernel, landmarks, ..
+                    kernel,
+                    landmarks,
+                    prepared,
+                    ..
                 },
             ) => {
                 let row = ArrayView2::from_shape((1, xs.len()), &xs[..]).expect("one row");
-                let prep = crate::kernel::Prepared::new(kernel, landmarks.view());
-                (kernel.gram_block(row, &prep).into_raw_vec_and_offset().0, f)
+                let prep = prepared.get_or_init(|| crate::kernel::Prepared::new(kernel, landmarks.view()));
+                (kernel.gram_block(row, prep).into_raw_vec_and_offset().0, f)
             }
             _ => (self.map.transform_one(&xs), &self.head),
         };
