@@ -5,7 +5,7 @@
 //! first 10,000 training images (one-vs-one, 45 decision values); calibration: all 60,000
 //! training images; evaluation: the 10,000 test images. For each method and feature count:
 //! label agreement, accuracy of both models, decision RMSE, single-row and batched speedup,
-//! bytes. A kernel-ridge teacher (one-vs-rest, λ = 1e-3) is compared at D = 4096.
+//! bytes. A kernel-ridge teacher (one-vs-rest, λ = 1) is compared at D = 4096.
 //!
 //! Run: `cargo run --release --example fashion_bench -- [OUT.json] [D1,D2,...] [M1,M2,...]`
 
@@ -79,7 +79,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             xs.view(),
             &ytr[..10_000],
             &RidgeOptions {
-                ridge: 1e-3 * 10_000.0 / 10_000.0,
+                ridge: 1.0,
                 classify: true,
             },
         )?;

@@ -154,8 +154,12 @@ pub(crate) fn run(a: Args) -> Result<()> {
     } else {
         write_npy_f64(&a.out, &[z.nrows(), z.ncols()], z.as_slice().unwrap())?;
     }
+    let rank = match (info.rank, info.landmarks) {
+        (Some(r), Some(l)) => format!("; Nyström rank {r} of {l} landmarks"),
+        _ => String::new(),
+    };
     super::print_stdout(&format!(
-        "{} rows × {} features ({} of {}, seed {}; {} stored floats, {} flops/row) → {}\n",
+        "{} rows × {} features ({} of {}, seed {}; {} stored floats, {} flops/row{rank}) → {}\n",
         z.nrows(),
         z.ncols(),
         spec.method.name(),

@@ -133,6 +133,32 @@ impl CompiledModel {
         self.head.ncols()
     }
 
+    /// Nyström with a folded head: the kernel, the prepared landmarks and `F = P·W`.
+    fn fold(
+        &self,
+    ) -> Option<(
+        &crate::kernel::Kernel,
+        &crate::kernel::Prepared,
+        &Array2<f64>,
+    )> {
+        match (&self.folded, &self.map.root) {
+            (
+                Some(f),
+                Node::Nystrom {
+                    kernel,
+                    landmarks,
+                    prepared,
+                    ..
+                },
+            ) => {
+                let prep =
+                    prepared.get_or_init(|| crate::kernel::Prepared::new(kernel, landmarks.view()));
+                Some((kernel, prep, f))
+            }
+            _ => None,
+        }
+    }
+
     /// Decision values for raw inputs.
     ///
     /// # Panics
@@ -143,22 +169,11 @@ impl CompiledModel {
             Some(s) => s.apply(x),
             None => x.to_owned(),
         };
-        let mut s = match (&self.folded, &self.map.root) {
-            (
-                Some(f),
-                Node::Nystrom {
-                    kernel,
-                    landmarks,
-                    prepared,
-                    ..
-                },
-            ) => {
-                let prep = prepared.get_or_init(|| crate::kernel::Prepared::new(kernel, landmarks.view()));
-                linalg::map_row_chunks(xs.view(), f.ncols(), |c| {
-                    linalg::ab_seq(kernel.gram_block(c, prep).view(), f.view())
-                })
-            }
-            _ => {
+        let mut s = match self.fold() {
+            Some((kernel, prep, f)) => linalg::map_row_chunks(xs.view(), f.ncols(), |c| {
+                linalg::ab_seq(kernel.gram_block(c, prep).view(), f.view())
+            }),
+            None => {
                 let z = self.map.transform(xs.view());
                 linalg::ab(z.view(), self.head.view())
             }
@@ -181,21 +196,12 @@ impl CompiledModel {
                 .collect(),
             None => x.to_vec(),
         };
-        let (z, head) = match (&self.folded, &self.map.root) {
-            (
-                Some(f),
-                Node::Nystrom {
-                    kernel,
-                    landmarks,
-                    prepared,
-                    ..
-                },
-            ) => {
+        let (z, head) = match self.fold() {
+            Some((kernel, prep, f)) => {
                 let row = ArrayView2::from_shape((1, xs.len()), &xs[..]).expect("one row");
-                let prep = prepared.get_or_init(|| crate::kernel::Prepared::new(kernel, landmarks.view()));
                 (kernel.gram_block(row, prep).into_raw_vec_and_offset().0, f)
             }
-            _ => (self.map.transform_one(&xs), &self.head),
+            None => (self.map.transform_one(&xs), &self.head),
         };
         let k = self.head.ncols();
         let mut out = self.intercept.clone();
