@@ -87,9 +87,9 @@ pub(crate) fn run(a: Args) -> Result<()> {
             let d = a
                 .dim
                 .ok_or_else(|| Error::input("--dim is required unless --data is given"))?;
-            if d == 0 || a.points == 0 || a.points > 20_000 {
+            if d == 0 || a.points == 0 || a.points > 10_000 {
                 return Err(Error::input(format!(
-                    "--dim {d} / --points {} invalid: need dim ≥ 1 and 1 ≤ points ≤ 20000",
+                    "--dim {d} / --points {} invalid: need dim ≥ 1 and 1 ≤ points ≤ 10000",
                     a.points
                 )));
             }

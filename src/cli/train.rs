@@ -95,6 +95,9 @@ pub(crate) fn run(a: Args) -> Result<()> {
         }
     };
     let secs = start.elapsed().as_secs_f64();
+    if model.n_support_vectors() == 0 {
+        return Err(Error::internal("training produced no support vectors"));
+    }
     model.feature_names = t.columns.clone();
     if let serde_json::Value::Object(m) = &mut model.training {
         m.insert("target".into(), a.target.clone().into());
@@ -120,8 +123,5 @@ pub(crate) fn run(a: Args) -> Result<()> {
         msg.push_str(&format!("; training accuracy {acc:.4}"));
     }
     msg.push_str(&format!("\nwrote {}\n", a.out.display()));
-    if model.n_support_vectors() == 0 {
-        return Err(Error::internal("training produced no support vectors"));
-    }
     super::print_stdout(&msg)
 }

@@ -255,7 +255,8 @@ impl FeatureSpec {
         if self.method.is_spectral()
             && self.options.fourier == FourierVariant::Paired
             && self.features % 2 == 1
-            && !matches!(self.kernel, Kernel::Sum(_))
+            // Sums split D themselves; products use the phase form for their factors.
+            && !matches!(self.kernel, Kernel::Sum(_) | Kernel::Product(_))
         {
             return Err(Error::input(format!(
                 "--features {} is odd: paired cos/sin features come in pairs; use an even count or the phase variant",
