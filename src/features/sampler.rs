@@ -145,15 +145,7 @@ fn leaf_map(
         }
         let method = spec.method;
         if !super::spec::methods_for(k).contains(&method) {
-            return Err(Error::input(format!(
-                "method '{}' cannot serve kernel {k}; methods that can: {}",
-                method.name(),
-                super::spec::methods_for(k)
-                    .iter()
-                    .map(|m| m.name())
-                    .collect::<Vec<_>>()
-                    .join(", ")
-            )));
+            return Err(super::spec::cannot_serve(k, method));
         }
         let freq = match method {
             Method::Fourier => Freq::Dense(spectral::iid(k, d, m, &mut rng)),
@@ -222,15 +214,7 @@ fn leaf_map(
             let w = Array2::from_shape_simple_fn((dd, d), || rng.sample::<f64, _>(StandardNormal));
             Ok(Node::Relu { order: *order, w })
         }
-        (k, m) => Err(Error::input(format!(
-            "method '{}' cannot serve kernel {k}; methods that can: {}",
-            m.name(),
-            super::spec::methods_for(k)
-                .iter()
-                .map(|m| m.name())
-                .collect::<Vec<_>>()
-                .join(", ")
-        ))),
+        (k, m) => Err(super::spec::cannot_serve(k, m)),
     }
 }
 

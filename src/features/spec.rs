@@ -117,6 +117,19 @@ pub fn methods_for(k: &Kernel) -> Vec<Method> {
     }
 }
 
+/// The error for a method that cannot serve a kernel, naming the methods that can.
+pub(crate) fn cannot_serve(k: &Kernel, m: Method) -> Error {
+    Error::input(format!(
+        "method '{}' cannot serve kernel {k}; methods that can: {}",
+        m.name(),
+        methods_for(k)
+            .iter()
+            .map(|m| m.name())
+            .collect::<Vec<_>>()
+            .join(", ")
+    ))
+}
+
 fn composite_ok(k: &Kernel, m: Method) -> bool {
     match k {
         Kernel::Sum(v) | Kernel::Product(v) => v.iter().all(|c| composite_ok(c, m)),
@@ -243,14 +256,8 @@ impl FeatureSpec {
             )));
         }
         self.kernel.check_dim(self.input_dim)?;
-        let ok = methods_for(&self.kernel);
-        if !ok.contains(&self.method) {
-            return Err(Error::input(format!(
-                "method '{}' cannot serve kernel {}; methods that can: {}",
-                self.method.name(),
-                self.kernel,
-                ok.iter().map(|m| m.name()).collect::<Vec<_>>().join(", ")
-            )));
+        if !methods_for(&self.kernel).contains(&self.method) {
+            return Err(cannot_serve(&self.kernel, self.method));
         }
         if self.method.is_spectral()
             && self.options.fourier == FourierVariant::Paired

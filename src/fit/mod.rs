@@ -267,7 +267,7 @@ impl Distiller {
             return Err(Error::input("no rows to fit the head on"));
         }
         let mut notes = Vec::new();
-        let (a, b, _, _) = Self::centred(&self.train);
+        let (a, b, mz_t, my_t) = Self::centred(&self.train);
         let p = a.nrows();
         let scale =
             (a.diag().sum() / (self.train.n as f64 * p as f64)).max(1e-300) * self.train.n as f64;
@@ -276,8 +276,7 @@ impl Distiller {
         if grid.relative.len() > 1 && self.hold.n > 0 {
             for &rel in &grid.relative {
                 let (w, _) = Self::solve_one(&a, &b, rel * scale, &mut notes)?;
-                let (_, _, mz, my) = Self::centred(&self.train);
-                let bias = &my - &w.t().dot(&mz);
+                let bias = &my_t - &w.t().dot(&mz_t);
                 let e = Self::mse(&self.hold, &w, &bias);
                 holdout.push((rel, e));
                 if e < best.1 {
