@@ -7,7 +7,7 @@
 //! label agreement, accuracy of both models, decision RMSE, single-row and batched speedup,
 //! bytes. A kernel-ridge teacher (one-vs-rest, λ = 1) is compared at D = 4096.
 //!
-//! Run: `cargo run --release --example fashion_bench -- [OUT.json] [D1,D2,...] [M1,M2,...]`
+//! Run: `cargo run --release --example fashion_bench -- [OUT.json] [D1,D2,...] [M1,M2,...] [uniform|kmeans++|leverage] [svm|ridge|both]`
 
 use kernelpress::data::{read_idx_images, read_idx_labels, Standardizer};
 use kernelpress::exact::{fit_ridge, fit_svm, RidgeOptions, SmoOptions};
@@ -39,6 +39,10 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             Method::Fastfood,
             Method::Nystrom,
         ]);
+    let rule = kernelpress::features::parse_landmarks(
+        args.get(4).map(|s| s.as_str()).unwrap_or("uniform"),
+    )?;
+    let which = args.get(5).cloned().unwrap_or_else(|| "both".into());
     let dir = Path::new("/usr/share/datasets/fashion-mnist");
     let xtr = read_idx_images(&dir.join("train-images-idx3-ubyte.gz"))?.mapv(|v| v * 255.0);
     let ytr: Vec<String> = read_idx_labels(&dir.join("train-labels-idx1-ubyte.gz"))?
@@ -109,7 +113,11 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                     continue;
                 }
                 let t0 = Instant::now();
-                let spec = FeatureSpec::new(kernel.clone(), m, 784, dd, 1);
+                if which != "both" && which != *tname {
+                    continue;
+                }
+                let mut spec = FeatureSpec::new(kernel.clone(), m, 784, dd, 1);
+                spec.options.landmarks = rule;
                 let grid = RidgeGrid {
                     relative: vec![1e-6, 1e-5, 1e-4, 1e-3, 1e-2],
                 };
@@ -135,6 +143,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                     &opts,
                 );
                 r["teacher"] = serde_json::json!(tname);
+                r["landmark_rule"] =
+                    serde_json::json!(args.get(4).cloned().unwrap_or_else(|| "uniform".into()));
                 r["compile_seconds"] = serde_json::json!(fit_s);
                 r["ridge_relative"] = model.fit["ridge_relative"].clone();
                 eprintln!(

@@ -327,11 +327,13 @@ impl Node {
                         let f = (1.0 / m as f64).sqrt();
                         let mut out = Array2::zeros((x.nrows(), 2 * m));
                         for (mut o, pr) in out.rows_mut().into_iter().zip(p.rows()) {
-                            for (j, v) in pr.iter().enumerate() {
-                                let (s, c) = v.sin_cos();
-                                o[j] = f * c;
-                                o[m + j] = f * s;
-                            }
+                            let (co, so) = o.as_slice_mut().expect("row-major").split_at_mut(m);
+                            super::trig::scaled_sin_cos(
+                                pr.as_slice().expect("row-major"),
+                                f,
+                                co,
+                                so,
+                            );
                         }
                         out
                     }
@@ -341,7 +343,7 @@ impl Node {
                         for mut o in out.rows_mut() {
                             o.iter_mut()
                                 .zip(b)
-                                .for_each(|(v, b)| *v = f * (*v + b).cos());
+                                .for_each(|(v, b)| *v = f * super::trig::sin_cos(*v + b).1);
                         }
                         out
                     }

@@ -41,6 +41,7 @@ mod sobol_table;
 pub mod spec;
 pub mod special;
 mod spectral;
+pub mod trig;
 
 pub use map::{Freq, Node, Trig};
 pub use qmc::{halton, primes, sobol, SOBOL_MAX_DIM};
