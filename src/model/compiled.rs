@@ -1,7 +1,10 @@
 //! Compiled models: a sampled feature map plus a linear head,
 //! `f(x) = z(s(x)) · W + b` with `s` the stored input scaling.
 
-use super::{label_indices, Task, TensorFile, FORMAT_VERSION};
+use super::{
+    label_indices, put_scaling, read_feature_names, read_labels, read_scaling, scaling_name, Task,
+    TensorFile, FORMAT_VERSION,
+};
 use crate::data::Standardizer;
 use crate::features::{FeatureMap, Node};
 use crate::linalg;
@@ -274,10 +277,7 @@ impl CompiledModel {
             self.intercept.clone(),
         );
         let d = self.input_dim();
-        if let Some(s) = &self.scaling {
-            f.put("input_mean", vec![d], s.mean.clone());
-            f.put("input_scale", vec![d], s.scale.clone());
-        }
+        put_scaling(&mut f, self.scaling.as_ref());
         let spec = &self.map.spec;
         let entries = [
             ("format_version", json!(FORMAT_VERSION)),
@@ -287,14 +287,7 @@ impl CompiledModel {
             ("labels", json!(self.labels)),
             ("input_dim", json!(d)),
             ("n_outputs", json!(self.n_outputs())),
-            (
-                "input_scaling",
-                json!(if self.scaling.is_some() {
-                    "standardize"
-                } else {
-                    "none"
-                }),
-            ),
+            ("input_scaling", json!(scaling_name(self.scaling.as_ref()))),
             ("method", json!(spec.method.name())),
             ("features", json!(self.map.output_dim())),
             ("features_requested", json!(spec.features)),
@@ -360,26 +353,9 @@ impl CompiledModel {
         };
         let (_, b) = f.tensor("intercepts", &[Some(k)], src)?;
         let task = Task::parse(&f.get_str("task", src)?).map_err(|e| e.context(src))?;
-        let labels: Vec<String> = f
-            .manifest
-            .get("labels")
-            .and_then(|v| v.as_array())
-            .map(|v| {
-                v.iter()
-                    .filter_map(|s| s.as_str().map(String::from))
-                    .collect()
-            })
-            .ok_or_else(|| Error::input(format!("{src}: manifest 'labels' missing")))?;
+        let labels = read_labels(f, src)?;
         let d = map.input_dim();
-        let scaling = match f.get_str("input_scaling", src)?.as_str() {
-            "none" => None,
-            "standardize" => {
-                let (_, mean) = f.tensor("input_mean", &[Some(d)], src)?;
-                let (_, scale) = f.tensor("input_scale", &[Some(d)], src)?;
-                Some(Standardizer { mean, scale })
-            }
-            o => return Err(Error::input(format!("{src}: input_scaling '{o}' unknown"))),
-        };
+        let scaling = read_scaling(f, d, src)?;
         let mut m = CompiledModel::new(
             map,
             Array2::from_shape_vec((dd, k), head).unwrap(),
@@ -395,14 +371,8 @@ impl CompiledModel {
         }
         m.fit = f.manifest.get("fit").cloned().unwrap_or(json!({}));
         m.report = f.manifest.get("report").cloned().unwrap_or(json!({}));
-        if let Some(Value::Array(v)) = f.manifest.get("feature_names") {
-            let names: Vec<String> = v
-                .iter()
-                .filter_map(|s| s.as_str().map(String::from))
-                .collect();
-            if names.len() == d {
-                m.feature_names = names;
-            }
+        if let Some(names) = read_feature_names(f, d) {
+            m.feature_names = names;
         }
         Ok(m)
     }

@@ -366,10 +366,7 @@ impl ExactModel {
             self.coef.iter().copied().collect(),
         );
         f.put("intercepts", vec![k], self.intercept.clone());
-        if let Some(s) = &self.scaling {
-            f.put("input_mean", vec![d], s.mean.clone());
-            f.put("input_scale", vec![d], s.scale.clone());
-        }
+        put_scaling(&mut f, self.scaling.as_ref());
         let m = json!({
             "format_version": FORMAT_VERSION,
             "kind": "exact",
@@ -379,7 +376,7 @@ impl ExactModel {
             "input_dim": d,
             "n_outputs": k,
             "n_support_vectors": n,
-            "input_scaling": if self.scaling.is_some() { "standardize" } else { "none" },
+            "input_scaling": scaling_name(self.scaling.as_ref()),
             "feature_names": self.feature_names,
             "training": self.training,
             "generator": format!("kernelpress {}", env!("CARGO_PKG_VERSION")),
@@ -406,33 +403,14 @@ impl ExactModel {
             .parse()
             .map_err(|e: Error| e.context(format!("{src}: manifest 'kernel'")))?;
         let task = Task::parse(&f.get_str("task", src)?).map_err(|e| e.context(src))?;
-        let labels: Vec<String> = match f.manifest.get("labels") {
-            Some(serde_json::Value::Array(v)) => v
-                .iter()
-                .map(|l| l.as_str().map(|s| s.to_string()))
-                .collect::<Option<_>>()
-                .ok_or_else(|| Error::input(format!("{src}: manifest 'labels' must be strings")))?,
-            _ => return Err(Error::input(format!("{src}: manifest 'labels' missing"))),
-        };
+        let labels = read_labels(f, src)?;
         let d = f.get_u64("input_dim", src)? as usize;
         let k = f.get_u64("n_outputs", src)? as usize;
         let n = f.get_u64("n_support_vectors", src)? as usize;
         let (_, sv) = f.tensor("support_vectors", &[Some(n), Some(d)], src)?;
         let (_, coef) = f.tensor("coefficients", &[Some(n), Some(k)], src)?;
         let (_, b) = f.tensor("intercepts", &[Some(k)], src)?;
-        let scaling = match f.get_str("input_scaling", src)?.as_str() {
-            "none" => None,
-            "standardize" => {
-                let (_, mean) = f.tensor("input_mean", &[Some(d)], src)?;
-                let (_, scale) = f.tensor("input_scale", &[Some(d)], src)?;
-                Some(Standardizer { mean, scale })
-            }
-            other => {
-                return Err(Error::input(format!(
-                    "{src}: input_scaling '{other}' unknown; expected none or standardize"
-                )))
-            }
-        };
+        let scaling = read_scaling(f, d, src)?;
         let mut m = ExactModel::new(
             kernel,
             Array2::from_shape_vec((n, d), sv).unwrap(),
@@ -443,14 +421,8 @@ impl ExactModel {
             scaling,
         )
         .map_err(|e| e.context(src))?;
-        if let Some(serde_json::Value::Array(v)) = f.manifest.get("feature_names") {
-            let names: Vec<String> = v
-                .iter()
-                .filter_map(|s| s.as_str().map(String::from))
-                .collect();
-            if names.len() == d {
-                m.feature_names = names;
-            }
+        if let Some(names) = read_feature_names(f, d) {
+            m.feature_names = names;
         }
         m.training = f.manifest.get("training").cloned().unwrap_or(json!({}));
         Ok(m)
@@ -461,6 +433,60 @@ impl ExactModel {
         let f = TensorFile::read(path)?;
         Self::from_file(&f, &path.display().to_string())
     }
+}
+
+/// Stores the input scaling tensors `input_mean`, `input_scale` (nothing without scaling).
+fn put_scaling(f: &mut TensorFile, scaling: Option<&Standardizer>) {
+    if let Some(s) = scaling {
+        f.put("input_mean", vec![s.mean.len()], s.mean.clone());
+        f.put("input_scale", vec![s.scale.len()], s.scale.clone());
+    }
+}
+
+/// The manifest's `input_scaling` value.
+fn scaling_name(scaling: Option<&Standardizer>) -> &'static str {
+    if scaling.is_some() {
+        "standardize"
+    } else {
+        "none"
+    }
+}
+
+/// Reads `input_scaling` and, for `standardize`, the two `d`-long tensors.
+fn read_scaling(f: &TensorFile, d: usize, src: &str) -> Result<Option<Standardizer>> {
+    match f.get_str("input_scaling", src)?.as_str() {
+        "none" => Ok(None),
+        "standardize" => {
+            let (_, mean) = f.tensor("input_mean", &[Some(d)], src)?;
+            let (_, scale) = f.tensor("input_scale", &[Some(d)], src)?;
+            Ok(Some(Standardizer { mean, scale }))
+        }
+        other => Err(Error::input(format!(
+            "{src}: input_scaling '{other}' unknown; expected none or standardize"
+        ))),
+    }
+}
+
+/// Reads the manifest's `labels` (every entry must be a string).
+fn read_labels(f: &TensorFile, src: &str) -> Result<Vec<String>> {
+    match f.manifest.get("labels") {
+        Some(serde_json::Value::Array(v)) => v
+            .iter()
+            .map(|l| l.as_str().map(|s| s.to_string()))
+            .collect::<Option<_>>()
+            .ok_or_else(|| Error::input(format!("{src}: manifest 'labels' must be strings"))),
+        _ => Err(Error::input(format!("{src}: manifest 'labels' missing"))),
+    }
+}
+
+/// The manifest's `feature_names` when there are exactly `d` of them.
+fn read_feature_names(f: &TensorFile, d: usize) -> Option<Vec<String>> {
+    let v = f.manifest.get("feature_names")?.as_array()?;
+    let names: Vec<String> = v
+        .iter()
+        .filter_map(|s| s.as_str().map(String::from))
+        .collect();
+    (names.len() == d).then_some(names)
 }
 
 /// Any model file kernelpress reads.
