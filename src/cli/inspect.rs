@@ -26,6 +26,23 @@ fn tensors_json(f: &TensorFile) -> serde_json::Value {
     serde_json::Value::Object(m)
 }
 
+/// The lines every model kind shares: task, labels, input dimension and scaling.
+fn shape_lines(
+    s: &mut String,
+    task: crate::model::Task,
+    labels: &[String],
+    d: usize,
+    scaled: bool,
+) {
+    s.push_str(&format!("task            {}\n", task.name()));
+    if !labels.is_empty() {
+        s.push_str(&format!("labels          {}\n", labels.join(", ")));
+    }
+    s.push_str(&format!("input dim       {d}\n"));
+    let scaling = if scaled { "standardize" } else { "none" };
+    s.push_str(&format!("input scaling   {scaling}\n"));
+}
+
 pub(crate) fn run(a: Args) -> Result<()> {
     let (model, file) = AnyModel::load(&a.model)?;
     let bytes = std::fs::metadata(&a.model).map(|m| m.len()).unwrap_or(0);
@@ -50,25 +67,19 @@ pub(crate) fn run(a: Args) -> Result<()> {
         AnyModel::Exact(m) => {
             s.push_str("kind            exact kernel model\n");
             s.push_str(&format!("kernel          {}\n", m.kernel()));
-            s.push_str(&format!("task            {}\n", m.task().name()));
-            if !m.labels().is_empty() {
-                s.push_str(&format!("labels          {}\n", m.labels().join(", ")));
-            }
-            s.push_str(&format!("input dim       {}\n", m.input_dim()));
-            s.push_str(&format!(
-                "input scaling   {}\n",
-                if m.scaling().is_some() {
-                    "standardize"
-                } else {
-                    "none"
-                }
-            ));
+            shape_lines(
+                &mut s,
+                m.task(),
+                m.labels(),
+                m.input_dim(),
+                m.scaling().is_some(),
+            );
             s.push_str(&format!("support vectors {}\n", m.n_support_vectors()));
             s.push_str(&format!("outputs         {}\n", m.n_outputs()));
             s.push_str(&format!(
                 "cost/prediction {} kernel evaluations, ≈{} flops\n",
                 m.n_support_vectors(),
-                2 * m.n_support_vectors() * (m.input_dim() + m.n_outputs())
+                m.flops()
             ));
             if let Some(t) = m.training.get("model") {
                 s.push_str(&format!("trained as      {}\n", t.as_str().unwrap_or("?")));
@@ -88,19 +99,13 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 m.map().output_dim(),
                 spec.features
             ));
-            s.push_str(&format!("task            {}\n", m.task().name()));
-            if !m.labels().is_empty() {
-                s.push_str(&format!("labels          {}\n", m.labels().join(", ")));
-            }
-            s.push_str(&format!("input dim       {}\n", m.input_dim()));
-            s.push_str(&format!(
-                "input scaling   {}\n",
-                if m.scaling().is_some() {
-                    "standardize"
-                } else {
-                    "none"
-                }
-            ));
+            shape_lines(
+                &mut s,
+                m.task(),
+                m.labels(),
+                m.input_dim(),
+                m.scaling().is_some(),
+            );
             s.push_str(&format!("outputs         {}\n", m.n_outputs()));
             s.push_str(&format!("cost/prediction ≈{} flops\n", m.flops()));
             if let Some(fit) = m.fit.get("head").and_then(|v| v.as_str()) {

@@ -342,6 +342,12 @@ impl ExactModel {
             .collect()
     }
 
+    /// Flops per prediction (analytic): a kernel row (≈3 per support vector and input, the
+    /// distance form) plus the coefficient product.
+    pub fn flops(&self) -> usize {
+        self.n_support_vectors() * (3 * self.input_dim() + 2 * self.n_outputs())
+    }
+
     /// Bytes of the model's parameters (f64), as stored.
     pub fn parameter_bytes(&self) -> usize {
         8 * (self.support_vectors.len()

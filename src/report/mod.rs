@@ -156,11 +156,7 @@ pub fn build(
         "bytes_compiled".into(),
         json!(8 * compiled.parameter_floats()),
     );
-    let d = exact.input_dim();
-    let nsv = exact.n_support_vectors();
-    // Per prediction: a kernel row (≈3 flops per SV per input for the distance form) plus
-    // the coefficient product.
-    let flops_exact = nsv * (3 * d + 2 * exact.n_outputs());
+    let flops_exact = exact.flops();
     r.insert("flops_exact".into(), json!(flops_exact));
     r.insert("flops_compiled".into(), json!(compiled.flops()));
     if opts.timing {
