@@ -71,6 +71,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 ..Default::default()
             },
             Some(scaler.clone()),
+            &kernelpress::observe::Silent,
         )?;
         eprintln!(
             "SVM teacher: {} SVs in {:.1} s",
@@ -128,6 +129,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                     HeadKind::Distill,
                     &grid,
                     None,
+                    &kernelpress::observe::Silent,
                 )?;
                 let fit_s = t0.elapsed().as_secs_f64();
                 let opts = ReportOptions {
@@ -141,7 +143,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                     Some(&yte),
                     Some(te_dec.clone()),
                     &opts,
-                );
+                )?;
                 r["teacher"] = serde_json::json!(tname);
                 r["landmark_rule"] =
                     serde_json::json!(args.get(4).cloned().unwrap_or_else(|| "uniform".into()));

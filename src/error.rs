@@ -1,9 +1,9 @@
 //! The library's error type.
 //!
-//! Every failure is one [`Error`]: an opaque value carrying an [`ErrorKind`] (bad input
-//! from the user, or an internal failure) and a one-line message that names the file,
-//! row, field and what was expected. The binary maps [`ErrorKind::Input`] to exit code 2
-//! and [`ErrorKind::Internal`] to exit code 1.
+//! Every failure is one [`Error`]: an opaque value carrying an [`ErrorKind`] a caller can
+//! match on and a one-line message that names the file, row, field and what was expected.
+//! The binary maps [`ErrorKind::Input`] and [`ErrorKind::File`] to exit code 2 and the other
+//! kinds to exit code 1 ([`Error::exit_code`]).
 
 use std::fmt;
 
@@ -11,9 +11,18 @@ use std::fmt;
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[non_exhaustive]
 pub enum ErrorKind {
-    /// The user's input (a file, a flag, a kernel expression) is wrong. Exit code 2.
+    /// The caller's input (data, a flag, a kernel expression, an argument) is wrong.
+    /// Exit code 2.
     Input,
-    /// Something failed inside kernelpress or the operating system. Exit code 1.
+    /// A model file (or another structured file) is malformed, truncated or inconsistent.
+    /// Exit code 2.
+    File,
+    /// A numerical procedure failed (a solver did not converge, a system stayed singular).
+    /// Exit code 1.
+    Numerical,
+    /// The operating system refused an operation (disk full, a write failed). Exit code 1.
+    Io,
+    /// A bug or an unexpected state inside kernelpress. Exit code 1.
     Internal,
 }
 
@@ -23,7 +32,12 @@ pub enum ErrorKind {
 /// use kernelpress::{Error, ErrorKind};
 /// let e = Error::input("data.csv: row 3, column 'rms': expected a number, found 'abc'");
 /// assert_eq!(e.kind(), ErrorKind::Input);
+/// assert_eq!(e.exit_code(), 2);
 /// assert!(e.to_string().contains("row 3"));
+/// match e.kind() {
+///     ErrorKind::Input | ErrorKind::File => {}
+///     _ => unreachable!(),
+/// }
 /// ```
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 #[error("{message}")]
@@ -36,17 +50,38 @@ impl Error {
     /// A bad-input error (exit code 2).
     #[cold]
     pub fn input(message: impl Into<String>) -> Self {
-        Error {
-            kind: ErrorKind::Input,
-            message: message.into(),
-        }
+        Self::new(ErrorKind::Input, message)
+    }
+
+    /// A malformed-file error (exit code 2).
+    #[cold]
+    pub fn file(message: impl Into<String>) -> Self {
+        Self::new(ErrorKind::File, message)
+    }
+
+    /// A numerical failure (exit code 1).
+    #[cold]
+    pub fn numerical(message: impl Into<String>) -> Self {
+        Self::new(ErrorKind::Numerical, message)
+    }
+
+    /// An operating-system failure (exit code 1).
+    #[cold]
+    pub fn io(message: impl Into<String>) -> Self {
+        Self::new(ErrorKind::Io, message)
     }
 
     /// An internal error (exit code 1).
     #[cold]
     pub fn internal(message: impl Into<String>) -> Self {
+        Self::new(ErrorKind::Internal, message)
+    }
+
+    /// An error of `kind`.
+    #[cold]
+    pub fn new(kind: ErrorKind, message: impl Into<String>) -> Self {
         Error {
-            kind: ErrorKind::Internal,
+            kind,
             message: message.into(),
         }
     }
@@ -69,11 +104,17 @@ impl Error {
         }
     }
 
-    /// The process exit code for this error: 2 for input, 1 for internal.
+    /// True when the caller can fix it (bad input or a bad file).
+    pub fn is_user_error(&self) -> bool {
+        matches!(self.kind, ErrorKind::Input | ErrorKind::File)
+    }
+
+    /// The process exit code for this error: 2 for input and file errors, 1 otherwise.
     pub fn exit_code(&self) -> i32 {
-        match self.kind {
-            ErrorKind::Input => 2,
-            ErrorKind::Internal => 1,
+        if self.is_user_error() {
+            2
+        } else {
+            1
         }
     }
 }
@@ -81,15 +122,14 @@ impl Error {
 /// Result with [`Error`].
 pub type Result<T> = std::result::Result<T, Error>;
 
-/// An I/O error on `path`, as an input error when the file is missing or unreadable
-/// because of the user's path, otherwise internal.
+/// An I/O error on `path`: an input error when the file is missing or unreadable because of
+/// the user's path, a file error when its content is bad, otherwise an I/O error.
 pub(crate) fn io_error(path: &std::path::Path, what: &str, e: std::io::Error) -> Error {
     use std::io::ErrorKind as K;
     let msg = format!("{}: cannot {what}: {e}", path.display());
     match e.kind() {
-        K::NotFound | K::PermissionDenied | K::InvalidData | K::UnexpectedEof | K::IsADirectory => {
-            Error::input(msg)
-        }
-        _ => Error::internal(msg),
+        K::NotFound | K::PermissionDenied | K::IsADirectory => Error::input(msg),
+        K::InvalidData | K::UnexpectedEof => Error::file(msg),
+        _ => Error::io(msg),
     }
 }

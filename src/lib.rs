@@ -8,9 +8,15 @@
 //!
 //! - [`kernel`]: expression syntax, exact evaluation, Gram blocks;
 //! - [`data`]: CSV and `.npy` readers and writers, input scaling;
-//! - [`model`]: model files (one safetensors file with a JSON manifest);
-//! - [`exact`]: exact teachers (kernel ridge, C-SVM by SMO) and exact scoring;
-//! - [`linalg`]: deterministic dense linear algebra through faer.
+//! - [`format`]: the file container (safetensors + JSON manifest), a leaf;
+//! - [`program`]: feature programs, the primitive steps a compiled model runs;
+//! - [`features`]: feature-map specs and one sampler per method (spec → program);
+//! - [`model`]: output rules, exact and compiled models and their files;
+//! - [`exact`]: exact teachers (kernel ridge, C-SVM by SMO);
+//! - [`fit`]: head fits (projection, streamed distillation, labels);
+//! - [`report`]: agreement, errors, sizes and measured latency;
+//! - [`observe`]: progress and notes reported to the caller (the library never prints);
+//! - [`simd`]: the one CPU-feature detection; [`linalg`], [`transform`]: numerics.
 //!
 //! ## Conventions
 //! - Inputs are rows; a batch is an `n × d` array of `f64`.
@@ -24,18 +30,20 @@
 // `!(v > 0.0)` is the deliberate idiom that also rejects NaN (as rand_distr does).
 #![allow(clippy::neg_cmp_op_on_partial_ord)]
 
-pub mod cli;
 pub mod data;
-pub mod demo;
 mod error;
 pub mod exact;
 pub mod features;
 pub mod fit;
+pub mod format;
+mod fsio;
 pub mod kernel;
 pub mod linalg;
 pub mod model;
-pub mod progress;
+pub mod observe;
+pub mod program;
 pub mod report;
+pub mod simd;
 pub mod transform;
 
 pub use error::{Error, ErrorKind, Result};

@@ -4,9 +4,9 @@
 //! (whatever the number of threads) and each chunk runs faer sequentially, so the same
 //! inputs give bit-identical outputs on 1 or 64 threads.
 
+use faer::dyn_stack::{MemBuffer, MemStack};
 use faer::linalg::matmul::matmul;
-use faer::prelude::*;
-use faer::{Accum, Mat, MatRef, Par, Side};
+use faer::{Accum, Mat, MatRef, Par};
 use ndarray::{s, Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 
@@ -97,53 +97,127 @@ fn from_faer(m: MatRef<f64>) -> Array2<f64> {
     Array2::from_shape_fn((m.nrows(), m.ncols()), |(i, j)| m[(i, j)])
 }
 
-/// Solves the symmetric positive definite system `a · x = b` by Cholesky.
+fn stack_for<R>(req: faer::dyn_stack::StackReq, f: impl FnOnce(&mut MemStack) -> R) -> R {
+    let mut buf = MemBuffer::new(req);
+    f(MemStack::new(&mut buf))
+}
+
+/// Solves the symmetric positive definite system `a · x = b` by Cholesky (sequential, so
+/// the result never depends on the thread count; no process-wide setting is touched).
 ///
-/// Returns an input error naming `what` when `a` is not numerically positive definite.
+/// Returns a numerical error naming `what` when `a` is not numerically positive definite.
 pub fn cholesky_solve(a: ArrayView2<f64>, b: ArrayView2<f64>, what: &str) -> Result<Array2<f64>> {
-    faer::set_global_parallelism(Par::Seq);
-    let fa = to_faer(a);
-    let llt = fa.llt(Side::Lower).map_err(|e| {
-        Error::input(format!(
+    use faer::linalg::cholesky::llt;
+    let n = a.nrows();
+    let mut l = to_faer(a);
+    let req = llt::factor::cholesky_in_place_scratch::<f64>(n, Par::Seq, Default::default());
+    stack_for(req, |st| {
+        llt::factor::cholesky_in_place(
+            l.as_mut(),
+            Default::default(),
+            Par::Seq,
+            st,
+            Default::default(),
+        )
+    })
+    .map_err(|e| {
+        Error::numerical(format!(
             "{what}: matrix is not positive definite ({e:?}); increase the ridge strength"
         ))
     })?;
-    let fb = to_faer(b);
-    let x = llt.solve(&fb);
+    let mut x = to_faer(b);
+    let req = llt::solve::solve_in_place_scratch::<f64>(n, x.ncols(), Par::Seq);
+    stack_for(req, |st| {
+        llt::solve::solve_in_place(l.as_ref(), x.as_mut(), Par::Seq, st)
+    });
     Ok(from_faer(x.as_ref()))
+}
+
+fn evd(a: ArrayView2<f64>, vectors: bool) -> Result<(Vec<f64>, Option<Array2<f64>>)> {
+    use faer::linalg::evd;
+    let n = a.nrows();
+    let fa = to_faer(a);
+    let mut s = faer::diag::Diag::<f64>::zeros(n);
+    let mut u = Mat::<f64>::zeros(if vectors { n } else { 0 }, if vectors { n } else { 0 });
+    let compute = if vectors {
+        evd::ComputeEigenvectors::Yes
+    } else {
+        evd::ComputeEigenvectors::No
+    };
+    let req = evd::self_adjoint_evd_scratch::<f64>(n, compute, Par::Seq, Default::default());
+    stack_for(req, |st| {
+        evd::self_adjoint_evd(
+            fa.as_ref(),
+            s.as_mut(),
+            if vectors { Some(u.as_mut()) } else { None },
+            Par::Seq,
+            st,
+            Default::default(),
+        )
+    })
+    .map_err(|e| {
+        Error::numerical(format!(
+            "eigen-decomposition did not converge ({e:?}); the matrix may hold overflowed or extreme values"
+        ))
+    })?;
+    let vals: Vec<f64> = (0..n).map(|i| s[i]).collect();
+    Ok((vals, vectors.then(|| from_faer(u.as_ref()))))
 }
 
 /// Eigenvalues of a symmetric matrix, ascending.
 pub fn eigvalsh(a: ArrayView2<f64>) -> Result<Vec<f64>> {
-    faer::set_global_parallelism(Par::Seq);
-    let fa = to_faer(a);
-    fa.self_adjoint_eigenvalues(Side::Lower)
-        .map_err(|e| Error::internal(format!("eigenvalue solver did not converge: {e:?}")))
+    Ok(evd(a, false)?.0)
 }
 
 /// Eigen-decomposition of a symmetric matrix: (ascending eigenvalues, eigenvectors as columns).
 pub fn eigh(a: ArrayView2<f64>) -> Result<(Vec<f64>, Array2<f64>)> {
-    faer::set_global_parallelism(Par::Seq);
-    let fa = to_faer(a);
-    let evd = fa
-        .self_adjoint_eigen(Side::Lower)
-        .map_err(|e| Error::internal(format!("eigen-decomposition did not converge: {e:?}")))?;
-    let s = evd.S();
-    let vals: Vec<f64> = (0..a.nrows()).map(|i| s[i]).collect();
-    Ok((vals, from_faer(evd.U())))
+    let (v, u) = evd(a, true)?;
+    Ok((v, u.expect("vectors requested")))
 }
 
 /// Thin QR of a square or tall matrix: returns Q (m × n) with the signs fixed so that
-/// diag(R) ≥ 0 (so Q is Haar-distributed when `a` is Gaussian).
+/// diag(R) ≥ 0 (so Q is Haar-distributed when `a` is Gaussian). Sequential.
 pub fn qr_q_signfixed(a: ArrayView2<f64>) -> Array2<f64> {
-    faer::set_global_parallelism(Par::Seq);
-    let fa = to_faer(a);
-    let qr = fa.qr();
-    let q = qr.compute_thin_Q();
-    let r = qr.thin_R();
+    use faer::linalg::{householder, qr::no_pivoting::factor};
+    let (m, n) = a.dim();
+    let size = m.min(n);
+    let mut qr = to_faer(a);
+    let bs = factor::recommended_block_size::<f64>(m, n);
+    let mut coeff = Mat::<f64>::zeros(bs, size);
+    let req = factor::qr_in_place_scratch::<f64>(m, n, bs, Par::Seq, Default::default());
+    stack_for(req, |st| {
+        factor::qr_in_place(
+            qr.as_mut(),
+            coeff.as_mut(),
+            Par::Seq,
+            st,
+            Default::default(),
+        );
+    });
+    let mut q = Mat::<f64>::identity(m, size);
+    let req = householder::apply_block_householder_sequence_on_the_left_in_place_scratch::<f64>(
+        m, bs, size,
+    );
+    // The Householder basis: unit lower-trapezoidal part of the factored matrix.
+    let basis_m = Mat::<f64>::from_fn(m, size, |i, j| match i.cmp(&j) {
+        std::cmp::Ordering::Greater => qr[(i, j)],
+        std::cmp::Ordering::Equal => 1.0,
+        std::cmp::Ordering::Less => 0.0,
+    });
+    let basis = basis_m.as_ref();
+    stack_for(req, |st| {
+        householder::apply_block_householder_sequence_on_the_left_in_place_with_conj(
+            basis,
+            coeff.as_ref(),
+            faer::Conj::No,
+            q.as_mut(),
+            Par::Seq,
+            st,
+        )
+    });
     let mut out = from_faer(q.as_ref());
     for j in 0..out.ncols() {
-        if r[(j, j)] < 0.0 {
+        if qr[(j, j)] < 0.0 {
             out.column_mut(j).mapv_inplace(|v| -v);
         }
     }

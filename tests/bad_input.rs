@@ -170,9 +170,32 @@ fn truncated_corrupted_and_absurd_model_files() {
         let e = bad(&["inspect", s(&p)]);
         assert!(e.contains(name), "{e}");
     }
-    // A valid safetensors file whose manifest lies about sizes.
-    let text = String::from_utf8_lossy(&good).to_string();
-    assert!(text.contains("\\\"n_support_vectors\\\":"));
+    // Valid safetensors files whose manifests lie: the input width disagrees with the
+    // support vectors; scaling "none" beside stored scaling tensors; a compiled program
+    // step reading a value that does not exist yet.
+    let m =
+        kernelpress::model::ExactModel::load(&root().join("models/pump_svm.safetensors")).unwrap();
+    let mut f = m.to_file();
+    f.manifest["input"]["dim"] = serde_json::json!(7);
+    let p = dir.join("liar.safetensors");
+    f.write(&p).unwrap();
+    let e = bad(&["score", s(&p), "--data", &data]);
+    assert!(e.contains("liar.safetensors") && e.contains("names"), "{e}");
+    let mut f = m.to_file();
+    f.manifest["input"]["scaling"] = serde_json::json!("none");
+    let p = dir.join("noscale.safetensors");
+    f.write(&p).unwrap();
+    let e = bad(&["inspect", s(&p)]);
+    assert!(e.contains("input.mean"), "{e}");
+    let c =
+        kernelpress::model::CompiledModel::load(&root().join("models/pump_compiled.safetensors"))
+            .unwrap();
+    let mut f = c.to_file();
+    f.manifest["program"]["steps"][0]["inputs"] = serde_json::json!([1]);
+    let p = dir.join("forward.safetensors");
+    f.write(&p).unwrap();
+    let e = bad(&["score", s(&p), "--data", &data]);
+    assert!(e.contains("not an earlier value"), "{e}");
 }
 
 #[test]

@@ -220,6 +220,7 @@ fn distillation_recovers_a_linear_teacher_exactly() {
         HeadKind::Distill,
         &RidgeGrid::fixed(1e-12),
         None,
+        &kernelpress::observe::Silent,
     )
     .unwrap();
     let want = teacher.support_vectors().t().dot(&teacher.coef());
@@ -253,6 +254,7 @@ fn distillation_recovers_a_linear_teacher_exactly() {
             kind,
             &RidgeGrid::fixed(1e-13),
             Some(sv.view()),
+            &kernelpress::observe::Silent,
         )
         .unwrap();
         let a = g.decision(xc.view());

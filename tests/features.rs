@@ -382,3 +382,56 @@ fn featurize_writes_csv_and_refuses_bad_pairs() {
     assert!(e.contains("fourier, quasi, nystrom"), "{e}");
     assert!(!dir.join("y.npy").exists());
 }
+
+#[test]
+fn taylor_features_match_the_scipy_gram() {
+    // Cotter, Keshet & Srebro 2011: the degree-p Taylor map of exp(−γ‖x−y‖²) has C(d+p, p)
+    // features and its error falls quickly with p. Checked against scipy's Gram matrix, with
+    // per-dimension lengthscales too.
+    let dir = tmpdir("taylor_features_match_the_scipy_gram");
+    let x = Array2::from_shape_fn((60, 3), |(i, j)| ((i * 3 + j) as f64 * 0.37).sin());
+    let rows: Vec<Vec<f64>> = x.rows().into_iter().map(|r| r.to_vec()).collect();
+    let data = dir.join("x.csv");
+    write_csv(&data, &["a", "b", "c"], &rows, None);
+    for (expr, spec, features, used, tol) in [
+        // d = 3: degree 4 gives C(7, 4) = 35 features, degree 12 gives C(15, 12) = 455.
+        (
+            "gaussian(gamma=0.5)",
+            r#"{"name":"gaussian","gamma":0.5}"#,
+            "40",
+            35,
+            "2e-2",
+        ),
+        (
+            "gaussian(gamma=0.5)",
+            r#"{"name":"gaussian","gamma":0.5}"#,
+            "455",
+            455,
+            "1e-8",
+        ),
+        (
+            "gaussian(lengthscale=[1, 2, 0.5])",
+            r#"{"name":"gaussian_ls","lengthscale":[1, 2, 0.5]}"#,
+            "1000",
+            969,
+            "1e-3",
+        ),
+    ] {
+        let z = dir.join(format!("z_{features}.npy"));
+        let out = ok(&[
+            "featurize",
+            "--kernel",
+            expr,
+            "--method",
+            "taylor",
+            "--features",
+            features,
+            "--data",
+            s(&data),
+            "--out",
+            s(&z),
+        ]);
+        assert!(out.contains(&format!("× {used} features")), "{out}");
+        py("featurize_gram.py", &[s(&data), spec, s(&z), tol]);
+    }
+}

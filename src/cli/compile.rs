@@ -2,12 +2,12 @@
 //! labelled data → random-feature model fitted to the labels.
 
 use super::featurize::{read_landmarks, MapArgs};
-use crate::data::{check_batch, read_table, write_atomic};
-use crate::fit::{compile_exact, compile_labels, held_out, HeadKind, RidgeGrid};
-use crate::model::ExactModel;
-use crate::report::{self, ReportOptions};
-use crate::{Error, Result};
 use clap::ValueEnum;
+use kernelpress::data::{check_batch, read_table, write_atomic};
+use kernelpress::fit::{compile_exact, compile_labels, held_out, HeadKind, RidgeGrid};
+use kernelpress::model::ExactModel;
+use kernelpress::report::{self, ReportOptions};
+use kernelpress::{Error, Result};
 use ndarray::Axis;
 use std::path::PathBuf;
 
@@ -132,9 +132,10 @@ pub(crate) fn run(a: Args) -> Result<()> {
         kind,
         &grid,
         lm.as_ref().map(|l| l.view()),
+        &super::progress::Bars::default(),
     )?;
     for n in &info.notes {
-        crate::progress::warn(n);
+        super::progress::warn(n);
     }
     for n in model
         .fit
@@ -143,7 +144,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         .cloned()
         .unwrap_or_default()
     {
-        crate::progress::warn(n.as_str().unwrap_or(""));
+        super::progress::warn(n.as_str().unwrap_or(""));
     }
     // Evaluation rows for the report.
     let (ex, truth, on) = match &a.eval {
@@ -175,8 +176,8 @@ pub(crate) fn run(a: Args) -> Result<()> {
         timing: !a.no_timing,
         ..ReportOptions::default()
     };
-    let pb = crate::progress::bar(1, "report");
-    let mut rep = report::build(&model, &exact, ex.view(), truth.as_deref(), None, &opts);
+    let pb = super::progress::bar(1, "report");
+    let mut rep = report::build(&model, &exact, ex.view(), truth.as_deref(), None, &opts)?;
     pb.finish_and_clear();
     rep["evaluated_on"] = serde_json::json!(on);
     finish(&a, &mut model, Some(rep))
@@ -184,7 +185,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
 
 fn finish(
     a: &Args,
-    model: &mut crate::model::CompiledModel,
+    model: &mut kernelpress::model::CompiledModel,
     rep: Option<serde_json::Value>,
 ) -> Result<()> {
     if let Some(r) = &rep {
@@ -205,7 +206,7 @@ fn finish(
     if let Some(r) = &rep {
         if let Some(serde_json::Value::Array(w)) = r.get("warnings") {
             for x in w {
-                crate::progress::warn(x.as_str().unwrap_or(""));
+                super::progress::warn(x.as_str().unwrap_or(""));
             }
         }
         if let Some(p) = &a.report {
@@ -219,10 +220,11 @@ fn finish(
     }
     model.save(&a.out)?;
     text.push_str(&format!(
-        "wrote {} ({} features, {} stored floats)\n",
+        "wrote {} ({} features, {} steps, {} bytes of parameters)\n",
         a.out.display(),
-        model.map().output_dim(),
-        model.parameter_floats()
+        model.features(),
+        model.program().len(),
+        model.parameter_bytes()
     ));
     super::print_stdout(&text)
 }
@@ -244,17 +246,24 @@ fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {
     kernel.check_dim(t.x.ncols()).map_err(|e| e.context(&src))?;
     let spec = a.map.spec(kernel, t.x.ncols())?;
     let y = t.target.clone().unwrap();
-    let (mut model, info) =
-        compile_labels(&spec, t.x.view(), &y, !a.regression, a.standardize, grid)?;
+    let (mut model, info) = compile_labels(
+        &spec,
+        t.x.view(),
+        &y,
+        !a.regression,
+        a.standardize,
+        grid,
+        &super::progress::Bars::default(),
+    )?;
     for n in &info.notes {
-        crate::progress::warn(n);
+        super::progress::warn(n);
     }
     model.feature_names = t.columns.clone();
     let s = model.decision(t.x.view());
     let idx: Vec<usize> = (0..t.x.nrows()).filter(|&i| held_out(i)).collect();
     let mut msg = format!(
         "fitted {} features ({} of {}) to the labels of {} rows",
-        model.map().output_dim(),
+        model.features(),
         spec.method.name(),
         spec.kernel,
         t.x.nrows()

@@ -1,11 +1,11 @@
 //! `kernelpress featurize`: kernel (or a model's kernel) + method + feature count + seed +
 //! data → random features as `.npy` (or CSV).
 
-use crate::data::{check_batch, read_table, write_npy_f64};
-use crate::features::{parse_landmarks, parse_sequence, FeatureSpec, FourierVariant, Method};
-use crate::model::ExactModel;
-use crate::{Error, Result};
 use clap::ValueEnum;
+use kernelpress::data::{check_batch, read_table, write_npy_f64};
+use kernelpress::features::{parse_landmarks, parse_sequence, FeatureSpec, FourierVariant, Method};
+use kernelpress::model::ExactModel;
+use kernelpress::{Error, Result};
 use std::path::{Path, PathBuf};
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -48,7 +48,11 @@ pub(crate) struct MapArgs {
 }
 
 impl MapArgs {
-    pub(crate) fn spec(&self, kernel: crate::kernel::Kernel, d: usize) -> Result<FeatureSpec> {
+    pub(crate) fn spec(
+        &self,
+        kernel: kernelpress::kernel::Kernel,
+        d: usize,
+    ) -> Result<FeatureSpec> {
         let mut spec = FeatureSpec::new(
             kernel,
             Method::parse(&self.method)?,
@@ -133,9 +137,9 @@ pub(crate) fn run(a: Args) -> Result<()> {
     };
     let (map, info) = spec.sample(Some(pool.as_ref().map(|p| p.view()).unwrap_or(x.view())))?;
     for n in &info.notes {
-        crate::progress::warn(n);
+        super::progress::warn(n);
     }
-    let pb = crate::progress::bar(1, "featurize");
+    let pb = super::progress::bar(1, "featurize");
     let z = map.transform(x.view());
     pb.finish_and_clear();
     let is_csv = a
@@ -150,7 +154,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
             .into_iter()
             .map(|r| r.iter().map(|v| format!("{v:?}")).collect())
             .collect();
-        crate::data::write_csv(&a.out, &header, &rows)?;
+        kernelpress::data::write_csv(&a.out, &header, &rows)?;
     } else {
         write_npy_f64(&a.out, &[z.nrows(), z.ncols()], z.as_slice().unwrap())?;
     }
@@ -159,14 +163,15 @@ pub(crate) fn run(a: Args) -> Result<()> {
         _ => String::new(),
     };
     super::print_stdout(&format!(
-        "{} rows × {} features ({} of {}, seed {}; {} stored floats, {} flops/row{rank}) → {}\n",
+        "{} rows × {} features ({} of {}, seed {}; {} steps, {} bytes of parameters, {} flops/row{rank}) → {}\n",
         z.nrows(),
         z.ncols(),
         spec.method.name(),
         spec.kernel,
         spec.seed,
-        map.stored_floats(),
-        map.flops_per_row(),
+        map.program.len(),
+        map.program.param_bytes(),
+        map.program.cost().flops,
         a.out.display()
     ))
 }

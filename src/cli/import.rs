@@ -1,8 +1,8 @@
 //! `kernelpress import`: plain arrays → native exact model file.
 
-use crate::data::read_npy;
-use crate::model::{ExactModel, Task};
-use crate::{Error, Result};
+use kernelpress::data::read_npy;
+use kernelpress::model::{ExactModel, Task};
+use kernelpress::{Error, Result};
 use std::path::PathBuf;
 
 /// Import an exact model from arrays (.npy support vectors and coefficients).
@@ -83,7 +83,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
             )))
         }
     };
-    crate::data::check_batch(sv.view(), sv.ncols(), &sv_src)?;
+    kernelpress::data::check_batch(sv.view(), sv.ncols(), &sv_src)?;
     let mut m = ExactModel::new(kernel, sv, coef, intercept, task, labels, None)?;
     m.training = serde_json::json!({ "model": "imported", "from": "arrays" });
     m.save(&a.out)?;

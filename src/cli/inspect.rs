@@ -1,7 +1,7 @@
 //! `kernelpress inspect`: a model file's manifest and sizes.
 
-use crate::model::{AnyModel, TensorFile};
-use crate::Result;
+use kernelpress::model::{AnyModel, TensorFile};
+use kernelpress::Result;
 use std::path::PathBuf;
 
 /// Show a model file's manifest and sizes.
@@ -20,8 +20,11 @@ pub(crate) struct Args {
 
 fn tensors_json(f: &TensorFile) -> serde_json::Value {
     let mut m = serde_json::Map::new();
-    for (k, (s, _)) in &f.tensors {
-        m.insert(k.clone(), serde_json::json!(s));
+    for (k, t) in &f.tensors {
+        m.insert(
+            k.clone(),
+            serde_json::json!({"shape": t.shape, "dtype": t.data.dtype_name()}),
+        );
     }
     serde_json::Value::Object(m)
 }
@@ -29,7 +32,7 @@ fn tensors_json(f: &TensorFile) -> serde_json::Value {
 /// The lines every model kind shares: task, labels, input dimension and scaling.
 fn shape_lines(
     s: &mut String,
-    task: crate::model::Task,
+    task: kernelpress::model::Task,
     labels: &[String],
     d: usize,
     scaled: bool,
@@ -46,7 +49,8 @@ fn shape_lines(
 pub(crate) fn run(a: Args) -> Result<()> {
     let (model, file) = AnyModel::load(&a.model)?;
     let bytes = std::fs::metadata(&a.model).map(|m| m.len()).unwrap_or(0);
-    let params: usize = file.tensors.values().map(|(_, d)| d.len()).sum();
+    let params: usize = file.tensors.values().map(|t| t.data.len()).sum();
+    let param_bytes = file.data_bytes();
     if a.json {
         let v = serde_json::json!({
             "file": a.model.display().to_string(),
@@ -86,7 +90,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
             }
         }
         AnyModel::Compiled(m) => {
-            let spec = &m.map().spec;
+            let spec = m.spec();
             s.push_str("kind            compiled (feature map + linear head)\n");
             s.push_str(&format!("kernel          {}\n", spec.kernel));
             s.push_str(&format!(
@@ -96,7 +100,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
             ));
             s.push_str(&format!(
                 "features        {} (requested {})\n",
-                m.map().output_dim(),
+                m.features(),
                 spec.features
             ));
             shape_lines(
@@ -118,10 +122,36 @@ pub(crate) fn run(a: Args) -> Result<()> {
             }
         }
     }
-    s.push_str(&format!("parameters      {params} (f64)\n"));
+    if let AnyModel::Compiled(m) = &model {
+        s.push_str(&format!(
+            "program         {} steps (x = the scaled input row; bytes and flops per row)\n",
+            m.program().len()
+        ));
+        for line in m.program().describe() {
+            s.push_str(&format!("  {line}\n"));
+        }
+        s.push_str(&format!(
+            "  head           {} × {} weights{}\n",
+            m.head().nrows(),
+            m.head().ncols(),
+            if m.is_folded() {
+                " (folded into the last projection)"
+            } else {
+                ""
+            }
+        ));
+    }
+    s.push_str(&format!(
+        "parameters      {params} values, {param_bytes} bytes (format version {})\n",
+        file.version()
+    ));
     s.push_str("tensors\n");
-    for (k, (shape, _)) in &file.tensors {
-        s.push_str(&format!("  {k:<22} {shape:?}\n"));
+    for (k, t) in &file.tensors {
+        s.push_str(&format!(
+            "  {k:<22} {:?} {}\n",
+            t.shape,
+            t.data.dtype_name()
+        ));
     }
     super::print_stdout(&s)
 }

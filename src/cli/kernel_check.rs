@@ -1,9 +1,9 @@
 //! `kernelpress kernel-check`: a numerical Mercer check (a necessary condition) for a kernel
 //! expression: draw points (or read them), build the Gram matrix, report its eigenvalues.
 
-use crate::data::read_table;
-use crate::{linalg, Error, Result};
 use clap::ValueEnum;
+use kernelpress::data::read_table;
+use kernelpress::{linalg, Error, Result};
 use ndarray::Array2;
 use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal, Uniform};
@@ -63,7 +63,7 @@ pub(crate) struct Check {
     pub negative: usize,
 }
 
-pub(crate) fn check(k: &crate::kernel::Kernel, x: &Array2<f64>) -> Result<Check> {
+pub(crate) fn check(k: &kernelpress::kernel::Kernel, x: &Array2<f64>) -> Result<Check> {
     let g = k.gram(x.view(), x.view());
     // Symmetrise against rounding in the blocked product.
     let g = (&g + &g.t()) * 0.5;
@@ -80,7 +80,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     let x = match &a.data {
         Some(p) => {
             let t = read_table(p, None, false)?;
-            crate::data::check_batch(t.x.view(), t.x.ncols(), &p.display().to_string())?;
+            kernelpress::data::check_batch(t.x.view(), t.x.ncols(), &p.display().to_string())?;
             t.x
         }
         None => {

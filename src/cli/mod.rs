@@ -7,12 +7,13 @@ mod featurize;
 mod import;
 mod inspect;
 mod kernel_check;
+pub(crate) mod progress;
 mod report;
 mod score;
 mod train;
 
-use crate::{Error, ErrorKind, Result};
 use clap::{Parser, Subcommand};
+use kernelpress::{Error, ErrorKind, Result};
 
 /// kernelpress: compile kernel machines into compact random-feature models.
 #[derive(Debug, Parser)]
@@ -49,7 +50,7 @@ pub fn main() -> i32 {
             };
         }
     };
-    crate::progress::set_quiet(cli.quiet);
+    progress::set_quiet(cli.quiet);
     let res = match cli.command {
         Command::Train(a) => train::run(a),
         Command::Import(a) => import::run(a),
@@ -64,7 +65,9 @@ pub fn main() -> i32 {
         Ok(()) => 0,
         Err(e) => {
             let prefix = match e.kind() {
-                ErrorKind::Input => "error",
+                ErrorKind::Input | ErrorKind::File => "error",
+                ErrorKind::Numerical => "numerical failure",
+                ErrorKind::Io => "I/O error",
                 _ => "internal error",
             };
             eprintln!("{prefix}: {e}");
@@ -85,7 +88,7 @@ pub(crate) fn print_stdout(text: &str) -> Result<()> {
 }
 
 /// Parses a kernel expression given on the command line.
-pub(crate) fn kernel_arg(s: &str) -> Result<crate::kernel::Kernel> {
+pub(crate) fn kernel_arg(s: &str) -> Result<kernelpress::kernel::Kernel> {
     s.parse()
         .map_err(|e: Error| e.context(format!("--kernel '{s}'")))
 }

@@ -1,9 +1,9 @@
 //! `kernelpress report`: compiled vs exact on a dataset → error report.
 
-use crate::data::{check_batch, read_table, write_atomic};
-use crate::model::{CompiledModel, ExactModel};
-use crate::report::{self, ReportOptions};
-use crate::{Error, Result};
+use kernelpress::data::{check_batch, read_table, write_atomic};
+use kernelpress::model::{CompiledModel, ExactModel};
+use kernelpress::report::{self, ReportOptions};
+use kernelpress::{Error, Result};
 use std::path::PathBuf;
 
 /// Compare a compiled model with its exact model on a dataset.
@@ -73,11 +73,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
         reps: a.reps.max(1),
         ..ReportOptions::default()
     };
-    let mut r = report::build(&c, &e, t.x.view(), t.target.as_deref(), None, &opts);
+    let mut r = report::build(&c, &e, t.x.view(), t.target.as_deref(), None, &opts)?;
     r["evaluated_on"] = serde_json::json!(a.data.display().to_string());
     if let Some(serde_json::Value::Array(w)) = r.get("warnings") {
         for x in w {
-            crate::progress::warn(x.as_str().unwrap_or(""));
+            super::progress::warn(x.as_str().unwrap_or(""));
         }
     }
     let pretty = format!("{}\n", serde_json::to_string_pretty(&r).unwrap());

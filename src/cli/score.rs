@@ -1,8 +1,8 @@
 //! `kernelpress score`: any model file on data → decision values and labels as CSV.
 
-use crate::data::{check_batch, read_table};
-use crate::model::AnyModel;
-use crate::Result;
+use kernelpress::data::{check_batch, read_table};
+use kernelpress::model::AnyModel;
+use kernelpress::Result;
 use std::path::PathBuf;
 
 /// Score a model on data: CSV of decision values (and labels for classifiers).
@@ -58,7 +58,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         })
         .collect();
     match a.out {
-        Some(p) => crate::data::write_csv(&p, &header, &rows),
+        Some(p) => kernelpress::data::write_csv(&p, &header, &rows),
         None => {
             let mut text = header.join(",");
             text.push('\n');

@@ -1,9 +1,9 @@
 //! `kernelpress train`: fit an exact teacher (kernel ridge or C-SVM) from labelled data.
 
-use crate::data::{check_batch, read_table, Standardizer};
-use crate::exact::{fit_ridge, fit_svm, ridge::fit_ridge_scaled, RidgeOptions, SmoOptions};
-use crate::{Error, Result};
 use clap::ValueEnum;
+use kernelpress::data::{check_batch, read_table, Standardizer};
+use kernelpress::exact::{fit_ridge, fit_ridge_scaled, fit_svm, RidgeOptions, SmoOptions};
+use kernelpress::{Error, Result};
 use std::path::PathBuf;
 use std::time::Instant;
 
@@ -80,7 +80,14 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 cache_bytes: a.cache_mb.max(1) << 20,
                 max_iter: 0,
             };
-            fit_svm(&kernel, x.view(), &y, &opts, scaling)?
+            fit_svm(
+                &kernel,
+                x.view(),
+                &y,
+                &opts,
+                scaling,
+                &super::progress::Bars::default(),
+            )?
         }
         ModelKind::Ridge => {
             let opts = RidgeOptions {
@@ -88,7 +95,14 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 classify: a.classify,
             };
             if scaling.is_some() {
-                fit_ridge_scaled(&kernel, x.view(), &y, &opts, scaling)?
+                fit_ridge_scaled(
+                    &kernel,
+                    x.view(),
+                    &y,
+                    &opts,
+                    scaling,
+                    &super::progress::Bars::default(),
+                )?
             } else {
                 fit_ridge(&kernel, x.view(), &y, &opts)?
             }

@@ -13,7 +13,7 @@
 pub(crate) mod ridge;
 mod smo;
 
-pub use ridge::{fit_ridge, RidgeOptions};
+pub use ridge::{fit_ridge, fit_ridge_scaled, RidgeOptions};
 pub use smo::{fit_svm, solve_binary, SmoOptions, SmoSolution};
 
 use crate::{Error, Result};

@@ -27,7 +27,7 @@ pub fn fit_ridge(
     y: &[String],
     opts: &RidgeOptions,
 ) -> Result<ExactModel> {
-    fit_ridge_scaled(kernel, x, y, opts, None)
+    fit_ridge_scaled(kernel, x, y, opts, None, &crate::observe::Silent)
 }
 
 pub(crate) fn targets(y: &[String], classify: bool) -> Result<(Array2<f64>, Task, Vec<String>)> {
@@ -70,13 +70,15 @@ pub(crate) fn targets(y: &[String], classify: bool) -> Result<(Array2<f64>, Task
     }
 }
 
-/// As [`fit_ridge`], recording `scaling` (already applied to `x`) in the model.
+/// As [`fit_ridge`], recording `scaling` (already applied to `x`) in the model and reporting
+/// progress and notes to `obs`.
 pub fn fit_ridge_scaled(
     kernel: &Kernel,
     x: ArrayView2<f64>,
     y: &[String],
     opts: &RidgeOptions,
     scaling: Option<Standardizer>,
+    obs: &dyn crate::observe::Observer,
 ) -> Result<ExactModel> {
     if !(opts.ridge > 0.0) || !opts.ridge.is_finite() {
         return Err(Error::input(format!(
@@ -91,7 +93,7 @@ pub fn fit_ridge_scaled(
     }
     kernel.check_dim(x.ncols())?;
     if !kernel.is_positive_definite() {
-        crate::progress::warn(format!(
+        obs.note(&format!(
             "kernel {kernel} is not positive definite; the ridge system may be indefinite"
         ));
     }
@@ -108,15 +110,15 @@ pub fn fit_ridge_scaled(
             *v -= m;
         }
     }
-    let pb = crate::progress::bar(3, "kernel ridge");
+    obs.stage("kernel ridge", 3);
     let mut g = kernel.gram(x, x);
-    pb.inc(1);
+    obs.advance(1);
     for i in 0..n {
         g[[i, i]] += opts.ridge;
     }
     let alpha = linalg::cholesky_solve(g.view(), tc.view(), "kernel ridge (K + λI)")?;
-    pb.inc(2);
-    pb.finish_and_clear();
+    obs.advance(2);
+    obs.finish();
     let mut m = ExactModel::new(
         kernel.clone(),
         x.to_owned(),

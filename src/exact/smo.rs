@@ -297,13 +297,15 @@ pub fn solve_binary(
 }
 
 /// Trains a C-SVM on `x` (already scaled) with class labels `y`: binary for two classes,
-/// one-vs-one otherwise (pairs solved in parallel; each pair is deterministic).
+/// one-vs-one otherwise (pairs solved in parallel; each pair is deterministic). Progress
+/// and notes (a pair stopped at the iteration cap) go to `obs`.
 pub fn fit_svm(
     kernel: &Kernel,
     x: ArrayView2<f64>,
     y: &[String],
     opts: &SmoOptions,
     scaling: Option<Standardizer>,
+    obs: &dyn crate::observe::Observer,
 ) -> Result<ExactModel> {
     if !(opts.c > 0.0) || !opts.c.is_finite() {
         return Err(Error::input(format!(
@@ -319,7 +321,7 @@ pub fn fit_svm(
     }
     kernel.check_dim(x.ncols())?;
     if !kernel.is_positive_definite() {
-        crate::progress::warn(format!(
+        obs.note(&format!(
             "kernel {kernel} is not positive definite; SMO may not reach the optimum"
         ));
     }
@@ -339,7 +341,7 @@ pub fn fit_svm(
             .flat_map(|i| (i + 1..k).map(move |j| (i, j)))
             .collect()
     };
-    let pb = crate::progress::bar(pairs.len() as u64, "SMO pairs");
+    obs.stage("SMO pairs", pairs.len() as u64);
     let sols: Vec<(Vec<usize>, Vec<f64>, SmoSolution)> = pairs
         .par_iter()
         .map(|&(ci, cj)| {
@@ -359,11 +361,11 @@ pub fn fit_svm(
                 })
                 .collect();
             let sol = solve_binary(kernel, sub.view(), &yy, opts);
-            pb.inc(1);
+            obs.advance(1);
             (rows, yy, sol)
         })
         .collect();
-    pb.finish_and_clear();
+    obs.finish();
     // Union of support vectors, in training-row order.
     let mut is_sv = vec![false; x.nrows()];
     for (rows, _, sol) in &sols {
@@ -390,7 +392,7 @@ pub fn fit_svm(
         }
         b[p] = sol.b;
         if sol.hit_cap {
-            crate::progress::warn(format!(
+            obs.note(&format!(
                 "SMO for classes {} vs {} stopped at the iteration cap with gap {:.3e} > tol {}",
                 labels[pairs[p].0], labels[pairs[p].1], sol.gap, opts.tol
             ));

@@ -6,115 +6,100 @@ use crate::kernel::Kernel;
 use crate::{Error, Result};
 use serde_json::{json, Value};
 
-/// A feature-map method (published methods keep their names).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
-pub enum Method {
-    /// i.i.d. random Fourier features (Rahimi & Recht 2007).
-    Fourier,
-    /// Orthogonal random features (Yu et al. 2016).
-    Orthogonal,
-    /// Structured orthogonal features `H D₁ H D₂ H D₃` (Yu et al. 2016).
-    Hadamard,
-    /// Fastfood `S H G Π H B` (Le, Sarlós & Smola 2013).
-    Fastfood,
-    /// Quasi-Monte Carlo frequencies (Yang et al. 2014).
-    Quasi,
-    /// Nyström landmarks (Williams & Seeger 2001).
-    Nystrom,
-    /// Random Maclaurin features (Kar & Karnick 2012).
-    Maclaurin,
-    /// Tensor Sketch (Pham & Pagh 2013).
-    TensorSketch,
-    /// Step / ReLU random features for arc-cosine kernels (Cho & Saul 2009).
-    Relu,
-    /// The exact identity map of the linear kernel.
-    Identity,
-}
+/// A feature-map method, named as published (`fourier`, `orthogonal`, `hadamard`, …).
+///
+/// The set of methods is the registry in `features::methods` (one file per method, one
+/// line of registration); the constants below name the built-in ones.
+#[derive(Clone, Copy, PartialEq, Eq, Hash)]
+pub struct Method(&'static str);
 
+#[allow(non_upper_case_globals)]
 impl Method {
-    /// Every method, in documentation order.
-    pub const ALL: [Method; 10] = [
-        Method::Fourier,
-        Method::Orthogonal,
-        Method::Hadamard,
-        Method::Fastfood,
-        Method::Quasi,
-        Method::Nystrom,
-        Method::Maclaurin,
-        Method::TensorSketch,
-        Method::Relu,
-        Method::Identity,
-    ];
+    /// i.i.d. random Fourier features (Rahimi & Recht 2007).
+    pub const Fourier: Method = Method("fourier");
+    /// Orthogonal random features (Yu et al. 2016).
+    pub const Orthogonal: Method = Method("orthogonal");
+    /// Structured orthogonal features `H D₁ H D₂ H D₃` (Yu et al. 2016).
+    pub const Hadamard: Method = Method("hadamard");
+    /// Fastfood `S H G Π H B` (Le, Sarlós & Smola 2013).
+    pub const Fastfood: Method = Method("fastfood");
+    /// Quasi-Monte Carlo frequencies (Yang et al. 2014).
+    pub const Quasi: Method = Method("quasi");
+    /// Nyström landmarks (Williams & Seeger 2001).
+    pub const Nystrom: Method = Method("nystrom");
+    /// Random Maclaurin features (Kar & Karnick 2012).
+    pub const Maclaurin: Method = Method("maclaurin");
+    /// Tensor Sketch (Pham & Pagh 2013).
+    pub const TensorSketch: Method = Method("tensorsketch");
+    /// Step / ReLU random features for arc-cosine kernels (Cho & Saul 2009).
+    pub const Relu: Method = Method("relu");
+    /// The exact identity map of the linear kernel.
+    pub const Identity: Method = Method("identity");
+
+    /// Every registered method, in documentation order.
+    pub fn all() -> Vec<Method> {
+        super::methods::registry()
+            .iter()
+            .map(|m| Method(m.name()))
+            .collect()
+    }
 
     /// The method's name on the command line and in files.
     pub fn name(self) -> &'static str {
-        match self {
-            Method::Fourier => "fourier",
-            Method::Orthogonal => "orthogonal",
-            Method::Hadamard => "hadamard",
-            Method::Fastfood => "fastfood",
-            Method::Quasi => "quasi",
-            Method::Nystrom => "nystrom",
-            Method::Maclaurin => "maclaurin",
-            Method::TensorSketch => "tensorsketch",
-            Method::Relu => "relu",
-            Method::Identity => "identity",
-        }
+        self.0
     }
 
     /// Parses a method name.
     pub fn parse(s: &str) -> Result<Method> {
-        Method::ALL
-            .iter()
-            .copied()
-            .find(|m| m.name() == s)
+        super::methods::lookup(s)
+            .map(|m| Method(m.name()))
             .ok_or_else(|| {
                 Error::input(format!(
                     "method '{s}' is unknown; expected one of {}",
-                    Method::ALL.map(|m| m.name()).join(", ")
+                    Method::all()
+                        .iter()
+                        .map(|m| m.name())
+                        .collect::<Vec<_>>()
+                        .join(", ")
                 ))
             })
     }
 
-    /// True for the methods drawing frequencies of a shift-invariant kernel.
+    /// True for the methods whose output is paired cos/sin features by default.
     pub fn is_spectral(self) -> bool {
-        matches!(
-            self,
-            Method::Fourier
-                | Method::Orthogonal
-                | Method::Hadamard
-                | Method::Fastfood
-                | Method::Quasi
-        )
+        super::methods::lookup(self.0).is_some_and(|m| m.spectral())
+    }
+
+    pub(crate) fn sampler(self) -> &'static dyn super::methods::Sampler {
+        super::methods::lookup(self.0).expect("methods are built from the registry")
     }
 }
 
-/// The methods that can serve a single (non-composite) kernel.
-pub fn methods_for(k: &Kernel) -> Vec<Method> {
-    use Method::*;
-    match k {
-        Kernel::Gaussian { .. } => vec![Fourier, Orthogonal, Hadamard, Fastfood, Quasi, Nystrom],
-        Kernel::Laplacian { .. } => vec![Fourier, Quasi, Nystrom],
-        Kernel::Matern { .. } | Kernel::RationalQuadratic { .. } => {
-            vec![Fourier, Orthogonal, Quasi, Nystrom]
-        }
-        Kernel::Polynomial { .. } => vec![Maclaurin, TensorSketch, Nystrom],
-        Kernel::ArcCos { .. } => vec![Relu, Nystrom],
-        Kernel::Linear => vec![Identity, Nystrom],
-        Kernel::Sigmoid { .. } => vec![Nystrom],
-        Kernel::Sum(_) | Kernel::Product(_) | Kernel::Scaled(..) => {
-            // Composite: Nyström always; otherwise the method every random part admits.
-            let mut v: Vec<Method> = Method::ALL
-                .iter()
-                .copied()
-                .filter(|m| *m != Method::Identity && composite_ok(k, *m))
-                .collect();
-            if !v.contains(&Nystrom) {
-                v.push(Nystrom);
-            }
-            v
-        }
+impl std::fmt::Debug for Method {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.0)
     }
+}
+
+impl std::fmt::Display for Method {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.0)
+    }
+}
+
+/// The methods that can serve a kernel: the dedicated ones first (registry order), then
+/// those that sample any kernel from data (Nyström).
+pub fn methods_for(k: &Kernel) -> Vec<Method> {
+    let reg = super::methods::registry();
+    let dedicated = reg.iter().filter(|m| {
+        !m.whole_kernel()
+            && match k {
+                Kernel::Sum(_) | Kernel::Product(_) | Kernel::Scaled(..) => composite_ok(k, **m),
+                leaf => m.serves(leaf),
+            }
+    });
+    let whole = reg.iter().filter(|m| m.whole_kernel());
+    dedicated.chain(whole).map(|m| Method(m.name())).collect()
 }
 
 /// The error for a method that cannot serve a kernel, naming the methods that can.
@@ -130,12 +115,12 @@ pub(crate) fn cannot_serve(k: &Kernel, m: Method) -> Error {
     ))
 }
 
-fn composite_ok(k: &Kernel, m: Method) -> bool {
+fn composite_ok(k: &Kernel, m: &dyn super::methods::Sampler) -> bool {
     match k {
         Kernel::Sum(v) | Kernel::Product(v) => v.iter().all(|c| composite_ok(c, m)),
         Kernel::Scaled(_, c) => composite_ok(c, m),
-        Kernel::Linear => m != Method::Nystrom,
-        leaf => methods_for(leaf).contains(&m),
+        Kernel::Linear => true,
+        leaf => m.serves(leaf),
     }
 }
 

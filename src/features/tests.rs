@@ -1,39 +1,72 @@
 use super::*;
 use crate::kernel::Kernel;
+use crate::program::{Builder, Step, ValueId};
 use ndarray::{array, Array2};
 
 fn k(s: &str) -> Kernel {
     s.parse().unwrap()
 }
 
+/// The frequency matrix `W` (`m × d`) of a spectral program `scale → … → trig`: the steps
+/// between the input scaling and the trig step applied to the unit vectors.
+fn frequencies(map: &FeatureMap) -> Array2<f64> {
+    let p = &map.program;
+    let d = p.input_dim();
+    let ins = p.instrs();
+    assert!(matches!(ins[0].step, Step::Scale(_)));
+    assert!(matches!(
+        ins.last().unwrap().step,
+        Step::CosSin(_) | Step::CosPhase(_)
+    ));
+    let mut b = Builder::new(d);
+    let mut v = Builder::INPUT;
+    for i in &ins[1..ins.len() - 1] {
+        assert_eq!(i.inputs, vec![ValueId(v.0 + 1)], "a chain");
+        v = b.push(i.step.clone(), &[v]).unwrap();
+    }
+    let proj = b.finish(v);
+    proj.apply(Array2::<f64>::eye(d).view()).t().to_owned()
+}
+
+fn landmarks_of(map: &FeatureMap) -> Array2<f64> {
+    match &map.program.instrs()[0].step {
+        Step::KernelBlock(kb) => kb.landmarks().clone(),
+        other => panic!("{other:?}"),
+    }
+}
+
 #[test]
 fn fastfood_row_norms_and_orf_orthogonality() {
-    // REFERENCES §4: every Fastfood row has norm s_i/σ (here σ = 1: gamma = ½).
+    // Le, Sarlós & Smola 2013: every Fastfood row has norm s_i (σ = 1: gamma = ½); the
+    // program's last scale holds s_i/(‖G‖·√d'), so ‖row‖ = that · ‖G‖ · √d'.
     let spec = FeatureSpec::new(k("gaussian(gamma=0.5)"), Method::Fastfood, 16, 64, 3);
     let (map, _) = spec.sample(None).unwrap();
-    let Node::Spectral { freq, .. } = &map.root else {
-        panic!()
-    };
-    let w = freq.dense(16);
-    let Freq::Fastfood { g, scale, .. } = freq else {
-        panic!()
-    };
+    let w = frequencies(&map);
+    let scales: Vec<&[f64]> = map
+        .program
+        .instrs()
+        .iter()
+        .filter_map(|i| match &i.step {
+            Step::Scale(s) => Some(s.factors()),
+            _ => None,
+        })
+        .collect();
+    // Scales: the kernel's inverse lengthscale (1), then G, then S/√d'.
+    let (g, s) = (scales[1], scales[2]);
     for bl in 0..2 {
-        let gn = g.row(bl).dot(&g.row(bl)).sqrt();
+        let gb = &g[bl * 16..bl * 16 + 16];
+        let gn = gb.iter().map(|v| v * v).sum::<f64>().sqrt();
         for i in 0..16 {
             let r = w.row(bl * 16 + i);
             let norm = r.dot(&r).sqrt();
-            let s_i = scale[[bl, i]] * gn;
+            let s_i = s[bl * 16 + i] * gn * 4.0;
             assert!((norm - s_i).abs() < 1e-10 * s_i, "row {i}: {norm} vs {s_i}");
         }
     }
-    // REFERENCES §3: ORF rows are orthogonal within a block, W Wᵀ = diag(s²).
+    // Yu et al. 2016: ORF rows are orthogonal within a block, W Wᵀ = diag(s²).
     let spec = FeatureSpec::new(k("gaussian(gamma=0.5)"), Method::Orthogonal, 8, 32, 5);
     let (map, _) = spec.sample(None).unwrap();
-    let Node::Spectral { freq, .. } = &map.root else {
-        panic!()
-    };
-    let w = freq.dense(8);
+    let w = frequencies(&map);
     for bl in 0..2 {
         let b = w.slice(ndarray::s![bl * 8..bl * 8 + 8, ..]);
         let g = b.dot(&b.t());
@@ -48,14 +81,12 @@ fn fastfood_row_norms_and_orf_orthogonality() {
     // Hadamard rows have norm exactly √d' (normalised H blocks scaled by √d').
     let spec = FeatureSpec::new(k("gaussian(gamma=0.5)"), Method::Hadamard, 8, 16, 5);
     let (map, _) = spec.sample(None).unwrap();
-    let Node::Spectral { freq, .. } = &map.root else {
-        panic!()
-    };
-    let w = freq.dense(8);
+    let w = frequencies(&map);
     for r in w.rows() {
         assert!((r.dot(&r) - 8.0).abs() < 1e-10);
     }
-    assert_eq!(map.stored_floats(), 8 + 3 * 8);
+    // 8 scale factors and 3·8 int8 signs: 64 + 24 bytes.
+    assert_eq!(map.program.param_bytes(), 8 * 8 + 3 * 8);
 }
 
 #[test]
@@ -64,10 +95,7 @@ fn quasi_frequencies_are_inverse_cdf_of_halton() {
     let mut spec = FeatureSpec::new(k("gaussian(lengthscale=1)"), Method::Quasi, 2, 8, 0);
     spec.options.scramble = false;
     let (map, _) = spec.sample(None).unwrap();
-    let Node::Spectral { freq, .. } = &map.root else {
-        panic!()
-    };
-    let w = freq.dense(2);
+    let w = frequencies(&map);
     let want = [
         [0.0, -0.4307273],
         [-0.6744898, 0.4307273],
@@ -131,9 +159,7 @@ fn nystrom_uses_all_rows_when_short_and_reproduces_landmarks() {
         );
         spec.options.landmarks = rule;
         let (map, info) = spec.sample(Some(x.view())).unwrap();
-        let Node::Nystrom { landmarks, .. } = &map.root else {
-            panic!()
-        };
+        let landmarks = landmarks_of(&map);
         let z = map.transform(landmarks.view());
         let g = spec.kernel.gram(landmarks.view(), landmarks.view());
         assert!(
@@ -173,18 +199,19 @@ fn maps_round_trip_through_files_and_buffers() {
         ("gaussian(gamma=1) + 0.5 * linear()", Method::Fourier),
         ("gaussian(gamma=1) * linear()", Method::Fourier),
         ("sigmoid(gamma=0.1, coef0=0)", Method::Nystrom),
+        ("gaussian(gamma=0.3)", Method::parse("taylor").unwrap()),
     ];
     for (e, m) in cases {
         let spec = FeatureSpec::new(k(e), m, 5, 64, 11);
         let (map, _) = spec.sample(Some(x.view())).unwrap();
         let z = map.transform(x.view());
-        let mut f = crate::model::TensorFile::default();
-        f.manifest.insert("format_version".into(), 1.into());
-        map.write_to(&mut f);
+        let mut f = crate::format::TensorFile::default();
+        f.manifest.insert("format_version".into(), 2.into());
+        let entry = map.program.write(&mut f);
         let bytes = f.to_bytes().unwrap();
-        let back = crate::model::TensorFile::from_bytes(&bytes, "mem").unwrap();
-        let map2 = FeatureMap::read_from(&back, "mem").unwrap();
-        let z2 = map2.transform(x.view());
+        let back = crate::format::TensorFile::from_bytes(&bytes, "mem").unwrap();
+        let prog2 = crate::program::Program::read(&entry, &back, 5, "mem").unwrap();
+        let z2 = prog2.apply(x.view());
         assert_eq!(z, z2, "{e} {m:?}");
         let one = map.transform_one(x.row(7).as_slice().unwrap());
         // One row goes through a different GEMM kernel than a chunk: equal to rounding.

@@ -6,6 +6,7 @@ use crate::data::Standardizer;
 use crate::exact::ridge::targets;
 use crate::features::{FeatureSpec, SampleInfo};
 use crate::model::{CompiledModel, ExactModel};
+use crate::observe::Observer;
 use crate::{Error, Result};
 use ndarray::{s, Array2, ArrayView2};
 use serde_json::json;
@@ -36,6 +37,7 @@ pub fn compile_exact(
     kind: HeadKind,
     grid: &RidgeGrid,
     landmarks: Option<ArrayView2<f64>>,
+    obs: &dyn Observer,
 ) -> Result<(CompiledModel, SampleInfo)> {
     let d = exact.input_dim();
     if spec.input_dim != d {
@@ -75,17 +77,17 @@ pub fn compile_exact(
             }
             let mut dist = Distiller::new(map.output_dim(), k);
             let chunks = n.div_ceil(FIT_CHUNK);
-            let pb = crate::progress::bar(chunks as u64 + 1, "distilling");
+            obs.stage("distilling", chunks as u64 + 1);
             for c in 0..chunks {
                 let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
                 let y = exact.decision(x.slice(s![r.clone(), ..]));
                 let z = map.transform(xs.slice(s![r, ..]));
                 dist.add(z.view(), y.view(), held_out);
-                pb.inc(1);
+                obs.advance(1);
             }
-            pb.set_message("ridge solve");
+            obs.stage("ridge solve", 1);
             let fit = dist.solve(grid)?;
-            pb.finish_and_clear();
+            obs.finish();
             let j = with_kind(&fit, "distill");
             (fit.head, fit.intercept, j)
         }
@@ -119,6 +121,7 @@ pub fn compile_labels(
     classify: bool,
     standardize: bool,
     grid: &RidgeGrid,
+    obs: &dyn Observer,
 ) -> Result<(CompiledModel, SampleInfo)> {
     let (t, task, labels) = targets(y, classify)?;
     let scaling = if standardize {
@@ -134,15 +137,15 @@ pub fn compile_labels(
     let n = xs.nrows();
     let mut dist = Distiller::new(map.output_dim(), t.ncols());
     let chunks = n.div_ceil(FIT_CHUNK);
-    let pb = crate::progress::bar(chunks as u64 + 1, "fitting");
+    obs.stage("fitting", chunks as u64 + 1);
     for c in 0..chunks {
         let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
         let z = map.transform(xs.slice(s![r.clone(), ..]));
         dist.add(z.view(), t.slice(s![r, ..]), held_out);
-        pb.inc(1);
+        obs.advance(1);
     }
     let fit = dist.solve(grid)?;
-    pb.finish_and_clear();
+    obs.finish();
     let j = with_kind(&fit, "labels");
     let mut m = CompiledModel::new(map, fit.head, fit.intercept, task, labels, scaling)?;
     m.fit = j;

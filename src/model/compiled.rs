@@ -1,19 +1,20 @@
-//! Compiled models: a sampled feature map plus a linear head,
-//! `f(x) = z(s(x)) · W + b` with `s` the stored input scaling.
+//! Compiled models: input scaling → feature program → linear head → the teacher's label
+//! rule, `f(x) = H·z(s(x)) + b` with `z` the [`Program`], `H` the head (`D × k`, applied as
+//! `z·H`) and `s` the stored input scaling.
 
-use super::{
-    label_indices, put_scaling, read_feature_names, read_labels, read_scaling, scaling_name, Task,
-    TensorFile, FORMAT_VERSION,
-};
+use super::io::{check_scaling, generator, read_input, read_output, write_input, write_output};
+use super::{v1, OutputRule, Task};
 use crate::data::Standardizer;
-use crate::features::{FeatureMap, Node};
+use crate::features::{FeatureMap, FeatureSpec};
+use crate::format::{TensorFile, FORMAT_VERSION};
 use crate::linalg;
+use crate::program::Program;
 use crate::{Error, Result};
 use ndarray::{Array2, ArrayView2};
 use serde_json::{json, Value};
 use std::path::Path;
 
-/// A compiled model: feature map + head.
+/// A compiled model: feature program + linear head.
 ///
 /// ```
 /// use kernelpress::features::{FeatureSpec, Method};
@@ -24,28 +25,30 @@ use std::path::Path;
 /// let head = Array2::zeros((64, 1));
 /// let m = CompiledModel::new(map, head, vec![0.25], Task::Regression, vec![], None).unwrap();
 /// assert_eq!(m.decision(array![[0.5]].view())[[0, 0]], 0.25);
+/// assert_eq!(m.program().len(), 3); // scale → dense → cos_sin
 /// ```
 #[derive(Debug, Clone)]
 pub struct CompiledModel {
-    map: FeatureMap,
+    spec: FeatureSpec,
+    features: usize,
+    program: Program,
     head: Array2<f64>,
     intercept: Vec<f64>,
-    task: Task,
-    labels: Vec<String>,
+    rule: OutputRule,
     scaling: Option<Standardizer>,
+    folded: bool,
     /// Fit settings (`fit` in the manifest).
     pub fit: Value,
     /// Report summary stored with the model (`report` in the manifest).
     pub report: Value,
-    /// Feature names, if known.
+    /// Feature names (the model's input columns).
     pub feature_names: Vec<String>,
-    /// Nyström only: the head folded into the landmarks, `F = P·W` (`L × k`), so that
-    /// `f(x) = K(x, L)·F + b` (one kernel block and one product per prediction).
-    folded: Option<Array2<f64>>,
 }
 
 impl CompiledModel {
-    /// Builds and validates a compiled model.
+    /// Builds and validates a compiled model from a sampled map and a head fitted on its
+    /// features. When the program ends in a dense projection `P` and folding the head into
+    /// it stores fewer numbers (Nyström: `K(x, L)·(Pᵀ·H)`), the head is folded.
     pub fn new(
         map: FeatureMap,
         head: Array2<f64>,
@@ -54,12 +57,51 @@ impl CompiledModel {
         labels: Vec<String>,
         scaling: Option<Standardizer>,
     ) -> Result<CompiledModel> {
-        let dd = map.output_dim();
+        let features = map.output_dim();
+        let mut program = map.program;
+        let mut head = head;
+        let mut folded = false;
+        if head.nrows() == features {
+            if let Some((inner, p)) = program.split_trailing_dense() {
+                let (r, l) = p.dim();
+                let k = head.ncols();
+                if l * k < r * l + r * k {
+                    let h = linalg::ab_seq(p.t(), head.view());
+                    program = inner;
+                    head = h;
+                    folded = true;
+                }
+            }
+        }
+        let d = program.input_dim();
+        let mut m = Self::from_parts(
+            map.spec, features, program, head, intercept, task, labels, scaling, folded,
+        )?;
+        m.feature_names = (0..d).map(|j| format!("x{j}")).collect();
+        Ok(m)
+    }
+
+    #[allow(clippy::too_many_arguments)]
+    fn from_parts(
+        spec: FeatureSpec,
+        features: usize,
+        program: Program,
+        head: Array2<f64>,
+        intercept: Vec<f64>,
+        task: Task,
+        labels: Vec<String>,
+        scaling: Option<Standardizer>,
+        folded: bool,
+    ) -> Result<CompiledModel> {
+        let dd = program.output_dim();
         if head.nrows() != dd {
             return Err(Error::input(format!(
-                "head has {} rows but the feature map has {dd} outputs",
+                "head has {} rows but the feature program has {dd} outputs",
                 head.nrows()
             )));
+        }
+        if head.iter().any(|v| !v.is_finite()) {
+            return Err(Error::input("head has a non-finite weight"));
         }
         let k = head.ncols();
         if intercept.len() != k {
@@ -68,46 +110,50 @@ impl CompiledModel {
                 intercept.len()
             )));
         }
-        if let Some(want) = task.outputs_for(labels.len()) {
-            if want != k || labels.len() < 2 {
-                return Err(Error::input(format!(
-                    "a {} model with {} labels needs {want} decision columns, the head has {k}",
-                    task.name(),
-                    labels.len()
-                )));
-            }
+        if intercept.iter().any(|v| !v.is_finite()) {
+            return Err(Error::input("an intercept is not finite"));
         }
-        if let Some(s) = &scaling {
-            if s.mean.len() != map.input_dim() {
-                return Err(Error::input(
-                    "input scaling length differs from the input dimension",
-                ));
-            }
+        let rule = OutputRule::new(task, labels, k)?;
+        let d = program.input_dim();
+        if spec.input_dim != d {
+            return Err(Error::input(format!(
+                "feature spec has input_dim {} but the program reads {d} inputs",
+                spec.input_dim
+            )));
         }
-        let d = map.input_dim();
-        let folded = match &map.root {
-            Node::Nystrom { proj, .. } => Some(linalg::ab_seq(proj.view(), head.view())),
-            _ => None,
-        };
+        check_scaling(scaling.as_ref(), d)?;
         Ok(CompiledModel {
-            folded,
-            map,
+            spec,
+            features,
+            program,
             head,
             intercept,
-            task,
-            labels,
+            rule,
             scaling,
+            folded,
             fit: json!({}),
             report: json!({}),
             feature_names: (0..d).map(|j| format!("x{j}")).collect(),
         })
     }
 
-    /// The feature map.
-    pub fn map(&self) -> &FeatureMap {
-        &self.map
+    /// The feature spec the program was sampled from (kernel, method, seed, options).
+    pub fn spec(&self) -> &FeatureSpec {
+        &self.spec
     }
-    /// Head weights `D × k`.
+    /// The feature program the model runs.
+    pub fn program(&self) -> &Program {
+        &self.program
+    }
+    /// Number of features the head was fitted on (Nyström: the kept rank).
+    pub fn features(&self) -> usize {
+        self.features
+    }
+    /// True when the head was folded into a trailing projection of the program.
+    pub fn is_folded(&self) -> bool {
+        self.folded
+    }
+    /// Head weights (`program outputs × k`).
     pub fn head(&self) -> ArrayView2<'_, f64> {
         self.head.view()
     }
@@ -117,11 +163,15 @@ impl CompiledModel {
     }
     /// Task.
     pub fn task(&self) -> Task {
-        self.task
+        self.rule.task()
     }
     /// Class labels.
     pub fn labels(&self) -> &[String] {
-        &self.labels
+        self.rule.labels()
+    }
+    /// The output rule.
+    pub fn rule(&self) -> &OutputRule {
+        &self.rule
     }
     /// Input scaling.
     pub fn scaling(&self) -> Option<&Standardizer> {
@@ -129,64 +179,43 @@ impl CompiledModel {
     }
     /// Input dimension.
     pub fn input_dim(&self) -> usize {
-        self.map.input_dim()
+        self.program.input_dim()
     }
     /// Decision values per row.
     pub fn n_outputs(&self) -> usize {
         self.head.ncols()
     }
 
-    /// Nyström with a folded head: the kernel, the prepared landmarks and `F = P·W`.
-    fn fold(
-        &self,
-    ) -> Option<(
-        &crate::kernel::Kernel,
-        &crate::kernel::Prepared,
-        &Array2<f64>,
-    )> {
-        match (&self.folded, &self.map.root) {
-            (
-                Some(f),
-                Node::Nystrom {
-                    kernel,
-                    landmarks,
-                    prepared,
-                    ..
-                },
-            ) => {
-                let prep =
-                    prepared.get_or_init(|| crate::kernel::Prepared::new(kernel, landmarks.view()));
-                Some((kernel, prep, f))
-            }
-            _ => None,
-        }
-    }
-
-    /// Decision values for raw inputs.
-    ///
-    /// # Panics
-    /// If `x` does not have [`Self::input_dim`] columns.
-    #[track_caller]
-    pub fn decision(&self, x: ArrayView2<f64>) -> Array2<f64> {
-        let xs = match &self.scaling {
-            Some(s) => s.apply(x),
-            None => x.to_owned(),
-        };
-        let mut s = match self.fold() {
-            Some((kernel, prep, f)) => linalg::map_row_chunks(xs.view(), f.ncols(), |c| {
-                linalg::ab_seq(kernel.gram_block(c, prep).view(), f.view())
-            }),
-            None => {
-                let z = self.map.transform(xs.view());
-                linalg::ab(z.view(), self.head.view())
-            }
-        };
+    fn head_rows(&self, z: ArrayView2<f64>) -> Array2<f64> {
+        let mut s = linalg::ab_seq(z, self.head.view());
         for mut row in s.rows_mut() {
             row.iter_mut()
                 .zip(&self.intercept)
                 .for_each(|(v, b)| *v += b);
         }
         s
+    }
+
+    /// Decision values for raw inputs: scaling, program and head fused per fixed row chunk,
+    /// chunks in parallel (the whole feature matrix is never built).
+    ///
+    /// # Panics
+    /// If `x` does not have [`Self::input_dim`] columns.
+    #[track_caller]
+    pub fn decision(&self, x: ArrayView2<f64>) -> Array2<f64> {
+        assert_eq!(
+            x.ncols(),
+            self.input_dim(),
+            "decision: wrong number of features"
+        );
+        linalg::map_row_chunks(x, self.n_outputs(), |c| {
+            let xs = match &self.scaling {
+                Some(s) => s.apply(c),
+                None => c.to_owned(),
+            };
+            let z = self.program.apply_chunk(xs.view());
+            self.head_rows(z.view())
+        })
     }
 
     /// Decision values for one raw row, sequentially (single-row latency).
@@ -199,16 +228,10 @@ impl CompiledModel {
                 .collect(),
             None => x.to_vec(),
         };
-        let (z, head) = match self.fold() {
-            Some((kernel, prep, f)) => {
-                let row = ArrayView2::from_shape((1, xs.len()), &xs[..]).expect("one row");
-                (kernel.gram_block(row, prep).into_raw_vec_and_offset().0, f)
-            }
-            None => (self.map.transform_one(&xs), &self.head),
-        };
+        let z = self.program.apply_one(&xs);
         let k = self.head.ncols();
         let mut out = self.intercept.clone();
-        for (zi, row) in z.iter().zip(head.rows()) {
+        for (zi, row) in z.iter().zip(self.head.rows()) {
             for c in 0..k {
                 out[c] += zi * row[c];
             }
@@ -218,92 +241,61 @@ impl CompiledModel {
 
     /// Labels of decision values (empty strings for regression).
     pub fn labels_of(&self, s: ArrayView2<f64>) -> Vec<String> {
-        if !self.task.is_classifier() {
-            return vec![String::new(); s.nrows()];
-        }
-        label_indices(self.task, self.labels.len(), s)
-            .into_iter()
-            .map(|i| self.labels[i].clone())
-            .collect()
+        self.rule.labels_of(s)
     }
 
-    /// Floats stored (map + head + intercepts + scaling).
-    pub fn parameter_floats(&self) -> usize {
-        self.map.stored_floats()
-            + self
-                .folded
-                .as_ref()
-                .map(|f| f.len())
-                .unwrap_or(self.head.len())
-            + self.intercept.len()
-            + self.scaling.as_ref().map(|s| 2 * s.mean.len()).unwrap_or(0)
+    /// Bytes of parameters in memory (program + head + intercepts + scaling; f64 for real
+    /// values, int8 signs, int32 indices).
+    pub fn parameter_bytes(&self) -> usize {
+        self.program.param_bytes() as usize
+            + 8 * (self.head.len()
+                + self.intercept.len()
+                + self.scaling.as_ref().map(|s| 2 * s.mean.len()).unwrap_or(0))
     }
 
-    /// Flops per prediction (analytic).
+    /// Flops per prediction (analytic): scaling, program, head.
     pub fn flops(&self) -> usize {
-        match (&self.folded, &self.map.root) {
-            (Some(f), Node::Nystrom { landmarks, .. }) => 3 * landmarks.len() + 2 * f.len(),
-            _ => self.map.flops_per_row() + 2 * self.head.len(),
-        }
+        let d = self.input_dim();
+        self.scaling.as_ref().map(|_| 2 * d).unwrap_or(0)
+            + self.program.cost().flops as usize
+            + 2 * self.head.len()
     }
 
-    /// The model as a [`TensorFile`].
+    /// The model as a [`TensorFile`] (format version 2).
     pub fn to_file(&self) -> TensorFile {
         let mut f = TensorFile::default();
-        self.map.write_to(&mut f);
-        match &self.folded {
-            // Nyström: store F = P·W; W is recovered on load as Pᵀ·K(L, L)·F.
-            Some(fh) => {
-                f.put(
-                    "nystrom_head",
-                    vec![fh.nrows(), fh.ncols()],
-                    fh.iter().copied().collect(),
-                );
-                f.manifest
-                    .insert("head_form".into(), json!("nystrom_folded"));
-            }
-            None => {
-                f.put(
-                    "head",
-                    vec![self.head.nrows(), self.head.ncols()],
-                    self.head.iter().copied().collect(),
-                );
-                f.manifest.insert("head_form".into(), json!("features"));
-            }
-        }
-        f.put(
-            "intercepts",
+        let d = self.input_dim();
+        let input = write_input(&mut f, d, &self.feature_names, self.scaling.as_ref());
+        let program = self.program.write(&mut f);
+        f.put_f64(
+            "head.weights",
+            vec![self.head.nrows(), self.head.ncols()],
+            self.head.iter().copied().collect(),
+        );
+        f.put_f64(
+            "head.bias",
             vec![self.intercept.len()],
             self.intercept.clone(),
         );
-        let d = self.input_dim();
-        put_scaling(&mut f, self.scaling.as_ref());
-        let spec = &self.map.spec;
-        let entries = [
-            ("format_version", json!(FORMAT_VERSION)),
-            ("kind", json!("compiled")),
-            ("kernel", json!(spec.kernel.to_string())),
-            ("task", json!(self.task.name())),
-            ("labels", json!(self.labels)),
-            ("input_dim", json!(d)),
-            ("n_outputs", json!(self.n_outputs())),
-            ("input_scaling", json!(scaling_name(self.scaling.as_ref()))),
-            ("method", json!(spec.method.name())),
-            ("features", json!(self.map.output_dim())),
-            ("features_requested", json!(spec.features)),
-            ("seed", json!(spec.seed)),
-            ("rng", json!(crate::features::RNG_NAME)),
-            ("fit", self.fit.clone()),
-            ("report", self.report.clone()),
-            ("feature_names", json!(self.feature_names)),
-            (
-                "generator",
-                json!(format!("kernelpress {}", env!("CARGO_PKG_VERSION"))),
-            ),
-        ];
-        for (k, v) in entries {
-            f.manifest.insert(k.into(), v);
+        let mut source = self.spec.to_json();
+        if let Some(o) = source.as_object_mut() {
+            o.remove("input_dim");
+            o.insert("features".into(), json!(self.features));
+            o.insert("features_requested".into(), json!(self.spec.features));
         }
+        let m = json!({
+            "format_version": FORMAT_VERSION,
+            "kind": "compiled",
+            "generator": generator(),
+            "input": input,
+            "output": write_output(&self.rule),
+            "source": source,
+            "program": program,
+            "head": {"folded": self.folded},
+            "fit": self.fit,
+            "report": self.report,
+        });
+        f.manifest = m.as_object().expect("object").clone();
         f
     }
 
@@ -312,7 +304,8 @@ impl CompiledModel {
         self.to_file().write(path)
     }
 
-    /// Reads a compiled model from a parsed file.
+    /// Reads a compiled model from a parsed file (format version 1 or 2). Nothing is
+    /// recomputed: every tensor the program needs is in the file.
     pub fn from_file(f: &TensorFile, src: &str) -> Result<CompiledModel> {
         let kind = f.get_str("kind", src)?;
         if kind != "compiled" {
@@ -320,60 +313,77 @@ impl CompiledModel {
                 "{src}: model kind is '{kind}'; expected a compiled model"
             )));
         }
-        let map = FeatureMap::read_from(f, src)?;
-        let dd = map.output_dim();
-        let k = f.get_u64("n_outputs", src)? as usize;
-        let mut stored_fold: Option<Array2<f64>> = None;
-        let head: Vec<f64> = match (
-            f.manifest.get("head_form").and_then(|v| v.as_str()),
-            &map.root,
-        ) {
-            (
-                Some("nystrom_folded"),
-                Node::Nystrom {
-                    kernel,
-                    landmarks,
-                    proj,
-                    ..
-                },
-            ) => {
-                let (_, fh) = f.tensor("nystrom_head", &[Some(landmarks.nrows()), Some(k)], src)?;
-                let fh = Array2::from_shape_vec((landmarks.nrows(), k), fh).unwrap();
-                let kll = kernel.gram(landmarks.view(), landmarks.view());
-                let w = linalg::ab_seq(linalg::ab_seq(proj.t(), kll.view()).view(), fh.view());
-                stored_fold = Some(fh);
-                w.iter().copied().collect()
+        let v = if f.version() == 1 {
+            v1::compiled(f, src)?
+        } else {
+            let (d, names, scaling) = read_input(f, src)?;
+            let rule = read_output(f, src)?;
+            let bad = |m: String| Error::file(format!("{src}: manifest '{m}"));
+            let pj = f
+                .manifest
+                .get("program")
+                .ok_or_else(|| bad("program' is missing".into()))?;
+            let program = Program::read(pj, f, d, src)?;
+            let mut source = f
+                .manifest
+                .get("source")
+                .and_then(|s| s.as_object())
+                .cloned()
+                .ok_or_else(|| bad("source' is missing or not an object".into()))?;
+            let features = source
+                .get("features")
+                .and_then(|v| v.as_u64())
+                .and_then(|v| usize::try_from(v).ok())
+                .filter(|v| (1..=1 << 24).contains(v))
+                .ok_or_else(|| bad("source.features' must be a positive whole number".into()))?;
+            source.insert("input_dim".into(), json!(d));
+            if let Some(r) = source.remove("features_requested") {
+                source.insert("features".into(), r);
             }
-            (Some("nystrom_folded"), _) => {
-                return Err(Error::input(format!(
-                    "{src}: head_form nystrom_folded on a map that is not Nyström"
-                )))
+            let spec = FeatureSpec::from_json(&Value::Object(source))
+                .map_err(|e| bad(format!("source': {}", e.message())))?;
+            let folded = f
+                .manifest
+                .get("head")
+                .and_then(|h| h.get("folded"))
+                .and_then(|v| v.as_bool())
+                .ok_or_else(|| bad("head.folded' must be true or false".into()))?;
+            let k = rule.outputs();
+            let rows = program.output_dim();
+            if !folded && rows != features {
+                return Err(bad(format!(
+                    "source.features' is {features} but the program has {rows} outputs"
+                )));
             }
-            _ => f.tensor("head", &[Some(dd), Some(k)], src)?.1,
+            let head = f.f64("head.weights", &[Some(rows), Some(k)], src)?;
+            let bias = f.f64("head.bias", &[Some(k)], src)?;
+            v1::Parts {
+                spec,
+                features,
+                program,
+                head: Array2::from_shape_vec((rows, k), head).expect("shape checked"),
+                intercept: bias,
+                rule,
+                scaling,
+                folded,
+                names,
+            }
         };
-        let (_, b) = f.tensor("intercepts", &[Some(k)], src)?;
-        let task = Task::parse(&f.get_str("task", src)?).map_err(|e| e.context(src))?;
-        let labels = read_labels(f, src)?;
-        let d = map.input_dim();
-        let scaling = read_scaling(f, d, src)?;
-        let mut m = CompiledModel::new(
-            map,
-            Array2::from_shape_vec((dd, k), head).unwrap(),
-            b,
-            task,
-            labels,
-            scaling,
+        let mut m = Self::from_parts(
+            v.spec,
+            v.features,
+            v.program,
+            v.head,
+            v.intercept,
+            v.rule.task(),
+            v.rule.labels().to_vec(),
+            v.scaling,
+            v.folded,
         )
-        .map_err(|e| e.context(src))?;
-        if stored_fold.is_some() {
-            // Score with exactly the stored F.
-            m.folded = stored_fold;
-        }
+        .map_err(|e| Error::file(format!("{src}: {}", e.message())))?;
+        m.feature_names = v.names;
         m.fit = f.manifest.get("fit").cloned().unwrap_or(json!({}));
         m.report = f.manifest.get("report").cloned().unwrap_or(json!({}));
-        if let Some(names) = read_feature_names(f, d) {
-            m.feature_names = names;
-        }
         Ok(m)
     }
 

@@ -6,7 +6,10 @@ mod latency;
 
 pub use latency::{measure_batch, measure_single, LatencyStats};
 
+use crate::features::nystrom_from_landmarks;
 use crate::model::{label_indices, CompiledModel, ExactModel};
+use crate::program::{Program, Step};
+use crate::{Error, Result};
 use ndarray::{s, Array2, ArrayView2};
 use serde_json::{json, Value};
 
@@ -41,26 +44,50 @@ pub fn decision_errors(exact: ArrayView2<f64>, approx: ArrayView2<f64>) -> (f64,
     ((sse / n).sqrt(), r2, max)
 }
 
-/// Kernel approximation error on `x` (scaled inputs): (max abs, rmse, relative Frobenius)
+/// The feature program whose inner products approximate the kernel: the model's own
+/// program, or for a Nyström model whose head was folded into the landmarks, the Nyström
+/// map rebuilt from its landmarks (an analysis step of the report; loading never does it).
+pub fn kernel_features(model: &CompiledModel) -> Result<Program> {
+    if !model.is_folded() {
+        return Ok(model.program().clone());
+    }
+    let ins = model.program().instrs();
+    match ins.last().map(|i| &i.step) {
+        Some(Step::KernelBlock(kb)) if ins.len() == 1 => {
+            let mut info = crate::features::SampleInfo::default();
+            nystrom_from_landmarks(
+                kb.kernel(),
+                kb.landmarks().clone(),
+                model.spec().options.rank_tol,
+                &mut info,
+            )
+        }
+        _ => Err(Error::internal(
+            "a folded head on a program that is not a landmark block",
+        )),
+    }
+}
+
+/// Kernel approximation error on `xs` (scaled inputs): (max abs, rmse, relative Frobenius)
 /// of `Z Zᵀ` against the exact Gram matrix.
-pub fn kernel_errors(model: &CompiledModel, xs: ArrayView2<f64>) -> (f64, f64, f64) {
-    let k = &model.map().spec.kernel;
+pub fn kernel_errors(model: &CompiledModel, xs: ArrayView2<f64>) -> Result<(f64, f64, f64)> {
+    let k = &model.spec().kernel;
     let g = k.gram(xs, xs);
-    let z = model.map().transform(xs);
+    let z = kernel_features(model)?.apply(xs);
     let approx = crate::linalg::abt_seq(z.view(), z.view());
     let mut max: f64 = 0.0;
-    let mut sse = 0.0;
-    let mut ss = 0.0;
+    let mut sse = 0.0f64;
+    let mut ss = 0.0f64;
     for (a, b) in g.iter().zip(approx.iter()) {
         max = max.max((a - b).abs());
         sse += (a - b) * (a - b);
         ss += a * a;
     }
-    (
+    Ok((
         max,
         (sse / g.len() as f64).sqrt(),
         (sse / ss.max(1e-300)).sqrt(),
-    )
+    ))
 }
 
 /// Options for [`build`].
@@ -96,17 +123,17 @@ pub fn build(
     truth: Option<&[String]>,
     exact_decision: Option<Array2<f64>>,
     opts: &ReportOptions,
-) -> Value {
+) -> Result<Value> {
     let n = x.nrows();
     let se = exact_decision.unwrap_or_else(|| exact.decision(x));
     let sc = compiled.decision(x);
     let (rmse, r2, maxe) = decision_errors(se.view(), sc.view());
     let xs_k = exact.scale_inputs(x.slice(s![..opts.kernel_rows.min(n), ..]));
-    let (kmax, krmse, kfro) = kernel_errors(compiled, xs_k.view());
+    let (kmax, krmse, kfro) = kernel_errors(compiled, xs_k.view())?;
     let mut r = serde_json::Map::new();
-    let spec = &compiled.map().spec;
+    let spec = compiled.spec();
     r.insert("method".into(), json!(spec.method.name()));
-    r.insert("features".into(), json!(compiled.map().output_dim()));
+    r.insert("features".into(), json!(compiled.features()));
     r.insert("seed".into(), json!(spec.seed));
     r.insert("kernel".into(), json!(spec.kernel.to_string()));
     r.insert("kernel_max_abs_error".into(), json!(kmax));
@@ -152,10 +179,7 @@ pub fn build(
         r.insert("accuracy_compiled".into(), Value::Null);
     }
     r.insert("bytes_exact".into(), json!(exact.parameter_bytes()));
-    r.insert(
-        "bytes_compiled".into(),
-        json!(8 * compiled.parameter_floats()),
-    );
+    r.insert("bytes_compiled".into(), json!(compiled.parameter_bytes()));
     let flops_exact = exact.flops();
     r.insert("flops_exact".into(), json!(flops_exact));
     r.insert("flops_compiled".into(), json!(compiled.flops()));
@@ -190,7 +214,7 @@ pub fn build(
     }
     r.insert("n_rows".into(), json!(n));
     r.insert("warnings".into(), json!(warnings));
-    Value::Object(r)
+    Ok(Value::Object(r))
 }
 
 fn f(v: &Value, k: &str) -> String {

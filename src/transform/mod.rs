@@ -3,7 +3,11 @@
 //! - [`wht`]: the fast Walsh–Hadamard transform, in place, unnormalised
 //!   (`H_{2n} = [[H_n, H_n], [H_n, −H_n]]`, so `H·H = n·I`; divide by `√n` for the
 //!   orthogonal version).
+//! - [`trig`]: vectorised sine and cosine of slices (Cody–Waite reduction, fdlibm kernels).
 
+pub mod trig;
 pub mod wht;
 
-pub use wht::{wht_in_place, wht_in_place_scalar, wht_isa, wht_reference, WhtFloat};
+pub use wht::{
+    wht_in_place, wht_in_place_at, wht_in_place_scalar, wht_isa, wht_reference, WhtFloat,
+};

@@ -106,7 +106,7 @@ mod x86 {
 
     /// # Safety
     /// The CPU must support AVX2 (checked by the caller).
-    #[target_feature(enable = "avx2")]
+    #[target_feature(enable = "avx2,fma")]
     pub(super) unsafe fn wht_avx2<T: WhtFloat>(x: &mut [T]) {
         wht_body(x)
     }
@@ -119,43 +119,10 @@ mod x86 {
     }
 }
 
-#[derive(Clone, Copy, PartialEq, Eq)]
-enum Isa {
-    Scalar,
-    #[cfg(target_arch = "x86_64")]
-    Avx2,
-    #[cfg(target_arch = "x86_64")]
-    Avx512,
-}
-
-fn isa() -> Isa {
-    static ISA: std::sync::OnceLock<Isa> = std::sync::OnceLock::new();
-    *ISA.get_or_init(|| {
-        #[cfg(target_arch = "x86_64")]
-        {
-            if std::env::var_os("KERNELPRESS_NO_SIMD").is_none() {
-                if std::arch::is_x86_feature_detected!("avx512f") {
-                    return Isa::Avx512;
-                }
-                if std::arch::is_x86_feature_detected!("avx2") {
-                    return Isa::Avx2;
-                }
-            }
-        }
-        Isa::Scalar
-    })
-}
-
-/// The instruction set the transform uses on this CPU (`avx512`, `avx2` or `scalar`),
-/// detected once at first use. Setting `KERNELPRESS_NO_SIMD` forces `scalar`.
+/// The instruction set the transform uses on this CPU (`avx512`, `avx2` or `scalar`):
+/// [`crate::simd::level`].
 pub fn wht_isa() -> &'static str {
-    match isa() {
-        Isa::Scalar => "scalar",
-        #[cfg(target_arch = "x86_64")]
-        Isa::Avx2 => "avx2",
-        #[cfg(target_arch = "x86_64")]
-        Isa::Avx512 => "avx512",
-    }
+    crate::simd::level().name()
 }
 
 /// In-place unnormalised Walsh–Hadamard transform.
@@ -168,13 +135,36 @@ pub fn wht_in_place<T: WhtFloat>(x: &mut [T]) {
     if n == 0 || !n.is_power_of_two() {
         bad_len(n);
     }
-    match isa() {
-        // SAFETY: the instruction set was detected at run time.
+    wht_dispatch(crate::simd::level(), x)
+}
+
+/// Runs the copy for `level`.
+///
+/// # Panics
+/// If this CPU does not support `level` (see [`crate::simd::available`]).
+#[track_caller]
+pub fn wht_in_place_at<T: WhtFloat>(level: crate::simd::Level, x: &mut [T]) {
+    assert!(
+        level <= crate::simd::detected(),
+        "this CPU does not support {}",
+        level.name()
+    );
+    let n = x.len();
+    if n == 0 || !n.is_power_of_two() {
+        bad_len(n);
+    }
+    wht_dispatch(level, x)
+}
+
+fn wht_dispatch<T: WhtFloat>(level: crate::simd::Level, x: &mut [T]) {
+    use crate::simd::Level;
+    match level {
+        // SAFETY: callers pass a level this CPU supports (detected at run time).
         #[cfg(target_arch = "x86_64")]
-        Isa::Avx512 => unsafe { x86::wht_avx512(x) },
+        Level::Avx512 => unsafe { x86::wht_avx512(x) },
         #[cfg(target_arch = "x86_64")]
-        Isa::Avx2 => unsafe { x86::wht_avx2(x) },
-        Isa::Scalar => wht_body(x),
+        Level::Avx2 => unsafe { x86::wht_avx2(x) },
+        _ => wht_body(x),
     }
 }
 

@@ -15,7 +15,7 @@ s_ref, man = compiled_decision(model, x)
 sc, lc = read_score(sc_path)
 se, le = read_score(se_path)
 err = np.max(np.abs(s_ref - sc)) / max(1.0, np.max(np.abs(s_ref)))
-lab_ref = labels_from_decision(man["task"], man["labels"], s_ref)
+lab_ref = labels_from_decision(man["output"]["task"], man["output"]["labels"], s_ref)
 print(f"compiled decision rel err vs numpy {err:.3e}")
 ok = err < 1e-9 and lab_ref == lc
 rep = json.load(open(rep_path))

@@ -100,10 +100,10 @@ def exact_decision(path, x):
     """Decision values of an exact model, recomputed from its tensors and manifest."""
     t, man = load_model(path)
     assert man["kind"] == "exact", man["kind"]
-    if man["input_scaling"] == "standardize":
-        x = (x - t["input_mean"]) / t["input_scale"]
-    k = gram(spec_from_expression(man["kernel"]), x, t["support_vectors"])
-    return k @ t["coefficients"] + t["intercepts"], man
+    if man["input"]["scaling"] == "standardize":
+        x = (x - t["input.mean"]) / t["input.scale"]
+    k = gram(spec_from_expression(man["kernel"]), x, t["exact.support_vectors"])
+    return k @ t["exact.coefficients"] + t["exact.intercepts"], man
 
 
 def labels_from_decision(task, labels, s):
@@ -153,76 +153,9 @@ def read_score(path):
     return s, labels
 
 
-def feature_map(node, tensors, x):
-    """Applies a stored kernelpress feature map (manifest 'feature_map' + tensors) to x,
-    written from the formulas in the crate docs: paired map √(1/m)[cos P, sin P], phase map
-    √(2/m) cos(P + b), Hadamard blocks d'^{-1} H D1 H D2 H D3, Fastfood d'^{-1/2} S H G Π H B
-    (scipy.linalg.hadamard for H), Nyström K(x, L) P."""
-    from scipy.linalg import hadamard
-
-    kind = node["node"]
-    if kind == "spectral":
-        xs = x * tensors[node["scale"]]
-        fq = node["freq"]
-        if fq["kind"] == "dense":
-            p = xs @ tensors[fq["w"]].T
-        elif fq["kind"] == "hadamard":
-            dp, m = fq["d_pad"], fq["m"]
-            sg = tensors[fq["signs"]]
-            H = hadamard(dp)
-            xp = np.zeros((x.shape[0], dp))
-            xp[:, : x.shape[1]] = xs
-            blocks = []
-            for b in range(sg.shape[0] // 3):
-                W = H @ np.diag(sg[3 * b]) @ H @ np.diag(sg[3 * b + 1]) @ H @ np.diag(sg[3 * b + 2]) / dp
-                blocks.append(xp @ W.T)
-            p = np.concatenate(blocks, axis=1)[:, :m]
-        elif fq["kind"] == "fastfood":
-            dp, m = fq["d_pad"], fq["m"]
-            H = hadamard(dp)
-            B, P, G, S = (tensors[fq[k]] for k in ("b", "perm", "g", "s"))
-            xp = np.zeros((x.shape[0], dp))
-            xp[:, : x.shape[1]] = xs
-            blocks = []
-            for b in range(B.shape[0]):
-                Pi = np.zeros((dp, dp))
-                Pi[np.arange(dp), P[b].astype(int)] = 1.0
-                V = np.diag(S[b]) @ H @ np.diag(G[b]) @ Pi @ H @ np.diag(B[b]) / np.sqrt(dp)
-                blocks.append(xp @ V.T)
-            p = np.concatenate(blocks, axis=1)[:, :m]
-        else:
-            raise ValueError(fq["kind"])
-        m = p.shape[1]
-        if node["trig"] == "paired":
-            return np.concatenate([np.cos(p), np.sin(p)], axis=1) / np.sqrt(m)
-        return np.sqrt(2.0 / m) * np.cos(p + tensors[node["trig"]["phase"]])
-    if kind == "nystrom":
-        # P = U_r Λ_r^{-1/2} over eigenvalues > rank_tol·λ_max of K(L, L) (Williams & Seeger
-        # 2001); eigenvector signs are arbitrary, so only Z Zᵀ is comparable across codes.
-        L = tensors[node["landmarks"]]
-        spec = spec_from_expression(node["kernel"])
-        ev, U = np.linalg.eigh(gram(spec, L, L))
-        keep = ev > node["rank_tol"] * ev.max()
-        return gram(spec, x, L) @ (U[:, keep] / np.sqrt(ev[keep]))
-    if kind == "identity":
-        return x
-    if kind == "concat":
-        return np.concatenate([feature_map(p, tensors, x) for p in node["parts"]], axis=1)
-    if kind == "scaled":
-        return node["c"] * feature_map(node["inner"], tensors, x)
-    raise ValueError(f"reference does not implement node {kind}")
-
-
 def compiled_decision(path, x):
-    """Decision values of a compiled model, recomputed from its file with numpy."""
-    t, man = load_model(path)
-    assert man["kind"] == "compiled", man["kind"]
-    if man["input_scaling"] == "standardize":
-        x = (x - t["input_mean"]) / t["input_scale"]
-    if man.get("head_form") == "nystrom_folded":
-        # f(x) = K(x, L) F + b with F = P W stored (kernelpress model docs).
-        node = man["feature_map"]
-        k = gram(spec_from_expression(node["kernel"]), x, t[node["landmarks"]])
-        return k @ t["nystrom_head"] + t["intercepts"], man
-    z = feature_map(man["feature_map"], t, x)
-    return z @ t["head"] + t["intercepts"], man
+    """Decision values of a compiled model, recomputed from its file by the scorer written
+    from the README's description of the format (score_from_readme.py)."""
+    from score_from_readme import decision
+
+    return decision(path, x)

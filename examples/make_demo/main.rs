@@ -4,9 +4,11 @@
 //!
 //! Run: `cargo run --release --example make_demo`
 
+mod scenario;
+
 use kernelpress::data::{read_csv_str, write_atomic, Standardizer};
-use kernelpress::demo::{pump_data, to_csv};
 use kernelpress::exact::{fit_svm, SmoOptions};
+use scenario::{pump_data, to_csv};
 use std::path::Path;
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
@@ -37,6 +39,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         t.target.as_ref().unwrap(),
         &opts,
         Some(s),
+        &kernelpress::observe::Silent,
     )?;
     m.feature_names = t.columns.clone();
     m.save(&dir.join("pump_svm.safetensors"))?;

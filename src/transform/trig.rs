@@ -73,7 +73,7 @@ unsafe fn scaled_avx2(p: &[f64], f: f64, cos_out: &mut [f64], sin_out: &mut [f64
 }
 
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx512f")]
+#[target_feature(enable = "avx512f,avx2,fma")]
 unsafe fn scaled_avx512(p: &[f64], f: f64, cos_out: &mut [f64], sin_out: &mut [f64]) {
     scaled_body(p, f, cos_out, sin_out)
 }
@@ -96,12 +96,12 @@ pub fn scaled_sin_cos(p: &[f64], f: f64, cos_out: &mut [f64], sin_out: &mut [f64
         }
         return;
     }
-    match crate::transform::wht_isa() {
-        // SAFETY: the instruction set was detected at run time.
+    match crate::simd::level() {
+        // SAFETY: the level was detected at run time (AVX2 implies FMA there).
         #[cfg(target_arch = "x86_64")]
-        "avx512" => unsafe { scaled_avx512(p, f, cos_out, sin_out) },
+        crate::simd::Level::Avx512 => unsafe { scaled_avx512(p, f, cos_out, sin_out) },
         #[cfg(target_arch = "x86_64")]
-        "avx2" => unsafe { scaled_avx2(p, f, cos_out, sin_out) },
+        crate::simd::Level::Avx2 => unsafe { scaled_avx2(p, f, cos_out, sin_out) },
         _ => scaled_body(p, f, cos_out, sin_out),
     }
 }

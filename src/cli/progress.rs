@@ -1,4 +1,5 @@
-//! Progress bars on stderr, hidden when stderr is not a terminal or when quiet.
+//! Progress bars on stderr, hidden when stderr is not a terminal or when quiet, and the
+//! [`Bars`] observer that shows the library's progress and notes.
 
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use std::io::IsTerminal;
@@ -33,14 +34,36 @@ pub fn bar(len: u64, what: &str) -> ProgressBar {
     pb
 }
 
-/// A log line on stderr unless quiet.
-pub fn log(msg: impl AsRef<str>) {
-    if !is_quiet() {
-        eprintln!("{}", msg.as_ref());
-    }
-}
-
 /// A warning on stderr; warnings are printed even when quiet.
 pub fn warn(msg: impl AsRef<str>) {
     eprintln!("warning: {}", msg.as_ref());
+}
+
+/// Shows library progress as bars (on a terminal) and notes as warnings.
+#[derive(Default)]
+pub struct Bars {
+    bar: std::sync::Mutex<Option<ProgressBar>>,
+}
+
+impl kernelpress::observe::Observer for Bars {
+    fn stage(&self, name: &str, total: u64) {
+        let mut b = self.bar.lock().expect("progress lock");
+        if let Some(old) = b.take() {
+            old.finish_and_clear();
+        }
+        *b = Some(bar(total.max(1), name));
+    }
+    fn advance(&self, n: u64) {
+        if let Some(b) = self.bar.lock().expect("progress lock").as_ref() {
+            b.inc(n);
+        }
+    }
+    fn finish(&self) {
+        if let Some(b) = self.bar.lock().expect("progress lock").take() {
+            b.finish_and_clear();
+        }
+    }
+    fn note(&self, message: &str) {
+        warn(message);
+    }
 }

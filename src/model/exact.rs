@@ -1,0 +1,274 @@
+//! The exact kernel model: `f(x) = Σ_i coef_i · k(x, sv_i) + intercept` per output.
+
+use super::io::{check_scaling, generator, read_input, read_output, write_input, write_output};
+use super::{v1, OutputRule, Task};
+use crate::data::Standardizer;
+use crate::format::{TensorFile, FORMAT_VERSION};
+use crate::kernel::{Kernel, Prepared};
+use crate::linalg;
+use crate::{Error, Result};
+use ndarray::{Array2, ArrayView2};
+use serde_json::json;
+use std::path::Path;
+use std::sync::OnceLock;
+
+/// An exact kernel model: `f(x) = Σ_i coef_i · k(x, sv_i) + intercept` per output.
+#[derive(Debug, Clone)]
+pub struct ExactModel {
+    kernel: Kernel,
+    support_vectors: Array2<f64>,
+    coef: Array2<f64>,
+    intercept: Vec<f64>,
+    rule: OutputRule,
+    scaling: Option<Standardizer>,
+    /// Feature names, if known.
+    pub feature_names: Vec<String>,
+    /// Fit settings and notes recorded in the manifest (`training`).
+    pub training: serde_json::Value,
+    prepared: OnceLock<Prepared>,
+}
+
+impl ExactModel {
+    /// Builds and validates a model. `support_vectors` are in the scaled input space.
+    pub fn new(
+        kernel: Kernel,
+        support_vectors: Array2<f64>,
+        coef: Array2<f64>,
+        intercept: Vec<f64>,
+        task: Task,
+        labels: Vec<String>,
+        scaling: Option<Standardizer>,
+    ) -> Result<ExactModel> {
+        let (n, d) = support_vectors.dim();
+        kernel.check_dim(d)?;
+        if n == 0 {
+            return Err(Error::input(
+                "an exact model needs at least one support vector",
+            ));
+        }
+        if coef.nrows() != n {
+            return Err(Error::input(format!(
+                "coefficients have {} rows but there are {n} support vectors",
+                coef.nrows()
+            )));
+        }
+        let k = coef.ncols();
+        if k == 0 {
+            return Err(Error::input("coefficients have no columns"));
+        }
+        if intercept.len() != k {
+            return Err(Error::input(format!(
+                "{} intercepts given but the coefficients have {k} output columns",
+                intercept.len()
+            )));
+        }
+        let rule = OutputRule::new(task, labels, k)?;
+        check_scaling(scaling.as_ref(), d)?;
+        Ok(ExactModel {
+            kernel,
+            support_vectors,
+            coef,
+            intercept,
+            rule,
+            scaling,
+            feature_names: (0..d).map(|j| format!("x{j}")).collect(),
+            training: json!({}),
+            prepared: OnceLock::new(),
+        })
+    }
+
+    /// The kernel.
+    pub fn kernel(&self) -> &Kernel {
+        &self.kernel
+    }
+    /// Support vectors (`n_sv × d`, scaled input space).
+    pub fn support_vectors(&self) -> ArrayView2<'_, f64> {
+        self.support_vectors.view()
+    }
+    /// Coefficients (`n_sv × n_outputs`).
+    pub fn coef(&self) -> ArrayView2<'_, f64> {
+        self.coef.view()
+    }
+    /// Intercepts, one per output.
+    pub fn intercept(&self) -> &[f64] {
+        &self.intercept
+    }
+    /// The task.
+    pub fn task(&self) -> Task {
+        self.rule.task()
+    }
+    /// Class labels (empty for regression).
+    pub fn labels(&self) -> &[String] {
+        self.rule.labels()
+    }
+    /// The output rule (task, labels).
+    pub fn rule(&self) -> &OutputRule {
+        &self.rule
+    }
+    /// Input scaling, if any.
+    pub fn scaling(&self) -> Option<&Standardizer> {
+        self.scaling.as_ref()
+    }
+    /// Input dimension.
+    pub fn input_dim(&self) -> usize {
+        self.support_vectors.ncols()
+    }
+    /// Number of decision values per row.
+    pub fn n_outputs(&self) -> usize {
+        self.coef.ncols()
+    }
+    /// Number of support vectors.
+    pub fn n_support_vectors(&self) -> usize {
+        self.support_vectors.nrows()
+    }
+
+    fn prepared(&self) -> &Prepared {
+        self.prepared
+            .get_or_init(|| Prepared::new(&self.kernel, self.support_vectors.view()))
+    }
+
+    /// Applies the stored input scaling (identity when there is none).
+    pub fn scale_inputs(&self, x: ArrayView2<f64>) -> Array2<f64> {
+        match &self.scaling {
+            Some(s) => s.apply(x),
+            None => x.to_owned(),
+        }
+    }
+
+    /// Decision values (`n × n_outputs`) for raw inputs, batched: fixed row chunks in
+    /// parallel, each a GEMM-based kernel block times the coefficients.
+    ///
+    /// # Panics
+    /// If `x` does not have [`Self::input_dim`] columns (check with
+    /// [`crate::data::check_batch`]).
+    #[track_caller]
+    pub fn decision(&self, x: ArrayView2<f64>) -> Array2<f64> {
+        assert_eq!(
+            x.ncols(),
+            self.input_dim(),
+            "decision: wrong number of features"
+        );
+        let xs = self.scale_inputs(x);
+        let prep = self.prepared();
+        let k = self.n_outputs();
+        linalg::map_row_chunks(xs.view(), k, |chunk| {
+            let g = self.kernel.gram_block(chunk, prep);
+            let mut s = linalg::ab_seq(g.view(), self.coef.view());
+            for mut row in s.rows_mut() {
+                for (v, b) in row.iter_mut().zip(&self.intercept) {
+                    *v += b;
+                }
+            }
+            s
+        })
+    }
+
+    /// Decision values for one row, without any parallel machinery (single-row latency).
+    pub fn decision_one(&self, x: &[f64]) -> Vec<f64> {
+        let row = ndarray::ArrayView2::from_shape((1, x.len()), x).expect("one row");
+        let xs = self.scale_inputs(row);
+        let g = self.kernel.gram_block(xs.view(), self.prepared());
+        let s = linalg::ab_seq(g.view(), self.coef.view());
+        s.row(0)
+            .iter()
+            .zip(&self.intercept)
+            .map(|(a, b)| a + b)
+            .collect()
+    }
+
+    /// Labels for decision values (empty strings for regression).
+    pub fn labels_of(&self, s: ArrayView2<f64>) -> Vec<String> {
+        self.rule.labels_of(s)
+    }
+
+    /// Flops per prediction (analytic): a kernel row (≈3 per support vector and input, the
+    /// distance form) plus the coefficient product.
+    pub fn flops(&self) -> usize {
+        self.n_support_vectors() * (3 * self.input_dim() + 2 * self.n_outputs())
+    }
+
+    /// Bytes of the model's parameters (f64), as stored.
+    pub fn parameter_bytes(&self) -> usize {
+        8 * (self.support_vectors.len()
+            + self.coef.len()
+            + self.intercept.len()
+            + self.scaling.as_ref().map(|s| 2 * s.mean.len()).unwrap_or(0))
+    }
+
+    /// The model as a [`TensorFile`] (format version 2).
+    pub fn to_file(&self) -> TensorFile {
+        let mut f = TensorFile::default();
+        let (n, d) = self.support_vectors.dim();
+        let k = self.n_outputs();
+        f.put_f64(
+            "exact.support_vectors",
+            vec![n, d],
+            self.support_vectors.iter().copied().collect(),
+        );
+        f.put_f64(
+            "exact.coefficients",
+            vec![n, k],
+            self.coef.iter().copied().collect(),
+        );
+        f.put_f64("exact.intercepts", vec![k], self.intercept.clone());
+        let input = write_input(&mut f, d, &self.feature_names, self.scaling.as_ref());
+        let m = json!({
+            "format_version": FORMAT_VERSION,
+            "kind": "exact",
+            "generator": generator(),
+            "input": input,
+            "output": write_output(&self.rule),
+            "kernel": self.kernel.to_string(),
+            "training": self.training,
+        });
+        f.manifest = m.as_object().expect("object").clone();
+        f
+    }
+
+    /// Writes the model atomically to `path`.
+    pub fn save(&self, path: &Path) -> Result<()> {
+        self.to_file().write(path)
+    }
+
+    /// Reads an exact model from a parsed file (format version 1 or 2).
+    pub fn from_file(f: &TensorFile, src: &str) -> Result<ExactModel> {
+        let kind = f.get_str("kind", src)?;
+        if kind != "exact" {
+            return Err(Error::input(format!(
+                "{src}: model kind is '{kind}'; expected an exact model"
+            )));
+        }
+        if f.version() == 1 {
+            return v1::exact(f, src);
+        }
+        let kernel: Kernel = f.get_str("kernel", src)?.parse().map_err(|e: Error| {
+            Error::file(format!("{src}: manifest 'kernel': {}", e.message()))
+        })?;
+        let (d, names, scaling) = read_input(f, src)?;
+        let rule = read_output(f, src)?;
+        let k = rule.outputs();
+        let (s, sv) = f.f64_shaped("exact.support_vectors", &[None, Some(d)], src)?;
+        let n = s[0];
+        let coef = f.f64("exact.coefficients", &[Some(n), Some(k)], src)?;
+        let b = f.f64("exact.intercepts", &[Some(k)], src)?;
+        let mut m = ExactModel::new(
+            kernel,
+            Array2::from_shape_vec((n, d), sv).expect("shape checked"),
+            Array2::from_shape_vec((n, k), coef).expect("shape checked"),
+            b,
+            rule.task(),
+            rule.labels().to_vec(),
+            scaling,
+        )
+        .map_err(|e| Error::file(format!("{src}: {}", e.message())))?;
+        m.feature_names = names;
+        m.training = f.manifest.get("training").cloned().unwrap_or(json!({}));
+        Ok(m)
+    }
+
+    /// Reads an exact model file.
+    pub fn load(path: &Path) -> Result<ExactModel> {
+        let f = TensorFile::read(path)?;
+        Self::from_file(&f, &path.display().to_string())
+    }
+}

@@ -1,0 +1,58 @@
+//! `cos_sin`: the paired Fourier output `y = c·[cos x, sin x]` (width doubles).
+
+use crate::program::op::{check_finite, rows_map, Cost, Op, Reader, Writer};
+use crate::transform::trig::scaled_sin_cos;
+use crate::Result;
+use ndarray::Array2;
+
+/// Paired cosine and sine.
+#[derive(Debug, Clone)]
+pub struct CosSin {
+    c: f64,
+}
+
+impl CosSin {
+    /// Output scale `c` (finite).
+    pub fn new(c: f64) -> Result<CosSin> {
+        check_finite(&[c], "cos_sin step", false)?;
+        Ok(CosSin { c })
+    }
+    /// The output scale.
+    pub fn scale(&self) -> f64 {
+        self.c
+    }
+}
+
+impl Op for CosSin {
+    const NAME: &'static str = "cos_sin";
+    fn out_dim(&self, ins: &[usize]) -> std::result::Result<usize, String> {
+        match ins {
+            [n] => Ok(2 * n),
+            _ => Err(format!("expects one input, got {}", ins.len())),
+        }
+    }
+    fn apply(&self, x: Array2<f64>) -> Array2<f64> {
+        let m = x.ncols();
+        rows_map(&x, 2 * m, |a, b| {
+            let (co, so) = b.split_at_mut(m);
+            scaled_sin_cos(a, self.c, co, so);
+        })
+    }
+    fn cost(&self, ins: &[usize], out: usize) -> Cost {
+        Cost {
+            flops: out as u64,
+            transcendental: ins[0] as u64,
+            activation_bytes: 8 * (ins[0] + out) as u64,
+            ..Cost::default()
+        }
+    }
+    fn describe(&self) -> String {
+        format!("[cos, sin] × {:.6e}", self.c)
+    }
+    fn write(&self, w: &mut Writer) {
+        w.scalar("c", self.c);
+    }
+    fn read(r: &Reader) -> Result<Self> {
+        CosSin::new(r.num("c")?)
+    }
+}

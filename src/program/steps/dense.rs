@@ -1,0 +1,69 @@
+//! `dense`: a dense projection `y = W x` (`W` is `m × n`, stored row-major as float64).
+
+use crate::linalg;
+use crate::program::op::{Cost, Op, Reader, Writer};
+use crate::{Error, Result};
+use ndarray::Array2;
+
+/// Dense projection.
+#[derive(Debug, Clone)]
+pub struct Dense {
+    w: Array2<f64>,
+}
+
+impl Dense {
+    /// `W` (`m × n`, both ≥ 1, finite).
+    pub fn new(w: Array2<f64>) -> Result<Dense> {
+        if w.nrows() == 0 || w.ncols() == 0 {
+            return Err(Error::input("dense step: the matrix is empty"));
+        }
+        if w.iter().any(|v| !v.is_finite()) {
+            return Err(Error::input(
+                "dense step: the matrix has a non-finite entry",
+            ));
+        }
+        Ok(Dense { w })
+    }
+    /// `W`.
+    pub fn matrix(&self) -> &Array2<f64> {
+        &self.w
+    }
+}
+
+impl Op for Dense {
+    const NAME: &'static str = "dense";
+    fn out_dim(&self, ins: &[usize]) -> std::result::Result<usize, String> {
+        match ins {
+            [n] if *n == self.w.ncols() => Ok(self.w.nrows()),
+            [n] => Err(format!(
+                "matrix has {} columns but the input width is {n}",
+                self.w.ncols()
+            )),
+            _ => Err(format!("expects one input, got {}", ins.len())),
+        }
+    }
+    fn apply(&self, x: Array2<f64>) -> Array2<f64> {
+        linalg::abt_seq(x.view(), self.w.view())
+    }
+    fn cost(&self, ins: &[usize], out: usize) -> Cost {
+        Cost {
+            flops: 2 * self.w.len() as u64,
+            param_bytes: 8 * self.w.len() as u64,
+            activation_bytes: 8 * (ins[0] + out) as u64,
+            ..Cost::default()
+        }
+    }
+    fn describe(&self) -> String {
+        format!("{} × {} matrix", self.w.nrows(), self.w.ncols())
+    }
+    fn write(&self, w: &mut Writer) {
+        w.f64s(
+            "weights",
+            vec![self.w.nrows(), self.w.ncols()],
+            self.w.iter().copied().collect(),
+        );
+    }
+    fn read(r: &Reader) -> Result<Self> {
+        Dense::new(r.matrix("weights", None, Some(r.in_dim()))?).map_err(|e| r.bad(e))
+    }
+}

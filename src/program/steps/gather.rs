@@ -1,0 +1,77 @@
+//! `gather`: `y_i = x_{idx_i}` — permutations, truncations and repetitions (int32 indices).
+
+use crate::program::op::{rows_map, Cost, Op, Reader, Writer};
+use crate::{Error, Result};
+use ndarray::Array2;
+
+/// Index selection.
+#[derive(Debug, Clone)]
+pub struct Gather {
+    idx: Vec<u32>,
+}
+
+impl Gather {
+    /// Indices (each checked against the input width when the step is placed).
+    pub fn new(idx: Vec<u32>) -> Result<Gather> {
+        if idx.is_empty() {
+            return Err(Error::input("gather step: no indices"));
+        }
+        Ok(Gather { idx })
+    }
+    /// The first `n` entries (a truncation).
+    pub fn first(n: usize) -> Result<Gather> {
+        Gather::new((0..n as u32).collect())
+    }
+    /// The indices.
+    pub fn indices(&self) -> &[u32] {
+        &self.idx
+    }
+}
+
+impl Op for Gather {
+    const NAME: &'static str = "gather";
+    fn out_dim(&self, ins: &[usize]) -> std::result::Result<usize, String> {
+        match ins {
+            [n] => match self.idx.iter().position(|i| *i as usize >= *n) {
+                Some(p) => Err(format!(
+                    "index {} at position {p} is out of range for width {n}",
+                    self.idx[p]
+                )),
+                None => Ok(self.idx.len()),
+            },
+            _ => Err(format!("expects one input, got {}", ins.len())),
+        }
+    }
+    fn apply(&self, x: Array2<f64>) -> Array2<f64> {
+        rows_map(&x, self.idx.len(), |a, b| {
+            b.iter_mut()
+                .zip(&self.idx)
+                .for_each(|(o, i)| *o = a[*i as usize])
+        })
+    }
+    fn cost(&self, ins: &[usize], out: usize) -> Cost {
+        Cost {
+            param_bytes: 4 * out as u64,
+            activation_bytes: 8 * (ins[0] + out) as u64,
+            ..Cost::default()
+        }
+    }
+    fn describe(&self) -> String {
+        format!("{} indices (int32)", self.idx.len())
+    }
+    fn write(&self, w: &mut Writer) {
+        w.i32s(
+            "indices",
+            vec![self.idx.len()],
+            self.idx.iter().map(|v| *v as i32).collect(),
+        );
+    }
+    fn read(r: &Reader) -> Result<Self> {
+        let v = r.i32s("indices", &[None])?;
+        let idx: Vec<u32> = v
+            .iter()
+            .map(|i| u32::try_from(*i).map_err(|_| r.bad(format!("negative index {i}"))))
+            .collect::<Result<_>>()?;
+        Gather::new(idx).map_err(|e| r.bad(e))
+    }
+}

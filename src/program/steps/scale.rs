@@ -1,0 +1,52 @@
+//! `scale`: per-dimension scaling `y_j = s_j · x_j` (a kernel's inverse lengthscales, a
+//! diagonal of Fastfood, a method's per-feature coefficients).
+
+use crate::program::op::{check_finite, one_input, rows_in_place, Cost, Op, Reader, Writer};
+use crate::Result;
+use ndarray::Array2;
+
+/// Per-dimension scale.
+#[derive(Debug, Clone)]
+pub struct Scale {
+    s: Vec<f64>,
+}
+
+impl Scale {
+    /// A scale vector (every entry finite).
+    pub fn new(s: Vec<f64>) -> Result<Scale> {
+        check_finite(&s, "scale step", false)?;
+        Ok(Scale { s })
+    }
+    /// The factors.
+    pub fn factors(&self) -> &[f64] {
+        &self.s
+    }
+}
+
+impl Op for Scale {
+    const NAME: &'static str = "scale";
+    fn out_dim(&self, ins: &[usize]) -> std::result::Result<usize, String> {
+        one_input(ins, self.s.len())?;
+        Ok(self.s.len())
+    }
+    fn apply(&self, x: Array2<f64>) -> Array2<f64> {
+        rows_in_place(x, |r| r.iter_mut().zip(&self.s).for_each(|(v, s)| *v *= s))
+    }
+    fn cost(&self, _ins: &[usize], out: usize) -> Cost {
+        Cost {
+            flops: out as u64,
+            param_bytes: 8 * out as u64,
+            activation_bytes: 16 * out as u64,
+            ..Cost::default()
+        }
+    }
+    fn describe(&self) -> String {
+        format!("{} factors", self.s.len())
+    }
+    fn write(&self, w: &mut Writer) {
+        w.f64s("factors", vec![self.s.len()], self.s.clone());
+    }
+    fn read(r: &Reader) -> Result<Self> {
+        Scale::new(r.f64s("factors", &[Some(r.in_dim())])?)
+    }
+}

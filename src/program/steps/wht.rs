@@ -1,0 +1,63 @@
+//! `wht`: the unnormalised Walsh–Hadamard transform `H_b` applied to each consecutive block
+//! of `b` values (`b` a power of two; Sylvester's `H_{2n} = [[H_n, H_n], [H_n, −H_n]]`).
+
+use crate::program::op::{log2_ceil, rows_in_place, Cost, Op, Reader, Writer};
+use crate::transform::wht_in_place;
+use crate::{Error, Result};
+use ndarray::Array2;
+
+/// Blockwise Walsh–Hadamard transform.
+#[derive(Debug, Clone)]
+pub struct Wht {
+    block: usize,
+}
+
+impl Wht {
+    /// Block length: a power of two.
+    pub fn new(block: usize) -> Result<Wht> {
+        if block == 0 || !block.is_power_of_two() {
+            return Err(Error::input(format!(
+                "wht step: block length {block} is not a power of two"
+            )));
+        }
+        Ok(Wht { block })
+    }
+    /// Block length.
+    pub fn block(&self) -> usize {
+        self.block
+    }
+}
+
+impl Op for Wht {
+    const NAME: &'static str = "wht";
+    fn out_dim(&self, ins: &[usize]) -> std::result::Result<usize, String> {
+        match ins {
+            [n] if *n > 0 && n % self.block == 0 => Ok(*n),
+            [n] => Err(format!(
+                "input width {n} is not a multiple of the block {}",
+                self.block
+            )),
+            _ => Err(format!("expects one input, got {}", ins.len())),
+        }
+    }
+    fn apply(&self, x: Array2<f64>) -> Array2<f64> {
+        let b = self.block;
+        rows_in_place(x, |r| r.chunks_exact_mut(b).for_each(wht_in_place))
+    }
+    fn cost(&self, _ins: &[usize], out: usize) -> Cost {
+        Cost {
+            flops: out as u64 * log2_ceil(self.block),
+            activation_bytes: 16 * out as u64,
+            ..Cost::default()
+        }
+    }
+    fn describe(&self) -> String {
+        format!("blocks of {}", self.block)
+    }
+    fn write(&self, w: &mut Writer) {
+        w.scalar("block", self.block);
+    }
+    fn read(r: &Reader) -> Result<Self> {
+        Wht::new(r.uint("block")?).map_err(|e| r.bad(e))
+    }
+}
