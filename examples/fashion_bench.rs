@@ -136,7 +136,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                     reps: 200,
                     ..Default::default()
                 };
-                let mut r = build(
+                let r = build(
                     &model,
                     teacher,
                     xte.view(),
@@ -144,6 +144,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                     Some(te_dec.clone()),
                     &opts,
                 )?;
+                let mut r = r.to_json();
                 r["teacher"] = serde_json::json!(tname);
                 r["landmark_rule"] =
                     serde_json::json!(args.get(4).cloned().unwrap_or_else(|| "uniform".into()));

@@ -8,7 +8,7 @@
 //!
 //! - [`kernel`]: expression syntax, exact evaluation, Gram blocks;
 //! - [`data`]: CSV and `.npy` readers and writers, input scaling;
-//! - [`format`]: the file container (safetensors + JSON manifest), a leaf;
+//! - [`format`](mod@format): the file container (safetensors + JSON manifest), a leaf;
 //! - [`program`]: feature programs, the primitive steps a compiled model runs;
 //! - [`features`]: feature-map specs and one sampler per method (spec → program);
 //! - [`model`]: output rules, exact and compiled models and their files;

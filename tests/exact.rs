@@ -302,8 +302,8 @@ fn multiclass_svm_file_is_read_by_python_and_deterministic() {
     );
     let info = ok(&["inspect", s(&m1), "--json"]);
     let v: serde_json::Value = serde_json::from_str(&info).unwrap();
-    assert_eq!(v["manifest"]["task"], "ovo");
-    assert_eq!(v["manifest"]["n_outputs"], 6);
+    assert_eq!(v["manifest"]["output"]["task"], "ovo");
+    assert_eq!(v["manifest"]["output"]["outputs"], 6);
 }
 
 #[test]

@@ -210,6 +210,8 @@ fn inspect_prints_the_program() {
         s(&root().join("models/pump_svm.safetensors")),
         "--calib",
         s(&calib),
+        "--target",
+        "condition",
         "--method",
         "hadamard",
         "--features",

@@ -179,35 +179,22 @@ pub(crate) fn run(a: Args) -> Result<()> {
     let pb = super::progress::bar(1, "report");
     let mut rep = report::build(&model, &exact, ex.view(), truth.as_deref(), None, &opts)?;
     pb.finish_and_clear();
-    rep["evaluated_on"] = serde_json::json!(on);
+    rep.evaluated_on = Some(on);
     finish(&a, &mut model, Some(rep))
 }
 
 fn finish(
     a: &Args,
     model: &mut kernelpress::model::CompiledModel,
-    rep: Option<serde_json::Value>,
+    rep: Option<report::Report>,
 ) -> Result<()> {
+    let mut text = String::new();
     if let Some(r) = &rep {
         // The manifest keeps the deterministic part of the report: timings vary run to run
         // and would break bit-identical model files.
-        let mut summary = r.clone();
-        if let Some(m) = summary.as_object_mut() {
-            m.retain(|k, _| {
-                !(k.starts_with("latency")
-                    || k.starts_with("throughput")
-                    || k.starts_with("speedup")
-                    || k == "threads")
-            });
-        }
-        model.report = summary;
-    }
-    let mut text = String::new();
-    if let Some(r) = &rep {
-        if let Some(serde_json::Value::Array(w)) = r.get("warnings") {
-            for x in w {
-                super::progress::warn(x.as_str().unwrap_or(""));
-            }
+        model.report = r.without_timing().to_json();
+        for w in &r.warnings {
+            super::progress::warn(w);
         }
         if let Some(p) = &a.report {
             write_atomic(
@@ -220,10 +207,11 @@ fn finish(
     }
     model.save(&a.out)?;
     text.push_str(&format!(
-        "wrote {} ({} features, {} steps, {} bytes of parameters)\n",
+        "wrote {} ({} features, {} program step{}, {} bytes of parameters)\n",
         a.out.display(),
         model.features(),
         model.program().len(),
+        if model.program().len() == 1 { "" } else { "s" },
         model.parameter_bytes()
     ));
     super::print_stdout(&text)

@@ -74,11 +74,9 @@ pub(crate) fn run(a: Args) -> Result<()> {
         ..ReportOptions::default()
     };
     let mut r = report::build(&c, &e, t.x.view(), t.target.as_deref(), None, &opts)?;
-    r["evaluated_on"] = serde_json::json!(a.data.display().to_string());
-    if let Some(serde_json::Value::Array(w)) = r.get("warnings") {
-        for x in w {
-            super::progress::warn(x.as_str().unwrap_or(""));
-        }
+    r.evaluated_on = Some(a.data.display().to_string());
+    for w in &r.warnings {
+        super::progress::warn(w);
     }
     let pretty = format!("{}\n", serde_json::to_string_pretty(&r).unwrap());
     match a.json.as_deref() {

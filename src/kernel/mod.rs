@@ -113,12 +113,32 @@ pub enum Kernel {
         /// coef0 (finite).
         coef0: f64,
     },
-    /// Sum of two or more kernels.
-    Sum(Vec<Kernel>),
-    /// Product of two or more kernels.
-    Product(Vec<Kernel>),
+    /// Sum of two or more kernels (built by [`Kernel::sum`]).
+    Sum(Terms),
+    /// Product of two or more kernels (built by [`Kernel::product`]).
+    Product(Terms),
     /// `c * k` with c > 0.
     Scaled(f64, Box<Kernel>),
+}
+
+/// Two or more kernels: the parts of a sum or a product. Only [`Kernel::sum`] and
+/// [`Kernel::product`] build one, so an empty or one-part sum cannot exist.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Terms(Vec<Kernel>);
+
+impl std::ops::Deref for Terms {
+    type Target = [Kernel];
+    fn deref(&self) -> &[Kernel] {
+        &self.0
+    }
+}
+
+impl IntoIterator for Terms {
+    type Item = Kernel;
+    type IntoIter = std::vec::IntoIter<Kernel>;
+    fn into_iter(self) -> Self::IntoIter {
+        self.0.into_iter()
+    }
 }
 
 impl std::str::FromStr for Kernel {
@@ -135,8 +155,15 @@ impl std::fmt::Display for Kernel {
 }
 
 impl Kernel {
-    /// Builds the sum of `parts`, flattening nested sums.
-    pub fn sum(parts: Vec<Kernel>) -> Kernel {
+    /// Builds the sum of `parts`, flattening nested sums (one part is that part itself).
+    ///
+    /// ```
+    /// use kernelpress::kernel::Kernel;
+    /// assert!(Kernel::sum(vec![]).is_err());
+    /// let k = Kernel::sum(vec![Kernel::Linear, "gaussian(gamma=1)".parse().unwrap()]).unwrap();
+    /// assert_eq!(k.to_string(), "linear() + gaussian(gamma=1.0)");
+    /// ```
+    pub fn sum(parts: Vec<Kernel>) -> Result<Kernel> {
         let mut flat = Vec::new();
         for p in parts {
             match p {
@@ -144,15 +171,15 @@ impl Kernel {
                 other => flat.push(other),
             }
         }
-        if flat.len() == 1 {
-            flat.pop().unwrap()
-        } else {
-            Kernel::Sum(flat)
+        match flat.len() {
+            0 => Err(Error::input("a sum of kernels needs at least one part")),
+            1 => Ok(flat.pop().expect("one part")),
+            _ => Ok(Kernel::Sum(Terms(flat))),
         }
     }
 
     /// Builds the product of `parts`, flattening nested products.
-    pub fn product(parts: Vec<Kernel>) -> Kernel {
+    pub fn product(parts: Vec<Kernel>) -> Result<Kernel> {
         let mut flat = Vec::new();
         for p in parts {
             match p {
@@ -160,10 +187,10 @@ impl Kernel {
                 other => flat.push(other),
             }
         }
-        if flat.len() == 1 {
-            flat.pop().unwrap()
-        } else {
-            Kernel::Product(flat)
+        match flat.len() {
+            0 => Err(Error::input("a product of kernels needs at least one part")),
+            1 => Ok(flat.pop().expect("one part")),
+            _ => Ok(Kernel::Product(Terms(flat))),
         }
     }
 

@@ -151,7 +151,7 @@ impl Parser {
         while self.eat(&Tok::Plus) {
             terms.push(self.term()?);
         }
-        Ok(Kernel::sum(terms))
+        Kernel::sum(terms)
     }
 
     fn term(&mut self) -> Result<Kernel> {
@@ -179,7 +179,7 @@ impl Parser {
                 "kernel expression: a number alone is not a kernel (near position {start}); write for example 2 * linear()"
             )));
         }
-        let k = Kernel::product(ks);
+        let k = Kernel::product(ks)?;
         Ok(match coef {
             Some(c) => Kernel::Scaled(c, Box::new(k)),
             None => k,

@@ -148,8 +148,10 @@ mod prop {
     fn expr() -> impl Strategy<Value = Kernel> {
         leaf().prop_recursive(3, 12, 3, |inner| {
             prop_oneof![
-                proptest::collection::vec(inner.clone(), 2..4).prop_map(Kernel::sum),
-                proptest::collection::vec(inner.clone(), 2..4).prop_map(Kernel::product),
+                proptest::collection::vec(inner.clone(), 2..4)
+                    .prop_map(|v| Kernel::sum(v).unwrap()),
+                proptest::collection::vec(inner.clone(), 2..4)
+                    .prop_map(|v| Kernel::product(v).unwrap()),
                 (1e-3f64..1e3, inner).prop_map(|(c, k)| Kernel::Scaled(c, Box::new(k))),
             ]
         })

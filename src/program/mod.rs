@@ -65,7 +65,7 @@ macro_rules! step_enum {
         #[non_exhaustive]
         pub enum Step {
             $(
-                #[doc = concat!("See [`steps::", stringify!($ty), "`].")]
+                #[doc = concat!("See [`", stringify!($ty), "`].")]
                 $variant($ty),
             )*
         }

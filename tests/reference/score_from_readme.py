@@ -16,7 +16,7 @@ from safetensors.numpy import load_file
 # --- Kernel expressions (README "Kernel expressions") -----------------------------------
 
 def _tokens(text):
-    return re.findall(r"\d+\.?\d*(?:[eE][-+]?\d+)?|\.\d+(?:[eE][-+]?\d+)?|[A-Za-z_]+|[()\[\]=,*+]", text)
+    return re.findall(r"\d+\.?\d*(?:[eE][-+]?\d+)?|\.\d+(?:[eE][-+]?\d+)?|[A-Za-z_][A-Za-z_0-9]*|[()\[\]=,*+]", text)
 
 
 class _Parser:
