@@ -33,6 +33,7 @@
 pub mod data;
 mod error;
 pub mod exact;
+pub mod export;
 pub mod features;
 pub mod fit;
 pub mod format;

@@ -3,6 +3,7 @@
 //! internal failures.
 
 mod compile;
+mod export;
 mod featurize;
 mod import;
 mod inspect;
@@ -35,6 +36,7 @@ enum Command {
     KernelCheck(kernel_check::Args),
     Featurize(featurize::Args),
     Compile(compile::Args),
+    Export(export::Args),
     Report(report::Args),
 }
 
@@ -59,6 +61,7 @@ pub fn main() -> i32 {
         Command::KernelCheck(a) => kernel_check::run(a),
         Command::Featurize(a) => featurize::run(a),
         Command::Compile(a) => compile::run(a),
+        Command::Export(a) => export::run(a),
         Command::Report(a) => report::run(a),
     };
     match res {

@@ -39,8 +39,12 @@ pub enum Data {
     F64(Vec<f64>),
     /// int32 (indices: permutations, gathers, hash buckets).
     I32(Vec<i32>),
-    /// int8 (signs).
+    /// int8 (signs, quantized weights).
     I8(Vec<i8>),
+    /// float32 (exported weights only; model files use float64).
+    F32(Vec<f32>),
+    /// IEEE binary16 bit patterns (exported weights only).
+    F16(Vec<u16>),
 }
 
 impl Data {
@@ -50,6 +54,8 @@ impl Data {
             Data::F64(v) => v.len(),
             Data::I32(v) => v.len(),
             Data::I8(v) => v.len(),
+            Data::F32(v) => v.len(),
+            Data::F16(v) => v.len(),
         }
     }
     /// True when empty.
@@ -62,6 +68,8 @@ impl Data {
             Data::F64(_) => 8,
             Data::I32(_) => 4,
             Data::I8(_) => 1,
+            Data::F32(_) => 4,
+            Data::F16(_) => 2,
         }
     }
     /// The dtype's name as safetensors writes it.
@@ -70,6 +78,8 @@ impl Data {
             Data::F64(_) => "F64",
             Data::I32(_) => "I32",
             Data::I8(_) => "I8",
+            Data::F32(_) => "F32",
+            Data::F16(_) => "F16",
         }
     }
 }
@@ -110,6 +120,10 @@ impl TensorFile {
     pub fn put_i8(&mut self, name: &str, shape: Vec<usize>, data: Vec<i8>) {
         self.put(name, shape, Data::I8(data))
     }
+    /// Adds a tensor of any dtype.
+    pub fn put_data(&mut self, name: &str, shape: Vec<usize>, data: Data) {
+        self.put(name, shape, data)
+    }
 
     /// Bytes of all tensor data.
     pub fn data_bytes(&self) -> usize {
@@ -129,6 +143,8 @@ impl TensorFile {
                     Data::F64(v) => (Dtype::F64, v.iter().flat_map(|x| x.to_le_bytes()).collect()),
                     Data::I32(v) => (Dtype::I32, v.iter().flat_map(|x| x.to_le_bytes()).collect()),
                     Data::I8(v) => (Dtype::I8, v.iter().flat_map(|x| x.to_le_bytes()).collect()),
+                    Data::F32(v) => (Dtype::F32, v.iter().flat_map(|x| x.to_le_bytes()).collect()),
+                    Data::F16(v) => (Dtype::F16, v.iter().flat_map(|x| x.to_le_bytes()).collect()),
                 };
                 (k.clone(), t.shape.clone(), dt, b)
             })

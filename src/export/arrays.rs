@@ -1,0 +1,144 @@
+//! Plain weights: a folder of `.npy` files with `program.json`, or one safetensors file
+//! whose `__metadata__["kernelpress"]` holds the same description. The description is the
+//! model file's manifest (README, "Model files") plus a `tensors` map: for each tensor its
+//! file (npy), dtype and shape, and for int8 weights the name of its f32 scales and the axis
+//! they run along (`w = q · scale`, one scale per row for axis 0, per column for axis 1).
+
+use super::precision::{Quant, Quantized};
+use crate::format::{Data, TensorFile};
+use crate::fsio::write_atomic;
+use crate::model::CompiledModel;
+use crate::{Error, Result};
+use serde_json::{json, Map, Value};
+use std::path::{Path, PathBuf};
+
+fn npy(dtype: &str, shape: &[usize], data: &[u8]) -> Vec<u8> {
+    let dims: Vec<String> = shape.iter().map(|d| d.to_string()).collect();
+    let shape_s = match dims.len() {
+        0 => "()".to_string(),
+        1 => format!("({},)", dims[0]),
+        _ => format!("({})", dims.join(", ")),
+    };
+    let mut header =
+        format!("{{'descr': '{dtype}', 'fortran_order': False, 'shape': {shape_s}, }}");
+    while (10 + header.len() + 1) % 64 != 0 {
+        header.push(' ');
+    }
+    header.push('\n');
+    let mut out = b"\x93NUMPY\x01\x00".to_vec();
+    out.extend((header.len() as u16).to_le_bytes());
+    out.extend(header.as_bytes());
+    out.extend(data);
+    out
+}
+
+/// A named tensor to write.
+type Named = (String, Vec<usize>, Data);
+
+/// The tensors of `q` as (name, shape, data) plus their entries in the description.
+fn entries(q: &Quantized) -> (Vec<Named>, Map<String, Value>) {
+    let mut out = Vec::new();
+    let mut desc = Map::new();
+    for (name, (shape, v)) in &q.tensors {
+        let (data, dtype) = match v {
+            Quant::F32(x) => (Data::F32(x.clone()), "float32"),
+            Quant::F16(x) => (Data::F16(x.clone()), "float16"),
+            Quant::Signs(x) => (Data::I8(x.clone()), "int8"),
+            Quant::Index(x) => (Data::I32(x.clone()), "int32"),
+            Quant::I8 { q, scale, axis } => {
+                let sname = format!("{name}.scale");
+                out.push((sname.clone(), vec![scale.len()], Data::F32(scale.clone())));
+                desc.insert(
+                    name.clone(),
+                    json!({"dtype": "int8", "shape": shape, "scale": sname, "scale_axis": axis}),
+                );
+                out.push((name.clone(), shape.clone(), Data::I8(q.clone())));
+                continue;
+            }
+        };
+        desc.insert(name.clone(), json!({"dtype": dtype, "shape": shape}));
+        out.push((name.clone(), shape.clone(), data));
+    }
+    (out, desc)
+}
+
+fn description(model: &CompiledModel, q: &Quantized, tensors: Map<String, Value>) -> Value {
+    let f = model.to_file();
+    let mut m = f.manifest.clone();
+    m.insert("kind".into(), json!("compiled-weights"));
+    m.insert("precision".into(), json!(q.precision.name()));
+    m.insert("tensors".into(), Value::Object(tensors));
+    Value::Object(m)
+}
+
+fn bytes_of(d: &Data) -> (&'static str, Vec<u8>) {
+    match d {
+        Data::F64(v) => ("<f8", v.iter().flat_map(|x| x.to_le_bytes()).collect()),
+        Data::F32(v) => ("<f4", v.iter().flat_map(|x| x.to_le_bytes()).collect()),
+        Data::F16(v) => ("<f2", v.iter().flat_map(|x| x.to_le_bytes()).collect()),
+        Data::I32(v) => ("<i4", v.iter().flat_map(|x| x.to_le_bytes()).collect()),
+        Data::I8(v) => ("|i1", v.iter().flat_map(|x| x.to_le_bytes()).collect()),
+    }
+}
+
+/// A folder of `.npy` files (one per tensor, named after it) and `program.json`.
+pub fn write_npy(
+    model: &CompiledModel,
+    q: &Quantized,
+    dir: &Path,
+) -> Result<(Vec<PathBuf>, Vec<String>)> {
+    if dir.exists() && !dir.is_dir() {
+        return Err(Error::input(format!(
+            "{}: exists and is not a folder; --format npy writes a folder",
+            dir.display()
+        )));
+    }
+    std::fs::create_dir_all(dir)
+        .map_err(|e| Error::io(format!("{}: cannot create the folder: {e}", dir.display())))?;
+    let (ts, mut desc) = entries(q);
+    let mut files = Vec::new();
+    for (name, shape, data) in &ts {
+        let (dt, raw) = bytes_of(data);
+        let file = format!("{name}.npy");
+        let p = dir.join(&file);
+        write_atomic(&p, &npy(dt, shape, &raw))?;
+        if let Some(Value::Object(e)) = desc.get_mut(name) {
+            e.insert("file".into(), json!(file));
+        } else {
+            desc.insert(name.clone(), json!({"file": file}));
+        }
+        files.push(p);
+    }
+    let d = description(model, q, desc);
+    let p = dir.join("program.json");
+    write_atomic(
+        &p,
+        format!("{}\n", serde_json::to_string_pretty(&d).expect("json")).as_bytes(),
+    )?;
+    files.push(p);
+    Ok((
+        files,
+        vec!["weights as .npy files, steps in program.json".into()],
+    ))
+}
+
+/// One safetensors file with the description in its metadata.
+pub fn write_safetensors(
+    model: &CompiledModel,
+    q: &Quantized,
+    out: &Path,
+) -> Result<(Vec<PathBuf>, Vec<String>)> {
+    let (ts, desc) = entries(q);
+    let mut f = TensorFile::default();
+    for (name, shape, data) in ts {
+        f.put_data(&name, shape, data);
+    }
+    if let Value::Object(m) = description(model, q, desc) {
+        f.manifest = m;
+    }
+    f.write(out)?;
+    Ok((
+        vec![out.to_path_buf()],
+        vec!["weights as safetensors tensors, steps in the metadata".into()],
+    ))
+}

@@ -1,0 +1,496 @@
+//! Exports proven against outside runtimes: onnx's checker and onnxruntime, gcc for the C
+//! export, rustc for the Rust export, numpy for the plain weights; precision checks
+//! recomputed in numpy.
+
+mod common;
+use common::*;
+use kernelpress::model::CompiledModel;
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+fn head_lines(src: &Path, dst: &Path, n: usize) {
+    let text = std::fs::read_to_string(src).unwrap();
+    let t: String = text.lines().take(n + 1).map(|l| format!("{l}\n")).collect();
+    std::fs::write(dst, t).unwrap();
+}
+
+struct Data {
+    dir: PathBuf,
+    test: PathBuf,
+}
+
+fn data(name: &str) -> Data {
+    let dir = tmpdir(name);
+    let test = dir.join("test.csv");
+    head_lines(&root().join("models/pump_test.csv"), &test, 200);
+    Data { dir, test }
+}
+
+/// Compiled models covering every method (teacher mode for the Gaussian methods, labels
+/// mode for the others), as (name, path).
+fn models(d: &Data) -> Vec<(String, PathBuf)> {
+    let calib = d.dir.join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 800);
+    let train = d.dir.join("train.csv");
+    head_lines(&root().join("models/pump_train.csv"), &train, 600);
+    let exact = root().join("models/pump_svm.safetensors");
+    let mut out = Vec::new();
+    for (method, features, extra) in [
+        ("fourier", "128", vec!["--variant", "phase"]),
+        ("orthogonal", "128", vec![]),
+        ("hadamard", "128", vec![]),
+        ("fastfood", "128", vec![]),
+        ("quasi", "128", vec![]),
+        ("nystrom", "96", vec![]),
+        ("taylor", "165", vec![]),
+    ] {
+        let p = d.dir.join(format!("{method}.safetensors"));
+        let mut args = vec![
+            "compile",
+            s(&exact),
+            "--calib",
+            s(&calib),
+            "--target",
+            "condition",
+            "--method",
+            method,
+            "--features",
+            features,
+            "--no-timing",
+            "--out",
+            s(&p),
+        ];
+        args.extend(extra);
+        ok(&args);
+        out.push((method.to_string(), p));
+    }
+    for (name, kernel, method) in [
+        ("maclaurin", "polynomial(degree=2, gamma=0.2, coef0=1)", "maclaurin"),
+        ("tensorsketch", "polynomial(degree=2, gamma=0.3, coef0=1)", "tensorsketch"),
+        ("relu", "arccos(order=1)", "relu"),
+        ("step", "arccos(order=0)", "relu"),
+        ("identity", "linear()", "identity"),
+        ("sum", "laplacian(gamma=0.3) + 0.5 * linear()", "fourier"),
+        ("product", "gaussian(gamma=0.2) * linear()", "fourier"),
+        (
+            "landmarks",
+            "matern(nu=1.5, lengthscale=2) + sigmoid(gamma=0.05, coef0=0) * rational_quadratic(alpha=2, lengthscale=3)",
+            "nystrom",
+        ),
+        ("arccos_landmarks", "2 * arccos(order=1) + polynomial(degree=2, gamma=0.1, coef0=1)", "nystrom"),
+    ] {
+        let p = d.dir.join(format!("{name}.safetensors"));
+        ok(&[
+            "compile",
+            "--kernel",
+            kernel,
+            "--data",
+            s(&train),
+            "--target",
+            "condition",
+            "--standardize",
+            "--method",
+            method,
+            "--features",
+            "128",
+            "--seed",
+            "4",
+            "--out",
+            s(&p),
+        ]);
+        out.push((name.to_string(), p));
+    }
+    // A regression model and a binary one.
+    let reg = d.dir.join("train_reg.csv");
+    let text = std::fs::read_to_string(&train).unwrap();
+    let mut t = String::new();
+    for (i, l) in text.lines().enumerate() {
+        let cells: Vec<&str> = l.split(',').collect();
+        let last = cells.len() - 1;
+        let y = if i == 0 {
+            "condition".to_string()
+        } else {
+            format!(
+                "{}",
+                cells[0].parse::<f64>().unwrap() * 0.5 + cells[1].parse::<f64>().unwrap()
+            )
+        };
+        t.push_str(&format!("{},{y}\n", cells[..last].join(",")));
+    }
+    std::fs::write(&reg, t).unwrap();
+    let p = d.dir.join("regression.safetensors");
+    ok(&[
+        "compile",
+        "--kernel",
+        "gaussian(gamma=0.1)",
+        "--data",
+        s(&reg),
+        "--target",
+        "condition",
+        "--regression",
+        "--standardize",
+        "--method",
+        "orthogonal",
+        "--features",
+        "64",
+        "--out",
+        s(&p),
+    ]);
+    out.push(("regression".into(), p));
+    let bin = d.dir.join("train_bin.csv");
+    let text = std::fs::read_to_string(&train).unwrap();
+    let t: String = text
+        .lines()
+        .map(|l| {
+            l.replace("imbalance", "faulty")
+                .replace("misalignment", "faulty")
+                .replace("bearing_wear", "faulty")
+                + "\n"
+        })
+        .collect();
+    std::fs::write(&bin, t).unwrap();
+    let p = d.dir.join("binary.safetensors");
+    ok(&[
+        "compile",
+        "--kernel",
+        "gaussian(gamma=0.1)",
+        "--data",
+        s(&bin),
+        "--target",
+        "condition",
+        "--standardize",
+        "--method",
+        "hadamard",
+        "--features",
+        "64",
+        "--out",
+        s(&p),
+    ]);
+    out.push(("binary".into(), p));
+    out
+}
+
+fn score(d: &Data, model: &Path, name: &str) -> PathBuf {
+    let sc = d.dir.join(format!("score_{name}.csv"));
+    ok(&[
+        "score",
+        s(model),
+        "--data",
+        s(&d.test),
+        "--target",
+        "condition",
+        "--out",
+        s(&sc),
+    ]);
+    sc
+}
+
+#[test]
+fn onnx_export_runs_in_onnxruntime_for_every_method() {
+    let d = data("onnx_export_runs_in_onnxruntime_for_every_method");
+    for (name, m) in models(&d) {
+        let sc = score(&d, &m, &name);
+        let onnx = d.dir.join(format!("{name}.onnx"));
+        let o = ok(&["export", s(&m), "--format", "onnx", "--out", s(&onnx)]);
+        assert!(o.contains("wrote"), "{o}");
+        let r = py(
+            "onnx_check.py",
+            &[s(&onnx), s(&m), s(&d.test), "condition", s(&sc)],
+        );
+        eprint!("{name}: {r}");
+    }
+}
+
+/// Rows of the test data as whitespace-separated numbers (features only).
+fn numbers(test: &Path) -> String {
+    let t = kernelpress::data::read_table(test, Some("condition"), false).unwrap();
+    let mut s = String::new();
+    for r in t.x.rows() {
+        for v in r {
+            s.push_str(&format!("{v} "));
+        }
+        s.push('\n');
+    }
+    s
+}
+
+/// Compares a program's printed decisions (one row per line: k values then a label index)
+/// with `score`, within the f32 bound of the onnx check.
+fn compare(model: &Path, sc: &Path, printed: &str, test: &Path) {
+    let m = CompiledModel::load(model).unwrap();
+    let t = kernelpress::data::read_table(test, Some("condition"), false).unwrap();
+    let want = m.decision(t.x.view());
+    let xs = match m.scaling() {
+        Some(s) => s.apply(t.x.view()),
+        None => t.x.clone(),
+    };
+    let z = m.program().apply(xs.view());
+    let scale = z
+        .mapv(f64::abs)
+        .dot(&m.head().mapv(f64::abs))
+        .iter()
+        .fold(0.0f64, |a, v| a.max(*v));
+    let dmax = want.iter().fold(1.0f64, |a, v| a.max(v.abs()));
+    let tol = 1e-4 * dmax + 64.0 * 2f64.powi(-24) * scale;
+    let labels = std::fs::read_to_string(sc).unwrap();
+    let score_labels: Vec<String> = labels
+        .lines()
+        .skip(1)
+        .map(|l| l.rsplit(',').next().unwrap().to_string())
+        .collect();
+    let k = m.n_outputs();
+    let mut worst = 0.0f64;
+    for (i, line) in printed.lines().enumerate() {
+        let v: Vec<f64> = line
+            .split_whitespace()
+            .map(|t| t.parse().unwrap())
+            .collect();
+        assert_eq!(v.len(), k + 1, "line {i}: {line}");
+        for c in 0..k {
+            worst = worst.max((v[c] - want[[i, c]]).abs());
+        }
+        if m.task().is_classifier() {
+            let li = v[k] as usize;
+            let near = want.row(i).iter().any(|x| x.abs() <= tol);
+            assert!(
+                m.labels()[li] == score_labels[i] || near,
+                "row {i}: label {} vs {}",
+                m.labels()[li],
+                score_labels[i]
+            );
+        }
+    }
+    assert_eq!(printed.lines().count(), want.nrows());
+    assert!(
+        worst <= tol,
+        "{}: max |Δ| {worst:e} > {tol:e}",
+        model.display()
+    );
+    eprintln!("{}: max |Δ| {worst:.3e} (tol {tol:.3e})", model.display());
+}
+
+fn gcc_available() -> bool {
+    Command::new("gcc").arg("--version").output().is_ok()
+}
+
+#[test]
+fn c_export_compiles_warning_free_and_matches_score() {
+    assert!(
+        gcc_available(),
+        "gcc is needed for this test (Debian package gcc)"
+    );
+    let d = data("c_export_compiles_warning_free_and_matches_score");
+    let input = numbers(&d.test);
+    for (name, m) in models(&d) {
+        if name == "tensorsketch" {
+            let e = bad(&[
+                "export",
+                s(&m),
+                "--format",
+                "c",
+                "--out",
+                s(&d.dir.join("ts_c")),
+            ]);
+            assert!(e.contains("onnx"), "{e}");
+            assert!(!d.dir.join("ts_c").exists());
+            continue;
+        }
+        let sc = score(&d, &m, &name);
+        let out = d.dir.join(format!("c_{name}"));
+        let prefix = if name == "hadamard" { "pump" } else { "kp" };
+        ok(&[
+            "export",
+            s(&m),
+            "--format",
+            "c",
+            "--prefix",
+            prefix,
+            "--out",
+            s(&out),
+        ]);
+        let main = out.join("main.c");
+        let label_line = if CompiledModel::load(&m).unwrap().task().is_classifier() {
+            format!("if ({prefix}_label_name(li) == NULL) return 1;")
+        } else {
+            String::new()
+        };
+        std::fs::write(
+            &main,
+            format!(
+                "#include <stdio.h>\n#include \"kp_model.h\"\nint main(void) {{\n    float x[64], out[64];\n    int d = {prefix}_input_dim(), k = {prefix}_output_dim();\n    for (;;) {{\n        for (int j = 0; j < d; j++) if (scanf(\"%f\", &x[j]) != 1) return 0;\n        {prefix}_decision(x, out);\n        int li = {prefix}_label_index(x);\n        {label_line}\n        for (int c = 0; c < k; c++) printf(\"%.9g \", out[c]);\n        printf(\"%d\\n\", li);\n    }}\n}}\n"
+            ),
+        )
+        .unwrap();
+        let exe = out.join("score");
+        let o = Command::new("gcc")
+            .args(["-std=c99", "-O2", "-Wall", "-Wextra", "-Werror", "-o"])
+            .arg(&exe)
+            .arg(&main)
+            .arg(out.join("kp_model.c"))
+            .arg("-lm")
+            .output()
+            .unwrap();
+        assert!(
+            o.status.success(),
+            "{name}: gcc failed: {}",
+            String::from_utf8_lossy(&o.stderr)
+        );
+        let printed = run_with_stdin(&exe, &input);
+        compare(&m, &sc, &printed, &d.test);
+    }
+}
+
+fn run_with_stdin(exe: &Path, input: &str) -> String {
+    use std::io::Write;
+    let mut child = Command::new(exe)
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(input.as_bytes())
+        .unwrap();
+    let o = child.wait_with_output().unwrap();
+    assert!(o.status.success(), "{} failed", exe.display());
+    String::from_utf8(o.stdout).unwrap()
+}
+
+#[test]
+fn rust_export_builds_with_deny_warnings_and_matches_score() {
+    let d = data("rust_export_builds_with_deny_warnings_and_matches_score");
+    let input = numbers(&d.test);
+    for (name, m) in models(&d) {
+        if name == "tensorsketch" {
+            continue;
+        }
+        let sc = score(&d, &m, &name);
+        let dir = d.dir.join(format!("rs_{name}"));
+        std::fs::create_dir_all(&dir).unwrap();
+        ok(&[
+            "export",
+            s(&m),
+            "--format",
+            "rust",
+            "--out",
+            s(&dir.join("model.rs")),
+        ]);
+        std::fs::write(
+            dir.join("main.rs"),
+            "#[path = \"model.rs\"]\nmod model;\nuse std::io::Read;\nfn main() {\n    let mut s = String::new();\n    std::io::stdin().read_to_string(&mut s).unwrap();\n    let v: Vec<f32> = s.split_whitespace().map(|t| t.parse().unwrap()).collect();\n    let (d, k) = (model::input_dim(), model::output_dim());\n    let mut out = vec![0.0_f32; k];\n    for row in v.chunks(d) {\n        model::decision(row, &mut out);\n        let li = model::label_index(row);\n        let _ = model::label_name(li);\n        let cells: Vec<String> = out.iter().map(|x| format!(\"{x:e}\")).collect();\n        println!(\"{} {li}\", cells.join(\" \"));\n    }\n}\n",
+        )
+        .unwrap();
+        let exe = dir.join("score");
+        let o = Command::new("rustc")
+            .args(["--edition", "2021", "-D", "warnings", "-O", "-o"])
+            .arg(&exe)
+            .arg(dir.join("main.rs"))
+            .output()
+            .unwrap();
+        assert!(
+            o.status.success(),
+            "{name}: rustc failed: {}",
+            String::from_utf8_lossy(&o.stderr)
+        );
+        let printed = run_with_stdin(&exe, &input);
+        compare(&m, &sc, &printed, &d.test);
+    }
+}
+
+#[test]
+fn plain_weights_score_in_numpy_and_precision_costs_match() {
+    let d = data("plain_weights_score_in_numpy_and_precision_costs_match");
+    let ms = models(&d);
+    for (name, m) in ms.iter().filter(|(n, _)| {
+        [
+            "hadamard",
+            "nystrom",
+            "maclaurin",
+            "taylor",
+            "relu",
+            "tensorsketch",
+        ]
+        .contains(&n.as_str())
+    }) {
+        let sc = score(&d, m, name);
+        for precision in ["f32", "f16", "int8"] {
+            let dir = d.dir.join(format!("npy_{name}_{precision}"));
+            let sum = d.dir.join(format!("sum_{name}_{precision}.json"));
+            ok(&[
+                "export",
+                s(m),
+                "--format",
+                "npy",
+                "--precision",
+                precision,
+                "--check-data",
+                s(&d.test),
+                "--target",
+                "condition",
+                "--summary",
+                s(&sum),
+                "--out",
+                s(&dir),
+            ]);
+            let st = d.dir.join(format!("w_{name}_{precision}.safetensors"));
+            ok(&[
+                "export",
+                s(m),
+                "--format",
+                "safetensors",
+                "--precision",
+                precision,
+                "--out",
+                s(&st),
+            ]);
+            let r = py(
+                "weights_check.py",
+                &[s(&dir), s(&st), s(&d.test), "condition", s(&sc), s(&sum)],
+            );
+            eprint!("{name} {precision}: {r}");
+        }
+    }
+}
+
+#[test]
+fn bad_exports_are_refused_with_nothing_written() {
+    let d = data("bad_exports_are_refused_with_nothing_written");
+    let m = root().join("models/pump_compiled.safetensors");
+    let out = d.dir.join("x.onnx");
+    let e = bad(&["export", s(&m), "--format", "tflite", "--out", s(&out)]);
+    assert!(e.contains("onnx, c, rust, npy or safetensors"), "{e}");
+    let e = bad(&[
+        "export",
+        s(&m),
+        "--format",
+        "onnx",
+        "--precision",
+        "f8",
+        "--out",
+        s(&out),
+    ]);
+    assert!(e.contains("f32, f16 or int8"), "{e}");
+    let e = bad(&[
+        "export",
+        s(&m),
+        "--format",
+        "c",
+        "--prefix",
+        "9lives",
+        "--out",
+        s(&d.dir.join("c")),
+    ]);
+    assert!(e.contains("C identifier"), "{e}");
+    let e = bad(&[
+        "export",
+        s(&root().join("models/pump_svm.safetensors")),
+        "--format",
+        "onnx",
+        "--out",
+        s(&out),
+    ]);
+    assert!(e.contains("expected a compiled model"), "{e}");
+    assert!(!out.exists() && !d.dir.join("c").exists());
+}
