@@ -5,8 +5,8 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 PYENV=target/pyenv
-REQS="numpy scipy safetensors"
-if [ ! -x "$PYENV/bin/python" ] || ! "$PYENV/bin/python" -c "import numpy, scipy, safetensors" 2>/dev/null; then
+REQS="numpy scipy safetensors onnx onnxruntime"
+if [ ! -x "$PYENV/bin/python" ] || ! "$PYENV/bin/python" -c "import numpy, scipy, safetensors, onnx, onnxruntime" 2>/dev/null; then
   echo "setting up the Python reference environment in $PYENV" >&2
   mkdir -p target
   python3 -m venv "$PYENV"

@@ -494,3 +494,43 @@ fn bad_exports_are_refused_with_nothing_written() {
     assert!(e.contains("expected a compiled model"), "{e}");
     assert!(!out.exists() && !d.dir.join("c").exists());
 }
+
+#[test]
+fn onnx_svms_import_and_score_like_onnxruntime() {
+    let dir = tmpdir("onnx_svms_import_and_score_like_onnxruntime");
+    py("onnx_svm.py", &["make", s(&dir)]);
+    let mut n = 0;
+    for e in std::fs::read_dir(&dir).unwrap() {
+        let p = e.unwrap().path();
+        let name = p.file_stem().unwrap().to_string_lossy().to_string();
+        if p.extension().is_none_or(|x| x != "onnx") {
+            continue;
+        }
+        let model = dir.join(format!("{name}.safetensors"));
+        if name.starts_with("bad_") {
+            let err = bad(&["import", "--onnx", s(&p), "--out", s(&model)]);
+            let needle = match name.as_str() {
+                "bad_coefficients" => "'coefficients'",
+                "bad_prob_a" => "'prob_a'",
+                "bad_post_transform" => "post_transform 'SOFTMAX'",
+                _ => "not an ONNX model",
+            };
+            assert!(err.contains(needle) && err.contains(&name), "{name}: {err}");
+            assert!(!model.exists());
+            continue;
+        }
+        ok(&["import", "--onnx", s(&p), "--out", s(&model)]);
+        ok(&[
+            "score",
+            s(&model),
+            "--data",
+            s(&dir.join(format!("{name}_x.csv"))),
+            "--out",
+            s(&dir.join(format!("{name}_score.csv"))),
+        ]);
+        n += 1;
+    }
+    assert!(n >= 20, "{n} cases");
+    let out = py("onnx_svm.py", &["check", s(&dir)]);
+    eprint!("{out}");
+}

@@ -5,30 +5,42 @@ use kernelpress::model::{ExactModel, Task};
 use kernelpress::{Error, Result};
 use std::path::PathBuf;
 
-/// Import an exact model from arrays (.npy support vectors and coefficients).
+/// Import an exact model from an ONNX SVM, or from arrays (.npy support vectors and
+/// coefficients).
 ///
-/// The decision function is f_j(x) = Σ_i coef[i, j] · k(x, sv_i) + intercept_j.
+/// --onnx reads an ONNX-ML SVMClassifier or SVMRegressor (kernel LINEAR, POLY, RBF or
+/// SIGMOID; 2 or more classes, int or string labels), optionally after a Scaler, which
+/// becomes the model's input scaling. A 2-class SVM keeps ONNX's decision value s (the
+/// first class when s > 0) and lists its labels as (second, first), so that `score`'s rule
+/// "positive means the second label" gives the same labels. Probability outputs and post
+/// transforms other than NONE are refused.
+///
+/// From arrays, the decision function is f_j(x) = Σ_i coef[i, j] · k(x, sv_i) + intercept_j.
 /// Task defaults: regression without labels; binary for 2 labels and one column;
 /// ovr when there is one column per label; ovo for k(k−1)/2 columns.
 ///
-/// Example:
+/// Examples:
+///   kernelpress import --onnx svm.onnx --out model.safetensors
 ///   kernelpress import --support-vectors sv.npy --coef coef.npy --intercept 0.25
 ///       --kernel 'gaussian(gamma=0.5)' --labels ok,worn --out model.safetensors
 #[derive(Debug, clap::Args)]
 #[command(verbatim_doc_comment)]
 pub(crate) struct Args {
+    /// An ONNX model holding an SVM (instead of the arrays).
+    #[arg(long, conflicts_with_all = ["support_vectors", "coef", "intercept", "kernel", "task", "labels"])]
+    onnx: Option<PathBuf>,
     /// Support vectors, n_sv × d float array (.npy).
-    #[arg(long)]
-    support_vectors: PathBuf,
+    #[arg(long, required_unless_present = "onnx")]
+    support_vectors: Option<PathBuf>,
     /// Coefficients, n_sv (one output) or n_sv × k (.npy).
-    #[arg(long)]
-    coef: PathBuf,
+    #[arg(long, required_unless_present = "onnx")]
+    coef: Option<PathBuf>,
     /// Intercepts, comma-separated, one per output.
-    #[arg(long, allow_hyphen_values = true)]
-    intercept: String,
+    #[arg(long, allow_hyphen_values = true, required_unless_present = "onnx")]
+    intercept: Option<String>,
     /// Kernel expression.
-    #[arg(long)]
-    kernel: String,
+    #[arg(long, required_unless_present = "onnx")]
+    kernel: Option<String>,
     /// regression, binary, ovr or ovo (default: inferred from labels and columns).
     #[arg(long)]
     task: Option<String>,
@@ -41,11 +53,29 @@ pub(crate) struct Args {
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
-    let kernel = super::kernel_arg(&a.kernel)?;
-    let sv_src = a.support_vectors.display().to_string();
-    let sv = read_npy(&a.support_vectors)?.into_2d(&sv_src)?;
-    let coef_src = a.coef.display().to_string();
-    let coef = read_npy(&a.coef)?.into_2d(&coef_src)?;
+    if let Some(p) = &a.onnx {
+        let m = kernelpress::export::onnx::svm::import_svm(p)?;
+        m.save(&a.out)?;
+        return super::print_stdout(&format!(
+            "imported {} from {}: {} support vectors, kernel {}, {} task, {} outputs{}; wrote {}\n",
+            m.training["operator"].as_str().unwrap_or("SVM"),
+            p.display(),
+            m.n_support_vectors(),
+            m.kernel(),
+            m.task().name(),
+            m.n_outputs(),
+            if m.scaling().is_some() { ", input scaling from the Scaler" } else { "" },
+            a.out.display()
+        ));
+    }
+    let (Some(svp), Some(cp), Some(ic), Some(ks)) = (&a.support_vectors, &a.coef, &a.intercept, &a.kernel) else {
+        return Err(Error::input("give --onnx FILE, or --support-vectors, --coef, --intercept and --kernel"));
+    };
+    let kernel = super::kernel_arg(ks)?;
+    let sv_src = svp.display().to_string();
+    let sv = read_npy(svp)?.into_2d(&sv_src)?;
+    let coef_src = cp.display().to_string();
+    let coef = read_npy(cp)?.into_2d(&coef_src)?;
     if coef.nrows() != sv.nrows() {
         return Err(Error::input(format!(
             "{coef_src}: has {} rows but {sv_src} has {} support vectors",
@@ -53,8 +83,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
             sv.nrows()
         )));
     }
-    let intercept: Vec<f64> = a
-        .intercept
+    let intercept: Vec<f64> = ic
         .split(',')
         .map(|s| {
             s.trim()

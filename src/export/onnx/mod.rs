@@ -10,6 +10,7 @@
 //! `DequantizeLinear` with per-output scales.
 
 pub mod proto;
+pub mod svm;
 
 use super::precision::{Quant, Quantized};
 use crate::fsio::write_atomic;

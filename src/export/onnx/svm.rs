@@ -1,0 +1,378 @@
+//! Reading ONNX-ML `SVMClassifier` and `SVMRegressor` models (optionally after a `Scaler`)
+//! into exact models, following the operator definitions of the ONNX-ML domain as
+//! onnxruntime evaluates them:
+//!
+//! - kernels: `LINEAR` `x·sv`, `POLY` `(γ x·sv + coef0)^degree`, `RBF` `exp(−γ‖x − sv‖²)`,
+//!   `SIGMOID` `tanh(γ x·sv + coef0)`, with `kernel_params = [γ, coef0, degree]`;
+//! - `K > 2` classes: support vectors grouped by class (`vectors_per_class`), coefficients
+//!   `[K−1, n_sv]`; for the pair `(i, j)`, `i < j`, in the order (0,1), (0,2), …,
+//!   `s_ij = Σ_{m∈i} coef[j−1, m]·K_m + Σ_{m∈j} coef[i, m]·K_m + rho[p]`; a value > 0
+//!   votes for `i`, ties go to the lowest index — kernelpress's one-vs-one rule;
+//! - 2 classes: `s = Σ coef[0, m]·K_m + rho[0]`, the label is the first class when `s > 0`.
+//!   The imported binary model keeps `s` as its decision and lists the labels as
+//!   (second, first), so that "positive means the second label" gives the same labels;
+//! - `SVMRegressor`: `Σ coef_m·K_m + rho[0]`;
+//! - `Scaler`: `(x − offset)·scale`, kept as the model's input scaling.
+//!
+//! Probability outputs, post transforms other than `NONE`, one-class regressors, inputs of
+//! another shape and any other node are refused with the attribute named. Every length is
+//! checked against the others before anything is built.
+
+use super::proto::{attr_type, AttributeProto, ModelProto, NodeProto};
+use crate::data::Standardizer;
+use crate::kernel::{Kernel, Width};
+use crate::model::{ExactModel, Task};
+use crate::{Error, Result};
+use ndarray::Array2;
+use prost::Message;
+use std::path::Path;
+
+/// Largest ONNX file read.
+pub const MAX_ONNX_BYTES: u64 = 2 << 30;
+
+struct Attrs<'a> {
+    node: &'a NodeProto,
+    src: &'a str,
+}
+
+impl Attrs<'_> {
+    fn op(&self) -> String {
+        self.node.op_type.clone().unwrap_or_default()
+    }
+    fn get(&self, name: &str) -> Option<&AttributeProto> {
+        self.node
+            .attribute
+            .iter()
+            .find(|a| a.name.as_deref() == Some(name))
+    }
+    fn bad(&self, m: impl std::fmt::Display) -> Error {
+        Error::file(format!("{}: node {}: {m}", self.src, self.op()))
+    }
+    fn floats(&self, name: &str) -> Vec<f32> {
+        self.get(name).map(|a| a.floats.clone()).unwrap_or_default()
+    }
+    fn ints(&self, name: &str) -> Vec<i64> {
+        self.get(name).map(|a| a.ints.clone()).unwrap_or_default()
+    }
+    fn string(&self, name: &str) -> Option<String> {
+        self.get(name)
+            .and_then(|a| a.s.as_ref())
+            .map(|s| String::from_utf8_lossy(s).into_owned())
+    }
+    fn int(&self, name: &str) -> Option<i64> {
+        self.get(name).and_then(|a| a.i)
+    }
+}
+
+fn finite(v: &[f32], what: &str, a: &Attrs) -> Result<Vec<f64>> {
+    match v.iter().position(|x| !x.is_finite()) {
+        Some(i) => Err(a.bad(format!("'{what}' entry {i} is not finite"))),
+        None => Ok(v.iter().map(|x| *x as f64).collect()),
+    }
+}
+
+fn kernel(a: &Attrs) -> Result<Kernel> {
+    let kt = a.string("kernel_type").unwrap_or_else(|| "LINEAR".into());
+    let p = a.floats("kernel_params");
+    let param = |i: usize, default: f64| p.get(i).map(|v| *v as f64).unwrap_or(default);
+    let (gamma, coef0, degree) = (param(0, 0.0), param(1, 0.0), param(2, 0.0));
+    let text = match kt.as_str() {
+        "LINEAR" => return Ok(Kernel::Linear),
+        "RBF" => {
+            return if gamma > 0.0 && gamma.is_finite() {
+                Ok(Kernel::Gaussian {
+                    width: Width::Gamma(gamma),
+                })
+            } else {
+                Err(a.bad(format!("kernel_params gamma = {gamma}; RBF needs gamma > 0")))
+            }
+        }
+        "POLY" => {
+            if degree.fract() != 0.0 || !(1.0..=32.0).contains(&degree) {
+                return Err(a.bad(format!(
+                    "kernel_params degree = {degree}; expected a whole number from 1 to 32"
+                )));
+            }
+            format!("polynomial(degree={degree}, gamma={gamma:?}, coef0={coef0:?})")
+        }
+        "SIGMOID" => format!("sigmoid(gamma={gamma:?}, coef0={coef0:?})"),
+        other => {
+            return Err(a.bad(format!(
+                "kernel_type '{other}' is not supported; expected LINEAR, POLY, RBF or SIGMOID"
+            )))
+        }
+    };
+    text.parse()
+        .map_err(|e: Error| a.bad(format!("kernel_params: {}", e.message())))
+}
+
+fn check_common(a: &Attrs) -> Result<()> {
+    if let Some(pt) = a.string("post_transform") {
+        if pt != "NONE" {
+            return Err(a.bad(format!(
+                "post_transform '{pt}' is not supported; only NONE (raw decision values)"
+            )));
+        }
+    }
+    for name in ["prob_a", "prob_b"] {
+        if !a.floats(name).is_empty() {
+            return Err(a.bad(format!(
+                "'{name}' (probability calibration) is not supported; export the SVM without probabilities"
+            )));
+        }
+    }
+    for at in &a.node.attribute {
+        if matches!(
+            at.r#type,
+            Some(attr_type::TENSOR) | Some(attr_type::STRING) | Some(attr_type::INT)
+        ) && !matches!(
+            at.name.as_deref(),
+            Some("kernel_type" | "post_transform" | "n_supports" | "one_class")
+        ) {
+            return Err(a.bad(format!(
+                "attribute '{}' is not understood",
+                at.name.as_deref().unwrap_or("?")
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// Reads an ONNX file holding an SVM (optionally after a scaler) as an exact model.
+pub fn import_svm(path: &Path) -> Result<ExactModel> {
+    let src = path.display().to_string();
+    if let Ok(m) = std::fs::metadata(path) {
+        if m.is_file() && m.len() > MAX_ONNX_BYTES {
+            return Err(Error::file(format!(
+                "{src}: {} bytes, more than the {MAX_ONNX_BYTES} an ONNX model may have here",
+                m.len()
+            )));
+        }
+    }
+    let bytes = crate::fsio::read_bytes(path)?;
+    import_svm_bytes(&bytes, &src)
+}
+
+/// As [`import_svm`], from bytes.
+pub fn import_svm_bytes(bytes: &[u8], src: &str) -> Result<ExactModel> {
+    let m = ModelProto::decode(bytes).map_err(|e| {
+        Error::file(format!(
+            "{src}: not an ONNX model (protobuf could not be read: {e})"
+        ))
+    })?;
+    let g = m
+        .graph
+        .as_ref()
+        .ok_or_else(|| Error::file(format!("{src}: the ONNX model has no graph")))?;
+    let ml = |n: &NodeProto| n.domain.as_deref() == Some("ai.onnx.ml");
+    let (scaler, svm) = match g.node.as_slice() {
+        [s] if ml(s) => (None, s),
+        [a, s] if ml(a) && ml(s) && a.op_type.as_deref() == Some("Scaler") => (Some(a), s),
+        nodes => {
+            let ops: Vec<String> = nodes
+                .iter()
+                .map(|n| {
+                    format!(
+                        "{}:{}",
+                        n.domain.clone().unwrap_or_default(),
+                        n.op_type.clone().unwrap_or_default()
+                    )
+                })
+                .collect();
+            return Err(Error::file(format!(
+                "{src}: expected one ai.onnx.ml SVMClassifier or SVMRegressor node, optionally after a Scaler; the graph has [{}]",
+                ops.join(", ")
+            )));
+        }
+    };
+    if g.input.len() != 1 {
+        return Err(Error::file(format!(
+            "{src}: the graph has {} inputs; expected one [N, d] input",
+            g.input.len()
+        )));
+    }
+    let dims: Vec<Option<i64>> = g.input[0]
+        .r#type
+        .as_ref()
+        .and_then(|t| t.tensor_type.as_ref())
+        .and_then(|t| t.shape.as_ref())
+        .map(|s| s.dim.iter().map(|d| d.dim_value).collect())
+        .unwrap_or_default();
+    if dims.len() != 2 {
+        return Err(Error::file(format!(
+            "{src}: input '{}' has {} dimensions; expected 2 ([N, d])",
+            g.input[0].name.clone().unwrap_or_default(),
+            dims.len()
+        )));
+    }
+    let a = Attrs { node: svm, src };
+    check_common(&a)?;
+    let kernel = kernel(&a)?;
+    let svs = finite(&a.floats("support_vectors"), "support_vectors", &a)?;
+    let coef = finite(&a.floats("coefficients"), "coefficients", &a)?;
+    let rho = finite(&a.floats("rho"), "rho", &a)?;
+    let (model, d) = match a.op().as_str() {
+        "SVMClassifier" => classifier(&a, kernel, svs, coef, rho, dims[1])?,
+        "SVMRegressor" => regressor(&a, kernel, svs, coef, rho, dims[1])?,
+        other => return Err(a.bad(format!("operator '{other}' is not an SVM"))),
+    };
+    let scaling = match scaler {
+        None => None,
+        Some(s) => {
+            let sa = Attrs { node: s, src };
+            let off = finite(&sa.floats("offset"), "offset", &sa)?;
+            let sc = finite(&sa.floats("scale"), "scale", &sa)?;
+            let expand = |v: Vec<f64>, what: &str, def: f64| match v.len() {
+                0 => Ok(vec![def; d]),
+                1 => Ok(vec![v[0]; d]),
+                n if n == d => Ok(v),
+                n => Err(sa.bad(format!("'{what}' has {n} entries; expected 1 or {d}"))),
+            };
+            let off = expand(off, "offset", 0.0)?;
+            let sc = expand(sc, "scale", 1.0)?;
+            if let Some(j) = sc.iter().position(|v| !(*v > 0.0)) {
+                return Err(sa.bad(format!(
+                    "'scale' entry {j} is {}; only positive scales are supported",
+                    sc[j]
+                )));
+            }
+            Some(Standardizer {
+                mean: off,
+                scale: sc.iter().map(|v| 1.0 / v).collect(),
+            })
+        }
+    };
+    let (kernel, sv, coef, b, task, labels) = model;
+    let mut m = ExactModel::new(kernel, sv, coef, b, task, labels, scaling)
+        .map_err(|e| Error::file(format!("{src}: {}", e.message())))?;
+    m.training = serde_json::json!({"model": "imported", "from": "onnx", "operator": a.op()});
+    Ok(m)
+}
+
+type Parts = (Kernel, Array2<f64>, Array2<f64>, Vec<f64>, Task, Vec<String>);
+
+fn support_vectors(a: &Attrs, svs: Vec<f64>, n: usize, d_in: Option<i64>) -> Result<(Array2<f64>, usize)> {
+    if n == 0 {
+        return Err(a.bad("no support vectors"));
+    }
+    if svs.len() % n != 0 {
+        return Err(a.bad(format!(
+            "'support_vectors' has {} values, not a multiple of the {n} support vectors",
+            svs.len()
+        )));
+    }
+    let d = svs.len() / n;
+    if let Some(di) = d_in {
+        if di > 0 && di as usize != d {
+            return Err(a.bad(format!(
+                "support vectors have {d} features but the input is declared with {di}"
+            )));
+        }
+    }
+    Ok((Array2::from_shape_vec((n, d), svs).expect("checked"), d))
+}
+
+fn classifier(
+    a: &Attrs,
+    kernel: Kernel,
+    svs: Vec<f64>,
+    coef: Vec<f64>,
+    rho: Vec<f64>,
+    d_in: Option<i64>,
+) -> Result<(Parts, usize)> {
+    let labels: Vec<String> = {
+        let s: Vec<String> = a
+            .get("classlabels_strings")
+            .map(|x| {
+                x.strings
+                    .iter()
+                    .map(|b| String::from_utf8_lossy(b).into_owned())
+                    .collect()
+            })
+            .unwrap_or_default();
+        if s.is_empty() {
+            a.ints("classlabels_ints").iter().map(|v| v.to_string()).collect()
+        } else {
+            s
+        }
+    };
+    let k = labels.len();
+    if k < 2 {
+        return Err(a.bad(format!(
+            "classlabels_ints/classlabels_strings name {k} classes; expected at least 2"
+        )));
+    }
+    let vpc = a.ints("vectors_per_class");
+    if vpc.len() != k || vpc.iter().any(|v| *v < 0) {
+        return Err(a.bad(format!(
+            "'vectors_per_class' has {} entries; expected {k} non-negative counts",
+            vpc.len()
+        )));
+    }
+    let n: usize = vpc.iter().map(|v| *v as usize).sum();
+    let (sv, d) = support_vectors(a, svs, n, d_in)?;
+    if coef.len() != (k - 1) * n {
+        return Err(a.bad(format!(
+            "'coefficients' has {} values; expected (classes − 1) × support vectors = {}",
+            coef.len(),
+            (k - 1) * n
+        )));
+    }
+    let pairs = k * (k - 1) / 2;
+    if rho.len() != pairs {
+        return Err(a.bad(format!(
+            "'rho' has {} values; expected one per class pair, {pairs}",
+            rho.len()
+        )));
+    }
+    let c = |row: usize, m: usize| coef[row * n + m];
+    if k == 2 {
+        let col = Array2::from_shape_fn((n, 1), |(m, _)| c(0, m));
+        let labels = vec![labels[1].clone(), labels[0].clone()];
+        return Ok(((kernel, sv, col, rho, Task::Binary, labels), d));
+    }
+    let mut start = vec![0usize; k + 1];
+    for i in 0..k {
+        start[i + 1] = start[i] + vpc[i] as usize;
+    }
+    let mut cm = Array2::zeros((n, pairs));
+    let mut p = 0;
+    for i in 0..k {
+        for j in i + 1..k {
+            for m in start[i]..start[i + 1] {
+                cm[[m, p]] = c(j - 1, m);
+            }
+            for m in start[j]..start[j + 1] {
+                cm[[m, p]] = c(i, m);
+            }
+            p += 1;
+        }
+    }
+    Ok(((kernel, sv, cm, rho, Task::Ovo, labels), d))
+}
+
+fn regressor(
+    a: &Attrs,
+    kernel: Kernel,
+    svs: Vec<f64>,
+    coef: Vec<f64>,
+    rho: Vec<f64>,
+    d_in: Option<i64>,
+) -> Result<(Parts, usize)> {
+    if a.int("one_class").unwrap_or(0) != 0 {
+        return Err(a.bad("'one_class' = 1 (a one-class SVM) is not supported"));
+    }
+    let n = a.int("n_supports").unwrap_or(coef.len() as i64);
+    if n < 0 || n as usize != coef.len() {
+        return Err(a.bad(format!(
+            "'n_supports' is {n} but 'coefficients' has {} values",
+            coef.len()
+        )));
+    }
+    let (sv, d) = support_vectors(a, svs, n as usize, d_in)?;
+    if rho.len() != 1 {
+        return Err(a.bad(format!("'rho' has {} values; expected 1", rho.len())));
+    }
+    let col = Array2::from_shape_vec((n as usize, 1), coef).expect("checked");
+    Ok(((kernel, sv, col, rho, Task::Regression, vec![]), d))
+}
