@@ -15,6 +15,7 @@
 //! - [`exact`]: exact teachers (kernel ridge, C-SVM by SMO);
 //! - [`fit`]: head fits (projection, streamed distillation, labels);
 //! - [`report`]: agreement, errors, sizes and measured latency;
+//! - [`export`]: ONNX, C, Rust and plain weights; ONNX SVMs in;
 //! - [`observe`]: progress and notes reported to the caller (the library never prints);
 //! - [`simd`]: the one CPU-feature detection; [`linalg`], [`transform`]: numerics.
 //!

@@ -64,12 +64,20 @@ pub(crate) fn run(a: Args) -> Result<()> {
             m.kernel(),
             m.task().name(),
             m.n_outputs(),
-            if m.scaling().is_some() { ", input scaling from the Scaler" } else { "" },
+            if m.scaling().is_some() {
+                ", input scaling from the Scaler"
+            } else {
+                ""
+            },
             a.out.display()
         ));
     }
-    let (Some(svp), Some(cp), Some(ic), Some(ks)) = (&a.support_vectors, &a.coef, &a.intercept, &a.kernel) else {
-        return Err(Error::input("give --onnx FILE, or --support-vectors, --coef, --intercept and --kernel"));
+    let (Some(svp), Some(cp), Some(ic), Some(ks)) =
+        (&a.support_vectors, &a.coef, &a.intercept, &a.kernel)
+    else {
+        return Err(Error::input(
+            "give --onnx FILE, or --support-vectors, --coef, --intercept and --kernel",
+        ));
     };
     let kernel = super::kernel_arg(ks)?;
     let sv_src = svp.display().to_string();

@@ -84,7 +84,9 @@ fn kernel(a: &Attrs) -> Result<Kernel> {
                     width: Width::Gamma(gamma),
                 })
             } else {
-                Err(a.bad(format!("kernel_params gamma = {gamma}; RBF needs gamma > 0")))
+                Err(a.bad(format!(
+                    "kernel_params gamma = {gamma}; RBF needs gamma > 0"
+                )))
             }
         }
         "POLY" => {
@@ -249,9 +251,21 @@ pub fn import_svm_bytes(bytes: &[u8], src: &str) -> Result<ExactModel> {
     Ok(m)
 }
 
-type Parts = (Kernel, Array2<f64>, Array2<f64>, Vec<f64>, Task, Vec<String>);
+type Parts = (
+    Kernel,
+    Array2<f64>,
+    Array2<f64>,
+    Vec<f64>,
+    Task,
+    Vec<String>,
+);
 
-fn support_vectors(a: &Attrs, svs: Vec<f64>, n: usize, d_in: Option<i64>) -> Result<(Array2<f64>, usize)> {
+fn support_vectors(
+    a: &Attrs,
+    svs: Vec<f64>,
+    n: usize,
+    d_in: Option<i64>,
+) -> Result<(Array2<f64>, usize)> {
     if n == 0 {
         return Err(a.bad("no support vectors"));
     }
@@ -291,7 +305,10 @@ fn classifier(
             })
             .unwrap_or_default();
         if s.is_empty() {
-            a.ints("classlabels_ints").iter().map(|v| v.to_string()).collect()
+            a.ints("classlabels_ints")
+                .iter()
+                .map(|v| v.to_string())
+                .collect()
         } else {
             s
         }
