@@ -269,7 +269,7 @@ fn support_vectors(
     if n == 0 {
         return Err(a.bad("no support vectors"));
     }
-    if svs.len() % n != 0 {
+    if !svs.len().is_multiple_of(n) {
         return Err(a.bad(format!(
             "'support_vectors' has {} values, not a multiple of the {n} support vectors",
             svs.len()
