@@ -2,7 +2,7 @@
 //! outputs `decision` float32 `[N, k]` (same order and sign as `score`), and for
 //! classifiers `label_index` int64 `[N]` and `label` string `[N]`.
 //!
-//! Each step is lowered to standard operators in [`lower_step`]. Structured steps keep
+//! Each step is lowered to standard operators in `lower_step`. Structured steps keep
 //! their structure: a Walsh–Hadamard block of 32 or fewer is one `MatMul` by the dense
 //! Hadamard matrix; a larger one is ⌈log₈ b⌉ stages of `Reshape` + `MatMul` by `H₈` (or
 //! `H₄`/`H₂` for the last stage), which costs `O(b log b)` instead of `O(b²)`. Count sketches
