@@ -2,8 +2,9 @@
 //!
 //! Every failure is one [`Error`]: an opaque value carrying an [`ErrorKind`] a caller can
 //! match on and a one-line message that names the file, row, field and what was expected.
-//! The binary maps [`ErrorKind::Input`] and [`ErrorKind::File`] to exit code 2 and the other
-//! kinds to exit code 1 ([`Error::exit_code`]).
+//! The binary maps [`ErrorKind::Input`] and [`ErrorKind::File`] to exit code 2,
+//! [`ErrorKind::Gate`] (a failed quality gate) to 3 and the other kinds to 1
+//! ([`Error::exit_code`]).
 
 use std::fmt;
 
@@ -24,6 +25,9 @@ pub enum ErrorKind {
     Io,
     /// A bug or an unexpected state inside kernelpress. Exit code 1.
     Internal,
+    /// A quality gate the caller asked for (a minimum agreement or accuracy) was not met.
+    /// Exit code 3, so that a pipeline can stop a rollout.
+    Gate,
 }
 
 /// A kernelpress error: a kind and a one-line message.
@@ -109,10 +113,13 @@ impl Error {
         matches!(self.kind, ErrorKind::Input | ErrorKind::File)
     }
 
-    /// The process exit code for this error: 2 for input and file errors, 1 otherwise.
+    /// The process exit code for this error: 2 for input and file errors, 3 for a failed
+    /// quality gate, 1 otherwise.
     pub fn exit_code(&self) -> i32 {
         if self.is_user_error() {
             2
+        } else if self.kind == ErrorKind::Gate {
+            3
         } else {
             1
         }

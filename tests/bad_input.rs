@@ -55,6 +55,8 @@ fn bad_csv_cells_name_row_and_column() {
         "linear()",
         "--model",
         "svm",
+        "--c",
+        "1",
         "--out",
         s(&out),
     ]);
@@ -74,6 +76,8 @@ fn bad_csv_cells_name_row_and_column() {
             "linear()",
             "--model",
             "svm",
+            "--c",
+            "1",
             "--out",
             s(&out),
         ]);
@@ -90,6 +94,8 @@ fn bad_csv_cells_name_row_and_column() {
         "linear()",
         "--model",
         "svm",
+        "--c",
+        "1",
         "--out",
         s(&out),
     ]);
@@ -105,6 +111,8 @@ fn bad_csv_cells_name_row_and_column() {
         "linear()",
         "--model",
         "svm",
+        "--c",
+        "1",
         "--out",
         s(&out),
     ]);
@@ -221,6 +229,8 @@ fn bad_kernels_and_flags() {
             k,
             "--model",
             "svm",
+            "--c",
+            "1",
             "--out",
             s(&out),
         ]);

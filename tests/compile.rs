@@ -304,7 +304,9 @@ fn labels_mode_fits_without_a_teacher() {
         "condition",
     ]);
     assert!(
-        sc.starts_with("decision_0,decision_1,decision_2,decision_3,label"),
+        sc.starts_with(
+            "decision_bearing_wear,decision_healthy,decision_imbalance,decision_misalignment,label"
+        ),
         "{}",
         &sc[..80]
     );

@@ -210,7 +210,7 @@ fn svm_matches_independent_scipy_qp() {
         "svm",
         "--c",
         "2",
-        "--tol",
+        "--kkt-gap",
         "1e-6",
         "--out",
         s(&model),

@@ -136,7 +136,7 @@ fn unbiased_for_every_pair_that_claims_it() {
 
 #[test]
 fn fourier_variance_matches_sutherland_schneider() {
-    // Sutherland & Schneider 2015 (REFERENCES §2): Gaussian σ = 1, ‖Δ‖ = 1:
+    // Sutherland & Schneider, UAI 2015: Gaussian σ = 1, ‖Δ‖ = 1:
     // D·Var_paired = 0.3995764, D·Var_phase = 0.6997882.
     let x = [0.0, 0.0];
     let y = [0.6, 0.8];
@@ -174,7 +174,7 @@ fn var_at(method: Method, d: usize, z: f64, seeds: u64) -> f64 {
 
 #[test]
 fn orthogonal_and_hadamard_beat_fourier_at_d_frequencies() {
-    // Yu et al. 2016 (REFERENCES §3): at D = d frequencies, z = 1:
+    // Yu et al., NIPS 2016: at D = d frequencies, z = 1:
     // Var_RFF = (1 − e^{−1})²/(2d); Var_ORF/Var_RFF = 0.158 (d=16), 0.098 (d=64).
     for (d, ratio_ref, seeds) in [(16usize, 0.158, 3000u64), (64, 0.098, 1500)] {
         let rff = var_at(Method::Fourier, d, 1.0, seeds);

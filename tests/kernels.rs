@@ -128,7 +128,7 @@ fn kernel_check_matches_numpy_eigvalsh() {
 #[test]
 fn kernel_check_reference_spectra() {
     let dir = tmpdir("kernel_check_reference_spectra");
-    // REFERENCES §12: Gaussian σ=1 (γ=½) Gram on {0,1}: eigenvalues 1 ± e^{−½}.
+    // Gaussian σ=1 (γ=½) Gram on {0,1} is [[1, e^{−½}], [e^{−½}, 1]]: eigenvalues 1 ± e^{−½}.
     let p = dir.join("two.csv");
     std::fs::write(&p, "x\n0\n1\n").unwrap();
     let v = kernel_check_json(&["--kernel", "gaussian(gamma=0.5)", "--data", s(&p)]);

@@ -7,7 +7,7 @@ use kernelpress::data::{check_batch, read_table, write_atomic};
 use kernelpress::fit::{compile_exact, compile_labels, held_out, HeadKind, RidgeGrid};
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
-use kernelpress::{Error, Result};
+use kernelpress::{Error, ErrorKind, Result};
 use ndarray::Axis;
 use std::path::PathBuf;
 
@@ -29,7 +29,7 @@ pub(crate) enum Head {
 ///
 /// Examples:
 ///   kernelpress compile models/pump_svm.safetensors --calib models/pump_calib.csv --target condition
-///       --method orthogonal --features 1024 --seed 1 --out pump_compiled.safetensors --report r.json
+///       --method orthogonal --features 1024 --seed 1 --out pump_compiled.safetensors --json r.json
 ///   kernelpress compile --kernel 'gaussian(gamma=0.25)' --data models/pump_train.csv --target condition
 ///       --standardize --method fourier --features 1024 --out direct.safetensors
 #[derive(Debug, clap::Args)]
@@ -66,17 +66,24 @@ pub(crate) struct Args {
     /// Fix the relative ridge strength instead of choosing it on held-out rows.
     #[arg(long)]
     ridge_rel: Option<f64>,
-    /// Warn when label agreement with the exact model falls below this.
-    #[arg(long, default_value_t = 0.99)]
-    min_agreement: f64,
+    #[command(flatten)]
+    gate: super::GateArgs,
+    /// When a quality gate fails, write no model file (by default the file is still written,
+    /// for inspection, and the exit code is 3).
+    #[arg(long)]
+    discard_below_gate: bool,
     /// Skip the latency measurements in the report.
     #[arg(long)]
     no_timing: bool,
+    /// Take data columns in file order instead of matching the model's column names.
+    #[arg(long)]
+    by_position: bool,
     /// Output compiled model file.
     #[arg(long)]
     out: PathBuf,
-    /// Also write the report as JSON here.
-    #[arg(long)]
+    /// Also write the report as JSON here (as `report --json FILE` does; `--report` is
+    /// accepted too).
+    #[arg(long = "json", visible_alias = "report")]
     report: Option<PathBuf>,
 }
 
@@ -90,9 +97,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         }
         None => RidgeGrid::standard(),
     };
-    if !(0.0..=1.0).contains(&a.min_agreement) {
-        return Err(Error::input("--min-agreement must be between 0 and 1"));
-    }
+    a.gate.validate()?;
     let Some(model_path) = &a.model else {
         return run_labels(&a, &grid);
     };
@@ -104,11 +109,12 @@ pub(crate) fn run(a: Args) -> Result<()> {
     let exact = ExactModel::load(model_path)?;
     let d = exact.input_dim();
     let calib = match &a.calib {
-        Some(p) => {
-            let t = read_table(p, a.target.as_deref(), false)?;
-            check_batch(t.x.view(), d, &p.display().to_string())?;
-            Some(t)
-        }
+        Some(p) => Some(super::read_for(
+            p,
+            a.target.as_deref(),
+            &exact.feature_names,
+            a.by_position,
+        )?),
         None => None,
     };
     let kind = match a.head {
@@ -149,8 +155,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     // Evaluation rows for the report.
     let (ex, truth, on) = match &a.eval {
         Some(p) => {
-            let t = read_table(p, a.target.as_deref(), false)?;
-            check_batch(t.x.view(), d, &p.display().to_string())?;
+            let t = super::read_for(p, a.target.as_deref(), &exact.feature_names, a.by_position)?;
             (t.x, t.target, format!("{}", p.display()))
         }
         None => match &calib {
@@ -172,13 +177,13 @@ pub(crate) fn run(a: Args) -> Result<()> {
         },
     };
     let opts = ReportOptions {
-        min_agreement: a.min_agreement,
+        min_agreement: a.gate.tolerance(),
         timing: !a.no_timing,
         ..ReportOptions::default()
     };
     let pb = super::progress::bar(1, "report");
     let mut rep = report::build(&model, &exact, ex.view(), truth.as_deref(), None, &opts)?;
-    pb.finish_and_clear();
+    pb.finish();
     rep.evaluated_on = Some(on);
     finish(&a, &mut model, Some(rep))
 }
@@ -189,6 +194,15 @@ fn finish(
     rep: Option<report::Report>,
 ) -> Result<()> {
     let mut text = String::new();
+    let gate = match &rep {
+        Some(r) => a.gate.failure(r)?,
+        None if a.gate.min_agreement.is_some() || a.gate.min_accuracy.is_some() => {
+            return Err(Error::input(
+                "a quality gate needs evaluation rows: give --calib (or --eval)",
+            ))
+        }
+        None => None,
+    };
     if let Some(r) = &rep {
         // The manifest keeps the deterministic part of the report: timings vary run to run
         // and would break bit-identical model files.
@@ -205,6 +219,14 @@ fn finish(
         text.push_str(&report::render_text(r));
         text.push('\n');
     }
+    if gate.is_some() && a.discard_below_gate {
+        text.push_str(&format!(
+            "not written: {} (--discard-below-gate)\n",
+            a.out.display()
+        ));
+        super::print_stdout(&text)?;
+        return Err(Error::new(ErrorKind::Gate, gate.unwrap_or_default()));
+    }
     model.save(&a.out)?;
     text.push_str(&format!(
         "wrote {} ({} features, {} program step{}, {} bytes of parameters)\n",
@@ -214,7 +236,14 @@ fn finish(
         if model.program().len() == 1 { "" } else { "s" },
         model.parameter_bytes()
     ));
-    super::print_stdout(&text)
+    super::print_stdout(&text)?;
+    match gate {
+        Some(why) => Err(Error::new(
+            ErrorKind::Gate,
+            format!("{why}; the model was written to {}", a.out.display()),
+        )),
+        None => Ok(()),
+    }
 }
 
 fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {

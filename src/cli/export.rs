@@ -1,6 +1,6 @@
 //! `kernelpress export`: compiled model → ONNX, C, Rust, or plain weights.
 
-use kernelpress::data::{check_batch, read_table, write_atomic};
+use kernelpress::data::write_atomic;
 use kernelpress::export::{check_precision, export, ExportOptions, Format, Precision};
 use kernelpress::model::CompiledModel;
 use kernelpress::Result;
@@ -47,6 +47,9 @@ pub(crate) struct Args {
     /// A target column of --check-data to leave out of the features.
     #[arg(long)]
     target: Option<String>,
+    /// Take the columns of --check-data in file order instead of by name.
+    #[arg(long)]
+    by_position: bool,
     /// Symbol prefix of the C export.
     #[arg(long, default_value = "kp")]
     prefix: String,
@@ -65,8 +68,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     let model = CompiledModel::load(&a.model)?;
     let check = match &a.check_data {
         Some(p) => {
-            let t = read_table(p, a.target.as_deref(), false)?;
-            check_batch(t.x.view(), model.input_dim(), &p.display().to_string())?;
+            let t = super::read_for(p, a.target.as_deref(), &model.feature_names, a.by_position)?;
             Some(check_precision(&model, opts.precision, t.x.view())?)
         }
         None => None,

@@ -121,6 +121,17 @@ pub(crate) fn run(a: Args) -> Result<()> {
         }
         _ => return Err(Error::input("give --kernel EXPR or --model FILE")),
     };
+    let ext = a
+        .out
+        .extension()
+        .map(|e| e.to_string_lossy().to_ascii_lowercase())
+        .unwrap_or_default();
+    if ext != "npy" && ext != "csv" {
+        return Err(Error::input(format!(
+            "--out {}: featurize writes .npy (float64) or .csv; name the file with one of those extensions",
+            a.out.display()
+        )));
+    }
     let t = read_table(&a.data, a.target.as_deref(), false)?;
     let src = a.data.display().to_string();
     check_batch(t.x.view(), t.x.ncols(), &src)?;
@@ -141,12 +152,8 @@ pub(crate) fn run(a: Args) -> Result<()> {
     }
     let pb = super::progress::bar(1, "featurize");
     let z = map.transform(x.view());
-    pb.finish_and_clear();
-    let is_csv = a
-        .out
-        .extension()
-        .map(|e| e.eq_ignore_ascii_case("csv"))
-        .unwrap_or(false);
+    pb.finish();
+    let is_csv = ext == "csv";
     if is_csv {
         let header: Vec<String> = (0..z.ncols()).map(|j| format!("z{j}")).collect();
         let rows: Vec<Vec<String>> = z

@@ -57,13 +57,14 @@ pub(crate) fn run(a: Args) -> Result<()> {
         let m = kernelpress::export::onnx::svm::import_svm(p)?;
         m.save(&a.out)?;
         return super::print_stdout(&format!(
-            "imported {} from {}: {} support vectors, kernel {}, {} task, {} outputs{}; wrote {}\n",
+            "imported {} from {}: {} support vectors, kernel {}, {} task, {} output{}{}; wrote {}\n",
             m.training["operator"].as_str().unwrap_or("SVM"),
             p.display(),
             m.n_support_vectors(),
             m.kernel(),
             m.task().name(),
             m.n_outputs(),
+            if m.n_outputs() == 1 { "" } else { "s" },
             if m.scaling().is_some() {
                 ", input scaling from the Scaler"
             } else {
@@ -125,10 +126,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
     m.training = serde_json::json!({ "model": "imported", "from": "arrays" });
     m.save(&a.out)?;
     super::print_stdout(&format!(
-        "imported {} support vectors ({} task, {} outputs); wrote {}\n",
+        "imported {} support vectors ({} task, {} output{}); wrote {}\n",
         m.n_support_vectors(),
         m.task().name(),
         m.n_outputs(),
+        if m.n_outputs() == 1 { "" } else { "s" },
         a.out.display()
     ))
 }

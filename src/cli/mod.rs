@@ -69,6 +69,7 @@ pub fn main() -> i32 {
         Err(e) => {
             let prefix = match e.kind() {
                 ErrorKind::Input | ErrorKind::File => "error",
+                ErrorKind::Gate => "quality gate failed",
                 ErrorKind::Numerical => "numerical failure",
                 ErrorKind::Io => "I/O error",
                 _ => "internal error",
@@ -88,6 +89,80 @@ pub(crate) fn print_stdout(text: &str) -> Result<()> {
         Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
         Err(e) => Err(Error::internal(format!("cannot write to stdout: {e}"))),
     }
+}
+
+/// The quality gate shared by `compile` and `report`.
+#[derive(Debug, Clone, clap::Args)]
+pub(crate) struct GateArgs {
+    /// Quality gate: exit with code 3 when label agreement with the exact model is below P.
+    /// Without it, agreement below 0.99 only prints a warning.
+    #[arg(long)]
+    pub min_agreement: Option<f64>,
+    /// Quality gate: exit with code 3 when the compiled model's accuracy on the labels of
+    /// --target is below A.
+    #[arg(long)]
+    pub min_accuracy: Option<f64>,
+}
+
+impl GateArgs {
+    pub(crate) fn validate(&self) -> Result<()> {
+        for (name, v) in [
+            ("--min-agreement", self.min_agreement),
+            ("--min-accuracy", self.min_accuracy),
+        ] {
+            if let Some(v) = v {
+                if !(0.0..=1.0).contains(&v) {
+                    return Err(Error::input(format!("{name} {v} must be between 0 and 1")));
+                }
+            }
+        }
+        Ok(())
+    }
+    /// The agreement below which the report warns.
+    pub(crate) fn tolerance(&self) -> f64 {
+        self.min_agreement.unwrap_or(0.99)
+    }
+    /// Why the gate fails, if it does.
+    pub(crate) fn failure(&self, r: &kernelpress::report::Report) -> Result<Option<String>> {
+        let mut why = Vec::new();
+        if let Some(p) = self.min_agreement {
+            match r.agreement {
+                Some(a) if a < p => why.push(format!("agreement {a:.4} < --min-agreement {p}")),
+                Some(_) => {}
+                None => {
+                    return Err(Error::input(
+                        "--min-agreement applies to classifiers; this model is a regression",
+                    ))
+                }
+            }
+        }
+        if let Some(p) = self.min_accuracy {
+            match r.accuracy_compiled {
+                Some(a) if a < p => why.push(format!("accuracy {a:.4} < --min-accuracy {p}")),
+                Some(_) => {}
+                None => {
+                    return Err(Error::input(
+                        "--min-accuracy needs true labels: name the label column with --target",
+                    ))
+                }
+            }
+        }
+        Ok((!why.is_empty()).then(|| why.join("; ")))
+    }
+}
+
+/// Reads data for a model, matching columns by name (or by position), printing the notes.
+pub(crate) fn read_for(
+    path: &std::path::Path,
+    target: Option<&str>,
+    names: &[String],
+    by_position: bool,
+) -> Result<kernelpress::data::Table> {
+    let m = kernelpress::data::read_for_model(path, target, names, by_position)?;
+    for n in &m.notes {
+        progress::note(n);
+    }
+    Ok(m.table)
 }
 
 /// Parses a kernel expression given on the command line.

@@ -1,6 +1,6 @@
 //! `kernelpress report`: compiled vs exact on a dataset → error report.
 
-use kernelpress::data::{check_batch, read_table, write_atomic};
+use kernelpress::data::write_atomic;
 use kernelpress::model::{CompiledModel, ExactModel};
 use kernelpress::report::{self, ReportOptions};
 use kernelpress::{Error, Result};
@@ -28,12 +28,17 @@ pub(crate) struct Args {
     /// Target column (true labels, for accuracy).
     #[arg(long)]
     target: Option<String>,
+    /// Take the data columns in file order instead of matching the model's column names.
+    #[arg(long)]
+    by_position: bool,
     /// Write JSON to this file; with no value, print JSON on stdout instead of the table.
     #[arg(long, num_args = 0..=1, default_missing_value = "-")]
     json: Option<String>,
-    /// Warn when label agreement falls below this.
-    #[arg(long, default_value_t = 0.99)]
-    min_agreement: f64,
+    #[command(flatten)]
+    gate: super::GateArgs,
+    /// Compare even when the compiled file records a different exact model.
+    #[arg(long)]
+    any_exact: bool,
     /// Skip latency measurements.
     #[arg(long)]
     no_timing: bool,
@@ -62,13 +67,31 @@ pub(crate) fn run(a: Args) -> Result<()> {
             e.task().name()
         )));
     }
-    if !(0.0..=1.0).contains(&a.min_agreement) {
-        return Err(Error::input("--min-agreement must be between 0 and 1"));
+    a.gate.validate()?;
+    match &c.exact_fingerprint {
+        Some(f) if *f != e.fingerprint() && !a.any_exact => {
+            return Err(Error::input(format!(
+                "{} was compiled from a different exact model (fingerprint {f}; {} has {}); pass --any-exact to compare anyway",
+                a.compiled.display(),
+                a.exact.display(),
+                e.fingerprint()
+            )))
+        }
+        None => super::progress::note(format!(
+            "{} records no exact model (compiled from labels or by an older version); cannot check it came from {}",
+            a.compiled.display(),
+            a.exact.display()
+        )),
+        _ => {}
     }
-    let t = read_table(&a.data, a.target.as_deref(), false)?;
-    check_batch(t.x.view(), e.input_dim(), &a.data.display().to_string())?;
+    let t = super::read_for(
+        &a.data,
+        a.target.as_deref(),
+        &c.feature_names,
+        a.by_position,
+    )?;
     let opts = ReportOptions {
-        min_agreement: a.min_agreement,
+        min_agreement: a.gate.tolerance(),
         timing: !a.no_timing,
         reps: a.reps.max(1),
         ..ReportOptions::default()
@@ -78,13 +101,18 @@ pub(crate) fn run(a: Args) -> Result<()> {
     for w in &r.warnings {
         super::progress::warn(w);
     }
+    let gate = a.gate.failure(&r)?;
     let pretty = format!("{}\n", serde_json::to_string_pretty(&r).unwrap());
     match a.json.as_deref() {
-        Some("-") => super::print_stdout(&pretty),
+        Some("-") => super::print_stdout(&pretty)?,
         Some(p) => {
             write_atomic(std::path::Path::new(p), pretty.as_bytes())?;
-            super::print_stdout(&report::render_text(&r))
+            super::print_stdout(&report::render_text(&r))?
         }
-        None => super::print_stdout(&report::render_text(&r)),
+        None => super::print_stdout(&report::render_text(&r))?,
+    }
+    match gate {
+        Some(why) => Err(Error::new(kernelpress::ErrorKind::Gate, why)),
+        None => Ok(()),
     }
 }

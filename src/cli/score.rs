@@ -1,15 +1,18 @@
 //! `kernelpress score`: any model file on data → decision values and labels as CSV.
 
-use kernelpress::data::{check_batch, read_table};
 use kernelpress::model::AnyModel;
 use kernelpress::Result;
 use std::path::PathBuf;
 
 /// Score a model on data: CSV of decision values (and labels for classifiers).
 ///
-/// Columns: `decision` for regression and binary models (positive means the second class
-/// label), `decision_0 … decision_{k-1}` for multi-output models, and `label` for
-/// classifiers; rows in input order.
+/// Columns name what a positive value favours, with one rule: in `decision_A_vs_B` a
+/// positive value favours class A (binary models: A is the second label; one-vs-one: the
+/// first class of the pair, and the pairs come in the order (0,1), (0,2), …, (1,2), …);
+/// `decision_A` is class A's one-vs-rest score (the largest wins); regression outputs are
+/// `decision` or `decision_0 …`. Then `label` for classifiers; rows in input order. Data
+/// columns are matched to the model's by name (extra columns are ignored with a note);
+/// --by-position takes them in file order.
 ///
 /// Example:
 ///   kernelpress score models/pump_svm.safetensors --data models/pump_test.csv --target condition
@@ -24,6 +27,9 @@ pub(crate) struct Args {
     /// A target column to leave out of the features, if the CSV has one.
     #[arg(long)]
     target: Option<String>,
+    /// Take the data columns in file order instead of matching the model's column names.
+    #[arg(long)]
+    by_position: bool,
     /// Write the CSV here instead of stdout.
     #[arg(long)]
     out: Option<PathBuf>,
@@ -31,16 +37,17 @@ pub(crate) struct Args {
 
 pub(crate) fn run(a: Args) -> Result<()> {
     let (model, _) = AnyModel::load(&a.model)?;
-    let t = read_table(&a.data, a.target.as_deref(), false)?;
-    check_batch(t.x.view(), model.input_dim(), &a.data.display().to_string())?;
+    let t = super::read_for(
+        &a.data,
+        a.target.as_deref(),
+        model.feature_names(),
+        a.by_position,
+    )?;
     let s = model.decision(t.x.view());
     let k = s.ncols();
     let classifier = model.task().is_classifier();
-    let mut header: Vec<String> = if k == 1 {
-        vec!["decision".into()]
-    } else {
-        (0..k).map(|j| format!("decision_{j}")).collect()
-    };
+    let mut header = model.rule().decision_names();
+    debug_assert_eq!(header.len(), k);
     if classifier {
         header.push("label".into());
     }

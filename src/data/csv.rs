@@ -31,9 +31,8 @@ pub fn read_csv(path: &Path, target: Option<&str>, require_target: bool) -> Resu
     let src = path.display().to_string();
     if require_target {
         if let Some(t) = target {
-            let head = text.lines().find(|l| !l.trim().is_empty()).unwrap_or("");
-            let names = split(head.trim_start_matches('\u{feff}'));
-            if !head.is_empty() && !names.iter().any(|n| n == t) {
+            let names = header(&text, &src)?;
+            if !names.iter().any(|n| n == t) {
                 return Err(Error::input(format!(
                     "{src}: target column '{t}' not found; columns are {}",
                     names.join(", ")
@@ -44,31 +43,97 @@ pub fn read_csv(path: &Path, target: Option<&str>, require_target: bool) -> Resu
     read_csv_str(&text, &src, target)
 }
 
+/// Reads a CSV file as text, with an error naming it when it is not UTF-8.
+pub(crate) fn read_text(path: &Path) -> Result<String> {
+    let bytes = super::read_bytes(path)?;
+    String::from_utf8(bytes).map_err(|e| {
+        Error::input(format!(
+            "{}: not UTF-8 text (byte {}); expected a CSV file",
+            path.display(),
+            e.utf8_error().valid_up_to()
+        ))
+    })
+}
+
 /// Parses CSV text. `source` names it in errors; `target` is the label column, if any
 /// (absent columns give `target: None`).
 pub fn read_csv_str(text: &str, source: &str, target: Option<&str>) -> Result<Table> {
-    let mut lines = text
-        .lines()
-        .enumerate()
-        .filter(|(_, l)| !l.trim().is_empty());
-    let (_, header) = lines.next().ok_or_else(|| {
+    read_csv_select(text, source, target, None, &[])
+}
+
+/// Checks a header: no empty and no repeated names.
+pub(crate) fn check_header(names: &[String], source: &str) -> Result<()> {
+    if let Some(j) = names.iter().position(|n| n.is_empty()) {
+        return Err(Error::input(format!(
+            "{source}: header column {} has no name; every column needs one",
+            j + 1
+        )));
+    }
+    let mut seen = std::collections::HashMap::new();
+    for (j, n) in names.iter().enumerate() {
+        if let Some(first) = seen.insert(n.as_str(), j) {
+            return Err(Error::input(format!(
+                "{source}: column name '{n}' appears twice (columns {} and {})",
+                first + 1,
+                j + 1
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// The header of CSV text (after a byte-order mark), checked.
+pub(crate) fn header(text: &str, source: &str) -> Result<Vec<String>> {
+    let head = text.lines().find(|l| !l.trim().is_empty()).ok_or_else(|| {
         Error::input(format!(
             "{source}: file is empty; expected a header row and data rows"
         ))
     })?;
-    let names = split(header.trim_start_matches('\u{feff}'));
-    let tcol = target.and_then(|t| names.iter().position(|n| n == t));
-    let columns: Vec<String> = names
-        .iter()
+    let names = split(head.trim_start_matches('\u{feff}'));
+    check_header(&names, source)?;
+    Ok(names)
+}
+
+/// Parses CSV text keeping the columns `select` (by name, in that order) as features, or
+/// every column but the target when `select` is `None`. `model_names` (may be empty) are
+/// used to explain a non-numeric column that is not a model feature.
+pub(crate) fn read_csv_select(
+    text: &str,
+    source: &str,
+    target: Option<&str>,
+    select: Option<&[String]>,
+    model_names: &[String],
+) -> Result<Table> {
+    let names = header(text, source)?;
+    let mut lines = text
+        .lines()
         .enumerate()
-        .filter(|(j, _)| Some(*j) != tcol)
-        .map(|(_, n)| n.clone())
-        .collect();
-    if columns.is_empty() {
+        .filter(|(_, l)| !l.trim().is_empty());
+    lines.next();
+    let tcol = target.and_then(|t| names.iter().position(|n| n == t));
+    // Feature column indices in output order.
+    let cols: Vec<usize> = match select {
+        Some(sel) => sel
+            .iter()
+            .map(|s| {
+                names
+                    .iter()
+                    .position(|n| n == s)
+                    .expect("selected columns exist")
+            })
+            .collect(),
+        None => (0..names.len()).filter(|j| Some(*j) != tcol).collect(),
+    };
+    if cols.is_empty() {
         return Err(Error::input(format!("{source}: no feature columns")));
     }
-    let d = columns.len();
+    let mut slot = vec![usize::MAX; names.len()];
+    for (k, j) in cols.iter().enumerate() {
+        slot[*j] = k;
+    }
+    let d = cols.len();
     let mut vals = Vec::new();
+    let mut row = vec![0.0; d];
     let mut tvals = Vec::new();
     let mut n = 0usize;
     for (li, line) in lines {
@@ -87,13 +152,28 @@ pub fn read_csv_str(text: &str, source: &str, target: Option<&str>) -> Result<Ta
                 tvals.push(f);
                 continue;
             }
+            if slot[j] == usize::MAX {
+                continue;
+            }
             let v: f64 = f.parse().map_err(|_| {
-                Error::input(format!(
+                let mut m = format!(
                     "{source}: row {} (line {}), column '{}': expected a number, found '{f}'",
                     n + 1,
                     li + 1,
                     names[j]
-                ))
+                );
+                if !model_names.is_empty() && !model_names.contains(&names[j]) {
+                    m.push_str(&format!(
+                        "; '{}' is not one of the model's features — if it holds the labels, pass --target {}",
+                        names[j], names[j]
+                    ));
+                } else if model_names.is_empty() && target.is_none() {
+                    m.push_str(&format!(
+                        "; if the column holds labels, pass --target {}",
+                        names[j]
+                    ));
+                }
+                Error::input(m)
             })?;
             if !v.is_finite() {
                 return Err(Error::input(format!(
@@ -103,8 +183,9 @@ pub fn read_csv_str(text: &str, source: &str, target: Option<&str>) -> Result<Ta
                     names[j]
                 )));
             }
-            vals.push(v);
+            row[slot[j]] = v;
         }
+        vals.extend_from_slice(&row);
         n += 1;
     }
     if n == 0 {
@@ -115,7 +196,7 @@ pub fn read_csv_str(text: &str, source: &str, target: Option<&str>) -> Result<Ta
     let x = Array2::from_shape_vec((n, d), vals).expect("row lengths checked");
     Ok(Table {
         x,
-        columns,
+        columns: cols.iter().map(|j| names[*j].clone()).collect(),
         target: tcol.map(|_| tvals),
         source: source.to_string(),
     })
@@ -144,6 +225,12 @@ mod tests {
         assert!(e.to_string().contains("column 'b'"), "{e}");
         let e = read_csv_str("a,b\n1,nan\n", "f.csv", None).unwrap_err();
         assert!(e.to_string().contains("finite"), "{e}");
+        let e = read_csv_str("a,a\n1,2\n", "f.csv", None).unwrap_err();
+        assert!(e.to_string().contains("appears twice"), "{e}");
+        let e = read_csv_str("a,,c\n1,2,3\n", "f.csv", None).unwrap_err();
+        assert!(e.to_string().contains("column 2 has no name"), "{e}");
+        let e = read_csv_str("a,b\n1,x\n", "f.csv", None).unwrap_err();
+        assert!(e.to_string().contains("pass --target b"), "{e}");
         let e = read_csv_str("a,b\n1\n", "f.csv", None).unwrap_err();
         assert!(e.to_string().contains("1 fields"), "{e}");
         assert!(read_csv_str("", "f.csv", None)

@@ -93,6 +93,107 @@ pub fn read_table(path: &Path, target: Option<&str>, require_target: bool) -> Re
     Ok(t)
 }
 
+/// Data read for a model: its rows with the model's features in the model's order.
+#[derive(Debug, Clone)]
+pub struct Matched {
+    /// The rows (features in model order) and the target column if named.
+    pub table: Table,
+    /// What the matching did (columns ignored, position used), for the user.
+    pub notes: Vec<String>,
+}
+
+/// True when `names` are the placeholder names `x0 … x{d−1}` of a model that was given no
+/// column names (imported from arrays or ONNX).
+pub fn placeholder_names(names: &[String]) -> bool {
+    names.iter().enumerate().all(|(j, n)| *n == format!("x{j}"))
+}
+
+/// Reads a data file for a model with feature names `names`. A CSV header is matched to
+/// the names, in any order: extra columns are ignored (with a note), missing ones are an
+/// error naming them. `.npy` files, models without names, and `by_position` take the
+/// columns in file order instead (the target column, when named, is left out).
+pub fn read_for_model(
+    path: &Path,
+    target: Option<&str>,
+    names: &[String],
+    by_position: bool,
+) -> Result<Matched> {
+    let src = path.display().to_string();
+    let is_npy = path
+        .extension()
+        .map(|e| e.eq_ignore_ascii_case("npy"))
+        .unwrap_or(false);
+    let mut notes = Vec::new();
+    if is_npy {
+        let t = read_table(path, None, false)?;
+        check_batch(t.x.view(), names.len(), &src)?;
+        return Ok(Matched { table: t, notes });
+    }
+    let text = csv::read_text(path)?;
+    let header = csv::header(&text, &src)?;
+    let others: Vec<&String> = header
+        .iter()
+        .filter(|h| Some(h.as_str()) != target)
+        .collect();
+    let known = !placeholder_names(names);
+    let select: Option<Vec<String>> = if by_position {
+        None
+    } else if known {
+        let missing: Vec<&String> = names.iter().filter(|n| !header.contains(n)).collect();
+        if !missing.is_empty() {
+            let hint = match target {
+                Some(t) if missing.iter().any(|m| *m == t) => {
+                    format!(" ('{t}' was given as --target)")
+                }
+                _ => String::new(),
+            };
+            return Err(Error::input(format!(
+                "{src}: the model's feature column{} {} {} missing{hint}; the file has {}",
+                if missing.len() == 1 { "" } else { "s" },
+                missing
+                    .iter()
+                    .map(|m| format!("'{m}'"))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+                if missing.len() == 1 { "is" } else { "are" },
+                others
+                    .iter()
+                    .map(|m| format!("'{m}'"))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+            )));
+        }
+        let extra: Vec<&&String> = others.iter().filter(|h| !names.contains(h)).collect();
+        if !extra.is_empty() {
+            notes.push(format!(
+                "{src}: ignored column{} {} (not features of the model{})",
+                if extra.len() == 1 { "" } else { "s" },
+                extra
+                    .iter()
+                    .map(|m| format!("'{m}'"))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+                if target.is_none() {
+                    "; name a label column with --target"
+                } else {
+                    ""
+                }
+            ));
+        }
+        Some(names.to_vec())
+    } else {
+        if others.len() == names.len() && others.iter().zip(names).any(|(a, b)| *a != b) {
+            notes.push(format!(
+                "{src}: the model has no column names; columns are taken by position"
+            ));
+        }
+        None
+    };
+    let t = csv::read_csv_select(&text, &src, target, select.as_deref(), names)?;
+    check_batch(t.x.view(), names.len(), &src)?;
+    Ok(Matched { table: t, notes })
+}
+
 /// Per-feature standardisation `(x − mean) / scale`, stored in model files.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Standardizer {

@@ -10,6 +10,7 @@
 //! assert!((s[[0, 0]] - 6.0).abs() < 1e-6);
 //! ```
 
+pub mod choose;
 pub(crate) mod ridge;
 mod smo;
 

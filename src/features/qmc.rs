@@ -137,7 +137,7 @@ mod tests {
 
     #[test]
     fn halton_reference_points() {
-        // REFERENCES §5: bases (2,3), skipping index 0.
+        // Halton (1964): radical inverses in bases (2,3), skipping index 0.
         let p = halton(4, 2, 1, None);
         let want = [
             0.5,
@@ -159,7 +159,7 @@ mod tests {
 
     #[test]
     fn sobol_reference_points() {
-        // REFERENCES §5: unscrambled 2-D Sobol', first 8 (from index 0).
+        // Sobol' (1967), unscrambled 2-D points, first 8 from index 0 (Joe & Kuo 2008 numbers).
         let p = sobol(8, 2, 0, None).unwrap();
         let want = [
             0.0, 0.0, 0.5, 0.5, 0.75, 0.25, 0.25, 0.75, 0.375, 0.375, 0.875, 0.875, 0.625, 0.125,

@@ -1,7 +1,7 @@
 //! Frequencies of shift-invariant kernels, for unit scale (inputs are multiplied by the
 //! kernel's per-dimension inverse scale first, see [`crate::kernel`]):
 //!
-//! | kernel (unit scale) | spectral distribution (REFERENCES §1) |
+//! | kernel (unit scale) | spectral distribution (Bochner's theorem; Rahimi & Recht 2007) |
 //! |---|---|
 //! | Gaussian `exp(−‖u‖²/2)` | `ω ~ N(0, I)` |
 //! | Laplacian `exp(−‖u‖₁)` | `ω_j` iid standard Cauchy |

@@ -91,7 +91,7 @@ fn fastfood_row_norms_and_orf_orthogonality() {
 
 #[test]
 fn quasi_frequencies_are_inverse_cdf_of_halton() {
-    // REFERENCES §5: Halton (2,3) skipping 0, through Φ⁻¹.
+    // Halton (1964) points in bases (2,3), skipping index 0, through Φ⁻¹ (Yang et al. 2014).
     let mut spec = FeatureSpec::new(k("gaussian(lengthscale=1)"), Method::Quasi, 2, 8, 0);
     spec.options.scramble = false;
     let (map, _) = spec.sample(None).unwrap();
@@ -111,7 +111,8 @@ fn quasi_frequencies_are_inverse_cdf_of_halton() {
 
 #[test]
 fn nystrom_reference_example() {
-    // REFERENCES §6: points {0,1,2}, Gaussian σ=1, landmarks {0,2}: K̃₁₁ = 2e⁻¹/(1+e⁻²),
+    // Nyström (Williams & Seeger 2001) worked by hand: points {0,1,2}, Gaussian σ=1, landmarks
+    // {0,2}: K̃₁₁ = 2e⁻¹/(1+e⁻²),
     // other entries exact, ‖K − K̃‖_F = 0.3519457.
     let kern = k("gaussian(lengthscale=1)");
     let x = array![[0.0], [1.0], [2.0]];

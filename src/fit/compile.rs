@@ -102,6 +102,7 @@ pub fn compile_exact(
     )?;
     m.fit = fit;
     m.feature_names = exact.feature_names.clone();
+    m.exact_fingerprint = Some(exact.fingerprint());
     Ok((m, info))
 }
 

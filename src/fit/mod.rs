@@ -1,4 +1,4 @@
-//! Fitting the linear head of a compiled model (SPEC §5).
+//! Fitting the linear head of a compiled model.
 //!
 //! - [`project`]: no data: the exact model's dual expansion pushed through the feature map,
 //!   `W = Z(SV)ᵀ · coef`, `b` = the exact intercepts.

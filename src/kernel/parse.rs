@@ -59,6 +59,12 @@ fn lex(s: &str) -> Result<Vec<(Tok, usize)>> {
                     }
                 }
                 let text = &s[start..i];
+                if text == "-" {
+                    return Err(Error::input(format!(
+                        "kernel expression: '-' at position {}: subtraction is not supported (a difference of kernels need not be a kernel); combine kernels with + (sum), * (product) and positive scale factors",
+                        start + 1
+                    )));
+                }
                 let v: f64 = text.parse().map_err(|_| {
                     Error::input(format!(
                         "kernel expression: '{text}' at position {} is not a number",
@@ -302,8 +308,14 @@ impl Params {
                 self.kernel
             ))),
             None => default.ok_or_else(|| {
+                let hint = self
+                    .items
+                    .iter()
+                    .find(|(k, _, _)| closest(k, &[key]).is_some())
+                    .map(|(k, _, _)| format!("; '{k}' is unknown — did you mean '{key}'?"))
+                    .unwrap_or_default();
                 Error::input(format!(
-                    "kernel {} (position {}): parameter '{key}' is required",
+                    "kernel {} (position {}): parameter '{key}' is required{hint}",
                     self.kernel, self.at
                 ))
             }),
@@ -366,21 +378,59 @@ impl Params {
             None => match default_ls {
                 Some(l) => Ok(Width::Lengthscale(l)),
                 None => Err(Error::input(format!(
-                    "kernel {} (position {}): needs 'gamma' or 'lengthscale'",
-                    self.kernel, self.at
+                    "kernel {} (position {}): needs 'gamma' or 'lengthscale'{}",
+                    self.kernel,
+                    self.at,
+                    self.items
+                        .first()
+                        .and_then(|(k, _, _)| closest(k, &["gamma", "lengthscale"])
+                            .map(|c| format!("; '{k}' is unknown — did you mean '{c}'?")))
+                        .unwrap_or_default()
                 ))),
             },
         }
     }
     fn finish(self, allowed: &str) -> Result<()> {
         if let Some((k, _, at)) = self.items.first() {
+            let names: Vec<&str> = allowed
+                .split([',', ' '])
+                .filter(|w| !w.is_empty() && *w != "or" && *w != "and" && *w != "none")
+                .collect();
+            let hint = closest(k, &names)
+                .map(|c| format!(" — did you mean '{c}'?"))
+                .unwrap_or_default();
             return Err(Error::input(format!(
-                "kernel {}: unknown parameter '{k}' (position {at}); it takes {allowed}",
+                "kernel {}: unknown parameter '{k}' (position {at}); it takes {allowed}{hint}",
                 self.kernel
             )));
         }
         Ok(())
     }
+}
+
+/// Levenshtein distance (for suggestions).
+fn distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut cur = vec![i + 1];
+        for (j, cb) in b.iter().enumerate() {
+            let sub = prev[j] + usize::from(ca != *cb);
+            cur.push(sub.min(prev[j + 1] + 1).min(cur[j] + 1));
+        }
+        prev = cur;
+    }
+    prev[b.len()]
+}
+
+/// The candidate within two edits of `name`, if any (the nearest).
+pub(crate) fn closest<'a>(name: &str, candidates: &[&'a str]) -> Option<&'a str> {
+    candidates
+        .iter()
+        .map(|c| (distance(name, c), *c))
+        .filter(|(d, _)| *d <= 2)
+        .min_by_key(|(d, _)| *d)
+        .map(|(_, c)| c)
 }
 
 fn build(name: &str, items: Vec<(String, Value, usize)>, at: usize) -> Result<Kernel> {
@@ -466,7 +516,10 @@ fn build(name: &str, items: Vec<(String, Value, usize)>, at: usize) -> Result<Ke
         }
         other => {
             return Err(Error::input(format!(
-                "kernel expression: unknown kernel '{other}' at position {at}; known kernels: {KERNELS}"
+                "kernel expression: unknown kernel '{other}' at position {at}; known kernels: {KERNELS}{}",
+                closest(other, &KERNELS.split(", ").collect::<Vec<_>>())
+                    .map(|c| format!(" — did you mean '{c}'?"))
+                    .unwrap_or_default()
             )))
         }
     };

@@ -7,7 +7,7 @@ fn k(s: &str) -> Kernel {
 
 #[test]
 fn reference_values_matern_rq() {
-    // REFERENCES §1: Matérn ℓ=1, r=1 (closed forms; GPML §4.2).
+    // Matérn ℓ=1, r=1: closed forms of Rasmussen & Williams, GPML 2006, eq. 4.16–4.17.
     let x = [0.0, 0.0];
     let y = [1.0, 0.0];
     let cases = [
@@ -18,7 +18,7 @@ fn reference_values_matern_rq() {
     for (e, want) in cases {
         assert!((k(e).eval(&x, &y) - want).abs() < 5e-8, "{e}");
     }
-    // REFERENCES §1: σ=2, Δ=(0.7,−1.1,0.4): L1 Laplacian e^{−1.1}.
+    // σ=2, Δ=(0.7,−1.1,0.4): the L1 Laplacian exp(−‖Δ‖₁/σ) = e^{−1.1} (direct evaluation).
     let d = [0.7, -1.1, 0.4];
     let z = [0.0; 3];
     assert!((k("laplacian(lengthscale=2)").eval(&d, &z) - 0.3328711).abs() < 5e-8);
@@ -27,12 +27,12 @@ fn reference_values_matern_rq() {
 
 #[test]
 fn reference_values_dot_kernels() {
-    // REFERENCES §7 (Cho & Saul 2009): x=(1,0), y=(1,1): k0 = 3/4, k1 = 3/4 + 1/π.
+    // Cho & Saul, NIPS 2009, arc-cosine kernels: x=(1,0), y=(1,1): k0 = 3/4, k1 = 3/4 + 1/π.
     let x = [1.0, 0.0];
     let y = [1.0, 1.0];
     assert!((k("arccos(order=0)").eval(&x, &y) - 0.75).abs() < 1e-12);
     assert!((k("arccos(order=1)").eval(&x, &y) - 1.0683099).abs() < 5e-8);
-    // REFERENCES §12: (x·y)² with x=(1,2), y=(3,4) is 121.
+    // (x·y)² with x=(1,2), y=(3,4) is 11² = 121 (direct evaluation).
     let p = k("polynomial(degree=2, gamma=1, coef0=0)");
     assert_eq!(p.eval(&[1.0, 2.0], &[3.0, 4.0]), 121.0);
 }

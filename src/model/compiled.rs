@@ -43,6 +43,9 @@ pub struct CompiledModel {
     pub report: Value,
     /// Feature names (the model's input columns).
     pub feature_names: Vec<String>,
+    /// Fingerprint of the exact model this one was compiled from
+    /// ([`crate::model::ExactModel::fingerprint`]), if any.
+    pub exact_fingerprint: Option<String>,
 }
 
 impl CompiledModel {
@@ -134,6 +137,7 @@ impl CompiledModel {
             fit: json!({}),
             report: json!({}),
             feature_names: (0..d).map(|j| format!("x{j}")).collect(),
+            exact_fingerprint: None,
         })
     }
 
@@ -282,6 +286,9 @@ impl CompiledModel {
             o.remove("input_dim");
             o.insert("features".into(), json!(self.features));
             o.insert("features_requested".into(), json!(self.spec.features));
+            if let Some(fp) = &self.exact_fingerprint {
+                o.insert("exact_fingerprint".into(), json!(fp));
+            }
         }
         let m = json!({
             "format_version": FORMAT_VERSION,
@@ -340,6 +347,9 @@ impl CompiledModel {
             if let Some(r) = source.remove("features_requested") {
                 source.insert("features".into(), r);
             }
+            let fingerprint = source
+                .remove("exact_fingerprint")
+                .and_then(|v| v.as_str().map(String::from));
             let spec = FeatureSpec::from_json(&Value::Object(source))
                 .map_err(|e| bad(format!("source': {}", e.message())))?;
             let folded = f
@@ -367,6 +377,7 @@ impl CompiledModel {
                 scaling,
                 folded,
                 names,
+                fingerprint,
             }
         };
         let mut m = Self::from_parts(
@@ -382,6 +393,7 @@ impl CompiledModel {
         )
         .map_err(|e| Error::file(format!("{src}: {}", e.message())))?;
         m.feature_names = v.names;
+        m.exact_fingerprint = v.fingerprint;
         m.fit = f.manifest.get("fit").cloned().unwrap_or(json!({}));
         m.report = f.manifest.get("report").cloned().unwrap_or(json!({}));
         Ok(m)

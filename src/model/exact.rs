@@ -187,6 +187,38 @@ impl ExactModel {
         self.n_support_vectors() * (3 * self.input_dim() + 2 * self.n_outputs())
     }
 
+    /// A fingerprint of the model: FNV-1a (64 bits) over its kernel, task, labels, input
+    /// scaling, support vectors, coefficients and intercepts. Compiled models record the
+    /// fingerprint of the exact model they came from.
+    pub fn fingerprint(&self) -> String {
+        let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+        let mut eat = |b: &[u8]| {
+            for x in b {
+                h ^= *x as u64;
+                h = h.wrapping_mul(0x0100_0000_01b3);
+            }
+        };
+        eat(self.kernel.to_string().as_bytes());
+        eat(self.task().name().as_bytes());
+        for l in self.labels() {
+            eat(l.as_bytes());
+            eat(&[0]);
+        }
+        let floats = |v: &mut dyn FnMut(&[u8]), xs: &mut dyn Iterator<Item = f64>| {
+            for x in xs {
+                v(&x.to_le_bytes());
+            }
+        };
+        if let Some(s) = &self.scaling {
+            floats(&mut eat, &mut s.mean.iter().copied());
+            floats(&mut eat, &mut s.scale.iter().copied());
+        }
+        floats(&mut eat, &mut self.support_vectors.iter().copied());
+        floats(&mut eat, &mut self.coef.iter().copied());
+        floats(&mut eat, &mut self.intercept.iter().copied());
+        format!("fnv1a64:{h:016x}")
+    }
+
     /// Bytes of the model's parameters (f64), as stored.
     pub fn parameter_bytes(&self) -> usize {
         8 * (self.support_vectors.len()

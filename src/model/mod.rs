@@ -96,4 +96,20 @@ impl AnyModel {
             AnyModel::Compiled(m) => m.task(),
         }
     }
+
+    /// The model's input column names.
+    pub fn feature_names(&self) -> &[String] {
+        match self {
+            AnyModel::Exact(m) => &m.feature_names,
+            AnyModel::Compiled(m) => &m.feature_names,
+        }
+    }
+
+    /// The output rule.
+    pub fn rule(&self) -> &OutputRule {
+        match self {
+            AnyModel::Exact(m) => m.rule(),
+            AnyModel::Compiled(m) => m.rule(),
+        }
+    }
 }

@@ -178,6 +178,37 @@ impl OutputRule {
         self.outputs
     }
 
+    /// Names of the decision values, saying which class a positive value favours, with
+    /// one rule for every task: in `decision_A_vs_B` a positive value favours `A` (binary:
+    /// `A` is the second label; one-vs-one: the first class of the pair); `decision_A`
+    /// (one-vs-rest) is `A`'s score; regression outputs are `decision` or `decision_0…`.
+    /// Commas and quotes in labels become `_` so that the names stay CSV fields.
+    ///
+    /// ```
+    /// use kernelpress::model::{OutputRule, Task};
+    /// let r = OutputRule::new(Task::Binary, vec!["ok".into(), "worn".into()], 1).unwrap();
+    /// assert_eq!(r.decision_names(), vec!["decision_worn_vs_ok"]);
+    /// ```
+    pub fn decision_names(&self) -> Vec<String> {
+        let clean = |s: &str| s.replace([',', '"', '\n', '\r'], "_");
+        let l: Vec<String> = self.labels.iter().map(|s| clean(s)).collect();
+        match self.task {
+            Task::Regression if self.outputs == 1 => vec!["decision".into()],
+            Task::Regression => (0..self.outputs).map(|j| format!("decision_{j}")).collect(),
+            Task::Binary => vec![format!("decision_{}_vs_{}", l[1], l[0])],
+            Task::Ovr => l.iter().map(|a| format!("decision_{a}")).collect(),
+            Task::Ovo => {
+                let mut v = Vec::new();
+                for i in 0..l.len() {
+                    for j in i + 1..l.len() {
+                        v.push(format!("decision_{}_vs_{}", l[i], l[j]));
+                    }
+                }
+                v
+            }
+        }
+    }
+
     /// Label indices of decision values (0 for regression).
     pub fn indices(&self, s: ArrayView2<f64>) -> Vec<usize> {
         label_indices(self.task, self.labels.len(), s)

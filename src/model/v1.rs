@@ -24,6 +24,7 @@ pub(crate) struct Parts {
     pub scaling: Option<Standardizer>,
     pub folded: bool,
     pub names: Vec<String>,
+    pub fingerprint: Option<String>,
 }
 
 fn bad(src: &str, m: impl std::fmt::Display) -> Error {
@@ -159,6 +160,7 @@ pub(crate) fn compiled(f: &TensorFile, src: &str) -> Result<Parts> {
         scaling: scaling(f, d, src)?,
         folded,
         names: names(f, d),
+        fingerprint: None,
     })
 }
 

@@ -43,6 +43,17 @@ pub struct Timing {
     pub threads: Option<usize>,
 }
 
+/// Rows whose label changes from `exact` to `compiled`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Change {
+    /// The exact model's label.
+    pub exact: String,
+    /// The compiled model's label.
+    pub compiled: String,
+    /// Rows.
+    pub rows: usize,
+}
+
 /// The report (JSON keys as named here).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Report {
@@ -95,6 +106,9 @@ pub struct Report {
     pub timing: Timing,
     /// Rows evaluated.
     pub n_rows: usize,
+    /// The non-zero off-diagonal cells of the exact × compiled label table, largest first.
+    #[serde(default)]
+    pub changed_decisions: Vec<Change>,
     /// Warnings for the user.
     pub warnings: Vec<String>,
     /// Which rows the figures were computed on.
@@ -202,6 +216,7 @@ pub fn build(
         flops_compiled: compiled.flops(),
         timing: Timing::default(),
         n_rows: n,
+        changed_decisions: Vec::new(),
         warnings: Vec::new(),
         evaluated_on: None,
     };
@@ -210,6 +225,21 @@ pub fn build(
         let le = label_indices(exact.task(), k, se.view());
         let lc = label_indices(compiled.task(), k, sc.view());
         let agree = le.iter().zip(&lc).filter(|(a, b)| a == b).count();
+        let mut cells = std::collections::BTreeMap::new();
+        for (a, b) in le.iter().zip(&lc).filter(|(a, b)| a != b) {
+            *cells.entry((*a, *b)).or_insert(0usize) += 1;
+        }
+        let names = exact.labels();
+        let mut changes: Vec<Change> = cells
+            .into_iter()
+            .map(|((a, b), rows)| Change {
+                exact: names[a].clone(),
+                compiled: names[b].clone(),
+                rows,
+            })
+            .collect();
+        changes.sort_by_key(|c| std::cmp::Reverse(c.rows));
+        r.changed_decisions = changes;
         let (lo, hi) = wilson95(agree, n);
         let a = agree as f64 / n as f64;
         r.agreement = Some(a);

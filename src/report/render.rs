@@ -1,94 +1,176 @@
-//! The report as text for people.
+//! The report as text for people: units, three significant digits, each figure next to
+//! what it means, only what was measured.
 
 use super::Report;
-use serde_json::Value;
 
-fn f(v: &Value, k: &str) -> String {
-    match v.get(k) {
-        Some(Value::Number(n)) => {
-            let x = n.as_f64().unwrap();
-            if x.fract() == 0.0 && x.abs() < 1e15 {
-                format!("{}", x as i64)
-            } else if x.abs() >= 1e4 || x.abs() < 1e-3 {
-                format!("{x:.3e}")
-            } else {
-                format!("{x:.4}")
-            }
-        }
-        Some(Value::String(t)) => t.clone(),
-        Some(Value::Null) | None => "—".into(),
-        Some(o) => o.to_string(),
+/// `x` with three significant digits (plain notation from 0.001 to 10⁶).
+pub fn sig3(x: f64) -> String {
+    if !x.is_finite() {
+        return format!("{x}");
+    }
+    if x == 0.0 {
+        return "0".into();
+    }
+    let a = x.abs();
+    if !(1e-3..1e6).contains(&a) {
+        return format!("{x:.2e}");
+    }
+    let digits = (2 - a.log10().floor() as i32).max(0) as usize;
+    format!("{x:.digits$}")
+}
+
+/// Bytes as B, KB or MB (1 KB = 1024 B).
+pub fn bytes(n: usize) -> String {
+    let x = n as f64;
+    if x >= 1024.0 * 1024.0 {
+        format!("{} MB", sig3(x / 1048576.0))
+    } else if x >= 1024.0 {
+        format!("{} KB", sig3(x / 1024.0))
+    } else {
+        format!("{n} B")
     }
 }
 
-/// The report as a human-readable table.
-pub fn render_text(report: &Report) -> String {
-    let r = &serde_json::to_value(report).expect("a report serialises");
+/// A count with k or M.
+pub fn count(x: f64) -> String {
+    if x >= 1e6 {
+        format!("{} M", sig3(x / 1e6))
+    } else if x >= 1e3 {
+        format!("{} k", sig3(x / 1e3))
+    } else {
+        sig3(x)
+    }
+}
+
+fn row(s: &mut String, label: &str, exact: &str, compiled: &str, note: &str) {
+    let line = format!("  {label:<28} {exact:>14} {compiled:>14}  {note}");
+    s.push_str(line.trim_end());
+    s.push('\n');
+}
+
+/// The report as a human-readable text.
+pub fn render_text(r: &Report) -> String {
     let mut s = String::new();
     s.push_str(&format!(
-        "compiled model: {} with {} features (seed {}) for {}\nevaluated on {} rows\n\n",
-        f(r, "method"),
-        f(r, "features"),
-        f(r, "seed"),
-        r.get("kernel").and_then(|v| v.as_str()).unwrap_or("?"),
-        f(r, "n_rows")
+        "compiled model: {}, {} features (seed {}), for {}\n",
+        r.method, r.features, r.seed, r.kernel
     ));
-    let rows = [
-        ("label agreement with exact", "agreement"),
-        ("decision RMSE", "decision_rmse"),
-        ("decision R²", "decision_r2"),
-        ("decision max |error|", "decision_max_abs_error"),
-        ("kernel max |error|", "kernel_max_abs_error"),
-        ("kernel RMSE", "kernel_rmse"),
-        ("Gram relative Frobenius error", "gram_rel_frobenius_error"),
-    ];
-    for (label, key) in rows {
-        s.push_str(&format!("{label:<32} {}\n", f(r, key)));
-    }
-    if let Some(Value::Array(ci)) = r.get("agreement_ci95") {
+    s.push_str(&format!(
+        "evaluated on {} rows{}\n\n",
+        r.n_rows,
+        r.evaluated_on
+            .as_ref()
+            .map(|e| format!(" ({e})"))
+            .unwrap_or_default()
+    ));
+    if let (Some(a), Some([lo, hi])) = (r.agreement, r.agreement_ci95) {
         s.push_str(&format!(
-            "{:<32} [{:.4}, {:.4}]\n",
-            "agreement 95% interval (Wilson)",
-            ci[0].as_f64().unwrap_or(0.0),
-            ci[1].as_f64().unwrap_or(0.0)
+            "  agreement with the exact model   {a:.4} (95% interval {lo:.4}–{hi:.4})\n      share of rows given the same label as the exact model\n"
+        ));
+    }
+    if let (Some(e), Some(c)) = (r.accuracy_exact, r.accuracy_compiled) {
+        s.push_str(&format!(
+            "  accuracy                        exact {e:.4}, compiled {c:.4} ({:+.2} points)\n      share of rows given the true label\n",
+            100.0 * (c - e)
         ));
     }
     s.push_str(&format!(
-        "\n{:<32} {:>14} {:>14}\n",
-        "", "exact", "compiled"
+        "  decision values                 RMSE {}, R² {}, max |error| {}\n      how far the compiled scores are from the exact ones (same units as the scores)\n",
+        sig3(r.decision_rmse),
+        r.decision_r2.map(|v| format!("{v:.4}")).unwrap_or_else(|| "undefined (constant scores)".into()),
+        sig3(r.decision_max_abs_error)
     ));
-    for (label, a, b) in [
-        ("accuracy", "accuracy_exact", "accuracy_compiled"),
-        ("parameter bytes", "bytes_exact", "bytes_compiled"),
-        ("flops per prediction", "flops_exact", "flops_compiled"),
-        (
-            "single-row latency p50 (µs)",
-            "latency_us_exact_p50",
-            "latency_us_compiled_p50",
-        ),
-        (
-            "single-row latency p99 (µs)",
-            "latency_us_exact_p99",
-            "latency_us_compiled_p99",
-        ),
-        (
-            "batched throughput (rows/s)",
-            "throughput_rows_per_s_exact",
-            "throughput_rows_per_s_compiled",
-        ),
-    ] {
-        s.push_str(&format!("{label:<32} {:>14} {:>14}\n", f(r, a), f(r, b)));
-    }
     s.push_str(&format!(
-        "{:<32} {:>14} (single row), {} (batched)\n",
-        "speedup",
-        f(r, "speedup_single"),
-        f(r, "speedup_batch")
+        "  kernel values                   RMSE {}, max |error| {}, Gram relative error {} (first {} rows)\n      how well ⟨z(x), z(y)⟩ reproduces k(x, y); the max is the worst single pair and can be\n      large while decisions rarely change, since the head fit corrects for the map\n",
+        sig3(r.kernel_rmse),
+        sig3(r.kernel_max_abs_error),
+        sig3(r.gram_rel_frobenius_error),
+        r.kernel_rows
     ));
-    if let Some(Value::Array(w)) = r.get("warnings") {
-        for x in w {
-            s.push_str(&format!("\nWARNING: {}\n", x.as_str().unwrap_or("")));
+    s.push('\n');
+    row(&mut s, "", "exact", "compiled", "");
+    row(
+        &mut s,
+        "parameters",
+        &bytes(r.bytes_exact),
+        &bytes(r.bytes_compiled),
+        "",
+    );
+    row(
+        &mut s,
+        "flops per prediction",
+        &count(r.flops_exact as f64),
+        &count(r.flops_compiled as f64),
+        "(analytic)",
+    );
+    let t = &r.timing;
+    if let (Some(e), Some(c)) = (t.latency_us_exact_p50, t.latency_us_compiled_p50) {
+        let speed = t
+            .speedup_single
+            .map(|v| format!("{}× faster", sig3(v)))
+            .unwrap_or_default();
+        row(
+            &mut s,
+            "single-row latency, median",
+            &format!("{} µs", sig3(e)),
+            &format!("{} µs", sig3(c)),
+            &speed,
+        );
+    }
+    if let (Some(e), Some(c)) = (t.latency_us_exact_p99, t.latency_us_compiled_p99) {
+        row(
+            &mut s,
+            "single-row latency, p99",
+            &format!("{} µs", sig3(e)),
+            &format!("{} µs", sig3(c)),
+            "",
+        );
+    }
+    if let (Some(e), Some(c)) = (
+        t.throughput_rows_per_s_exact,
+        t.throughput_rows_per_s_compiled,
+    ) {
+        let speed = t
+            .speedup_batch
+            .map(|v| format!("{}× faster", sig3(v)))
+            .unwrap_or_default();
+        row(
+            &mut s,
+            "batched throughput",
+            &format!("{} rows/s", count(e)),
+            &format!("{} rows/s", count(c)),
+            &speed,
+        );
+    }
+    if t.latency_us_exact_p50.is_none() {
+        s.push_str("  (latency not measured: --no-timing)\n");
+    }
+    if !r.changed_decisions.is_empty() {
+        s.push_str("\n  decisions that change (exact label → compiled label: rows)\n");
+        for c in &r.changed_decisions {
+            s.push_str(&format!("    {} → {}: {}\n", c.exact, c.compiled, c.rows));
         }
     }
+    for w in &r.warnings {
+        s.push_str(&format!("\nWARNING: {w}\n"));
+    }
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn three_significant_digits_and_units() {
+        assert_eq!(sig3(25.0930), "25.1");
+        assert_eq!(sig3(2634.1538), "2634");
+        assert_eq!(sig3(0.0407), "0.0407");
+        assert_eq!(sig3(1.5), "1.50");
+        assert_eq!(sig3(123456789.0), "1.23e8");
+        assert_eq!(bytes(284768), "278 KB");
+        assert_eq!(bytes(900), "900 B");
+        assert_eq!(bytes(3 << 20), "3.00 MB");
+        assert_eq!(count(91476.0), "91.5 k");
+    }
 }

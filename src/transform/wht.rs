@@ -9,7 +9,7 @@
 //! use kernelpress::transform::wht_in_place;
 //! let mut x = [1.0f64, 2.0, 3.0, 4.0];
 //! wht_in_place(&mut x);
-//! assert_eq!(x, [10.0, -2.0, -4.0, 0.0]); // REFERENCES §11
+//! assert_eq!(x, [10.0, -2.0, -4.0, 0.0]); // H₄·(1,2,3,4) by Sylvester's construction
 //! ```
 
 use std::ops::{Add, Sub};
@@ -223,7 +223,7 @@ mod tests {
 
     #[test]
     fn reference_check_values_and_involution() {
-        // REFERENCES §11: H₈e₀ = all ones; H·H = nI.
+        // Sylvester's construction (1867): H₈e₀ = all ones; H·H = nI.
         let mut e0 = [0.0f64; 8];
         e0[0] = 1.0;
         wht_in_place(&mut e0);

@@ -15,7 +15,7 @@ def gram(spec, a, b):
     """Gram matrix K(a, b) for a kernel given as a dict (name + parameters)."""
     name = spec["name"]
     if name == "gaussian":
-        # exp(-gamma ||x-y||^2) (Rahimi & Recht 2007; REFERENCES §1)
+        # exp(-gamma ||x-y||^2) (Rahimi & Recht 2007)
         return np.exp(-spec["gamma"] * cdist(a, b, "sqeuclidean"))
     if name == "gaussian_ls":
         ls = np.asarray(spec["lengthscale"], dtype=float)
