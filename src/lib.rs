@@ -40,6 +40,7 @@ pub mod fit;
 pub mod format;
 mod fsio;
 pub mod kernel;
+pub mod limits;
 pub mod linalg;
 pub mod model;
 pub mod observe;

@@ -127,6 +127,16 @@ fn wrong_feature_count() {
     std::fs::write(&p, "a,b\n1,2\n").unwrap();
     let out = dir.join("o.csv");
     let e = bad(&["score", &demo_model(), "--data", s(&p), "--out", s(&out)]);
+    assert!(e.contains("'vib_rms'") && e.contains("are missing"), "{e}");
+    let e = bad(&[
+        "score",
+        &demo_model(),
+        "--data",
+        s(&p),
+        "--by-position",
+        "--out",
+        s(&out),
+    ]);
     assert!(e.contains("2 features") && e.contains("expects 8"), "{e}");
     assert!(!out.exists());
 }

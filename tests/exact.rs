@@ -332,7 +332,7 @@ fn import_from_arrays_scores_like_the_formula() {
     std::fs::write(&data, "p,q\n0,0\n1,1\n").unwrap();
     let out = ok(&["score", s(&model), "--data", s(&data)]);
     let lines: Vec<&str> = out.lines().collect();
-    assert_eq!(lines[0], "decision,label");
+    assert_eq!(lines[0], "decision_worn_vs_ok,label");
     // By hand: f(0,0) = 1 − 2e^{−½} + 0.5e^{−2} − 0.25.
     let f0: f64 = 1.0 - 2.0 * (-0.5f64).exp() + 0.5 * (-2.0f64).exp() - 0.25;
     let got: f64 = lines[1].split(',').next().unwrap().parse().unwrap();

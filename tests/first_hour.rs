@@ -486,3 +486,22 @@ fn train_chooses_c_when_asked_and_prints_the_grid() {
         15
     );
 }
+
+#[test]
+fn kernel_check_columns_line_up() {
+    let o = ok(&[
+        "kernel-check",
+        "--kernel",
+        "gaussian(gamma=1)",
+        "--dim",
+        "3",
+    ]);
+    for l in o.lines() {
+        assert!(l.len() > 22, "{l}");
+        let (label, value) = l.split_at(22);
+        assert!(
+            !label.trim().is_empty() && !value.starts_with(' '),
+            "misaligned: {l}"
+        );
+    }
+}

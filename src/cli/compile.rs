@@ -3,7 +3,7 @@
 
 use super::featurize::{read_landmarks, MapArgs};
 use clap::ValueEnum;
-use kernelpress::data::{check_batch, read_table, write_atomic};
+use kernelpress::data::{check_batch, read_table, write_all_atomic};
 use kernelpress::fit::{compile_exact, compile_labels, held_out, HeadKind, RidgeGrid};
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
@@ -88,11 +88,25 @@ pub(crate) struct Args {
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
+    {
+        let mut ins: Vec<&std::path::Path> = Vec::new();
+        for p in [&a.model, &a.calib, &a.eval, &a.data, &a.map.landmarks]
+            .into_iter()
+            .flatten()
+        {
+            ins.push(p);
+        }
+        let mut outs = vec![(a.out.as_path(), false)];
+        if let Some(r) = &a.report {
+            outs.push((r.as_path(), false));
+        }
+        super::guard_outputs(&ins, &outs)?;
+    }
     let grid = match a.ridge_rel {
-        Some(r) if r > 0.0 && r.is_finite() => RidgeGrid::fixed(r),
+        Some(r) if r > 0.0 && r <= 1e6 => RidgeGrid::fixed(r),
         Some(r) => {
             return Err(Error::input(format!(
-                "--ridge-rel {r} must be a positive finite number"
+                "--ridge-rel {r} must be in (0, 1e6]: it is relative to the mean feature variance"
             )))
         }
         None => RidgeGrid::standard(),
@@ -210,12 +224,6 @@ fn finish(
         for w in &r.warnings {
             super::progress::warn(w);
         }
-        if let Some(p) = &a.report {
-            write_atomic(
-                p,
-                format!("{}\n", serde_json::to_string_pretty(r).unwrap()).as_bytes(),
-            )?;
-        }
         text.push_str(&report::render_text(r));
         text.push('\n');
     }
@@ -227,7 +235,16 @@ fn finish(
         super::print_stdout(&text)?;
         return Err(Error::new(ErrorKind::Gate, gate.unwrap_or_default()));
     }
-    model.save(&a.out)?;
+    // The model and the JSON report are published together, or neither.
+    let bytes = model.to_file().to_bytes()?;
+    let json = rep
+        .as_ref()
+        .map(|r| format!("{}\n", serde_json::to_string_pretty(r).unwrap()));
+    let mut items: Vec<(&std::path::Path, &[u8])> = vec![(a.out.as_path(), &bytes)];
+    if let (Some(p), Some(j)) = (&a.report, &json) {
+        items.push((p.as_path(), j.as_bytes()));
+    }
+    write_all_atomic(&items)?;
     text.push_str(&format!(
         "wrote {} ({} features, {} program step{}, {} bytes of parameters)\n",
         a.out.display(),

@@ -63,6 +63,18 @@ pub(crate) struct Args {
 
 pub(crate) fn run(a: Args) -> Result<()> {
     let mut opts = ExportOptions::new(Format::parse(&a.format)?);
+    {
+        let mut ins: Vec<&std::path::Path> = vec![&a.model];
+        if let Some(c) = &a.check_data {
+            ins.push(c);
+        }
+        let folder = matches!(opts.format, Format::C | Format::Npy);
+        let mut outs = vec![(a.out.as_path(), folder)];
+        if let Some(s) = &a.summary {
+            outs.push((s.as_path(), false));
+        }
+        super::guard_outputs(&ins, &outs)?;
+    }
     opts.precision = Precision::parse(&a.precision)?;
     opts.prefix = a.prefix.clone();
     let model = CompiledModel::load(&a.model)?;

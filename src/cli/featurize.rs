@@ -113,6 +113,11 @@ pub(crate) fn read_landmarks(
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
+    let mut ins: Vec<&std::path::Path> = vec![&a.data];
+    for p in [&a.model, &a.map.landmarks].into_iter().flatten() {
+        ins.push(p);
+    }
+    super::guard_outputs(&ins, &[(&a.out, false)])?;
     let (kernel, model) = match (&a.kernel, &a.model) {
         (Some(k), None) => (super::kernel_arg(k)?, None),
         (None, Some(m)) => {
@@ -150,6 +155,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
     for n in &info.notes {
         super::progress::warn(n);
     }
+    kernelpress::limits::check_alloc(
+        (x.nrows() as u64).saturating_mul(map.output_dim() as u64),
+        8,
+        &format!("{} rows × {} features", x.nrows(), map.output_dim()),
+    )?;
     let pb = super::progress::bar(1, "featurize");
     let z = map.transform(x.view());
     pb.finish();

@@ -53,6 +53,14 @@ pub(crate) struct Args {
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
+    {
+        let ins: Vec<&std::path::Path> = [&a.onnx, &a.support_vectors, &a.coef]
+            .into_iter()
+            .flatten()
+            .map(|p| p.as_path())
+            .collect();
+        super::guard_outputs(&ins, &[(&a.out, false)])?;
+    }
     if let Some(p) = &a.onnx {
         let m = kernelpress::export::onnx::svm::import_svm(p)?;
         m.save(&a.out)?;

@@ -64,7 +64,17 @@ pub(crate) struct Check {
 }
 
 pub(crate) fn check(k: &kernelpress::kernel::Kernel, x: &Array2<f64>) -> Result<Check> {
+    kernelpress::limits::check_alloc((x.nrows() * x.nrows()) as u64, 16, "the Gram matrix")?;
     let g = k.gram(x.view(), x.view());
+    if let Some(i) = g.iter().position(|v| !v.is_finite()) {
+        let n = x.nrows();
+        return Err(Error::input(format!(
+            "kernel {k} overflows on these points: K[{}, {}] = {} (choose a smaller gamma, degree or spread)",
+            i / n,
+            i % n,
+            g[[i / n, i % n]]
+        )));
+    }
     // Symmetrise against rounding in the blocked product.
     let g = (&g + &g.t()) * 0.5;
     let eig = linalg::eigvalsh(g.view())?;
@@ -93,6 +103,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
                     a.points
                 )));
             }
+            kernelpress::limits::check_alloc(
+                (a.points as u64).saturating_mul(d as u64),
+                8,
+                &format!("{} points in {d} dimensions", a.points),
+            )?;
             if !(a.spread > 0.0) || !a.spread.is_finite() {
                 return Err(Error::input("--spread must be a positive finite number"));
             }
@@ -127,20 +142,39 @@ pub(crate) fn run(a: Args) -> Result<()> {
         });
         return super::print_stdout(&format!("{v}\n"));
     }
-    let mut s = format!(
-        "kernel            {kernel}\npoints            {n} in {} dimensions\nlargest eigenvalue  {:.6e}\nsmallest eigenvalues {}\nnegative (< −{:.1e}) {}\n",
-        x.ncols(),
-        c.eig[n - 1],
-        smallest.iter().map(|v| format!("{v:.6e}")).collect::<Vec<_>>().join(", "),
-        c.tol,
-        c.negative
-    );
-    if psd {
-        s.push_str("verdict           numerically positive semidefinite on these points (necessary, not sufficient)\n");
-    } else {
-        s.push_str(
-            "verdict           NOT positive semidefinite: this kernel is not a Mercer kernel\n",
-        );
+    let sig = |v: f64| format!("{v:.3e}");
+    let rows = [
+        ("kernel", kernel.to_string()),
+        ("points", format!("{n} in {} dimensions", x.ncols())),
+        ("largest eigenvalue", sig(c.eig[n - 1])),
+        (
+            "smallest eigenvalues",
+            smallest
+                .iter()
+                .map(|v| sig(*v))
+                .collect::<Vec<_>>()
+                .join(", "),
+        ),
+        (
+            "negative eigenvalues",
+            format!(
+                "{} (below −{:.1e}, the rounding tolerance)",
+                c.negative, c.tol
+            ),
+        ),
+        (
+            "verdict",
+            if psd {
+                "numerically positive semidefinite on these points (necessary, not sufficient)"
+                    .to_string()
+            } else {
+                "NOT positive semidefinite: this kernel is not a Mercer kernel".to_string()
+            },
+        ),
+    ];
+    let mut s = String::new();
+    for (k, v) in rows {
+        s.push_str(&format!("{k:<22}{v}\n"));
     }
     super::print_stdout(&s)
 }

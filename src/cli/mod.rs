@@ -23,6 +23,10 @@ pub struct Cli {
     /// No progress bars or log lines on stderr (warnings still print).
     #[arg(long, global = true)]
     pub quiet: bool,
+    /// Memory ceiling for anything sized by a file, a flag or an expression (e.g. 4G,
+    /// 512M); default half of the physical memory.
+    #[arg(long, global = true)]
+    pub max_memory: Option<String>,
     #[command(subcommand)]
     command: Command,
 }
@@ -53,6 +57,19 @@ pub fn main() -> i32 {
         }
     };
     progress::set_quiet(cli.quiet);
+    if let Some(m) = &cli.max_memory {
+        match kernelpress::limits::parse_size(m) {
+            Ok(v) => kernelpress::limits::set_max_memory(v),
+            Err(e) => {
+                eprintln!("error: {e}");
+                return 2;
+            }
+        }
+    }
+    let _ = ctrlc::set_handler(|| {
+        remove_temporaries();
+        std::process::exit(130);
+    });
     let res = match cli.command {
         Command::Train(a) => train::run(a),
         Command::Import(a) => import::run(a),
@@ -78,6 +95,90 @@ pub fn main() -> i32 {
             e.exit_code()
         }
     }
+}
+
+/// Folders where this run writes outputs (their temporary files are removed on a signal).
+static OUTPUT_DIRS: std::sync::Mutex<Vec<std::path::PathBuf>> = std::sync::Mutex::new(Vec::new());
+
+/// Removes this process's temporary output files (`.NAME.tmpPID`) from the output folders.
+fn remove_temporaries() {
+    let suffix = format!(".tmp{}", std::process::id());
+    if let Ok(dirs) = OUTPUT_DIRS.lock() {
+        for d in dirs.iter() {
+            if let Ok(rd) = std::fs::read_dir(d) {
+                for e in rd.flatten() {
+                    let n = e.file_name().to_string_lossy().to_string();
+                    if n.starts_with('.') && n.ends_with(&suffix) {
+                        let _ = std::fs::remove_file(e.path());
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// Checks outputs before any work: each output's folder exists (or, for `folder` outputs,
+/// its parent does), no output is also an input, and no two outputs are the same file.
+/// Registers the folders for clean-up on a signal.
+pub(crate) fn guard_outputs(
+    inputs: &[&std::path::Path],
+    outputs: &[(&std::path::Path, bool)],
+) -> Result<()> {
+    use std::path::{Path, PathBuf};
+    let canon = |p: &Path| -> Option<PathBuf> {
+        if let Ok(c) = p.canonicalize() {
+            return Some(c);
+        }
+        let parent = match p.parent() {
+            Some(q) if !q.as_os_str().is_empty() => q.to_path_buf(),
+            _ => PathBuf::from("."),
+        };
+        parent
+            .canonicalize()
+            .ok()
+            .map(|c| c.join(p.file_name().unwrap_or_default()))
+    };
+    let ins: Vec<PathBuf> = inputs
+        .iter()
+        .filter_map(|p| p.canonicalize().ok())
+        .collect();
+    let mut seen: Vec<PathBuf> = Vec::new();
+    for (out, folder) in outputs {
+        let parent = match out.parent() {
+            Some(q) if !q.as_os_str().is_empty() => q.to_path_buf(),
+            _ => PathBuf::from("."),
+        };
+        if !parent.is_dir() {
+            return Err(Error::input(format!(
+                "{}: folder {} does not exist; create it first",
+                out.display(),
+                parent.display()
+            )));
+        }
+        let c = canon(out).ok_or_else(|| {
+            Error::input(format!("{}: cannot resolve the output path", out.display()))
+        })?;
+        if ins.contains(&c) {
+            return Err(Error::input(format!(
+                "{}: this output is also an input of the command; refusing to overwrite it",
+                out.display()
+            )));
+        }
+        if seen.contains(&c) {
+            return Err(Error::input(format!(
+                "{}: given as two different outputs",
+                out.display()
+            )));
+        }
+        seen.push(c);
+        if let Ok(mut dirs) = OUTPUT_DIRS.lock() {
+            dirs.push(parent.clone());
+            if *folder {
+                dirs.push(out.to_path_buf());
+            }
+        }
+    }
+    Ok(())
 }
 
 /// Writes `text` to stdout, treating a closed pipe as success.

@@ -48,6 +48,18 @@ pub(crate) struct Args {
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
+    if !(1..=100_000).contains(&a.reps) {
+        return Err(Error::input(format!(
+            "--reps {} must be from 1 to 100000",
+            a.reps
+        )));
+    }
+    if let Some(j) = a.json.as_deref().filter(|j| *j != "-") {
+        super::guard_outputs(
+            &[&a.compiled, &a.exact, &a.data],
+            &[(std::path::Path::new(j), false)],
+        )?;
+    }
     let c = CompiledModel::load(&a.compiled)?;
     let e = ExactModel::load(&a.exact)?;
     if c.input_dim() != e.input_dim()
@@ -93,7 +105,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     let opts = ReportOptions {
         min_agreement: a.gate.tolerance(),
         timing: !a.no_timing,
-        reps: a.reps.max(1),
+        reps: a.reps,
         ..ReportOptions::default()
     };
     let mut r = report::build(&c, &e, t.x.view(), t.target.as_deref(), None, &opts)?;

@@ -36,6 +36,9 @@ pub(crate) struct Args {
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
+    if let Some(o) = &a.out {
+        super::guard_outputs(&[&a.model, &a.data], &[(o, false)])?;
+    }
     let (model, _) = AnyModel::load(&a.model)?;
     let t = super::read_for(
         &a.data,
@@ -44,6 +47,13 @@ pub(crate) fn run(a: Args) -> Result<()> {
         a.by_position,
     )?;
     let s = model.decision(t.x.view());
+    if let Some(i) = s.iter().position(|v| !v.is_finite()) {
+        return Err(kernelpress::Error::numerical(format!(
+            "{}: row {}: the decision value is not finite (overflow); the model's kernel is too extreme for this row",
+            a.data.display(),
+            i / s.ncols().max(1) + 1
+        )));
+    }
     let k = s.ncols();
     let classifier = model.task().is_classifier();
     let mut header = model.rule().decision_names();

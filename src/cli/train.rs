@@ -74,6 +74,7 @@ pub(crate) struct Args {
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
+    super::guard_outputs(&[&a.data], &[(&a.out, false)])?;
     let kernel = super::kernel_arg(&a.kernel)?;
     let t = read_table(&a.data, Some(&a.target), true)?;
     let src = a.data.display().to_string();

@@ -35,7 +35,7 @@ pub fn read_csv(path: &Path, target: Option<&str>, require_target: bool) -> Resu
             if !names.iter().any(|n| n == t) {
                 return Err(Error::input(format!(
                     "{src}: target column '{t}' not found; columns are {}",
-                    names.join(", ")
+                    super::list_names(names.iter().map(|x| x.as_str()))
                 )));
             }
         }
@@ -82,8 +82,18 @@ pub(crate) fn check_header(names: &[String], source: &str) -> Result<()> {
     Ok(())
 }
 
+/// Text with every line ending (`\r\n`, or a lone `\r` as old Mac files have) made `\n`.
+pub(crate) fn normalise_newlines(text: &str) -> std::borrow::Cow<'_, str> {
+    if text.contains('\r') {
+        std::borrow::Cow::Owned(text.replace("\r\n", "\n").replace('\r', "\n"))
+    } else {
+        std::borrow::Cow::Borrowed(text)
+    }
+}
+
 /// The header of CSV text (after a byte-order mark), checked.
-pub(crate) fn header(text: &str, source: &str) -> Result<Vec<String>> {
+pub(crate) fn header(text_in: &str, source: &str) -> Result<Vec<String>> {
+    let text = &normalise_newlines(text_in);
     let head = text.lines().find(|l| !l.trim().is_empty()).ok_or_else(|| {
         Error::input(format!(
             "{source}: file is empty; expected a header row and data rows"
@@ -98,12 +108,13 @@ pub(crate) fn header(text: &str, source: &str) -> Result<Vec<String>> {
 /// every column but the target when `select` is `None`. `model_names` (may be empty) are
 /// used to explain a non-numeric column that is not a model feature.
 pub(crate) fn read_csv_select(
-    text: &str,
+    text_in: &str,
     source: &str,
     target: Option<&str>,
     select: Option<&[String]>,
     model_names: &[String],
 ) -> Result<Table> {
+    let text = &normalise_newlines(text_in);
     let names = header(text, source)?;
     let mut lines = text
         .lines()

@@ -13,7 +13,7 @@ mod csv;
 mod idx;
 mod npy;
 
-pub use crate::fsio::{read_bytes, write_atomic};
+pub use crate::fsio::{read_bytes, temp_path, write_all_atomic, write_atomic};
 pub use csv::{read_csv, read_csv_str, write_csv};
 pub use idx::{read_idx_images, read_idx_labels};
 pub use npy::{parse_npy, read_npy, write_npy_f32, write_npy_f64, NpyArray};
@@ -87,11 +87,25 @@ pub fn read_table(path: &Path, target: Option<&str>, require_target: bool) -> Re
             "{}: target column '{}' not found; columns are {}",
             path.display(),
             target.unwrap_or(""),
-            t.columns.join(", ")
+            list_names(t.columns.iter().map(|x| x.as_str()))
         )));
     }
     Ok(t)
 }
+
+/// Up to twelve names, quoted, then how many more (so that a file with a million columns
+/// gives a one-line message).
+pub fn list_names<'a>(names: impl Iterator<Item = &'a str>) -> String {
+    let all: Vec<&str> = names.collect();
+    let mut s: Vec<String> = all.iter().take(12).map(|m| format!("'{m}'")).collect();
+    if all.len() > 12 {
+        s.push(format!("… ({} more)", all.len() - 12));
+    }
+    s.join(", ")
+}
+
+/// Largest magnitude accepted in data (squares and products of such values stay finite).
+pub const MAX_ABS_VALUE: f64 = 1e150;
 
 /// Data read for a model: its rows with the model's features in the model's order.
 #[derive(Debug, Clone)]
@@ -150,17 +164,9 @@ pub fn read_for_model(
             return Err(Error::input(format!(
                 "{src}: the model's feature column{} {} {} missing{hint}; the file has {}",
                 if missing.len() == 1 { "" } else { "s" },
-                missing
-                    .iter()
-                    .map(|m| format!("'{m}'"))
-                    .collect::<Vec<_>>()
-                    .join(", "),
+                list_names(missing.iter().map(|x| x.as_str())),
                 if missing.len() == 1 { "is" } else { "are" },
-                others
-                    .iter()
-                    .map(|m| format!("'{m}'"))
-                    .collect::<Vec<_>>()
-                    .join(", "),
+                list_names(others.iter().map(|x| x.as_str())),
             )));
         }
         let extra: Vec<&&String> = others.iter().filter(|h| !names.contains(h)).collect();
@@ -168,11 +174,7 @@ pub fn read_for_model(
             notes.push(format!(
                 "{src}: ignored column{} {} (not features of the model{})",
                 if extra.len() == 1 { "" } else { "s" },
-                extra
-                    .iter()
-                    .map(|m| format!("'{m}'"))
-                    .collect::<Vec<_>>()
-                    .join(", "),
+                list_names(extra.iter().map(|x| x.as_str())),
                 if target.is_none() {
                     "; name a label column with --target"
                 } else {
@@ -246,6 +248,14 @@ pub fn check_batch(x: ArrayView2<f64>, d: usize, source: &str) -> Result<()> {
         if let Some(j) = row.iter().position(|v| !v.is_finite()) {
             return Err(Error::input(format!(
                 "{source}: row {}, feature {}: value {} is not finite",
+                i + 1,
+                j,
+                row[j]
+            )));
+        }
+        if let Some(j) = row.iter().position(|v| v.abs() > MAX_ABS_VALUE) {
+            return Err(Error::input(format!(
+                "{source}: row {}, feature {}: value {:e} is too large (at most {MAX_ABS_VALUE:e} in magnitude, so that squared distances and products stay finite)",
                 i + 1,
                 j,
                 row[j]

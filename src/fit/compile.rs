@@ -75,13 +75,27 @@ pub fn compile_exact(
                     "distillation needs at least 10 calibration rows, got {n}"
                 )));
             }
+            let p = map.output_dim() as u64;
+            crate::limits::check_alloc(
+                4 * p * p,
+                8,
+                &format!("the distillation statistics for {p} features (4·D² values)"),
+            )?;
             let mut dist = Distiller::new(map.output_dim(), k);
             let chunks = n.div_ceil(FIT_CHUNK);
             obs.stage("distilling", chunks as u64 + 1);
             for c in 0..chunks {
                 let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
                 let y = exact.decision(x.slice(s![r.clone(), ..]));
-                let z = map.transform(xs.slice(s![r, ..]));
+                let z = map.transform(xs.slice(s![r.clone(), ..]));
+                for (what, m) in [("the exact model's decision value", &y), ("a feature", &z)] {
+                    if let Some(i) = m.iter().position(|v| !v.is_finite()) {
+                        return Err(Error::numerical(format!(
+                            "calibration row {}: {what} is not finite (overflow); the kernel or the data are too extreme",
+                            r.start + i / m.ncols().max(1) + 1
+                        )));
+                    }
+                }
                 dist.add(z.view(), y.view(), held_out);
                 obs.advance(1);
             }
@@ -136,6 +150,12 @@ pub fn compile_labels(
     };
     let (map, info) = spec.sample(Some(xs.view()))?;
     let n = xs.nrows();
+    let p = map.output_dim() as u64;
+    crate::limits::check_alloc(
+        4 * p * p,
+        8,
+        &format!("the fitting statistics for {p} features (4·D² values)"),
+    )?;
     let mut dist = Distiller::new(map.output_dim(), t.ncols());
     let chunks = n.div_ceil(FIT_CHUNK);
     obs.stage("fitting", chunks as u64 + 1);

@@ -87,11 +87,12 @@ fn lex(s: &str) -> Result<Vec<(Tok, usize)>> {
                 }
                 continue;
             }
-            other => {
+            _ => {
+                let ch = s[i..].chars().next().unwrap_or('?');
                 return Err(Error::input(format!(
-                    "kernel expression: unexpected character '{other}' at position {}",
-                    i + 1
-                )))
+                    "kernel expression: unexpected character '{ch}' at position {}",
+                    s[..i].chars().count() + 1
+                )));
             }
         }
         i += 1;
@@ -103,7 +104,16 @@ struct Parser {
     toks: Vec<(Tok, usize)>,
     pos: usize,
     len: usize,
+    depth: usize,
+    kernels: usize,
 }
+
+/// Deepest nesting of parentheses accepted (deeper input is refused, never recursed into).
+pub const MAX_DEPTH: usize = 32;
+/// Most kernels (named leaves) in one expression.
+pub const MAX_KERNELS: usize = 64;
+/// Longest expression text, in bytes.
+pub const MAX_LEN: usize = 1 << 16;
 
 #[derive(Debug, Clone)]
 enum Value {
@@ -199,13 +209,27 @@ impl Parser {
                 Ok(Factor::Num(v))
             }
             Some(Tok::LParen) => {
+                if self.depth >= MAX_DEPTH {
+                    return Err(Error::input(format!(
+                        "kernel expression: parentheses nested deeper than {MAX_DEPTH} at position {}",
+                        self.at()
+                    )));
+                }
                 self.pos += 1;
+                self.depth += 1;
                 let k = self.expr()?;
+                self.depth -= 1;
                 self.expect(Tok::RParen, "')'")?;
                 Ok(Factor::Kernel(k))
             }
             Some(Tok::Name(name)) => {
                 let at = self.at();
+                self.kernels += 1;
+                if self.kernels > MAX_KERNELS {
+                    return Err(Error::input(format!(
+                        "kernel expression: more than {MAX_KERNELS} kernels (position {at}); combine fewer terms"
+                    )));
+                }
                 self.pos += 1;
                 self.expect(Tok::LParen, &format!("'(' after '{name}'"))?;
                 let mut params: Vec<(String, Value, usize)> = Vec::new();
@@ -270,6 +294,12 @@ impl Parser {
 
 /// Parses a kernel expression.
 pub(crate) fn parse(s: &str) -> Result<Kernel> {
+    if s.len() > MAX_LEN {
+        return Err(Error::input(format!(
+            "kernel expression is {} bytes long; at most {MAX_LEN} are accepted",
+            s.len()
+        )));
+    }
     let toks = lex(s)?;
     if toks.is_empty() {
         return Err(Error::input("kernel expression is empty"));
@@ -278,6 +308,8 @@ pub(crate) fn parse(s: &str) -> Result<Kernel> {
         toks,
         pos: 0,
         len: s.len(),
+        depth: 0,
+        kernels: 0,
     };
     let k = p.expr()?;
     if p.pos != p.toks.len() {

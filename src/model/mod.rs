@@ -55,10 +55,15 @@ impl AnyModel {
     pub fn load(path: &Path) -> Result<(AnyModel, TensorFile)> {
         let f = TensorFile::read(path)?;
         let src = path.display().to_string();
-        let kind = f.get_str("kind", &src)?;
+        Ok((Self::from_file(&f, &src)?, f))
+    }
+
+    /// A model of any kind from a parsed file (`src` names it in errors).
+    pub fn from_file(f: &TensorFile, src: &str) -> Result<AnyModel> {
+        let kind = f.get_str("kind", src)?;
         match kind.as_str() {
-            "exact" => Ok((AnyModel::Exact(ExactModel::from_file(&f, &src)?), f)),
-            "compiled" => Ok((AnyModel::Compiled(CompiledModel::from_file(&f, &src)?), f)),
+            "exact" => Ok(AnyModel::Exact(ExactModel::from_file(f, src)?)),
+            "compiled" => Ok(AnyModel::Compiled(CompiledModel::from_file(f, src)?)),
             other => Err(Error::file(format!(
                 "{src}: model kind '{other}' unknown; expected exact or compiled"
             ))),

@@ -32,7 +32,7 @@ pub fn measure_single<F: FnMut(&[f64]) -> Vec<f64>>(
     for i in 0..20 {
         black_box(f(&rows[i % rows.len()]));
     }
-    let mut t = Vec::with_capacity(reps.max(1));
+    let mut t = Vec::with_capacity(reps.clamp(1, 100_000));
     let start = Instant::now();
     for i in 0..reps.max(1) {
         let r = &rows[i % rows.len()];

@@ -188,6 +188,15 @@ pub fn build(
     let n = x.nrows();
     let se = exact_decision.unwrap_or_else(|| exact.decision(x));
     let sc = compiled.decision(x);
+    for (what, s) in [("exact", &se), ("compiled", &sc)] {
+        if let Some(i) = s.iter().position(|v| !v.is_finite()) {
+            return Err(crate::Error::numerical(format!(
+                "the {what} model's decision value on row {} is {} (overflow): its kernel or weights are too extreme for these inputs",
+                i / s.ncols().max(1) + 1,
+                s.as_slice().map(|v| v[i]).unwrap_or(f64::NAN)
+            )));
+        }
+    }
     let (rmse, r2, maxe) = decision_errors(se.view(), sc.view());
     let xs_k = exact.scale_inputs(x.slice(s![..opts.kernel_rows.min(n), ..]));
     let (kmax, krmse, kfro) = kernel_errors(compiled, xs_k.view())?;

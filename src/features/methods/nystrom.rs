@@ -40,6 +40,11 @@ impl Sampler for Nystrom {
             )));
         }
         let m = spec.features;
+        crate::limits::check_alloc(
+            3 * (m.min(data.nrows()) as u64).pow(2),
+            8,
+            &format!("the Gram matrix of {m} landmarks"),
+        )?;
         if data.nrows() < m {
             cx.info.notes.push(format!(
                 "Nyström: only {} rows available for {m} landmarks; using them all",

@@ -1,0 +1,443 @@
+//! Hostile and careless input: nothing aborts, nothing allocates from an unchecked size,
+//! nothing is silently wrong, outputs are all-or-nothing. One test per class of mistake;
+//! the README's table of bad inputs lists the same classes.
+
+mod common;
+use common::*;
+use std::process::Command;
+
+fn demo() -> std::path::PathBuf {
+    root().join("models/pump_svm.safetensors")
+}
+
+#[test]
+fn deeply_nested_kernels_are_refused_not_a_stack_overflow() {
+    let deep = format!(
+        "{}gaussian(gamma=1){}",
+        "(".repeat(10_000),
+        ")".repeat(10_000)
+    );
+    let e = bad(&["kernel-check", "--kernel", &deep, "--dim", "2"]);
+    assert!(e.contains("nested deeper than 32"), "{e}");
+    // The same expression inside a model file's manifest.
+    let dir = tmpdir("deeply_nested_kernels_are_refused_not_a_stack_overflow");
+    let m = kernelpress::model::ExactModel::load(&demo()).unwrap();
+    let mut f = m.to_file();
+    f.manifest["kernel"] = serde_json::json!(deep);
+    let p = dir.join("deep.safetensors");
+    f.write(&p).unwrap();
+    for cmd in ["inspect", "score"] {
+        let mut args = vec![cmd, s(&p)];
+        if cmd == "score" {
+            args.extend(["--data", "models/pump_test.csv"]);
+        }
+        let e = bad(&args);
+        assert!(e.contains("nested deeper"), "{e}");
+    }
+    // A sum of 20,000 terms.
+    let wide = vec!["linear()"; 20_000].join(" + ");
+    let mut f = m.to_file();
+    f.manifest["kernel"] = serde_json::json!(wide);
+    let p = dir.join("wide.safetensors");
+    f.write(&p).unwrap();
+    let e = bad(&["inspect", s(&p)]);
+    assert!(e.contains("at most 65536"), "{e}");
+    let hundred = vec!["linear()"; 100].join(" + ");
+    let mut f = m.to_file();
+    f.manifest["kernel"] = serde_json::json!(hundred);
+    f.write(&p).unwrap();
+    let e = bad(&["inspect", s(&p)]);
+    assert!(e.contains("more than 64 kernels"), "{e}");
+}
+
+#[test]
+fn sizes_are_checked_before_allocating() {
+    let e = bad(&[
+        "kernel-check",
+        "--kernel",
+        "linear()",
+        "--dim",
+        "1000000000",
+        "--max-memory",
+        "1G",
+    ]);
+    assert!(e.contains("memory limit"), "{e}");
+    let c = root().join("models/pump_compiled.safetensors");
+    let e = bad(&[
+        "report",
+        s(&c),
+        "--exact",
+        s(&demo()),
+        "--data",
+        "models/pump_test.csv",
+        "--reps",
+        "1000000000",
+    ]);
+    assert!(e.contains("--reps"), "{e}");
+    let dir = tmpdir("sizes_are_checked_before_allocating");
+    let calib = dir.join("c.csv");
+    let text = std::fs::read_to_string(root().join("models/pump_calib.csv")).unwrap();
+    std::fs::write(
+        &calib,
+        text.lines()
+            .take(50)
+            .map(|l| format!("{l}\n"))
+            .collect::<String>(),
+    )
+    .unwrap();
+    let e = bad(&[
+        "--max-memory",
+        "64M",
+        "compile",
+        s(&demo()),
+        "--calib",
+        s(&calib),
+        "--target",
+        "condition",
+        "--method",
+        "fourier",
+        "--features",
+        "1048576",
+        "--out",
+        s(&dir.join("x.safetensors")),
+    ]);
+    assert!(e.contains("memory limit") && e.contains("1048576"), "{e}");
+    assert!(!dir.join("x.safetensors").exists());
+}
+
+#[test]
+fn overflow_and_absurd_values_are_bad_input() {
+    let e = bad(&[
+        "kernel-check",
+        "--kernel",
+        "polynomial(degree=32, gamma=1e10)",
+        "--dim",
+        "3",
+    ]);
+    assert!(e.contains("overflows"), "{e}");
+    let dir = tmpdir("overflow_and_absurd_values_are_bad_input");
+    let text = std::fs::read_to_string(root().join("models/pump_calib.csv")).unwrap();
+    let mut lines: Vec<String> = text.lines().take(40).map(String::from).collect();
+    let mut cells: Vec<&str> = lines[5].split(',').collect();
+    cells[2] = "1e308";
+    lines[5] = cells.join(",");
+    let calib = dir.join("huge.csv");
+    std::fs::write(&calib, lines.join("\n") + "\n").unwrap();
+    let out = dir.join("x.safetensors");
+    let e = bad(&[
+        "compile",
+        s(&demo()),
+        "--calib",
+        s(&calib),
+        "--target",
+        "condition",
+        "--method",
+        "fourier",
+        "--features",
+        "16",
+        "--out",
+        s(&out),
+    ]);
+    assert!(
+        e.contains("huge.csv") && e.contains("row 5") && e.contains("too large"),
+        "{e}"
+    );
+    let e = bad(&[
+        "compile",
+        s(&demo()),
+        "--calib",
+        "models/pump_calib.csv",
+        "--target",
+        "condition",
+        "--method",
+        "fourier",
+        "--features",
+        "16",
+        "--ridge-rel",
+        "1e308",
+        "--out",
+        s(&out),
+    ]);
+    assert!(e.contains("--ridge-rel"), "{e}");
+    let e = bad(&["score", s(&demo()), "--data", "/dev/zero"]);
+    assert!(e.contains("not a regular file"), "{e}");
+    assert!(!out.exists());
+}
+
+#[test]
+fn model_files_that_lie_are_refused() {
+    let dir = tmpdir("model_files_that_lie_are_refused");
+    let m = kernelpress::model::ExactModel::load(&demo()).unwrap();
+    for (name, edit) in [
+        ("negative_dim", serde_json::json!(-1)),
+        ("huge_dim", serde_json::json!(1_000_000_000_000u64)),
+    ] {
+        let mut f = m.to_file();
+        f.manifest["input"]["dim"] = edit;
+        let p = dir.join(format!("{name}.safetensors"));
+        f.write(&p).unwrap();
+        let e = bad(&["inspect", s(&p)]);
+        assert!(e.contains("'dim'"), "{name}: {e}");
+    }
+    let mut f = m.to_file();
+    f.manifest["output"]["labels"] = serde_json::json!([1, 2, 3, 4]);
+    let p = dir.join("labels.safetensors");
+    f.write(&p).unwrap();
+    let e = bad(&["inspect", s(&p)]);
+    assert!(e.contains("labels"), "{e}");
+    // float32 tensors in a version-2 file.
+    let mut f = m.to_file();
+    let t = f.tensors.get("exact.intercepts").unwrap().clone();
+    let kernelpress::format::Data::F64(v) = t.data else {
+        panic!()
+    };
+    f.put_data(
+        "exact.intercepts",
+        t.shape,
+        kernelpress::format::Data::F32(v.iter().map(|x| *x as f32).collect()),
+    );
+    let p = dir.join("f32.safetensors");
+    f.write(&p).unwrap();
+    let e = bad(&["inspect", s(&p)]);
+    assert!(e.contains("dtype F32"), "{e}");
+    // Safetensors errors are sentences, not debug dumps.
+    let good = std::fs::read(&demo()).unwrap();
+    let p = dir.join("cut.safetensors");
+    std::fs::write(&p, &good[..200]).unwrap();
+    let e = bad(&["inspect", s(&p)]);
+    assert!(!e.contains("InvalidHeader") && !e.contains("{"), "{e}");
+}
+
+#[test]
+fn outputs_never_overwrite_inputs() {
+    let dir = tmpdir("outputs_never_overwrite_inputs");
+    let data = dir.join("d.csv");
+    std::fs::copy(root().join("models/pump_test.csv"), &data).unwrap();
+    let before = std::fs::read(&data).unwrap();
+    let e = bad(&[
+        "score",
+        s(&demo()),
+        "--data",
+        s(&data),
+        "--target",
+        "condition",
+        "--out",
+        s(&data),
+    ]);
+    assert!(e.contains("also an input"), "{e}");
+    assert_eq!(std::fs::read(&data).unwrap(), before);
+    let model = dir.join("m.safetensors");
+    std::fs::copy(demo(), &model).unwrap();
+    let e = bad(&[
+        "compile",
+        s(&model),
+        "--calib",
+        s(&data),
+        "--target",
+        "condition",
+        "--method",
+        "fourier",
+        "--features",
+        "16",
+        "--out",
+        s(&model),
+    ]);
+    assert!(e.contains("also an input"), "{e}");
+    let out = dir.join("o.safetensors");
+    let e = bad(&[
+        "compile",
+        s(&model),
+        "--calib",
+        s(&data),
+        "--target",
+        "condition",
+        "--method",
+        "fourier",
+        "--features",
+        "16",
+        "--out",
+        s(&out),
+        "--json",
+        s(&out),
+    ]);
+    assert!(e.contains("two different outputs"), "{e}");
+    let e = bad(&[
+        "compile",
+        s(&model),
+        "--calib",
+        s(&data),
+        "--target",
+        "condition",
+        "--method",
+        "fourier",
+        "--features",
+        "16",
+        "--out",
+        s(&dir.join("no/such/dir/o.safetensors")),
+    ]);
+    assert!(e.contains("does not exist"), "{e}");
+    // Both outputs of compile are published together.
+    let j = dir.join("r.json");
+    ok(&[
+        "compile",
+        s(&model),
+        "--calib",
+        s(&data),
+        "--target",
+        "condition",
+        "--method",
+        "fourier",
+        "--features",
+        "16",
+        "--no-timing",
+        "--out",
+        s(&out),
+        "--json",
+        s(&j),
+    ]);
+    assert!(out.exists() && j.exists());
+}
+
+#[test]
+fn a_terminated_run_leaves_no_temporary_file() {
+    let dir = tmpdir("a_terminated_run_leaves_no_temporary_file");
+    let out = dir.join("o.safetensors");
+    let mut child = Command::new(bin())
+        .args([
+            "compile",
+            s(&demo()),
+            "--calib",
+            s(&root().join("models/pump_calib.csv")),
+            "--target",
+            "condition",
+            "--method",
+            "nystrom",
+            "--features",
+            "2048",
+            "--out",
+            s(&out),
+        ])
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::null())
+        .spawn()
+        .unwrap();
+    std::thread::sleep(std::time::Duration::from_millis(300));
+    // A temporary file as the writer would leave it at the moment of the signal.
+    let tmp = dir.join(format!(".o.safetensors.tmp{}", child.id()));
+    std::fs::write(&tmp, b"partial").unwrap();
+    let k = Command::new("kill")
+        .args(["-TERM", &child.id().to_string()])
+        .status()
+        .unwrap();
+    assert!(k.success());
+    let status = child.wait().unwrap();
+    assert_eq!(status.code(), Some(130), "{status:?}");
+    assert!(!tmp.exists(), "temporary file left behind");
+    assert!(!out.exists());
+}
+
+#[test]
+fn messages_stay_short_and_readable() {
+    let dir = tmpdir("messages_stay_short_and_readable");
+    // A 1,000-column file without the named target lists a dozen columns, not all.
+    let head: Vec<String> = (0..1000).map(|j| format!("c{j}")).collect();
+    let row: Vec<String> = (0..1000).map(|j| j.to_string()).collect();
+    let p = dir.join("wide.csv");
+    std::fs::write(&p, format!("{}\n{}\n", head.join(","), row.join(","))).unwrap();
+    let e = bad(&[
+        "train",
+        "--data",
+        s(&p),
+        "--target",
+        "label",
+        "--kernel",
+        "linear()",
+        "--model",
+        "ridge",
+        "--out",
+        s(&dir.join("m.safetensors")),
+    ]);
+    assert!(e.len() < 400 && e.contains("(988 more)"), "{e}");
+    // Non-ASCII characters are shown as characters.
+    let e = bad(&[
+        "kernel-check",
+        "--kernel",
+        "gaussian(gamma=1) ÷ linear()",
+        "--dim",
+        "2",
+    ]);
+    assert!(e.contains("'÷'") && e.contains("position 19"), "{e}");
+    // Old-Mac line endings are read.
+    let p = dir.join("cr.csv");
+    std::fs::write(&p, "a,b,y\r1,2,x\r3,4,z\r5,6,x\r").unwrap();
+    ok(&[
+        "train",
+        "--data",
+        s(&p),
+        "--target",
+        "y",
+        "--kernel",
+        "linear()",
+        "--model",
+        "ridge",
+        "--classify",
+        "--out",
+        s(&dir.join("cr.safetensors")),
+    ]);
+}
+
+#[test]
+fn degenerate_data_never_puts_nan_in_a_file() {
+    let dir = tmpdir("degenerate_data_never_puts_nan_in_a_file");
+    // Duplicate rows and a constant column.
+    let mut t = String::from("a,b,c,y\n");
+    for i in 0..120 {
+        let v = (i % 6) as f64 * 0.3;
+        t.push_str(&format!(
+            "{v},{},{},{}\n",
+            1.0,
+            -v,
+            if i % 2 == 0 { "p" } else { "q" }
+        ));
+    }
+    let p = dir.join("deg.csv");
+    std::fs::write(&p, &t).unwrap();
+    for (kernel, method) in [
+        ("gaussian(gamma=1e-12)", "fourier"),
+        ("gaussian(gamma=1e6)", "orthogonal"),
+        ("gaussian(gamma=0.5)", "nystrom"),
+        ("gaussian(gamma=0.5)", "taylor"),
+        ("polynomial(degree=3, gamma=1, coef0=1)", "maclaurin"),
+    ] {
+        let out = dir.join(format!("{method}.safetensors"));
+        let o = run(&[
+            "compile",
+            "--kernel",
+            kernel,
+            "--data",
+            s(&p),
+            "--target",
+            "y",
+            "--standardize",
+            "--method",
+            method,
+            "--features",
+            "64",
+            "--out",
+            s(&out),
+        ]);
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert!(!err.contains("panicked"), "{kernel} {method}: {err}");
+        match o.status.code() {
+            Some(0) => {
+                let sc = ok(&["score", s(&out), "--data", s(&p), "--target", "y"]);
+                assert!(
+                    !sc.contains("NaN") && !sc.contains("inf"),
+                    "{kernel} {method}: non-finite score"
+                );
+            }
+            Some(1) | Some(2) => assert!(!out.exists(), "{kernel} {method}: {err}"),
+            other => panic!("{kernel} {method}: exit {other:?}: {err}"),
+        }
+    }
+}
