@@ -201,7 +201,7 @@ fn model_files_that_lie_are_refused() {
     let e = bad(&["inspect", s(&p)]);
     assert!(e.contains("dtype F32"), "{e}");
     // Safetensors errors are sentences, not debug dumps.
-    let good = std::fs::read(&demo()).unwrap();
+    let good = std::fs::read(demo()).unwrap();
     let p = dir.join("cut.safetensors");
     std::fs::write(&p, &good[..200]).unwrap();
     let e = bad(&["inspect", s(&p)]);
