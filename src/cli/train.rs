@@ -3,7 +3,7 @@
 use clap::ValueEnum;
 use kernelpress::data::{check_batch, read_table, Standardizer};
 use kernelpress::exact::choose::choose_svm;
-use kernelpress::exact::{fit_ridge, fit_ridge_scaled, fit_svm, RidgeOptions, SmoOptions};
+use kernelpress::exact::{fit_ridge_scaled, fit_svm, RidgeOptions, SmoOptions};
 use kernelpress::{Error, Result};
 use std::path::PathBuf;
 use std::time::Instant;
@@ -142,18 +142,14 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 ridge: a.ridge,
                 classify: a.classify,
             };
-            if scaling.is_some() {
-                fit_ridge_scaled(
-                    &kernel,
-                    x.view(),
-                    &y,
-                    &opts,
-                    scaling,
-                    &super::progress::Bars::default(),
-                )?
-            } else {
-                fit_ridge(&kernel, x.view(), &y, &opts)?
-            }
+            fit_ridge_scaled(
+                &kernel,
+                x.view(),
+                &y,
+                &opts,
+                scaling,
+                &super::progress::Bars::default(),
+            )?
         }
     };
     let secs = start.elapsed().as_secs_f64();

@@ -107,25 +107,12 @@ def exact_decision(path, x):
 
 
 def labels_from_decision(task, labels, s):
-    """The label rules stated in kernelpress's docs (binary: positive = second label; ovr:
-    argmax; ovo: pairs (0,1),(0,2),..., positive votes for the first, ties to the lowest)."""
-    if task == "binary":
-        return [labels[1] if v > 0 else labels[0] for v in s[:, 0]]
-    if task == "ovr":
-        return [labels[i] for i in np.argmax(s, axis=1)]
-    if task == "ovo":
-        k = len(labels)
-        out = []
-        for row in s:
-            votes = np.zeros(k, dtype=int)
-            p = 0
-            for i in range(k):
-                for j in range(i + 1, k):
-                    votes[i if row[p] > 0 else j] += 1
-                    p += 1
-            out.append(labels[int(np.argmax(votes))])
-        return out
-    return None
+    """The label rules of the README's "Label rules" (binary: positive = second label; ovr:
+    argmax; ovo: pairs (0,1),(0,2),..., positive votes for the first, ties to the lowest);
+    the one implementation is the README scorer's."""
+    from score_from_readme import labels as rule
+
+    return rule({"output": {"task": task, "labels": labels}}, s)
 
 
 def read_csv(path, target=None):
