@@ -441,3 +441,66 @@ fn degenerate_data_never_puts_nan_in_a_file() {
         }
     }
 }
+
+#[test]
+fn the_report_says_where_f32_loses_precision() {
+    // The demo's Nyström head cancels large terms: the report says so and by how much (the
+    // f32 ONNX export of this model measured 1.8e-4 of the decision scale).
+    let dir = tmpdir("the_report_says_where_f32_loses_precision");
+    let j = dir.join("r.json");
+    ok(&[
+        "report",
+        s(&root().join("models/pump_compiled.safetensors")),
+        "--exact",
+        s(&demo()),
+        "--data",
+        "models/pump_test.csv",
+        "--target",
+        "condition",
+        "--no-timing",
+        "--json",
+        s(&j),
+    ]);
+    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&j).unwrap()).unwrap();
+    assert!(r["head_cancellation"].as_f64().unwrap() > 1000.0);
+    assert!(
+        r["warnings"].to_string().contains("precision"),
+        "{}",
+        r["warnings"]
+    );
+    // A random-feature head does not.
+    let calib = dir.join("c.csv");
+    let text = std::fs::read_to_string(root().join("models/pump_calib.csv")).unwrap();
+    std::fs::write(
+        &calib,
+        text.lines()
+            .take(1001)
+            .map(|l| format!("{l}\n"))
+            .collect::<String>(),
+    )
+    .unwrap();
+    ok(&[
+        "compile",
+        s(&demo()),
+        "--calib",
+        s(&calib),
+        "--target",
+        "condition",
+        "--method",
+        "orthogonal",
+        "--features",
+        "256",
+        "--no-timing",
+        "--out",
+        s(&dir.join("o.safetensors")),
+        "--json",
+        s(&j),
+    ]);
+    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&j).unwrap()).unwrap();
+    assert!(
+        r["head_cancellation"].as_f64().unwrap() < 100.0,
+        "{}",
+        r["head_cancellation"]
+    );
+    assert!(!r["warnings"].to_string().contains("precision"));
+}
