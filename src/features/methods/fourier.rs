@@ -17,13 +17,7 @@ impl Sampler for Fourier {
         true
     }
     fn serves(&self, k: &Kernel) -> bool {
-        matches!(
-            k,
-            Kernel::Gaussian { .. }
-                | Kernel::Laplacian { .. }
-                | Kernel::Matern { .. }
-                | Kernel::RationalQuadratic { .. }
-        )
+        super::any_spectral(k)
     }
     fn leaf(&self, cx: &mut Ctx, k: &Kernel, dd: usize, x: ValueId) -> Result<ValueId> {
         spectral_leaf(cx, k, dd, x, |cx, xs, m| {

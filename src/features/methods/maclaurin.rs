@@ -27,18 +27,8 @@ impl Sampler for Maclaurin {
         matches!(k, Kernel::Polynomial { .. })
     }
     fn leaf(&self, cx: &mut Ctx, k: &Kernel, dd: usize, x: ValueId) -> Result<ValueId> {
-        let Kernel::Polynomial {
-            degree,
-            gamma,
-            coef0,
-        } = *k
-        else {
-            return Err(crate::features::spec::cannot_serve(
-                k,
-                crate::features::Method::Maclaurin,
-            ));
-        };
-        let (p, d) = (degree as usize, cx.spec.input_dim);
+        let (p, gamma, coef0) = super::polynomial(k, self)?;
+        let d = cx.spec.input_dim;
         let a = |n: usize| {
             if n > p {
                 0.0

@@ -139,6 +139,31 @@ pub(crate) fn spectral_leaf(
     }
 }
 
+/// `(degree, γ, coef0)` of a polynomial kernel, or the error naming the methods that can
+/// serve `k` (for the dot-product samplers).
+pub(crate) fn polynomial(k: &Kernel, method: &dyn Sampler) -> Result<(usize, f64, f64)> {
+    match *k {
+        Kernel::Polynomial {
+            degree,
+            gamma,
+            coef0,
+        } => Ok((degree as usize, gamma, coef0)),
+        _ => Err(cannot_serve(k, super::Method::parse(method.name())?)),
+    }
+}
+
+/// True for the kernels with a spectral measure every dense frequency sampler can draw
+/// from (Gaussian, Laplacian, Matérn, rational quadratic).
+pub(crate) fn any_spectral(k: &Kernel) -> bool {
+    matches!(
+        k,
+        Kernel::Gaussian { .. }
+            | Kernel::Laplacian { .. }
+            | Kernel::Matern { .. }
+            | Kernel::RationalQuadratic { .. }
+    )
+}
+
 /// A dense projection onto the rows of `w` (`m × d`).
 pub(crate) fn dense(cx: &mut Ctx, w: Array2<f64>, x: ValueId) -> Result<ValueId> {
     cx.b.push(steps::Dense::new(w)?, &[x])

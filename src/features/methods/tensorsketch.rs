@@ -19,18 +19,8 @@ impl Sampler for TensorSketch {
         matches!(k, Kernel::Polynomial { .. })
     }
     fn leaf(&self, cx: &mut Ctx, k: &Kernel, dd: usize, x: ValueId) -> Result<ValueId> {
-        let Kernel::Polynomial {
-            degree,
-            gamma,
-            coef0,
-        } = *k
-        else {
-            return Err(crate::features::spec::cannot_serve(
-                k,
-                crate::features::Method::TensorSketch,
-            ));
-        };
-        let (p, d) = (degree as usize, cx.spec.input_dim);
+        let (p, gamma, coef0) = super::polynomial(k, self)?;
+        let d = cx.spec.input_dim;
         let hash: Vec<Vec<u32>> = (0..p)
             .map(|_| (0..=d).map(|_| cx.rng.random_range(0..dd as u32)).collect())
             .collect();
