@@ -249,7 +249,7 @@ pub fn build(
     let f32_loss = cancellation * 2f64.powi(-24);
     if f32_loss > 1e-4 {
         r.warnings.push(format!(
-            "precision: the head cancels large terms (their magnitudes sum to {cancellation:.0}× the largest decision value); in f32 (exports) decisions move by about {f32_loss:.1e} of their scale — measure it with `export --check-data`"
+            "precision: the head cancels large terms (their magnitudes sum to {cancellation:.0}× the largest decision value); in f32 (exports) decisions move by about {f32_loss:.1e} of their scale; measure it with `export --check-data`"
         ));
     }
     if exact.task().is_classifier() {
