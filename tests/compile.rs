@@ -8,12 +8,6 @@ use kernelpress::fit::{compile_exact, HeadKind, RidgeGrid};
 use kernelpress::model::{ExactModel, Task};
 use ndarray::Array2;
 
-fn head_lines(src: &std::path::Path, dst: &std::path::Path, n: usize) {
-    let text = std::fs::read_to_string(src).unwrap();
-    let t: String = text.lines().take(n + 1).map(|l| format!("{l}\n")).collect();
-    std::fs::write(dst, t).unwrap();
-}
-
 #[test]
 fn compile_report_score_agree_and_match_numpy() {
     let dir = tmpdir("compile_report_score_agree_and_match_numpy");

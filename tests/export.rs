@@ -8,12 +8,6 @@ use kernelpress::model::CompiledModel;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
-fn head_lines(src: &Path, dst: &Path, n: usize) {
-    let text = std::fs::read_to_string(src).unwrap();
-    let t: String = text.lines().take(n + 1).map(|l| format!("{l}\n")).collect();
-    std::fs::write(dst, t).unwrap();
-}
-
 struct Data {
     dir: PathBuf,
     test: PathBuf,

@@ -145,15 +145,7 @@ fn errors_point_at_the_fix() {
 fn compiled_files_know_their_exact_model() {
     let dir = tmpdir("compiled_files_know_their_exact_model");
     let train = dir.join("train.csv");
-    let text = std::fs::read_to_string(root().join("models/pump_train.csv")).unwrap();
-    std::fs::write(
-        &train,
-        text.lines()
-            .take(301)
-            .map(|l| format!("{l}\n"))
-            .collect::<String>(),
-    )
-    .unwrap();
+    head_lines(&root().join("models/pump_train.csv"), &train, 300);
     let other = dir.join("other.safetensors");
     ok(&[
         "train",
@@ -217,15 +209,7 @@ fn compiled_files_know_their_exact_model() {
 fn quality_gate_stops_a_pipeline() {
     let dir = tmpdir("quality_gate_stops_a_pipeline");
     let calib = dir.join("calib.csv");
-    let text = std::fs::read_to_string(root().join("models/pump_calib.csv")).unwrap();
-    std::fs::write(
-        &calib,
-        text.lines()
-            .take(601)
-            .map(|l| format!("{l}\n"))
-            .collect::<String>(),
-    )
-    .unwrap();
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 600);
     let out = dir.join("c.safetensors");
     let args = |extra: &[&str]| {
         let mut v: Vec<String> = [
@@ -445,15 +429,7 @@ fn score_columns_say_which_class_a_positive_value_favours() {
 fn train_chooses_c_when_asked_and_prints_the_grid() {
     let dir = tmpdir("train_chooses_c_when_asked_and_prints_the_grid");
     let train = dir.join("train.csv");
-    let text = std::fs::read_to_string(root().join("models/pump_train.csv")).unwrap();
-    std::fs::write(
-        &train,
-        text.lines()
-            .take(301)
-            .map(|l| format!("{l}\n"))
-            .collect::<String>(),
-    )
-    .unwrap();
+    head_lines(&root().join("models/pump_train.csv"), &train, 300);
     let out = dir.join("m.safetensors");
     let o = ok(&[
         "train",

@@ -76,15 +76,7 @@ fn sizes_are_checked_before_allocating() {
     assert!(e.contains("--reps"), "{e}");
     let dir = tmpdir("sizes_are_checked_before_allocating");
     let calib = dir.join("c.csv");
-    let text = std::fs::read_to_string(root().join("models/pump_calib.csv")).unwrap();
-    std::fs::write(
-        &calib,
-        text.lines()
-            .take(50)
-            .map(|l| format!("{l}\n"))
-            .collect::<String>(),
-    )
-    .unwrap();
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 49);
     let e = bad(&[
         "--max-memory",
         "64M",
@@ -470,15 +462,7 @@ fn the_report_says_where_f32_loses_precision() {
     );
     // A random-feature head does not.
     let calib = dir.join("c.csv");
-    let text = std::fs::read_to_string(root().join("models/pump_calib.csv")).unwrap();
-    std::fs::write(
-        &calib,
-        text.lines()
-            .take(1001)
-            .map(|l| format!("{l}\n"))
-            .collect::<String>(),
-    )
-    .unwrap();
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 1000);
     ok(&[
         "compile",
         s(&demo()),

@@ -7,12 +7,6 @@ use common::*;
 use kernelpress::model::{AnyModel, CompiledModel, ExactModel};
 use kernelpress::program::Step;
 
-fn head_lines(src: &std::path::Path, dst: &std::path::Path, n: usize) {
-    let text = std::fs::read_to_string(src).unwrap();
-    let t: String = text.lines().take(n + 1).map(|l| format!("{l}\n")).collect();
-    std::fs::write(dst, t).unwrap();
-}
-
 /// `score` the model on `test`, then rescore it in numpy from the README's description.
 fn check_with_readme_scorer(
     dir: &std::path::Path,

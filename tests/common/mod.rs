@@ -91,6 +91,13 @@ pub fn py(script: &str, args: &[&str]) -> String {
     out
 }
 
+/// Copies the header and the first `n` data rows of `src` to `dst`.
+pub fn head_lines(src: &Path, dst: &Path, n: usize) {
+    let text = std::fs::read_to_string(src).unwrap();
+    let t: String = text.lines().take(n + 1).map(|l| format!("{l}\n")).collect();
+    std::fs::write(dst, t).unwrap();
+}
+
 pub fn s(p: &Path) -> &str {
     p.to_str().unwrap()
 }
