@@ -73,7 +73,7 @@ pub fn read_table(path: &Path, target: Option<&str>, require_target: bool) -> Re
         }
         let a = read_npy(path)?;
         let x = a.into_2d(&path.display().to_string())?;
-        let columns = (0..x.ncols()).map(|j| format!("x{j}")).collect();
+        let columns = placeholder_names(x.ncols());
         return Ok(Table {
             x,
             columns,
@@ -116,10 +116,15 @@ pub struct Matched {
     pub notes: Vec<String>,
 }
 
-/// True when `names` are the placeholder names `x0 … x{d−1}` of a model that was given no
-/// column names (imported from arrays or ONNX).
-pub fn placeholder_names(names: &[String]) -> bool {
-    names.iter().enumerate().all(|(j, n)| *n == format!("x{j}"))
+/// The placeholder column names `x0 … x{d−1}` of data or a model that has no names.
+pub fn placeholder_names(d: usize) -> Vec<String> {
+    (0..d).map(|j| format!("x{j}")).collect()
+}
+
+/// True when `names` are the placeholder names (a model given no column names: imported
+/// from arrays or ONNX).
+pub fn has_placeholder_names(names: &[String]) -> bool {
+    names == placeholder_names(names.len()).as_slice()
 }
 
 /// Reads a data file for a model with feature names `names`. A CSV header is matched to
@@ -149,7 +154,7 @@ pub fn read_for_model(
         .iter()
         .filter(|h| Some(h.as_str()) != target)
         .collect();
-    let known = !placeholder_names(names);
+    let known = !has_placeholder_names(names);
     let select: Option<Vec<String>> = if by_position {
         None
     } else if known {

@@ -76,12 +76,9 @@ impl CompiledModel {
                 }
             }
         }
-        let d = program.input_dim();
-        let mut m = Self::from_parts(
+        Self::from_parts(
             map.spec, features, program, head, intercept, task, labels, scaling, folded,
-        )?;
-        m.feature_names = (0..d).map(|j| format!("x{j}")).collect();
-        Ok(m)
+        )
     }
 
     #[allow(clippy::too_many_arguments)]
@@ -136,7 +133,7 @@ impl CompiledModel {
             folded,
             fit: json!({}),
             report: json!({}),
-            feature_names: (0..d).map(|j| format!("x{j}")).collect(),
+            feature_names: crate::data::placeholder_names(d),
             exact_fingerprint: None,
         })
     }

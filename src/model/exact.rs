@@ -71,7 +71,7 @@ impl ExactModel {
             intercept,
             rule,
             scaling,
-            feature_names: (0..d).map(|j| format!("x{j}")).collect(),
+            feature_names: crate::data::placeholder_names(d),
             training: json!({}),
             prepared: OnceLock::new(),
         })

@@ -78,7 +78,7 @@ fn names(f: &TensorFile, d: usize) -> Vec<String> {
         });
     match v {
         Some(n) if n.len() == d => n,
-        _ => (0..d).map(|j| format!("x{j}")).collect(),
+        _ => crate::data::placeholder_names(d),
     }
 }
 

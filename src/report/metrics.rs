@@ -64,10 +64,18 @@ pub fn kernel_features(model: &CompiledModel) -> Result<Program> {
 /// Kernel approximation error on `xs` (scaled inputs): (max abs, rmse, relative Frobenius)
 /// of `Z Zᵀ` against the exact Gram matrix.
 pub fn kernel_errors(model: &CompiledModel, xs: ArrayView2<f64>) -> Result<(f64, f64, f64)> {
-    let k = &model.spec().kernel;
-    let g = k.gram(xs, xs);
     let z = kernel_features(model)?.apply(xs);
-    let approx = crate::linalg::abt_seq(z.view(), z.view());
+    Ok(gram_errors(&model.spec().kernel, xs, z.view()))
+}
+
+/// As [`kernel_errors`], from the features `z` of `xs` already computed.
+pub fn gram_errors(
+    k: &crate::kernel::Kernel,
+    xs: ArrayView2<f64>,
+    z: ArrayView2<f64>,
+) -> (f64, f64, f64) {
+    let g = k.gram(xs, xs);
+    let approx = crate::linalg::abt_seq(z, z);
     let mut max: f64 = 0.0;
     let mut sse = 0.0f64;
     let mut ss = 0.0f64;
@@ -76,11 +84,11 @@ pub fn kernel_errors(model: &CompiledModel, xs: ArrayView2<f64>) -> Result<(f64,
         sse += (a - b) * (a - b);
         ss += a * a;
     }
-    Ok((
+    (
         max,
         (sse / g.len() as f64).sqrt(),
         (sse / ss.max(1e-300)).sqrt(),
-    ))
+    )
 }
 
 #[cfg(test)]

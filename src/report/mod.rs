@@ -11,7 +11,7 @@ pub mod metrics;
 mod render;
 
 pub use latency::{measure_batch, measure_single, LatencyStats};
-pub use metrics::{decision_errors, kernel_errors, kernel_features, wilson95};
+pub use metrics::{decision_errors, gram_errors, kernel_errors, kernel_features, wilson95};
 pub use render::render_text;
 
 use crate::model::{label_indices, CompiledModel, ExactModel};
@@ -204,8 +204,14 @@ pub fn build(
     }
     let (rmse, r2, maxe) = decision_errors(se.view(), sc.view());
     let xs_k = exact.scale_inputs(x.slice(s![..opts.kernel_rows.min(n), ..]));
-    let (kmax, krmse, kfro) = kernel_errors(compiled, xs_k.view())?;
+    // The program's features serve both the kernel errors and the cancellation measure;
+    // only a folded head needs the kernel features rebuilt.
     let z = compiled.program().apply(xs_k.view());
+    let (kmax, krmse, kfro) = if compiled.is_folded() {
+        kernel_errors(compiled, xs_k.view())?
+    } else {
+        gram_errors(&compiled.spec().kernel, xs_k.view(), z.view())
+    };
     let mass = z
         .mapv(f64::abs)
         .dot(&compiled.head().mapv(f64::abs))
