@@ -280,7 +280,7 @@ mod tests {
 
     #[test]
     fn binary16_round_trips_and_rounds_to_nearest_even() {
-        // IEEE 754 binary16 reference values (common knowledge of the format): 1.0 = 0x3C00,
+        // IEEE 754-2008 binary16 reference values (from memory): 1.0 = 0x3C00,
         // −2.0 = 0xC000, 65504 = 0x7BFF (largest finite), 2^-24 = 0x0001 (smallest
         // subnormal), 1/3 ≈ 0x3555.
         for (x, h) in [
