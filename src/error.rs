@@ -3,8 +3,9 @@
 //! Every failure is one [`Error`]: an opaque value carrying an [`ErrorKind`] a caller can
 //! match on and a one-line message that names the file, row, field and what was expected.
 //! The binary maps [`ErrorKind::Input`] and [`ErrorKind::File`] to exit code 2,
-//! [`ErrorKind::Gate`] (a failed quality gate) to 3 and the other kinds to 1
-//! ([`Error::exit_code`]).
+//! [`ErrorKind::Gate`] (a failed quality gate) to 3, [`ErrorKind::Budget`] (no model meets
+//! a budget) to 4, [`ErrorKind::KeepExact`] (the exact model is the better choice) to 5 and
+//! the other kinds to 1 ([`Error::exit_code`]).
 
 use std::fmt;
 
@@ -28,6 +29,11 @@ pub enum ErrorKind {
     /// A quality gate the caller asked for (a minimum agreement or accuracy) was not met.
     /// Exit code 3, so that a pipeline can stop a rollout.
     Gate,
+    /// No candidate meets the budget the caller set (latency, size, fidelity). Exit code 4.
+    Budget,
+    /// The exact model meets the budget and is at least as fast as any compiled model that
+    /// does, so nothing was compiled for the caller. Exit code 5.
+    KeepExact,
 }
 
 /// A kernelpress error: a kind and a one-line message.
@@ -114,14 +120,15 @@ impl Error {
     }
 
     /// The process exit code for this error: 2 for input and file errors, 3 for a failed
-    /// quality gate, 1 otherwise.
+    /// quality gate, 4 when no model meets a budget, 5 when the exact model is the better
+    /// choice, 1 otherwise.
     pub fn exit_code(&self) -> i32 {
-        if self.is_user_error() {
-            2
-        } else if self.kind == ErrorKind::Gate {
-            3
-        } else {
-            1
+        match self.kind {
+            ErrorKind::Input | ErrorKind::File => 2,
+            ErrorKind::Gate => 3,
+            ErrorKind::Budget => 4,
+            ErrorKind::KeepExact => 5,
+            _ => 1,
         }
     }
 }

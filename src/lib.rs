@@ -31,6 +31,8 @@
 // `!(v > 0.0)` is the deliberate idiom that also rejects NaN (as rand_distr does).
 #![allow(clippy::neg_cmp_op_on_partial_ord)]
 
+pub mod choose;
+pub mod cost;
 pub mod data;
 mod error;
 pub mod exact;

@@ -22,6 +22,25 @@ fn as_faer<'a>(a: &'a ArrayView2<'a, f64>) -> MatRef<'a, f64> {
     unsafe { MatRef::from_raw_parts(a.as_ptr(), m, n, st[0], st[1]) }
 }
 
+/// `out += Σᵢ zᵢ · w[i, ·]` for a row-major `z.len() × out.len()` matrix `w`: one row
+/// through a linear head, in row order (the same sums as a scalar double loop).
+///
+/// # Panics
+/// If `w.len() != z.len() · out.len()`.
+#[track_caller]
+pub fn add_weighted_rows(z: &[f64], w: &[f64], out: &mut [f64]) {
+    let k = out.len();
+    assert_eq!(w.len(), z.len() * k, "add_weighted_rows: shapes differ");
+    if k == 0 {
+        return;
+    }
+    for (zi, row) in z.iter().zip(w.chunks_exact(k)) {
+        for (o, wv) in out.iter_mut().zip(row) {
+            *o += zi * wv;
+        }
+    }
+}
+
 /// `a · bᵀ`, sequential, for one chunk. Panics if the inner dimensions differ.
 #[track_caller]
 pub fn abt_seq(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {

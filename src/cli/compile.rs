@@ -3,8 +3,10 @@
 
 use super::featurize::{read_landmarks, MapArgs};
 use clap::ValueEnum;
+use kernelpress::choose::{search, Budget, Choice, SearchOptions};
 use kernelpress::data::{check_batch, read_table, write_all_atomic};
-use kernelpress::fit::{compile_exact, compile_labels, held_out, HeadKind, RidgeGrid};
+use kernelpress::features::{methods_for, Method};
+use kernelpress::fit::{compile_exact, compile_labels, held_out, HeadKind, RidgeGrid, Teacher};
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
 use kernelpress::{Error, ErrorKind, Result};
@@ -78,6 +80,26 @@ pub(crate) struct Args {
     /// Take data columns in file order instead of matching the model's column names.
     #[arg(long)]
     by_position: bool,
+    /// Budget: the most single-row latency (median, µs, measured on this machine) the
+    /// compiled model may take. The method and feature count are then chosen (the most
+    /// faithful within the budget); give no --method/--features.
+    #[arg(long)]
+    budget_us: Option<f64>,
+    /// Budget: the most parameter bytes (e.g. 200000, 512K, 4M).
+    #[arg(long)]
+    max_bytes: Option<String>,
+    /// Budget: the largest share of rows whose label may differ from the exact model's on
+    /// held-out calibration rows (regression: the decision RMSE relative to the spread of
+    /// the exact decisions). Alone, the fastest model that meets it is chosen.
+    #[arg(long)]
+    max_disagreement: Option<f64>,
+    /// Budget search: the methods to try, comma-separated (default: every method for the
+    /// kernel but identity).
+    #[arg(long, value_delimiter = ',')]
+    methods: Vec<String>,
+    /// Budget search: measure this machine again instead of using the cached profile.
+    #[arg(long)]
+    recalibrate: bool,
     /// Output compiled model file.
     #[arg(long)]
     out: PathBuf,
@@ -112,6 +134,18 @@ pub(crate) fn run(a: Args) -> Result<()> {
         None => RidgeGrid::standard(),
     };
     a.gate.validate()?;
+    if a.budget_us.is_some() || a.max_bytes.is_some() || a.max_disagreement.is_some() {
+        if a.map.method.is_some() || a.map.features.is_some() {
+            return Err(Error::input(
+                "a budget (--budget-us, --max-bytes, --max-disagreement) chooses the method and the feature count: drop --method/--features (restrict the search with --methods)",
+            ));
+        }
+        if a.map.landmarks.is_some() || a.ridge_rel.is_some() || !matches!(a.head, Head::Distill) {
+            return Err(Error::input(
+                "a budget search distils every candidate with the standard settings: drop --landmarks, --ridge-rel and --head",
+            ));
+        }
+    }
     let Some(model_path) = &a.model else {
         return run_labels(&a, &grid);
     };
@@ -140,12 +174,20 @@ pub(crate) fn run(a: Args) -> Result<()> {
         Head::Distill => HeadKind::Distill,
         Head::Project => HeadKind::Project,
     };
+    if a.budget_us.is_some() || a.max_bytes.is_some() || a.max_disagreement.is_some() {
+        return run_budget(&a, &exact, calib, &grid);
+    }
+    if !a.methods.is_empty() {
+        return Err(Error::input(
+            "--methods restricts a budget search; give --budget-us, --max-bytes or --max-disagreement (or one --method)",
+        ));
+    }
     let spec = a.map.spec(exact.kernel().clone(), d)?;
     let lm = match &a.map.landmarks {
         Some(p) => Some(read_landmarks(p, d, &|x| x.to_owned())?),
         None => None,
     };
-    let (mut model, info) = compile_exact(
+    let (model, info) = compile_exact(
         &exact,
         calib.as_ref().map(|t| t.x.view()),
         &spec,
@@ -166,13 +208,25 @@ pub(crate) fn run(a: Args) -> Result<()> {
     {
         super::progress::warn(n.as_str().unwrap_or(""));
     }
+    evaluate_and_finish(&a, &exact, calib.as_ref(), model, None)
+}
+
+/// Builds the report (on --eval, else on the held-out calibration rows), applies the gate
+/// and writes the model. `budget_line` is printed after the report.
+fn evaluate_and_finish(
+    a: &Args,
+    exact: &ExactModel,
+    calib: Option<&kernelpress::data::Table>,
+    mut model: kernelpress::model::CompiledModel,
+    budget_line: Option<&dyn Fn(&report::Report) -> String>,
+) -> Result<()> {
     // Evaluation rows for the report.
     let (ex, truth, on) = match &a.eval {
         Some(p) => {
             let t = super::read_for(p, a.target.as_deref(), &exact.feature_names, a.by_position)?;
             (t.x, t.target, format!("{}", p.display()))
         }
-        None => match &calib {
+        None => match calib {
             Some(t) => {
                 let idx: Vec<usize> = (0..t.x.nrows()).filter(|&i| held_out(i)).collect();
                 let y = t
@@ -186,7 +240,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 )
             }
             None => {
-                return finish(&a, &mut model, None);
+                return finish(a, &mut model, None);
             }
         },
     };
@@ -196,10 +250,166 @@ pub(crate) fn run(a: Args) -> Result<()> {
         ..ReportOptions::default()
     };
     let pb = super::progress::bar(1, "report");
-    let mut rep = report::build(&model, &exact, ex.view(), truth.as_deref(), None, &opts)?;
+    let mut rep = report::build(&model, exact, ex.view(), truth.as_deref(), None, &opts)?;
     pb.finish();
     rep.evaluated_on = Some(on);
-    finish(&a, &mut model, Some(rep))
+    if let Some(f) = budget_line {
+        super::print_stdout(&f(&rep))?;
+    }
+    finish(a, &mut model, Some(rep))
+}
+
+fn run_budget(
+    a: &Args,
+    exact: &ExactModel,
+    calib: Option<kernelpress::data::Table>,
+    grid: &RidgeGrid,
+) -> Result<()> {
+    let calib = calib.ok_or_else(|| Error::input("a budget search needs --calib FILE"))?;
+    let max_bytes = match &a.max_bytes {
+        Some(s) => Some(
+            kernelpress::limits::parse_size(s)
+                .map_err(|e| Error::input(format!("--max-bytes {s}: {e}")))?,
+        ),
+        None => None,
+    };
+    if let Some(b) = a.budget_us {
+        if !(b > 0.0 && b.is_finite()) {
+            return Err(Error::input(format!(
+                "--budget-us {b} must be a positive number of microseconds"
+            )));
+        }
+    }
+    if let Some(p) = a.max_disagreement {
+        if !(0.0..1.0).contains(&p) {
+            return Err(Error::input(format!(
+                "--max-disagreement {p} must be in [0, 1)"
+            )));
+        }
+    }
+    let kernel = exact.kernel().clone();
+    let methods: Vec<Method> = if a.methods.is_empty() {
+        methods_for(&kernel)
+            .into_iter()
+            .filter(|m| *m != Method::Identity)
+            .collect()
+    } else {
+        a.methods
+            .iter()
+            .map(|m| Method::parse(m.trim()))
+            .collect::<Result<_>>()?
+    };
+    for m in &methods {
+        if !methods_for(&kernel).contains(m) {
+            return Err(Error::input(format!(
+                "--methods: {m} cannot serve kernel {kernel}"
+            )));
+        }
+    }
+    let budget = Budget {
+        latency_us: a.budget_us,
+        max_bytes,
+        max_loss: a.max_disagreement,
+    };
+    let profile = super::machine::profile(a.recalibrate)?;
+    let bars = super::progress::Bars::default();
+    let teacher = Teacher::new(exact, calib.x.view(), &bars)?;
+    let opts = SearchOptions {
+        methods,
+        ladder: SearchOptions::standard_ladder(),
+        seed: a.map.seed,
+        grid: grid.clone(),
+        reps: 300,
+    };
+    let res = search(&teacher, &profile, budget, &opts, &bars)?;
+    for n in &res.notes {
+        super::progress::note(n);
+    }
+    let mut text = String::from("candidates (judged on the held-out calibration rows):\n");
+    text.push_str(&format!(
+        "  {:<12} {:>8} {:>13} {:>10} {:>14} {:>12}\n",
+        "method", "features", "disagreement", "p50 (µs)", "predicted (µs)", "bytes"
+    ));
+    for r in &res.tried {
+        text.push_str(&format!(
+            "  {:<12} {:>8} {:>13.4} {:>10.2} {:>14.2} {:>12}\n",
+            r.method, r.features, r.loss, r.latency_us, r.predicted.latency_us, r.bytes
+        ));
+    }
+    let want = describe_budget(&budget);
+    match res.choice {
+        Choice::Compiled { model, record } => {
+            text.push_str(&format!(
+                "chosen: {} with {} features for {want}\n",
+                record.method, record.features
+            ));
+            super::print_stdout(&text)?;
+            let budget_us = a.budget_us;
+            let line = move |r: &report::Report| -> String {
+                match (budget_us, r.timing.latency_us_compiled_p50) {
+                    (Some(b), Some(t)) => format!(
+                        "re-measured single-row latency {t:.2} µs against the budget of {b} µs ({})\n",
+                        if t <= b { "within" } else if t <= 1.1 * b { "over by less than the 10% measurement noise" } else { "OVER the budget: this machine is busier than when it was profiled" }
+                    ),
+                    (None, Some(t)) => format!("re-measured single-row latency {t:.2} µs\n"),
+                    _ => String::new(),
+                }
+            };
+            evaluate_and_finish(a, exact, Some(&calib), *model, Some(&line))
+        }
+        Choice::Exact {
+            exact: e,
+            best_compiled,
+        } => {
+            text.push_str(&format!(
+                "the exact model itself meets {want} ({:.2} µs per row, agrees with itself){}: keep it; nothing was written\n",
+                e.latency_us,
+                best_compiled
+                    .map(|b| format!(", and no compiled model that meets it is faster (best: {} with {} features, {:.2} µs)", b.method, b.features, b.latency_us))
+                    .unwrap_or_else(|| ", and no compiled model meets it".into())
+            ));
+            super::print_stdout(&text)?;
+            Err(Error::new(
+                ErrorKind::KeepExact,
+                format!("the exact model is the better choice for {want}; no file written"),
+            ))
+        }
+        Choice::Nothing {
+            closest,
+            fastest_predicted,
+        } => {
+            if let Some(c) = &closest {
+                text.push_str(&format!(
+                    "closest: {} with {} features ({:.2} µs, {} bytes, disagreement {:.4})\n",
+                    c.method, c.features, c.latency_us, c.bytes, c.loss
+                ));
+            } else if let Some((m, f, p)) = &fastest_predicted {
+                text.push_str(&format!(
+                    "nothing was built: the fastest candidate, {m} with {f} features, is predicted at {:.2} µs and {} bytes\n",
+                    p.latency_us, p.param_bytes
+                ));
+            }
+            super::print_stdout(&text)?;
+            Err(Error::new(
+                ErrorKind::Budget,
+                format!("no model meets {want}; no file written"),
+            ))
+        }
+    }
+}
+
+fn describe_budget(b: &Budget) -> String {
+    let mut parts = Vec::new();
+    if let Some(t) = b.latency_us {
+        parts.push(format!("a latency of {t} µs"));
+    }
+    if let Some(m) = b.max_bytes {
+        parts.push(format!("{m} bytes"));
+    }
+    if let Some(p) = b.max_loss {
+        parts.push(format!("a disagreement of {p}"));
+    }
+    format!("the budget ({})", parts.join(", "))
 }
 
 fn finish(

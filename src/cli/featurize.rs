@@ -22,10 +22,10 @@ pub(crate) struct MapArgs {
     /// Method: fourier, orthogonal, hadamard, fastfood, quasi, nystrom, maclaurin,
     /// tensorsketch, relu, identity.
     #[arg(long)]
-    pub method: String,
+    pub method: Option<String>,
     /// Number of features D.
     #[arg(long)]
-    pub features: usize,
+    pub features: Option<usize>,
     /// Seed of the ChaCha20 generator that draws the map.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
@@ -53,13 +53,14 @@ impl MapArgs {
         kernel: kernelpress::kernel::Kernel,
         d: usize,
     ) -> Result<FeatureSpec> {
-        let mut spec = FeatureSpec::new(
-            kernel,
-            Method::parse(&self.method)?,
-            d,
-            self.features,
-            self.seed,
-        );
+        let method = self
+            .method
+            .as_deref()
+            .ok_or_else(|| Error::input("--method is required (or, with compile, a budget: --budget-us, --max-bytes or --max-disagreement)"))?;
+        let features = self
+            .features
+            .ok_or_else(|| Error::input("--features is required (or, with compile, a budget: --budget-us, --max-bytes or --max-disagreement)"))?;
+        let mut spec = FeatureSpec::new(kernel, Method::parse(method)?, d, features, self.seed);
         spec.options.fourier = match self.variant {
             Variant::Paired => FourierVariant::Paired,
             Variant::Phase => FourierVariant::Phase,

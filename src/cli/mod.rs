@@ -8,9 +8,11 @@ mod featurize;
 mod import;
 mod inspect;
 mod kernel_check;
+mod machine;
 pub(crate) mod progress;
 mod report;
 mod score;
+mod sweep;
 mod train;
 
 use clap::{Parser, Subcommand};
@@ -39,9 +41,10 @@ enum Command {
     Inspect(inspect::Args),
     KernelCheck(kernel_check::Args),
     Featurize(featurize::Args),
-    Compile(compile::Args),
+    Compile(Box<compile::Args>),
     Export(export::Args),
     Report(report::Args),
+    Sweep(sweep::Args),
 }
 
 /// Parses the process arguments, runs the command, and returns the exit code.
@@ -77,9 +80,10 @@ pub fn main() -> i32 {
         Command::Inspect(a) => inspect::run(a),
         Command::KernelCheck(a) => kernel_check::run(a),
         Command::Featurize(a) => featurize::run(a),
-        Command::Compile(a) => compile::run(a),
+        Command::Compile(a) => compile::run(*a),
         Command::Export(a) => export::run(a),
         Command::Report(a) => report::run(a),
+        Command::Sweep(a) => sweep::run(a),
     };
     match res {
         Ok(()) => 0,
@@ -87,6 +91,8 @@ pub fn main() -> i32 {
             let prefix = match e.kind() {
                 ErrorKind::Input | ErrorKind::File => "error",
                 ErrorKind::Gate => "quality gate failed",
+                ErrorKind::Budget => "no model meets the budget",
+                ErrorKind::KeepExact => "keep the exact model",
                 ErrorKind::Numerical => "numerical failure",
                 ErrorKind::Io => "I/O error",
                 _ => "internal error",

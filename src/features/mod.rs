@@ -97,6 +97,40 @@ impl FeatureSpec {
     }
 }
 
+impl FeatureSpec {
+    /// The program a compiled model of this spec would run, for costing it without data or
+    /// distillation: data-drawn methods (Nyström) get a kernel block against `pool_rows`
+    /// placeholder landmarks (at most the feature count), which is the folded form compiled
+    /// models store; the other methods are sampled (cheap: no data involved).
+    ///
+    /// ```
+    /// use kernelpress::features::{FeatureSpec, Method};
+    /// let k: kernelpress::kernel::Kernel = "gaussian(gamma=0.5)".parse().unwrap();
+    /// let p = FeatureSpec::new(k, Method::Nystrom, 5, 300, 1).cost_program(1000).unwrap();
+    /// assert_eq!(p.output_dim(), 300);
+    /// ```
+    pub fn cost_program(&self, pool_rows: usize) -> Result<Program> {
+        self.validate()?;
+        if self.method.sampler().whole_kernel() {
+            let l = self.features.min(pool_rows).max(1);
+            crate::limits::check_alloc((l * self.input_dim) as u64, 8, "placeholder landmarks")?;
+            let step = crate::program::steps::KernelBlock::new(
+                self.kernel.clone(),
+                Array2::zeros((l, self.input_dim)),
+            )?;
+            let mut b = crate::program::Builder::new(self.input_dim);
+            let v = b.push(step, &[crate::program::Builder::INPUT])?;
+            return Ok(b.finish(v));
+        }
+        Ok(self.sample(None)?.0.program)
+    }
+
+    /// True when the method draws its map from data (Nyström).
+    pub fn from_data(&self) -> bool {
+        self.method.sampler().whole_kernel()
+    }
+}
+
 impl FeatureMap {
     /// Output dimension `D` (Nyström: the kept rank; Taylor: the monomial count).
     pub fn output_dim(&self) -> usize {

@@ -28,17 +28,129 @@ pub fn held_out(i: usize) -> bool {
     i % 5 == 4
 }
 
-/// Compiles an exact model. `calib` are raw inputs (the model's scaling is applied here).
-/// `landmarks` (raw) replaces the calibration rows as the Nyström landmark pool.
-pub fn compile_exact(
-    exact: &ExactModel,
-    calib: Option<ArrayView2<f64>>,
-    spec: &FeatureSpec,
-    kind: HeadKind,
-    grid: &RidgeGrid,
-    landmarks: Option<ArrayView2<f64>>,
-    obs: &dyn Observer,
-) -> Result<(CompiledModel, SampleInfo)> {
+/// The teacher's side of a distillation, computed once and shared by every candidate map:
+/// the calibration rows (raw and in the model's scaled input space) and the exact model's
+/// decision values on them.
+#[derive(Debug, Clone)]
+pub struct Teacher<'a> {
+    exact: &'a ExactModel,
+    raw: ArrayView2<'a, f64>,
+    scaled: Array2<f64>,
+    y: Array2<f64>,
+}
+
+impl<'a> Teacher<'a> {
+    /// Evaluates `exact` on the raw calibration rows `calib` (in chunks, reported to `obs`).
+    pub fn new(
+        exact: &'a ExactModel,
+        calib: ArrayView2<'a, f64>,
+        obs: &dyn Observer,
+    ) -> Result<Self> {
+        let n = calib.nrows();
+        if n < 10 {
+            return Err(Error::input(format!(
+                "distillation needs at least 10 calibration rows, got {n}"
+            )));
+        }
+        if calib.ncols() != exact.input_dim() {
+            return Err(Error::input(format!(
+                "calibration data have {} features; the model expects {}",
+                calib.ncols(),
+                exact.input_dim()
+            )));
+        }
+        let mut y = Array2::zeros((n, exact.n_outputs()));
+        let chunks = n.div_ceil(FIT_CHUNK);
+        obs.stage("teacher decisions", chunks as u64);
+        for c in 0..chunks {
+            let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
+            let yc = exact.decision(calib.slice(s![r.clone(), ..]));
+            if let Some(i) = yc.iter().position(|v| !v.is_finite()) {
+                return Err(Error::numerical(format!(
+                    "calibration row {}: the exact model's decision value is not finite (overflow); the kernel or the data are too extreme",
+                    r.start + i / yc.ncols().max(1) + 1
+                )));
+            }
+            y.slice_mut(s![r, ..]).assign(&yc);
+            obs.advance(1);
+        }
+        obs.finish();
+        Ok(Teacher {
+            exact,
+            raw: calib,
+            scaled: exact.scale_inputs(calib),
+            y,
+        })
+    }
+
+    /// The exact model.
+    pub fn exact(&self) -> &'a ExactModel {
+        self.exact
+    }
+
+    /// Calibration rows, raw.
+    pub fn raw(&self) -> ArrayView2<'a, f64> {
+        self.raw
+    }
+
+    /// Calibration rows in the model's scaled input space.
+    pub fn scaled(&self) -> ArrayView2<'_, f64> {
+        self.scaled.view()
+    }
+
+    /// The exact model's decision values on the calibration rows.
+    pub fn decisions(&self) -> ArrayView2<'_, f64> {
+        self.y.view()
+    }
+
+    /// Distils a head for `spec` (landmarks from `landmarks`, raw, when given, else from the
+    /// calibration rows).
+    pub fn distil(
+        &self,
+        spec: &FeatureSpec,
+        grid: &RidgeGrid,
+        landmarks: Option<ArrayView2<f64>>,
+        obs: &dyn Observer,
+    ) -> Result<(CompiledModel, SampleInfo)> {
+        let exact = self.exact;
+        check_spec(exact, spec)?;
+        let pool = landmarks.map(|l| exact.scale_inputs(l));
+        let (map, info) = spec.sample(Some(
+            pool.as_ref()
+                .map(|p| p.view())
+                .unwrap_or(self.scaled.view()),
+        ))?;
+        let n = self.raw.nrows();
+        let p = map.output_dim() as u64;
+        crate::limits::check_alloc(
+            4 * p * p,
+            8,
+            &format!("the distillation statistics for {p} features (4·D² values)"),
+        )?;
+        let mut dist = Distiller::new(map.output_dim(), exact.n_outputs());
+        let chunks = n.div_ceil(FIT_CHUNK);
+        obs.stage("distilling", chunks as u64 + 1);
+        for c in 0..chunks {
+            let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
+            let z = map.transform(self.scaled.slice(s![r.clone(), ..]));
+            if let Some(i) = z.iter().position(|v| !v.is_finite()) {
+                return Err(Error::numerical(format!(
+                    "calibration row {}: a feature is not finite (overflow); the kernel or the data are too extreme",
+                    r.start + i / z.ncols().max(1) + 1
+                )));
+            }
+            dist.add(z.view(), self.y.slice(s![r, ..]), held_out);
+            obs.advance(1);
+        }
+        obs.stage("ridge solve", 1);
+        let fit = dist.solve(grid)?;
+        obs.finish();
+        let j = with_kind(&fit, "distill");
+        finish_model(exact, map, fit.head, fit.intercept, j).map(|m| (m, info))
+    }
+}
+
+fn check_spec(exact: &ExactModel, spec: &FeatureSpec) -> Result<()> {
     let d = exact.input_dim();
     if spec.input_dim != d {
         return Err(Error::input(format!(
@@ -51,61 +163,16 @@ pub fn compile_exact(
             "feature spec kernel differs from the model's kernel",
         ));
     }
-    let calib_s = calib.map(|c| exact.scale_inputs(c));
-    let pool = landmarks.map(|l| exact.scale_inputs(l));
-    let pool_view = pool
-        .as_ref()
-        .map(|p| p.view())
-        .or(calib_s.as_ref().map(|c| c.view()));
-    let (map, info) = spec.sample(pool_view)?;
-    let k = exact.n_outputs();
-    let (head, intercept, fit) = match kind {
-        HeadKind::Project => {
-            let (h, b) = project(exact, &map);
-            (h, b, json!({"head": "project"}))
-        }
-        HeadKind::Distill => {
-            let xs = calib_s
-                .as_ref()
-                .ok_or_else(|| Error::input("distillation needs calibration data (--calib)"))?;
-            let x = calib.unwrap();
-            let n = x.nrows();
-            if n < 10 {
-                return Err(Error::input(format!(
-                    "distillation needs at least 10 calibration rows, got {n}"
-                )));
-            }
-            let p = map.output_dim() as u64;
-            crate::limits::check_alloc(
-                4 * p * p,
-                8,
-                &format!("the distillation statistics for {p} features (4·D² values)"),
-            )?;
-            let mut dist = Distiller::new(map.output_dim(), k);
-            let chunks = n.div_ceil(FIT_CHUNK);
-            obs.stage("distilling", chunks as u64 + 1);
-            for c in 0..chunks {
-                let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
-                let y = exact.decision(x.slice(s![r.clone(), ..]));
-                let z = map.transform(xs.slice(s![r.clone(), ..]));
-                for (what, m) in [("the exact model's decision value", &y), ("a feature", &z)] {
-                    if let Some(i) = m.iter().position(|v| !v.is_finite()) {
-                        return Err(Error::numerical(format!(
-                            "calibration row {}: {what} is not finite (overflow); the kernel or the data are too extreme",
-                            r.start + i / m.ncols().max(1) + 1
-                        )));
-                    }
-                }
-                dist.add(z.view(), y.view(), held_out);
-                obs.advance(1);
-            }
-            obs.stage("ridge solve", 1);
-            let fit = dist.solve(grid)?;
-            obs.finish();
-            let j = with_kind(&fit, "distill");
-            (fit.head, fit.intercept, j)
-        }
-    };
+    Ok(())
+}
+
+fn finish_model(
+    exact: &ExactModel,
+    map: crate::features::FeatureMap,
+    head: Array2<f64>,
+    intercept: Vec<f64>,
+    fit: serde_json::Value,
+) -> Result<CompiledModel> {
     let mut m = CompiledModel::new(
         map,
         head,
@@ -117,7 +184,40 @@ pub fn compile_exact(
     m.fit = fit;
     m.feature_names = exact.feature_names.clone();
     m.exact_fingerprint = Some(exact.fingerprint());
-    Ok((m, info))
+    Ok(m)
+}
+
+/// Compiles an exact model. `calib` are raw inputs (the model's scaling is applied here).
+/// `landmarks` (raw) replaces the calibration rows as the Nyström landmark pool.
+pub fn compile_exact(
+    exact: &ExactModel,
+    calib: Option<ArrayView2<f64>>,
+    spec: &FeatureSpec,
+    kind: HeadKind,
+    grid: &RidgeGrid,
+    landmarks: Option<ArrayView2<f64>>,
+    obs: &dyn Observer,
+) -> Result<(CompiledModel, SampleInfo)> {
+    check_spec(exact, spec)?;
+    match kind {
+        HeadKind::Project => {
+            let calib_s = calib.map(|c| exact.scale_inputs(c));
+            let pool = landmarks.map(|l| exact.scale_inputs(l));
+            let pool_view = pool
+                .as_ref()
+                .map(|p| p.view())
+                .or(calib_s.as_ref().map(|c| c.view()));
+            let (map, info) = spec.sample(pool_view)?;
+            let (h, b) = project(exact, &map);
+            finish_model(exact, map, h, b, json!({"head": "project"})).map(|m| (m, info))
+        }
+        HeadKind::Distill => {
+            let x = calib
+                .ok_or_else(|| Error::input("distillation needs calibration data (--calib)"))?;
+            let t = Teacher::new(exact, x, obs)?;
+            t.distil(spec, grid, landmarks, obs)
+        }
+    }
 }
 
 fn with_kind(fit: &HeadFit, kind: &str) -> serde_json::Value {

@@ -23,7 +23,7 @@
 
 mod compile;
 
-pub use compile::{compile_exact, compile_labels, held_out, HeadKind, FIT_CHUNK};
+pub use compile::{compile_exact, compile_labels, held_out, HeadKind, Teacher, FIT_CHUNK};
 
 use crate::features::FeatureMap;
 use crate::linalg;

@@ -94,6 +94,7 @@ impl CompiledModel {
         folded: bool,
     ) -> Result<CompiledModel> {
         let dd = program.output_dim();
+        let head = head.as_standard_layout().into_owned();
         if head.nrows() != dd {
             return Err(Error::input(format!(
                 "head has {} rows but the feature program has {dd} outputs",
@@ -230,13 +231,12 @@ impl CompiledModel {
             None => x.to_vec(),
         };
         let z = self.program.apply_one(&xs);
-        let k = self.head.ncols();
         let mut out = self.intercept.clone();
-        for (zi, row) in z.iter().zip(self.head.rows()) {
-            for c in 0..k {
-                out[c] += zi * row[c];
-            }
-        }
+        let w = self
+            .head
+            .as_slice()
+            .expect("the head is kept in standard layout");
+        linalg::add_weighted_rows(&z, w, &mut out);
         out
     }
 

@@ -147,6 +147,28 @@ pub struct ReportOptions {
     pub timing: bool,
     /// Single-row repetitions per model.
     pub reps: usize,
+    /// The exact model's timings on these rows, when already measured ([`measure_exact`]).
+    pub exact_timing: Option<ExactTiming>,
+}
+
+/// The exact model's measured speed on a set of rows, shared by several reports.
+#[derive(Debug, Clone, Copy)]
+pub struct ExactTiming {
+    /// Single-row latency.
+    pub single: LatencyStats,
+    /// Batched throughput (rows/s).
+    pub rows_per_s: f64,
+}
+
+/// Measures the exact model as [`build`] does.
+pub fn measure_exact(exact: &ExactModel, x: ArrayView2<f64>, opts: &ReportOptions) -> ExactTiming {
+    let n = x.nrows();
+    ExactTiming {
+        single: measure_single(x, opts.reps.min(n.max(1) * 50), |row| {
+            exact.decision_one(row)
+        }),
+        rows_per_s: measure_batch(x, |b| exact.decision(b)),
+    }
 }
 
 impl Default for ReportOptions {
@@ -156,6 +178,7 @@ impl Default for ReportOptions {
             min_agreement: 0.99,
             timing: true,
             reps: 300,
+            exact_timing: None,
         }
     }
 }
@@ -301,11 +324,11 @@ pub fn build(
         }
     }
     if opts.timing {
-        let e1 = measure_single(x, opts.reps.min(n.max(1) * 50), |row| {
-            exact.decision_one(row)
-        });
+        let et = opts
+            .exact_timing
+            .unwrap_or_else(|| measure_exact(exact, x, opts));
+        let (e1, eb) = (et.single, et.rows_per_s);
         let c1 = measure_single(x, opts.reps * 4, |row| compiled.decision_one(row));
-        let eb = measure_batch(x, |b| exact.decision(b));
         let cb = measure_batch(x, |b| compiled.decision(b));
         r.timing = Timing {
             latency_us_exact_p50: Some(e1.p50_us),

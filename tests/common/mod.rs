@@ -23,7 +23,12 @@ pub fn tmpdir(name: &str) -> PathBuf {
 }
 
 pub fn run(args: &[&str]) -> Output {
+    // The machine profile of the cost model is cached here, not in the user's home.
     Command::new(bin())
+        .env(
+            "KERNELPRESS_CACHE_DIR",
+            root().join("target").join("test-tmp").join("machine-cache"),
+        )
         .args(args)
         .output()
         .expect("run kernelpress")

@@ -1,0 +1,173 @@
+//! The sweep's picture: loss against measured single-row latency, both axes logarithmic,
+//! one line per method (points labelled with their feature count), the exact model as a
+//! vertical reference line, the Pareto front ringed and joined. Drawn with plotters' SVG
+//! backend.
+
+use super::Sweep;
+use crate::{Error, Result};
+use plotters::prelude::*;
+
+/// Dark, distinguishable line colours (print- and colour-blind-friendly order).
+const PALETTE: [RGBColor; 8] = [
+    RGBColor(0, 114, 178),
+    RGBColor(213, 94, 0),
+    RGBColor(0, 158, 115),
+    RGBColor(204, 121, 167),
+    RGBColor(86, 180, 233),
+    RGBColor(230, 159, 0),
+    RGBColor(120, 60, 20),
+    RGBColor(90, 0, 140),
+];
+
+fn err<E: std::fmt::Display>(e: E) -> Error {
+    Error::internal(format!("drawing the sweep picture: {e}"))
+}
+
+/// The sweep as an SVG document (`width × height` pixels).
+pub fn render_svg(s: &Sweep, width: u32, height: u32) -> Result<String> {
+    // A loss of zero cannot sit on a log axis: it is drawn at half of one row in n.
+    let floor = 0.5 / s.n_rows.max(1) as f64;
+    let pts: Vec<(f64, f64)> = s
+        .records
+        .iter()
+        .filter(|r| !r.exact && r.latency_us.is_finite() && r.latency_us > 0.0)
+        .map(|r| (r.latency_us, r.loss.max(floor)))
+        .collect();
+    let exact = s.records.iter().find(|r| r.exact);
+    let exact_t = exact
+        .map(|r| r.latency_us)
+        .filter(|t| t.is_finite() && *t > 0.0);
+    let mut xs: Vec<f64> = pts.iter().map(|p| p.0).collect();
+    xs.extend(exact_t);
+    let (mut x0, mut x1) = xs
+        .iter()
+        .fold((f64::INFINITY, 0.0f64), |(a, b), &x| (a.min(x), b.max(x)));
+    if !x0.is_finite() {
+        return Err(Error::input(
+            "the sweep has no timed candidates to plot (was timing switched off?)",
+        ));
+    }
+    x0 /= 1.6;
+    x1 *= 1.6;
+    let (mut y0, mut y1) = pts.iter().fold((f64::INFINITY, 0.0f64), |(a, b), p| {
+        (a.min(p.1), b.max(p.1))
+    });
+    if !y0.is_finite() {
+        (y0, y1) = (floor, 1.0);
+    }
+    y0 = (y0 / 2.0).max(floor / 2.0);
+    y1 = (y1 * 2.0).min(2.0).max(y0 * 10.0);
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (width, height)).into_drawing_area();
+        root.fill(&WHITE).map_err(err)?;
+        let mut chart = ChartBuilder::on(&root)
+            .caption(
+                format!(
+                    "{} against single-row latency ({} rows)",
+                    s.loss_name, s.n_rows
+                ),
+                ("sans-serif", 18),
+            )
+            .margin(14)
+            .x_label_area_size(44)
+            .y_label_area_size(70)
+            .build_cartesian_2d((x0..x1).log_scale(), (y0..y1).log_scale())
+            .map_err(err)?;
+        chart
+            .configure_mesh()
+            .x_desc("single-row latency, median (µs, log scale)")
+            .y_desc(format!("{} (log scale)", s.loss_name))
+            .x_label_formatter(&|v| format!("{v:.3}"))
+            .y_label_formatter(&|v| format!("{v:.1e}"))
+            .draw()
+            .map_err(err)?;
+        let mut methods: Vec<&str> = Vec::new();
+        for r in s.records.iter().filter(|r| !r.exact) {
+            if !methods.contains(&r.method.as_str()) {
+                methods.push(&r.method);
+            }
+        }
+        for (i, m) in methods.iter().enumerate() {
+            let color = PALETTE[i % PALETTE.len()].to_rgba();
+            let mut line: Vec<(f64, f64, usize)> = s
+                .records
+                .iter()
+                .filter(|r| !r.exact && r.method == *m && r.latency_us.is_finite())
+                .map(|r| (r.latency_us, r.loss.max(floor), r.features))
+                .collect();
+            line.sort_by_key(|p| p.2);
+            chart
+                .draw_series(LineSeries::new(
+                    line.iter().map(|p| (p.0, p.1)),
+                    color.stroke_width(2),
+                ))
+                .map_err(err)?
+                .label(m.to_string())
+                .legend(move |(x, y)| {
+                    PathElement::new(vec![(x, y), (x + 18, y)], color.stroke_width(2))
+                });
+            chart
+                .draw_series(
+                    line.iter()
+                        .map(|p| Circle::new((p.0, p.1), 4, color.filled())),
+                )
+                .map_err(err)?;
+            chart
+                .draw_series(line.iter().map(|p| {
+                    EmptyElement::at((p.0, p.1))
+                        + Text::new(format!("{}", p.2), (6, -14), ("sans-serif", 11).into_font())
+                }))
+                .map_err(err)?;
+        }
+        // The Pareto front among compiled candidates, joined in latency order and ringed.
+        let mut front: Vec<(f64, f64)> = s
+            .records
+            .iter()
+            .filter(|r| r.pareto && !r.exact)
+            .map(|r| (r.latency_us, r.loss.max(floor)))
+            .collect();
+        front.sort_by(|a, b| a.0.total_cmp(&b.0));
+        if !front.is_empty() {
+            chart
+                .draw_series(DashedLineSeries::new(
+                    front.clone(),
+                    6,
+                    4,
+                    BLACK.stroke_width(1),
+                ))
+                .map_err(err)?
+                .label("Pareto front")
+                .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], BLACK));
+            chart
+                .draw_series(
+                    front
+                        .iter()
+                        .map(|p| Circle::new(*p, 8, BLACK.stroke_width(1))),
+                )
+                .map_err(err)?;
+        }
+        if let Some(t) = exact_t {
+            let grey = RGBColor(90, 90, 90);
+            chart
+                .draw_series(DashedLineSeries::new(
+                    vec![(t, y0), (t, y1)],
+                    3,
+                    3,
+                    grey.stroke_width(2),
+                ))
+                .map_err(err)?
+                .label(format!("exact model ({t:.1} µs, agrees with itself)"))
+                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], grey));
+        }
+        chart
+            .configure_series_labels()
+            .position(SeriesLabelPosition::UpperRight)
+            .background_style(WHITE.mix(0.85))
+            .border_style(BLACK)
+            .draw()
+            .map_err(err)?;
+        root.present().map_err(err)?;
+    }
+    Ok(svg)
+}

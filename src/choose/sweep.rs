@@ -1,0 +1,154 @@
+//! The sweep: every (method, feature count) pair compiled from one shared teacher, reported
+//! on the same evaluation rows, timed, and predicted.
+
+use super::{loss_of, mark_front, Record};
+use crate::cost::{predict, predict_exact, program_lines, MachineProfile};
+use crate::features::{FeatureSpec, Method};
+use crate::fit::{RidgeGrid, Teacher};
+use crate::observe::{Observer, Silent};
+use crate::report::{self, measure_exact, ReportOptions};
+use crate::{Error, Result};
+use ndarray::ArrayView2;
+use std::time::Instant;
+
+/// What to sweep.
+#[derive(Debug, Clone)]
+pub struct SweepOptions {
+    /// Methods.
+    pub methods: Vec<Method>,
+    /// Feature counts.
+    pub features: Vec<usize>,
+    /// Seed of every map.
+    pub seed: u64,
+    /// Ridge strengths tried per candidate.
+    pub grid: RidgeGrid,
+    /// Report settings (tolerance, timing, repetitions).
+    pub report: ReportOptions,
+}
+
+/// A finished sweep.
+#[derive(Debug, Clone)]
+pub struct Sweep {
+    /// One record per compiled pair, then the exact model's.
+    pub records: Vec<Record>,
+    /// Pairs that could not be built, with the reason.
+    pub skipped: Vec<(String, usize, String)>,
+    /// Notes from sampling.
+    pub notes: Vec<String>,
+    /// The loss's name (`disagreement` or `relative decision RMSE`).
+    pub loss_name: String,
+    /// Rows the figures were computed on.
+    pub n_rows: usize,
+}
+
+/// Runs the sweep: `eval` (raw rows) with optional true labels judges every candidate; the
+/// teacher's calibration decisions are computed once. `obs` gets one unit per pair.
+pub fn run_sweep(
+    teacher: &Teacher,
+    eval: ArrayView2<f64>,
+    truth: Option<&[String]>,
+    profile: &MachineProfile,
+    opts: &SweepOptions,
+    obs: &dyn Observer,
+) -> Result<Sweep> {
+    let exact = teacher.exact();
+    if opts.methods.is_empty() || opts.features.is_empty() {
+        return Err(Error::input(
+            "a sweep needs at least one method and one feature count",
+        ));
+    }
+    if eval.nrows() == 0 {
+        return Err(Error::input("the evaluation data have no rows"));
+    }
+    let kernel = exact.kernel().clone();
+    let d = exact.input_dim();
+    let se = exact.decision(eval);
+    let mut ropts = opts.report.clone();
+    if ropts.timing {
+        ropts.exact_timing = Some(measure_exact(exact, eval, &ropts));
+    }
+    let mut records = Vec::new();
+    let mut skipped = Vec::new();
+    let mut notes = Vec::new();
+    let pairs: Vec<(Method, usize)> = opts
+        .methods
+        .iter()
+        .flat_map(|m| opts.features.iter().map(move |f| (*m, *f)))
+        .collect();
+    obs.stage("sweep", pairs.len() as u64);
+    for (m, f) in pairs {
+        let spec = FeatureSpec::new(kernel.clone(), m, d, f, opts.seed);
+        if let Err(e) = spec.validate() {
+            skipped.push((m.name().to_string(), f, e.message().to_string()));
+            obs.advance(1);
+            continue;
+        }
+        let t0 = Instant::now();
+        let (model, info) = match teacher.distil(&spec, &opts.grid, None, &Silent) {
+            Ok(x) => x,
+            Err(e) => {
+                skipped.push((m.name().to_string(), f, e.message().to_string()));
+                obs.advance(1);
+                continue;
+            }
+        };
+        let compile_s = t0.elapsed().as_secs_f64();
+        for n in info.notes {
+            if !notes.contains(&n) {
+                notes.push(n);
+            }
+        }
+        let r = report::build(&model, exact, eval, truth, Some(se.clone()), &ropts)?;
+        let lines = program_lines(
+            model.program(),
+            model.n_outputs(),
+            model.scaling().is_some(),
+        );
+        let predicted = predict(profile, &lines);
+        records.push(Record {
+            method: m.name().to_string(),
+            features: f,
+            exact: false,
+            loss: loss_of(&r),
+            agreement: r.agreement,
+            latency_us: r.timing.latency_us_compiled_p50.unwrap_or(f64::NAN),
+            rows_per_s: r.timing.throughput_rows_per_s_compiled.unwrap_or(f64::NAN),
+            bytes: r.bytes_compiled,
+            predicted,
+            compile_s,
+            pareto: false,
+            report: Some(r),
+        });
+        obs.advance(1);
+    }
+    obs.finish();
+    let et = ropts.exact_timing;
+    records.push(Record {
+        method: "exact".into(),
+        features: exact.n_support_vectors(),
+        exact: true,
+        loss: 0.0,
+        agreement: exact.task().is_classifier().then_some(1.0),
+        latency_us: et.map(|t| t.single.p50_us).unwrap_or(f64::NAN),
+        rows_per_s: et.map(|t| t.rows_per_s).unwrap_or(f64::NAN),
+        bytes: exact.parameter_bytes(),
+        predicted: predict_exact(profile, exact),
+        compile_s: 0.0,
+        pareto: false,
+        report: None,
+    });
+    if opts.report.timing {
+        mark_front(&mut records);
+    }
+    Ok(Sweep {
+        records,
+        skipped,
+        notes,
+        loss_name: if exact.task().is_classifier() {
+            "disagreement".into()
+        } else {
+            "relative decision RMSE".into()
+        },
+        n_rows: eval.nrows(),
+    })
+}
