@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # The whole test suite, set-up included: a Python reference environment under
-# target/pyenv (numpy, scipy, the safetensors package), then the Rust tests, which call the
-# reference scripts in tests/reference/. Safe to rerun; the environment is reused.
+# target/pyenv (numpy, scipy, the safetensors package, onnx, onnxruntime) and Debian's
+# chromium (installed with apt-get when missing), then the Rust tests, which call the
+# reference scripts in tests/reference/ and the browser. Safe to rerun; the environment is reused.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 PYENV=target/pyenv
@@ -11,6 +12,14 @@ if [ ! -x "$PYENV/bin/python" ] || ! "$PYENV/bin/python" -c "import numpy, scipy
   mkdir -p target
   python3 -m venv "$PYENV"
   "$PYENV/bin/pip" install --quiet --disable-pip-version-check $REQS
+fi
+# Debian's chromium renders the sweep page in a browser test (tests/choose.rs).
+if ! command -v chromium >/dev/null 2>&1; then
+  echo "installing Debian's chromium for the browser test" >&2
+  SUDO=""
+  if [ "$(id -u)" -ne 0 ]; then SUDO="sudo"; fi
+  $SUDO apt-get update -qq
+  DEBIAN_FRONTEND=noninteractive $SUDO apt-get install -y -qq chromium >/dev/null
 fi
 export KP_PYTHON="$PWD/$PYENV/bin/python"
 cargo test --lib --bins --tests --examples "$@"

@@ -9,7 +9,7 @@ use kernelpress::choose::{pareto_front, search, spearman, Budget, Choice, Search
 use kernelpress::cost::{predict_compiled, MachineProfile};
 use kernelpress::data::read_for_model;
 use kernelpress::features::{FeatureSpec, Method};
-use kernelpress::fit::{held_out, RidgeGrid, Teacher};
+use kernelpress::fit::{audit_row, RidgeGrid, Teacher};
 use kernelpress::model::{label_indices, ExactModel};
 use kernelpress::observe::Silent;
 use kernelpress::report::measure_single;
@@ -98,7 +98,7 @@ fn search_returns_the_exhaustive_grid_choice() {
         panic!("expected a compiled model, got {:?}", res.choice)
     };
     // The grid.
-    let idx: Vec<usize> = (0..calib.nrows()).filter(|&i| held_out(i)).collect();
+    let idx: Vec<usize> = (0..calib.nrows()).filter(|&i| audit_row(i)).collect();
     let xv = calib.select(Axis(0), &idx);
     let k = exact.labels().len();
     let want = label_indices(exact.task(), k, exact.decision(xv.view()).view());

@@ -312,7 +312,7 @@ fn the_report_reads_like_a_report() {
         s(&j),
     ]);
     for needle in [
-        "0.9943 (95% interval 0.9909–0.9965)",
+        "0.9950 (95% interval 0.9918–0.9970)",
         "share of rows given the same label",
         " KB",
         " µs",

@@ -6,7 +6,7 @@ use clap::ValueEnum;
 use kernelpress::choose::{search, Budget, Choice, SearchOptions};
 use kernelpress::data::{check_batch, read_table, write_all_atomic};
 use kernelpress::features::{methods_for, Method};
-use kernelpress::fit::{compile_exact, compile_labels, held_out, HeadKind, RidgeGrid, Teacher};
+use kernelpress::fit::{audit_row, compile_exact, compile_labels, HeadKind, RidgeGrid, Teacher};
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
 use kernelpress::{Error, ErrorKind, Result};
@@ -24,9 +24,9 @@ pub(crate) enum Head {
 /// Compile an exact kernel model into a feature map plus a linear head.
 ///
 /// With MODEL and --calib, the head is distilled from the model's decision values on the
-/// calibration inputs (ridge strength chosen on every fifth row, held out). The report is
-/// printed on stdout: on --eval if given, else on the held-out calibration rows (which also
-/// enter the final refit, so it is slightly optimistic).
+/// calibration inputs. Every tenth calibration row is an audit row, never fitted on; of
+/// the others, one in nine chooses the ridge strength. The report is
+/// printed on stdout: on --eval if given, else on the audit rows.
 /// Without MODEL, --kernel, --data and --target fit the features to labels directly.
 ///
 /// Examples:
@@ -42,7 +42,8 @@ pub(crate) struct Args {
     /// Calibration inputs (CSV or .npy); labels are not needed.
     #[arg(long)]
     calib: Option<PathBuf>,
-    /// Evaluation data for the compile report (defaults to the held-out calibration rows).
+    /// Evaluation data for the compile report (defaults to the calibration audit rows: every
+    /// tenth row, never fitted on).
     #[arg(long)]
     eval: Option<PathBuf>,
     /// Target column in --calib/--eval/--data (ignored as a feature; used for accuracy).
@@ -65,7 +66,8 @@ pub(crate) struct Args {
     /// How to fit the head.
     #[arg(long, value_enum, default_value = "distill")]
     head: Head,
-    /// Fix the relative ridge strength instead of choosing it on held-out rows.
+    /// Fix the relative ridge strength instead of choosing it on held-out rows (every tenth
+    /// row but the audit rows).
     #[arg(long)]
     ridge_rel: Option<f64>,
     #[command(flatten)]
@@ -89,7 +91,7 @@ pub(crate) struct Args {
     #[arg(long)]
     max_bytes: Option<String>,
     /// Budget: the largest share of rows whose label may differ from the exact model's on
-    /// held-out calibration rows (regression: the decision RMSE relative to the spread of
+    /// calibration audit rows (regression: the decision RMSE relative to the spread of
     /// the exact decisions). Alone, the fastest model that meets it is chosen.
     #[arg(long)]
     max_disagreement: Option<f64>,
@@ -211,7 +213,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     evaluate_and_finish(&a, &exact, calib.as_ref(), model, None)
 }
 
-/// Builds the report (on --eval, else on the held-out calibration rows), applies the gate
+/// Builds the report (on --eval, else on the calibration audit rows), applies the gate
 /// and writes the model. `budget_line` is printed after the report.
 fn evaluate_and_finish(
     a: &Args,
@@ -228,7 +230,7 @@ fn evaluate_and_finish(
         }
         None => match calib {
             Some(t) => {
-                let idx: Vec<usize> = (0..t.x.nrows()).filter(|&i| held_out(i)).collect();
+                let idx: Vec<usize> = (0..t.x.nrows()).filter(|&i| audit_row(i)).collect();
                 let y = t
                     .target
                     .as_ref()
@@ -236,7 +238,7 @@ fn evaluate_and_finish(
                 (
                     t.x.select(Axis(0), &idx),
                     y,
-                    "calibration hold-out (every fifth row; also in the final refit)".to_string(),
+                    "calibration audit rows (every tenth row; never fitted on)".to_string(),
                 )
             }
             None => {
@@ -325,7 +327,9 @@ fn run_budget(
     for n in &res.notes {
         super::progress::note(n);
     }
-    let mut text = String::from("candidates (judged on the held-out calibration rows):\n");
+    let mut text = String::from(
+        "candidates (judged on the calibration audit rows: every tenth row, never fitted on):\n",
+    );
     text.push_str(&format!(
         "  {:<12} {:>8} {:>13} {:>10} {:>14} {:>12}\n",
         "method", "features", "disagreement", "p50 (µs)", "predicted (µs)", "bytes"
@@ -489,6 +493,11 @@ fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {
     check_batch(t.x.view(), t.x.ncols(), &src)?;
     kernel.check_dim(t.x.ncols()).map_err(|e| e.context(&src))?;
     let spec = a.map.spec(kernel, t.x.ncols())?;
+    if spec.options.landmarks == kernelpress::features::Landmarks::Support {
+        return Err(Error::input(
+            "--landmark-rule support takes the landmarks from a teacher's support vectors: it needs an exact model (compile MODEL --calib FILE)",
+        ));
+    }
     let y = t.target.clone().unwrap();
     let (mut model, info) = compile_labels(
         &spec,
@@ -504,7 +513,7 @@ fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {
     }
     model.feature_names = t.columns.clone();
     let s = model.decision(t.x.view());
-    let idx: Vec<usize> = (0..t.x.nrows()).filter(|&i| held_out(i)).collect();
+    let idx: Vec<usize> = (0..t.x.nrows()).filter(|&i| audit_row(i)).collect();
     let mut msg = format!(
         "fitted {} features ({} of {}) to the labels of {} rows",
         model.features(),
@@ -515,8 +524,10 @@ fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {
     if model.task().is_classifier() {
         let pred = model.labels_of(s.view());
         let acc = idx.iter().filter(|&&i| pred[i] == y[i]).count() as f64 / idx.len().max(1) as f64;
-        msg.push_str(&format!("; accuracy on the held-out rows {acc:.4}"));
-        model.report = serde_json::json!({"accuracy_holdout": acc, "n_rows": idx.len()});
+        msg.push_str(&format!(
+            "; accuracy on the audit rows (every tenth row, never fitted on) {acc:.4}"
+        ));
+        model.report = serde_json::json!({"accuracy_audit_rows": acc, "n_rows": idx.len()});
     }
     model.save(&a.out)?;
     msg.push_str(&format!("\nwrote {}\n", a.out.display()));

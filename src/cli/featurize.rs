@@ -38,8 +38,9 @@ pub(crate) struct MapArgs {
     /// quasi: do not scramble the points (deterministic, seed ignored).
     #[arg(long)]
     pub no_scramble: bool,
-    /// nystrom: landmark rule (uniform, kmeans++ or leverage). k-means++ costs one kernel
-    /// column over all rows per landmark.
+    /// nystrom: landmark rule (uniform, kmeans++, leverage, or support: compile only, the
+    /// teacher's support vectors of largest total |coefficient|, topped up with calibration
+    /// rows). k-means++ costs one kernel column over all rows per landmark.
     #[arg(long, default_value = "uniform")]
     pub landmark_rule: String,
     /// nystrom: take the landmarks from this file (CSV or .npy, raw inputs) instead.
@@ -148,6 +149,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
     };
     let x = scale(t.x.view());
     let spec = a.map.spec(kernel, x.ncols())?;
+    if spec.options.landmarks == kernelpress::features::Landmarks::Support {
+        return Err(Error::input(
+            "--landmark-rule support takes the landmarks from a teacher's support vectors: it needs an exact model (compile MODEL --calib FILE)",
+        ));
+    }
     let pool = match &a.map.landmarks {
         Some(p) => Some(read_landmarks(p, x.ncols(), &scale)?),
         None => None,

@@ -12,7 +12,7 @@ use std::hint::black_box;
 use std::time::Instant;
 
 /// Version of the profile's fields; a stored profile of another version is measured again.
-pub const PROFILE_VERSION: u32 = 1;
+pub const PROFILE_VERSION: u32 = 2;
 
 /// Time per flop and per transcendental call of one step kind (nanoseconds).
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
@@ -167,7 +167,7 @@ impl MachineProfile {
     pub fn measure(threads: usize) -> Result<MachineProfile> {
         let start = Instant::now();
         let mut bandwidth = Vec::new();
-        for kb in [16usize, 256, 2048, 16384, 131072] {
+        for kb in [16usize, 256, 2048, 8192, 32768, 131072] {
             bandwidth.push([(kb * 1024) as f64, read_bandwidth(kb * 1024)]);
         }
         // Fixed costs: a chain of 1 and of 9 trivial steps on one value.
@@ -329,15 +329,23 @@ impl MachineProfile {
             })
     }
 
-    /// Streaming bandwidth (bytes per ns) for a working set of `bytes`: the figure measured
-    /// at the smallest size that holds it (the largest size's when none does).
+    /// Streaming bandwidth (bytes per ns) for a working set of `bytes`: interpolated
+    /// between the measured sizes on log-log axes (the smallest and largest sizes' figures
+    /// outside them).
     pub fn bandwidth_bytes_per_ns(&self, bytes: u64) -> f64 {
-        self.bandwidth_gbps
-            .iter()
-            .find(|[size, _]| *size >= bytes as f64)
-            .or(self.bandwidth_gbps.last())
-            .map(|[_, g]| *g)
-            .unwrap_or(10.0)
+        let b = self.bandwidth_gbps.as_slice();
+        let x = (bytes.max(1)) as f64;
+        match b {
+            [] => 10.0,
+            [first, ..] if x <= first[0] => first[1],
+            [.., last] if x >= last[0] => last[1],
+            _ => {
+                let i = b.iter().position(|p| p[0] >= x).unwrap_or(b.len() - 1);
+                let ([x0, g0], [x1, g1]) = (b[i - 1], b[i]);
+                let t = (x / x0).ln() / (x1 / x0).ln();
+                (g0.ln() + t * (g1.ln() - g0.ln())).exp()
+            }
+        }
     }
 
     /// True when a stored profile can be used on this machine (same version and CPU).

@@ -151,6 +151,11 @@ pub enum Landmarks {
     KmeansPP,
     /// Approximate ridge leverage scores.
     Leverage,
+    /// The teacher's support vectors, largest total |coefficient| over all outputs first,
+    /// topped up with uniformly drawn calibration rows when there are fewer support vectors
+    /// than landmarks. The caller orders the pool ([`crate::fit::Teacher`] does); the
+    /// sampler takes its first rows.
+    Support,
 }
 
 /// Method options (each has a default).
@@ -273,7 +278,7 @@ impl FeatureSpec {
             "fourier_variant": match self.options.fourier { FourierVariant::Paired => "paired", FourierVariant::Phase => "phase" },
             "sequence": match self.options.sequence { Sequence::Halton => "halton", Sequence::Sobol => "sobol" },
             "scramble": self.options.scramble,
-            "landmarks": match self.options.landmarks { Landmarks::Uniform => "uniform", Landmarks::KmeansPP => "kmeans++", Landmarks::Leverage => "leverage" },
+            "landmarks": match self.options.landmarks { Landmarks::Uniform => "uniform", Landmarks::KmeansPP => "kmeans++", Landmarks::Leverage => "leverage", Landmarks::Support => "support" },
             "rank_tol": self.options.rank_tol,
         })
     }
@@ -335,8 +340,9 @@ pub fn parse_landmarks(s: &str) -> Result<Landmarks> {
         "uniform" => Ok(Landmarks::Uniform),
         "kmeans++" | "kmeanspp" => Ok(Landmarks::KmeansPP),
         "leverage" => Ok(Landmarks::Leverage),
+        "support" => Ok(Landmarks::Support),
         o => Err(Error::input(format!(
-            "landmark rule '{o}' unknown; expected uniform, kmeans++ or leverage"
+            "landmark rule '{o}' unknown; expected uniform, kmeans++, leverage or support"
         ))),
     }
 }

@@ -1,14 +1,14 @@
 //! Orchestration of a compile: sample the map, stream calibration chunks through the
 //! teacher and the map into a [`Distiller`], solve, build the [`CompiledModel`].
 
-use super::{project, Distiller, HeadFit, RidgeGrid};
+use super::{project, Distiller, HeadFit, Part, RidgeGrid};
 use crate::data::Standardizer;
 use crate::exact::ridge::targets;
-use crate::features::{FeatureSpec, SampleInfo};
+use crate::features::{FeatureSpec, Landmarks, SampleInfo};
 use crate::model::{CompiledModel, ExactModel};
 use crate::observe::Observer;
 use crate::{Error, Result};
-use ndarray::{s, Array2, ArrayView2};
+use ndarray::{s, Array2, ArrayView2, Axis};
 use serde_json::json;
 
 /// How the head is fitted.
@@ -23,9 +23,24 @@ pub enum HeadKind {
 /// Rows per streamed chunk.
 pub const FIT_CHUNK: usize = 2048;
 
-/// Held-out rule of distillation: every fifth row (row index ≡ 4 mod 5), 20%.
-pub fn held_out(i: usize) -> bool {
-    i % 5 == 4
+/// Audit rows of a calibration set: every tenth row (index ≡ 9 mod 10, i.e. rows 10, 20,
+/// … counting from 1). They are never fitted on and never choose the ridge strength; a
+/// compile's report without evaluation data, and the budget search, judge on them.
+pub fn audit_row(i: usize) -> bool {
+    i % 10 == 9
+}
+
+/// What calibration row `i` is for: audit rows are skipped; of the rest, index ≡ 4 mod 10
+/// chooses the ridge strength (10% of the rows), the others (80%) fit the head; the final
+/// head is refit on both (90%).
+pub fn row_part(i: usize) -> Part {
+    if audit_row(i) {
+        Part::Skip
+    } else if i % 10 == 4 {
+        Part::Choose
+    } else {
+        Part::Fit
+    }
 }
 
 /// The teacher's side of a distillation, computed once and shared by every candidate map:
@@ -114,7 +129,7 @@ impl<'a> Teacher<'a> {
     ) -> Result<(CompiledModel, SampleInfo)> {
         let exact = self.exact;
         check_spec(exact, spec)?;
-        let pool = landmarks.map(|l| exact.scale_inputs(l));
+        let pool = landmark_pool(exact, landmarks, Some(self.scaled.view()), spec);
         let (map, info) = spec.sample(Some(
             pool.as_ref()
                 .map(|p| p.view())
@@ -139,7 +154,7 @@ impl<'a> Teacher<'a> {
                     r.start + i / z.ncols().max(1) + 1
                 )));
             }
-            dist.add(z.view(), self.y.slice(s![r, ..]), held_out);
+            dist.add(z.view(), self.y.slice(s![r, ..]), row_part);
             obs.advance(1);
         }
         obs.stage("ridge solve", 1);
@@ -148,6 +163,48 @@ impl<'a> Teacher<'a> {
         let j = with_kind(&fit, "distill");
         finish_model(exact, map, fit.head, fit.intercept, j).map(|m| (m, info))
     }
+}
+
+/// The Nyström landmark pool in the model's scaled space: the user's landmark rows when
+/// given; for the `support` rule, the teacher's support vectors by total |coefficient|
+/// (largest first; ties by index), topped up with calibration rows drawn uniformly (seeded)
+/// when the landmarks outnumber them; otherwise none (the calibration rows are the pool).
+fn landmark_pool(
+    exact: &ExactModel,
+    landmarks: Option<ArrayView2<f64>>,
+    calib_scaled: Option<ArrayView2<f64>>,
+    spec: &FeatureSpec,
+) -> Option<Array2<f64>> {
+    if let Some(l) = landmarks {
+        return Some(exact.scale_inputs(l));
+    }
+    if !(spec.from_data() && spec.options.landmarks == Landmarks::Support) {
+        return None;
+    }
+    let sv = exact.support_vectors();
+    let w: Vec<f64> = exact
+        .coef()
+        .rows()
+        .into_iter()
+        .map(|r| r.iter().map(|c| c.abs()).sum())
+        .collect();
+    let mut order: Vec<usize> = (0..sv.nrows()).collect();
+    order.sort_by(|&a, &b| w[b].total_cmp(&w[a]).then(a.cmp(&b)));
+    let l = spec.features;
+    order.truncate(l);
+    let mut pool = sv.select(Axis(0), &order);
+    if let (true, Some(c)) = (l > order.len(), calib_scaled) {
+        use rand::seq::SliceRandom;
+        use rand::SeedableRng;
+        let extra = (l - order.len()).min(c.nrows());
+        let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(spec.seed ^ 0x5eed_1a4d);
+        let mut idx: Vec<usize> = (0..c.nrows()).collect();
+        let mut pick = idx.partial_shuffle(&mut rng, extra).0.to_vec();
+        pick.sort_unstable();
+        let top = c.select(Axis(0), &pick);
+        pool = ndarray::concatenate(Axis(0), &[pool.view(), top.view()]).expect("same width");
+    }
+    Some(pool)
 }
 
 fn check_spec(exact: &ExactModel, spec: &FeatureSpec) -> Result<()> {
@@ -202,7 +259,7 @@ pub fn compile_exact(
     match kind {
         HeadKind::Project => {
             let calib_s = calib.map(|c| exact.scale_inputs(c));
-            let pool = landmarks.map(|l| exact.scale_inputs(l));
+            let pool = landmark_pool(exact, landmarks, calib_s.as_ref().map(|c| c.view()), spec);
             let pool_view = pool
                 .as_ref()
                 .map(|p| p.view())
@@ -214,6 +271,13 @@ pub fn compile_exact(
         HeadKind::Distill => {
             let x = calib
                 .ok_or_else(|| Error::input("distillation needs calibration data (--calib)"))?;
+            // Fail before the teacher's pass when the statistics cannot fit.
+            let p = spec.features as u64;
+            crate::limits::check_alloc(
+                4 * p * p,
+                8,
+                &format!("the distillation statistics for {p} features (4·D² values)"),
+            )?;
             let t = Teacher::new(exact, x, obs)?;
             t.distil(spec, grid, landmarks, obs)
         }
@@ -262,7 +326,7 @@ pub fn compile_labels(
     for c in 0..chunks {
         let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
         let z = map.transform(xs.slice(s![r.clone(), ..]));
-        dist.add(z.view(), t.slice(s![r, ..]), held_out);
+        dist.add(z.view(), t.slice(s![r, ..]), row_part);
         obs.advance(1);
     }
     let fit = dist.solve(grid)?;

@@ -6,24 +6,28 @@
 //!   outputs at once). Sufficient statistics (`ZᵀZ`, `Zᵀy`, sums) are accumulated chunk by
 //!   chunk, separately for a training and a held-out part, so memory does not grow with the
 //!   number of rows; the ridge strength is chosen by held-out mean squared error, computed
-//!   from the statistics alone; the final head is refit on both parts.
+//!   from the statistics alone; the final head is refit on both parts. Rows marked
+//!   [`Part::Skip`] enter neither (compiles keep every tenth calibration row out: the audit
+//!   rows their figures are computed on, [`row_part`]).
 //! - The `labels` fit is the same solver with ±1 (one-vs-rest) or numeric targets.
 //!
 //! ```
-//! use kernelpress::fit::{Distiller, RidgeGrid};
+//! use kernelpress::fit::{Distiller, Part, RidgeGrid};
 //! use ndarray::array;
 //! // Targets that are exactly linear in the features are recovered.
 //! let z = array![[1.0, 0.0], [0.0, 1.0], [1.0, 1.0], [2.0, 1.0], [1.0, 3.0], [0.5, 0.5]];
 //! let y = z.dot(&array![[2.0], [-1.0]]) + 0.5;
 //! let mut d = Distiller::new(2, 1);
-//! d.add(z.view(), y.view(), |i| i % 3 == 0);
+//! d.add(z.view(), y.view(), |i| if i % 3 == 0 { Part::Choose } else { Part::Fit });
 //! let fit = d.solve(&RidgeGrid::fixed(1e-10)).unwrap();
 //! assert!((fit.head[[0, 0]] - 2.0).abs() < 1e-6 && (fit.intercept[0] - 0.5).abs() < 1e-6);
 //! ```
 
 mod compile;
 
-pub use compile::{compile_exact, compile_labels, held_out, HeadKind, Teacher, FIT_CHUNK};
+pub use compile::{
+    audit_row, compile_exact, compile_labels, row_part, HeadKind, Teacher, FIT_CHUNK,
+};
 
 use crate::features::FeatureMap;
 use crate::linalg;
@@ -162,6 +166,17 @@ impl HeadFit {
     }
 }
 
+/// What a row given to [`Distiller::add`] is used for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Part {
+    /// Fitting the head.
+    Fit,
+    /// Choosing the ridge strength (then the final refit).
+    Choose,
+    /// Nothing: kept out of the fit for an honest evaluation.
+    Skip,
+}
+
 /// Streams `(features, targets)` chunks into sufficient statistics and solves the ridge
 /// problem with the held-out choice of strength.
 #[derive(Debug, Clone)]
@@ -181,20 +196,16 @@ impl Distiller {
         }
     }
 
-    /// Adds a chunk; `held_out(i)` says whether global row `i` goes to the held-out part.
-    pub fn add(
-        &mut self,
-        z: ArrayView2<f64>,
-        y: ArrayView2<f64>,
-        held_out: impl Fn(usize) -> bool,
-    ) {
+    /// Adds a chunk; `part(i)` says what global row `i` is for: fitting, choosing the
+    /// ridge strength, or nothing (rows kept for an honest evaluation).
+    pub fn add(&mut self, z: ArrayView2<f64>, y: ArrayView2<f64>, part: impl Fn(usize) -> Part) {
         assert_eq!(z.nrows(), y.nrows(), "distill: rows differ");
-        let idx_h: Vec<usize> = (0..z.nrows())
-            .filter(|&i| held_out(self.seen + i))
-            .collect();
-        let idx_t: Vec<usize> = (0..z.nrows())
-            .filter(|&i| !held_out(self.seen + i))
-            .collect();
+        let of = |want: Part| -> Vec<usize> {
+            (0..z.nrows())
+                .filter(|&i| part(self.seen + i) == want)
+                .collect()
+        };
+        let (idx_t, idx_h) = (of(Part::Fit), of(Part::Choose));
         self.train.add(
             z.select(Axis(0), &idx_t).view(),
             y.select(Axis(0), &idx_t).view(),
@@ -314,7 +325,13 @@ mod tests {
         let w = Array2::from_shape_fn((4, 2), |(i, j)| i as f64 - j as f64 * 0.5);
         let y = z.dot(&w) + 0.3;
         let mut d = Distiller::new(4, 2);
-        d.add(z.view(), y.view(), |i| i % 5 == 4);
+        d.add(z.view(), y.view(), |i| {
+            if i % 5 == 4 {
+                Part::Choose
+            } else {
+                Part::Fit
+            }
+        });
         let fit = d.solve(&RidgeGrid::fixed(1e-12)).unwrap();
         for (a, b) in fit.head.iter().zip(w.iter()) {
             assert!((a - b).abs() < 1e-8, "{a} vs {b}");

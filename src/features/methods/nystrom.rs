@@ -78,6 +78,7 @@ pub fn pick_landmarks(
         return (0..n).collect();
     }
     match rule {
+        Landmarks::Support => (0..m).collect(),
         Landmarks::Uniform => {
             let mut idx: Vec<usize> = (0..n).collect();
             let mut v = idx.partial_shuffle(rng, m).0.to_vec();
