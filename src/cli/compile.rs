@@ -99,6 +99,15 @@ pub(crate) struct Args {
     /// kernel but identity).
     #[arg(long, value_delimiter = ',')]
     methods: Vec<String>,
+    /// Guard: write a guarded model whose compiled stage answers where it is confident and
+    /// the exact model elsewhere, with the smallest fallback share whose agreement with the
+    /// exact model on the calibration audit rows is at least P with 95% confidence
+    /// (one-sided Wilson bound). Classifiers only.
+    #[arg(long)]
+    guard_agreement: Option<f64>,
+    /// Guard: send this share of rows (the least confident) to the exact model.
+    #[arg(long)]
+    guard_rate: Option<f64>,
     /// Budget search: measure this machine again instead of using the cached profile.
     #[arg(long)]
     recalibrate: bool,
@@ -136,6 +145,33 @@ pub(crate) fn run(a: Args) -> Result<()> {
         None => RidgeGrid::standard(),
     };
     a.gate.validate()?;
+    match (a.guard_agreement, a.guard_rate) {
+        (Some(_), Some(_)) => {
+            return Err(Error::input(
+                "give --guard-agreement P or --guard-rate R, not both",
+            ))
+        }
+        (Some(p), None) if !(p > 0.0 && p < 1.0) => {
+            return Err(Error::input(format!(
+                "--guard-agreement {p} must be in (0, 1)"
+            )))
+        }
+        (None, Some(r)) if !(0.0..=1.0).contains(&r) => {
+            return Err(Error::input(format!("--guard-rate {r} must be in [0, 1]")))
+        }
+        _ => {}
+    }
+    let guarded = a.guard_agreement.is_some() || a.guard_rate.is_some();
+    if guarded && (a.model.is_none() || matches!(a.head, Head::Project)) {
+        return Err(Error::input(
+            "a guard needs an exact model and distillation: compile MODEL --calib FILE",
+        ));
+    }
+    if guarded && (a.budget_us.is_some() || a.max_bytes.is_some() || a.max_disagreement.is_some()) {
+        return Err(Error::input(
+            "--guard-agreement/--guard-rate and a budget search are not combined yet: choose the method and size with the budget first, then compile it with a guard",
+        ));
+    }
     if a.budget_us.is_some() || a.max_bytes.is_some() || a.max_disagreement.is_some() {
         if a.map.method.is_some() || a.map.features.is_some() {
             return Err(Error::input(
@@ -210,7 +246,119 @@ pub(crate) fn run(a: Args) -> Result<()> {
     {
         super::progress::warn(n.as_str().unwrap_or(""));
     }
+    if a.guard_agreement.is_some() || a.guard_rate.is_some() {
+        return run_guard(&a, &exact, calib.as_ref(), model);
+    }
     evaluate_and_finish(&a, &exact, calib.as_ref(), model, None)
+}
+
+fn run_guard(
+    a: &Args,
+    exact: &ExactModel,
+    calib: Option<&kernelpress::data::Table>,
+    model: kernelpress::model::CompiledModel,
+) -> Result<()> {
+    use kernelpress::model::guarded::{threshold_for_agreement, threshold_for_rate};
+    use kernelpress::model::GuardedModel;
+    let calib =
+        calib.ok_or_else(|| Error::input("a guard is chosen on calibration rows: give --calib"))?;
+    let idx: Vec<usize> = (0..calib.x.nrows()).filter(|&i| audit_row(i)).collect();
+    let xa = calib.x.select(Axis(0), &idx);
+    let sc = model.decision(xa.view());
+    let se = exact.decision(xa.view());
+    let k = exact.labels().len();
+    let (threshold, share) = match (a.guard_agreement, a.guard_rate) {
+        (Some(p), None) => threshold_for_agreement(exact.task(), k, sc.view(), se.view(), p)
+            .ok_or_else(|| {
+                Error::new(
+                    ErrorKind::Budget,
+                    format!(
+                        "no guard reaches agreement {p} with 95% confidence on the {} audit rows, even sending every row to the exact model; give more calibration rows or a lower target",
+                        idx.len()
+                    ),
+                )
+            })?,
+        (None, Some(r)) => (threshold_for_rate(exact.task(), k, sc.view(), r), r),
+        _ => unreachable!("checked in run"),
+    };
+    let mut g = GuardedModel::new(model, exact.clone(), threshold)?;
+    g.guard = serde_json::json!({
+        "chosen_on": format!("calibration audit rows ({} rows, never fitted on)", idx.len()),
+        "target_agreement": a.guard_agreement,
+        "fallback_share": share,
+    });
+    let (ex, truth, on) = match &a.eval {
+        Some(p) => {
+            let t = super::read_for(p, a.target.as_deref(), &exact.feature_names, a.by_position)?;
+            (t.x, t.target, format!("{}", p.display()))
+        }
+        None => {
+            super::progress::warn(
+                "no --eval: the guard's figures are computed on the audit rows its threshold was chosen on (optimistic); give --eval for an independent check",
+            );
+            let y = calib
+                .target
+                .as_ref()
+                .map(|y| idx.iter().map(|&i| y[i].clone()).collect());
+            (
+                xa.clone(),
+                y,
+                "calibration audit rows (also used to choose the guard)".to_string(),
+            )
+        }
+    };
+    let opts = ReportOptions {
+        min_agreement: a.gate.tolerance(),
+        timing: !a.no_timing,
+        ..ReportOptions::default()
+    };
+    let pb = super::progress::bar(1, "report");
+    let mut rep = report::build_guarded(&g, exact, ex.view(), truth.as_deref(), &opts)?;
+    pb.finish();
+    rep.evaluated_on = Some(on);
+    let gate = a.gate.failure(&rep)?;
+    let mut text = format!(
+        "guard: rows whose smallest margin of the predicted class is below {threshold:.4} go to the exact model ({:.1}% of the audit rows)\n",
+        100.0 * share
+    );
+    for w in &rep.warnings {
+        super::progress::warn(w);
+    }
+    text.push_str(&report::render_text(&rep));
+    text.push('\n');
+    if gate.is_some() && a.discard_below_gate {
+        text.push_str(&format!(
+            "not written: {} (--discard-below-gate)\n",
+            a.out.display()
+        ));
+        super::print_stdout(&text)?;
+        return Err(Error::new(ErrorKind::Gate, gate.unwrap_or_default()));
+    }
+    let mut stored = rep.without_timing();
+    stored.warnings.clear();
+    let mut file = g.to_file();
+    file.manifest.insert("report".into(), stored.to_json());
+    let bytes = file.to_bytes()?;
+    let json = format!("{}\n", serde_json::to_string_pretty(&rep).unwrap());
+    let mut items: Vec<(&std::path::Path, &[u8])> = vec![(a.out.as_path(), &bytes)];
+    if let Some(p) = &a.report {
+        items.push((p.as_path(), json.as_bytes()));
+    }
+    write_all_atomic(&items)?;
+    text.push_str(&format!(
+        "wrote {} (guarded: {} features, exact fallback with {} support vectors)\n",
+        a.out.display(),
+        g.compact().features(),
+        exact.n_support_vectors()
+    ));
+    super::print_stdout(&text)?;
+    match gate {
+        Some(why) => Err(Error::new(
+            ErrorKind::Gate,
+            format!("{why}; the model was written to {}", a.out.display()),
+        )),
+        None => Ok(()),
+    }
 }
 
 /// Builds the report (on --eval, else on the calibration audit rows), applies the gate

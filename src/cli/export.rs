@@ -3,7 +3,7 @@
 use kernelpress::data::write_atomic;
 use kernelpress::export::{check_precision, export, ExportOptions, Format, Precision};
 use kernelpress::model::CompiledModel;
-use kernelpress::Result;
+use kernelpress::{Error, Result};
 use std::path::PathBuf;
 
 /// Export a compiled model's weights and program to where it will run.
@@ -77,6 +77,17 @@ pub(crate) fn run(a: Args) -> Result<()> {
     }
     opts.precision = Precision::parse(&a.precision)?;
     opts.prefix = a.prefix.clone();
+    if kernelpress::model::TensorFile::read(&a.model)?
+        .get_str("kind", &a.model.display().to_string())
+        .ok()
+        .as_deref()
+        == Some("guarded")
+    {
+        return Err(Error::input(format!(
+            "{}: a guarded model (compiled stage plus exact fallback) cannot be exported: no format carries the guard yet (ONNX, C, Rust, npy and safetensors all refuse); export the compiled model it was built from and keep the fallback in your serving code",
+            a.model.display()
+        )));
+    }
     let model = CompiledModel::load(&a.model)?;
     let check = match &a.check_data {
         Some(p) => {

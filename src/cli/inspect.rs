@@ -121,8 +121,48 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 ));
             }
         }
+        AnyModel::Guarded(g) => {
+            let m = g.compact();
+            let spec = m.spec();
+            s.push_str(
+                "kind            guarded (compiled model, exact model where it is unsure)\n",
+            );
+            s.push_str(&format!("kernel          {}\n", spec.kernel));
+            s.push_str(&format!(
+                "compiled stage  {} with {} features (seed {})\n",
+                spec.method.name(),
+                m.features(),
+                spec.seed
+            ));
+            s.push_str(&format!(
+                "exact stage     {} support vectors\n",
+                g.exact().n_support_vectors()
+            ));
+            s.push_str(&format!(
+                "guard           rows whose smallest margin of the predicted class is below {} go to the exact model\n",
+                g.threshold()
+            ));
+            if let Some(r) = g.guard.get("fallback_share").and_then(|v| v.as_f64()) {
+                s.push_str(&format!(
+                    "                {:.1}% of the rows it was chosen on fell back\n",
+                    100.0 * r
+                ));
+            }
+            shape_lines(
+                &mut s,
+                m.task(),
+                m.labels(),
+                m.input_dim(),
+                m.scaling().is_some(),
+            );
+        }
     }
-    if let AnyModel::Compiled(m) = &model {
+    let program = match &model {
+        AnyModel::Compiled(m) => Some(m),
+        AnyModel::Guarded(g) => Some(g.compact()),
+        AnyModel::Exact(_) => None,
+    };
+    if let Some(m) = program {
         s.push_str(&format!(
             "program         {} steps (x = the scaled input row; bytes and flops per row)\n",
             m.program().len()

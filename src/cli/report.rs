@@ -1,7 +1,7 @@
 //! `kernelpress report`: compiled vs exact on a dataset → error report.
 
 use kernelpress::data::write_atomic;
-use kernelpress::model::{CompiledModel, ExactModel};
+use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
 use kernelpress::{Error, Result};
 use std::path::PathBuf;
@@ -60,7 +60,17 @@ pub(crate) fn run(a: Args) -> Result<()> {
             &[(std::path::Path::new(j), false)],
         )?;
     }
-    let c = CompiledModel::load(&a.compiled)?;
+    let (any, _) = kernelpress::model::AnyModel::load(&a.compiled)?;
+    let (c, guarded) = match any {
+        kernelpress::model::AnyModel::Compiled(c) => (c, None),
+        kernelpress::model::AnyModel::Guarded(g) => (g.compact().clone(), Some(g)),
+        kernelpress::model::AnyModel::Exact(_) => {
+            return Err(Error::input(format!(
+                "{} is an exact model; report compares a compiled (or guarded) model with its exact model",
+                a.compiled.display()
+            )))
+        }
+    };
     let e = ExactModel::load(&a.exact)?;
     if c.input_dim() != e.input_dim()
         || c.n_outputs() != e.n_outputs()
@@ -108,7 +118,10 @@ pub(crate) fn run(a: Args) -> Result<()> {
         reps: a.reps,
         ..ReportOptions::default()
     };
-    let mut r = report::build(&c, &e, t.x.view(), t.target.as_deref(), None, &opts)?;
+    let mut r = match &guarded {
+        Some(g) => report::build_guarded(g, &e, t.x.view(), t.target.as_deref(), &opts)?,
+        None => report::build(&c, &e, t.x.view(), t.target.as_deref(), None, &opts)?,
+    };
     r.evaluated_on = Some(a.data.display().to_string());
     for w in &r.warnings {
         super::progress::warn(w);

@@ -10,7 +10,8 @@ use std::path::PathBuf;
 /// positive value favours class A (binary models: A is the second label; one-vs-one: the
 /// first class of the pair, and the pairs come in the order (0,1), (0,2), …, (1,2), …);
 /// `decision_A` is class A's one-vs-rest score (the largest wins); regression outputs are
-/// `decision` or `decision_0 …`. Then `label` for classifiers; rows in input order. Data
+/// `decision` or `decision_0 …`. Then `label` for classifiers, and for a guarded model
+/// `stage` (`compiled` or `exact`: which model answered the row); rows in input order. Data
 /// columns are matched to the model's by name (extra columns are ignored with a note);
 /// --by-position takes them in file order.
 ///
@@ -19,7 +20,7 @@ use std::path::PathBuf;
 #[derive(Debug, clap::Args)]
 #[command(verbatim_doc_comment)]
 pub(crate) struct Args {
-    /// Model file (exact or compiled).
+    /// Model file (exact, compiled or guarded).
     model: PathBuf,
     /// Data: CSV with a header row, or .npy (features only).
     #[arg(long)]
@@ -46,7 +47,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         model.feature_names(),
         a.by_position,
     )?;
-    let s = model.decision(t.x.view());
+    let (s, stages) = model.decision_with_stage(t.x.view());
     if let Some(i) = s.iter().position(|v| !v.is_finite()) {
         return Err(kernelpress::Error::numerical(format!(
             "{}: row {}: the decision value is not finite (overflow); the model's kernel is too extreme for this row",
@@ -61,15 +62,22 @@ pub(crate) fn run(a: Args) -> Result<()> {
     if classifier {
         header.push("label".into());
     }
+    if stages.is_some() {
+        header.push("stage".into());
+    }
     let labels = model.labels_of(s.view());
     let rows: Vec<Vec<String>> = s
         .rows()
         .into_iter()
         .zip(labels)
-        .map(|(r, l)| {
+        .enumerate()
+        .map(|(i, (r, l))| {
             let mut v: Vec<String> = r.iter().map(|x| format!("{x:?}")).collect();
             if classifier {
                 v.push(l);
+            }
+            if let Some(st) = &stages {
+                v.push(kernelpress::model::guarded::STAGES[st[i] as usize].to_string());
             }
             v
         })

@@ -27,6 +27,7 @@
 
 mod compiled;
 mod exact;
+pub mod guarded;
 mod io;
 pub mod output;
 mod v1;
@@ -34,6 +35,7 @@ mod v1;
 pub use crate::format::{TensorFile, FORMAT_VERSION, MANIFEST_KEY, MAX_FILE_BYTES};
 pub use compiled::CompiledModel;
 pub use exact::ExactModel;
+pub use guarded::GuardedModel;
 pub use output::{label_indices, OutputRule, Task};
 
 use crate::{Error, Result};
@@ -48,6 +50,8 @@ pub enum AnyModel {
     Exact(ExactModel),
     /// A compiled model.
     Compiled(CompiledModel),
+    /// A compiled model guarded by its exact model.
+    Guarded(GuardedModel),
 }
 
 impl AnyModel {
@@ -64,8 +68,9 @@ impl AnyModel {
         match kind.as_str() {
             "exact" => Ok(AnyModel::Exact(ExactModel::from_file(f, src)?)),
             "compiled" => Ok(AnyModel::Compiled(CompiledModel::from_file(f, src)?)),
+            "guarded" => Ok(AnyModel::Guarded(GuardedModel::from_file(f, src)?)),
             other => Err(Error::file(format!(
-                "{src}: model kind '{other}' unknown; expected exact or compiled"
+                "{src}: model kind '{other}' unknown; expected exact, compiled or guarded"
             ))),
         }
     }
@@ -75,6 +80,7 @@ impl AnyModel {
         match self {
             AnyModel::Exact(m) => m.input_dim(),
             AnyModel::Compiled(m) => m.input_dim(),
+            AnyModel::Guarded(m) => m.exact().input_dim(),
         }
     }
 
@@ -83,6 +89,7 @@ impl AnyModel {
         match self {
             AnyModel::Exact(m) => m.decision(x),
             AnyModel::Compiled(m) => m.decision(x),
+            AnyModel::Guarded(m) => m.decision(x).0,
         }
     }
 
@@ -91,6 +98,19 @@ impl AnyModel {
         match self {
             AnyModel::Exact(m) => m.labels_of(s),
             AnyModel::Compiled(m) => m.labels_of(s),
+            AnyModel::Guarded(m) => m.labels_of(s),
+        }
+    }
+
+    /// Decision values and, for a guarded model, the stage that answered each row
+    /// ([`guarded::STAGES`]).
+    pub fn decision_with_stage(&self, x: ArrayView2<f64>) -> (Array2<f64>, Option<Vec<u8>>) {
+        match self {
+            AnyModel::Guarded(m) => {
+                let (s, st) = m.decision(x);
+                (s, Some(st))
+            }
+            m => (m.decision(x), None),
         }
     }
 
@@ -99,6 +119,7 @@ impl AnyModel {
         match self {
             AnyModel::Exact(m) => m.task(),
             AnyModel::Compiled(m) => m.task(),
+            AnyModel::Guarded(m) => m.exact().task(),
         }
     }
 
@@ -107,6 +128,7 @@ impl AnyModel {
         match self {
             AnyModel::Exact(m) => &m.feature_names,
             AnyModel::Compiled(m) => &m.feature_names,
+            AnyModel::Guarded(m) => &m.exact().feature_names,
         }
     }
 
@@ -115,6 +137,7 @@ impl AnyModel {
         match self {
             AnyModel::Exact(m) => m.rule(),
             AnyModel::Compiled(m) => m.rule(),
+            AnyModel::Guarded(m) => m.rule(),
         }
     }
 }

@@ -12,6 +12,8 @@ pub struct LatencyStats {
     pub p50_us: f64,
     /// 99th percentile.
     pub p99_us: f64,
+    /// Mean.
+    pub mean_us: f64,
     /// Repetitions timed.
     pub reps: usize,
 }
@@ -43,11 +45,13 @@ pub fn measure_single<F: FnMut(&[f64]) -> Vec<f64>>(
             break;
         }
     }
+    let mean_us = t.iter().sum::<f64>() / t.len() as f64;
     t.sort_by(|a, b| a.total_cmp(b));
     let q = |p: f64| t[((t.len() - 1) as f64 * p).round() as usize];
     LatencyStats {
         p50_us: q(0.5),
         p99_us: q(0.99),
+        mean_us,
         reps: t.len(),
     }
 }

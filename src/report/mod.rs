@@ -14,7 +14,7 @@ pub use latency::{measure_batch, measure_single, LatencyStats};
 pub use metrics::{decision_errors, gram_errors, kernel_errors, kernel_features, wilson95};
 pub use render::render_text;
 
-use crate::model::{label_indices, CompiledModel, ExactModel};
+use crate::model::{label_indices, CompiledModel, ExactModel, GuardedModel};
 use crate::Result;
 use ndarray::{s, Array2, ArrayView2};
 use serde::{Deserialize, Serialize};
@@ -41,6 +41,15 @@ pub struct Timing {
     pub speedup_batch: Option<f64>,
     /// Threads used by the batched measurements.
     pub threads: Option<usize>,
+    /// Guarded models: mean single-row latency of the exact model (µs).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub latency_us_exact_mean: Option<f64>,
+    /// Guarded models: mean single-row latency of the whole guarded model (µs).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub latency_us_compiled_mean: Option<f64>,
+    /// Guarded models: mean single-row latency ratio exact / guarded.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub speedup_mean: Option<f64>,
 }
 
 /// Rows whose label changes from `exact` to `compiled`.
@@ -114,6 +123,13 @@ pub struct Report {
     /// moves decisions by about this × 2⁻²⁴ of their scale.
     #[serde(default)]
     pub head_cancellation: f64,
+    /// Guarded models: share of rows answered by each stage (compiled, exact).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub stage_shares: Option<Vec<f64>>,
+    /// Guarded models: agreement with the exact model of the rows each stage answered
+    /// (none for a stage that answered no row).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub stage_agreement: Option<Vec<Option<f64>>>,
     /// Warnings for the user.
     pub warnings: Vec<String>,
     /// Which rows the figures were computed on.
@@ -134,6 +150,77 @@ impl Report {
             ..self.clone()
         }
     }
+}
+
+/// The report of a guarded model on raw inputs `x`: the kernel figures describe its
+/// compiled stage; decisions, agreement, accuracy, bytes and timings describe the whole
+/// guarded model; `stage_shares` and `stage_agreement` say which stage answered which rows
+/// and how well; mean latencies and `speedup_mean` are measured over the rows' mix of
+/// stages.
+pub fn build_guarded(
+    g: &GuardedModel,
+    exact: &ExactModel,
+    x: ArrayView2<f64>,
+    truth: Option<&[String]>,
+    opts: &ReportOptions,
+) -> Result<Report> {
+    let n = x.nrows();
+    let se = exact.decision(x);
+    let quiet = ReportOptions {
+        timing: false,
+        ..opts.clone()
+    };
+    let mut r = build(g.compact(), exact, x, truth, Some(se.clone()), &quiet)?;
+    let (sg, stage) = g.decision(x);
+    let (rmse, r2, maxe) = decision_errors(se.view(), sg.view());
+    r.decision_rmse = rmse;
+    r.decision_r2 = r2.is_finite().then_some(r2);
+    r.decision_max_abs_error = maxe;
+    r.warnings
+        .retain(|w| !w.starts_with("label agreement with the exact model"));
+    label_figures(&mut r, exact, se.view(), sg.view(), truth, opts);
+    let k = exact.labels().len();
+    let le = label_indices(exact.task(), k, se.view());
+    let lg = label_indices(exact.task(), k, sg.view());
+    let mut shares = Vec::new();
+    let mut agree = Vec::new();
+    for st in 0..2u8 {
+        let rows: Vec<usize> = (0..n).filter(|&i| stage[i] == st).collect();
+        shares.push(rows.len() as f64 / n.max(1) as f64);
+        agree.push(
+            (!rows.is_empty()).then(|| {
+                rows.iter().filter(|&&i| le[i] == lg[i]).count() as f64 / rows.len() as f64
+            }),
+        );
+    }
+    r.stage_shares = Some(shares);
+    r.stage_agreement = Some(agree);
+    r.bytes_compiled = g.compact().parameter_bytes() + exact.parameter_bytes();
+    if opts.timing {
+        let et = opts
+            .exact_timing
+            .unwrap_or_else(|| measure_exact(exact, x, opts));
+        let e_mean = measure_single(x, opts.reps.min(n.max(1) * 50), |row| {
+            exact.decision_one(row)
+        });
+        let c1 = measure_single(x, opts.reps * 4, |row| g.decision_one(row).0);
+        let cb = measure_batch(x, |b| g.decision(b).0);
+        r.timing = Timing {
+            latency_us_exact_p50: Some(et.single.p50_us),
+            latency_us_exact_p99: Some(et.single.p99_us),
+            latency_us_compiled_p50: Some(c1.p50_us),
+            latency_us_compiled_p99: Some(c1.p99_us),
+            throughput_rows_per_s_exact: Some(et.rows_per_s),
+            throughput_rows_per_s_compiled: Some(cb),
+            speedup_single: Some(et.single.p50_us / c1.p50_us),
+            speedup_batch: Some(cb / et.rows_per_s),
+            threads: Some(rayon::current_num_threads()),
+            latency_us_exact_mean: Some(e_mean.mean_us),
+            latency_us_compiled_mean: Some(c1.mean_us),
+            speedup_mean: Some(e_mean.mean_us / c1.mean_us),
+        };
+    }
+    Ok(r)
 }
 
 /// Options for [`build`].
@@ -179,6 +266,61 @@ impl Default for ReportOptions {
             timing: true,
             reps: 300,
             exact_timing: None,
+        }
+    }
+}
+
+/// Agreement, its interval, the changed decisions and the accuracies of `sc` against the
+/// exact decisions `se` (classifiers), with the warning below the tolerance.
+fn label_figures(
+    r: &mut Report,
+    exact: &ExactModel,
+    se: ArrayView2<f64>,
+    sc: ArrayView2<f64>,
+    truth: Option<&[String]>,
+    opts: &ReportOptions,
+) {
+    let n = se.nrows();
+    if exact.task().is_classifier() {
+        let k = exact.labels().len();
+        let le = label_indices(exact.task(), k, se);
+        let lc = label_indices(exact.task(), k, sc);
+        let agree = le.iter().zip(&lc).filter(|(a, b)| a == b).count();
+        let mut cells = std::collections::BTreeMap::new();
+        for (a, b) in le.iter().zip(&lc).filter(|(a, b)| a != b) {
+            *cells.entry((*a, *b)).or_insert(0usize) += 1;
+        }
+        let names = exact.labels();
+        let mut changes: Vec<Change> = cells
+            .into_iter()
+            .map(|((a, b), rows)| Change {
+                exact: names[a].clone(),
+                compiled: names[b].clone(),
+                rows,
+            })
+            .collect();
+        changes.sort_by_key(|c| std::cmp::Reverse(c.rows));
+        r.changed_decisions = changes;
+        let (lo, hi) = wilson95(agree, n);
+        let a = agree as f64 / n as f64;
+        r.agreement = Some(a);
+        r.agreement_ci95 = Some([lo, hi]);
+        r.min_agreement = Some(opts.min_agreement);
+        let below = a < opts.min_agreement;
+        r.agreement_below_min = Some(below);
+        if below {
+            r.warnings.push(format!(
+                "label agreement with the exact model is {:.4} (95% CI {:.4}–{:.4}), below the tolerance {}: the compiled model changes {} of {} decisions",
+                a, lo, hi, opts.min_agreement, n - agree, n
+            ));
+        }
+        if let Some(t) = truth {
+            let labels = exact.labels();
+            let acc = |l: &[usize]| {
+                l.iter().zip(t).filter(|(i, y)| labels[**i] == **y).count() as f64 / n as f64
+            };
+            r.accuracy_exact = Some(acc(&le));
+            r.accuracy_compiled = Some(acc(&lc));
         }
     }
 }
@@ -269,6 +411,8 @@ pub fn build(
         n_rows: n,
         changed_decisions: Vec::new(),
         head_cancellation: cancellation,
+        stage_shares: None,
+        stage_agreement: None,
         warnings: Vec::new(),
         evaluated_on: None,
     };
@@ -281,48 +425,7 @@ pub fn build(
             "precision: the head cancels large terms (their magnitudes sum to {cancellation:.0}× the largest decision value); in f32 (exports) decisions move by about {f32_loss:.1e} of their scale; measure it with `export --check-data`"
         ));
     }
-    if exact.task().is_classifier() {
-        let k = exact.labels().len();
-        let le = label_indices(exact.task(), k, se.view());
-        let lc = label_indices(compiled.task(), k, sc.view());
-        let agree = le.iter().zip(&lc).filter(|(a, b)| a == b).count();
-        let mut cells = std::collections::BTreeMap::new();
-        for (a, b) in le.iter().zip(&lc).filter(|(a, b)| a != b) {
-            *cells.entry((*a, *b)).or_insert(0usize) += 1;
-        }
-        let names = exact.labels();
-        let mut changes: Vec<Change> = cells
-            .into_iter()
-            .map(|((a, b), rows)| Change {
-                exact: names[a].clone(),
-                compiled: names[b].clone(),
-                rows,
-            })
-            .collect();
-        changes.sort_by_key(|c| std::cmp::Reverse(c.rows));
-        r.changed_decisions = changes;
-        let (lo, hi) = wilson95(agree, n);
-        let a = agree as f64 / n as f64;
-        r.agreement = Some(a);
-        r.agreement_ci95 = Some([lo, hi]);
-        r.min_agreement = Some(opts.min_agreement);
-        let below = a < opts.min_agreement;
-        r.agreement_below_min = Some(below);
-        if below {
-            r.warnings.push(format!(
-                "label agreement with the exact model is {:.4} (95% CI {:.4}–{:.4}), below the tolerance {}: the compiled model changes {} of {} decisions",
-                a, lo, hi, opts.min_agreement, n - agree, n
-            ));
-        }
-        if let Some(t) = truth {
-            let labels = exact.labels();
-            let acc = |l: &[usize]| {
-                l.iter().zip(t).filter(|(i, y)| labels[**i] == **y).count() as f64 / n as f64
-            };
-            r.accuracy_exact = Some(acc(&le));
-            r.accuracy_compiled = Some(acc(&lc));
-        }
-    }
+    label_figures(&mut r, exact, se.view(), sc.view(), truth, opts);
     if opts.timing {
         let et = opts
             .exact_timing
@@ -340,6 +443,7 @@ pub fn build(
             speedup_single: Some(e1.p50_us / c1.p50_us),
             speedup_batch: Some(cb / eb),
             threads: Some(rayon::current_num_threads()),
+            ..Timing::default()
         };
     }
     Ok(r)

@@ -68,6 +68,21 @@ pub fn render_text(r: &Report) -> String {
             "  agreement with the exact model   {a:.4} (95% interval {lo:.4}–{hi:.4})\n      share of rows given the same label as the exact model\n"
         ));
     }
+    if let (Some(sh), Some(ag)) = (&r.stage_shares, &r.stage_agreement) {
+        let a0 = ag
+            .first()
+            .copied()
+            .flatten()
+            .map(|a| format!(", agreement {a:.4} on them"))
+            .unwrap_or_default();
+        s.push_str(&format!(
+            "  answered by                     compiled stage {:.1}% of rows{a0}; exact model {:.1}%
+      the guard sends rows where the compiled model is unsure to the exact model
+",
+            100.0 * sh.first().copied().unwrap_or(0.0),
+            100.0 * sh.get(1).copied().unwrap_or(0.0)
+        ));
+    }
     if let (Some(e), Some(c)) = (r.accuracy_exact, r.accuracy_compiled) {
         s.push_str(&format!(
             "  accuracy                        exact {e:.4}, compiled {c:.4} ({:+.2} points)\n      share of rows given the true label\n",
@@ -112,6 +127,19 @@ pub fn render_text(r: &Report) -> String {
         row(
             &mut s,
             "single-row latency, median",
+            &format!("{} µs", sig3(e)),
+            &format!("{} µs", sig3(c)),
+            &speed,
+        );
+    }
+    if let (Some(e), Some(c)) = (t.latency_us_exact_mean, t.latency_us_compiled_mean) {
+        let speed = t
+            .speedup_mean
+            .map(|v| format!("{}× faster", sig3(v)))
+            .unwrap_or_default();
+        row(
+            &mut s,
+            "single-row latency, mean",
             &format!("{} µs", sig3(e)),
             &format!("{} µs", sig3(c)),
             &speed,

@@ -1,0 +1,273 @@
+//! The guarded model: the extremes equal the exact and the compiled model, a threshold
+//! chosen for an agreement target meets it on fresh rows, the one-sided bound matches
+//! scipy's Wilson interval, and the command line writes, scores, reports and refuses to
+//! export guarded files.
+
+mod common;
+
+use common::*;
+use kernelpress::data::read_for_model;
+use kernelpress::features::{FeatureSpec, Method};
+use kernelpress::fit::{audit_row, RidgeGrid, Teacher};
+use kernelpress::model::guarded::{
+    threshold_for_agreement, threshold_for_rate, wilson_lower_one_sided,
+};
+use kernelpress::model::{label_indices, AnyModel, CompiledModel, ExactModel, GuardedModel};
+use kernelpress::observe::Silent;
+use ndarray::{Array2, Axis};
+
+fn demo() -> (ExactModel, Array2<f64>, Array2<f64>) {
+    let exact = ExactModel::load(&root().join("models/pump_svm.safetensors")).unwrap();
+    let read = |f: &str| {
+        read_for_model(
+            &root().join(f),
+            Some("condition"),
+            &exact.feature_names,
+            false,
+        )
+        .unwrap()
+        .table
+        .x
+    };
+    let (c, t) = (read("models/pump_calib.csv"), read("models/pump_test.csv"));
+    (exact, c, t)
+}
+
+/// A deliberately weak compiled model (64 random Fourier features), so the guard has work.
+fn weak(exact: &ExactModel, calib: &Array2<f64>) -> CompiledModel {
+    let t = Teacher::new(exact, calib.view(), &Silent).unwrap();
+    let spec = FeatureSpec::new(
+        exact.kernel().clone(),
+        Method::Fourier,
+        exact.input_dim(),
+        64,
+        5,
+    );
+    t.distil(&spec, &RidgeGrid::standard(), None, &Silent)
+        .unwrap()
+        .0
+}
+
+#[test]
+fn the_extremes_are_the_exact_and_the_compiled_model() {
+    let (exact, calib, test) = demo();
+    let c = weak(&exact, &calib);
+    let all = GuardedModel::new(c.clone(), exact.clone(), f64::INFINITY).unwrap();
+    let (s, st) = all.decision(test.view());
+    assert_eq!(s, exact.decision(test.view()));
+    assert!(st.iter().all(|&k| k == 1));
+    let none = GuardedModel::new(c.clone(), exact.clone(), f64::NEG_INFINITY).unwrap();
+    let (s, st) = none.decision(test.view());
+    assert_eq!(s, c.decision(test.view()));
+    assert!(st.iter().all(|&k| k == 0));
+    // One row at a time gives the same answers as the batch.
+    let mid = GuardedModel::new(c, exact, 0.3).unwrap();
+    let (s, st) = mid.decision(test.view());
+    for i in (0..test.nrows()).step_by(97) {
+        let (one, k) = mid.decision_one(test.row(i).as_slice().unwrap());
+        assert_eq!(k, st[i]);
+        for (a, b) in one.iter().zip(s.row(i)) {
+            assert!(
+                (a - b).abs() <= 1e-12 * (1.0 + b.abs()),
+                "row {i}: {a} vs {b}"
+            );
+        }
+    }
+}
+
+/// Fresh rows (the demo test set, never seen by the fit or the threshold) meet the target
+/// within sampling noise: the threshold is chosen so that a one-sided 95% lower bound on
+/// the audit rows is at least the target.
+#[test]
+fn a_threshold_for_an_agreement_target_meets_it_on_fresh_rows() {
+    let (exact, calib, test) = demo();
+    let c = weak(&exact, &calib);
+    let k = exact.labels().len();
+    let idx: Vec<usize> = (0..calib.nrows()).filter(|&i| audit_row(i)).collect();
+    let xa = calib.select(Axis(0), &idx);
+    let sc = c.decision(xa.view());
+    let se = exact.decision(xa.view());
+    let base = {
+        let a = label_indices(exact.task(), k, sc.view());
+        let b = label_indices(exact.task(), k, se.view());
+        a.iter().zip(&b).filter(|(x, y)| x == y).count() as f64 / a.len() as f64
+    };
+    assert!(
+        base < 0.97,
+        "the weak model should need the guard (agreement {base})"
+    );
+    for target in [0.98, 0.995] {
+        let (t, share) =
+            threshold_for_agreement(exact.task(), k, sc.view(), se.view(), target).unwrap();
+        assert!(share > 0.0 && share < 1.0, "{target}: share {share}");
+        let g = GuardedModel::new(c.clone(), exact.clone(), t).unwrap();
+        let (sg, st) = g.decision(test.view());
+        let a = label_indices(exact.task(), k, sg.view());
+        let b = label_indices(exact.task(), k, exact.decision(test.view()).view());
+        let n = a.len() as f64;
+        let agree = a.iter().zip(&b).filter(|(x, y)| x == y).count() as f64 / n;
+        let se_fresh = (target * (1.0 - target) / n).sqrt();
+        assert!(
+            agree >= target - 2.0 * se_fresh,
+            "target {target}: fresh agreement {agree} (fallback {:.3})",
+            st.iter().filter(|&&s| s == 1).count() as f64 / n
+        );
+        // A fixed rate sends about that share of the same rows.
+        let t2 = threshold_for_rate(exact.task(), k, sc.view(), share);
+        assert!((t2 - t).abs() < 1e-12 || share == 0.0, "{t2} vs {t}");
+    }
+}
+
+/// The one-sided 95% bound is the lower end of scipy's two-sided 90% Wilson interval
+/// (`scipy.stats.binomtest(k, n).proportion_ci(0.90, 'wilson')`).
+#[test]
+fn one_sided_bound_matches_scipy_wilson() {
+    for (k, n) in [
+        (95usize, 100usize),
+        (990, 1000),
+        (7, 7),
+        (0, 12),
+        (4321, 4400),
+    ] {
+        let want: f64 = py_inline(
+            "import sys; from scipy.stats import binomtest; \
+             print(binomtest(int(sys.argv[1]), int(sys.argv[2])).proportion_ci(0.90, 'wilson').low)",
+            &[&k.to_string(), &n.to_string()],
+        )
+        .trim()
+        .parse()
+        .unwrap();
+        let got = wilson_lower_one_sided(k, n);
+        assert!((got - want).abs() < 1e-9, "{k}/{n}: {got} vs scipy {want}");
+    }
+}
+
+fn py_inline(code: &str, args: &[&str]) -> String {
+    let o = std::process::Command::new(python())
+        .arg("-c")
+        .arg(code)
+        .args(args)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    String::from_utf8_lossy(&o.stdout).to_string()
+}
+
+#[test]
+fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
+    let d = tmpdir("guard_cli");
+    let calib = d.join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 3000);
+    let test = root().join("models/pump_test.csv");
+    let model = root().join("models/pump_svm.safetensors");
+    let out = d.join("g.safetensors");
+    let json = d.join("r.json");
+    let text = ok(&[
+        "compile",
+        s(&model),
+        "--calib",
+        s(&calib),
+        "--eval",
+        s(&test),
+        "--target",
+        "condition",
+        "--method",
+        "fourier",
+        "--features",
+        "128",
+        "--guard-agreement",
+        "0.99",
+        "--out",
+        s(&out),
+        "--json",
+        s(&json),
+    ]);
+    assert!(text.contains("answered by"), "{text}");
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    let shares = r["stage_shares"].as_array().unwrap();
+    assert_eq!(shares.len(), 2);
+    let total: f64 = shares.iter().map(|v| v.as_f64().unwrap()).sum();
+    assert!((total - 1.0).abs() < 1e-12);
+    assert!(shares[1].as_f64().unwrap() > 0.0);
+    for key in ["latency_us_compiled_mean", "speedup_mean", "agreement"] {
+        let v = r[key].as_f64().unwrap();
+        assert!(v.is_finite() && v > 0.0, "{key}: {v}");
+    }
+    // score: a stage column, and the rows the exact model answered score as the exact model.
+    let g = ok(&[
+        "score",
+        s(&out),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+    ]);
+    let e = ok(&[
+        "score",
+        s(&model),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+    ]);
+    let gl: Vec<&str> = g.lines().collect();
+    let el: Vec<&str> = e.lines().collect();
+    assert!(gl[0].ends_with(",label,stage"), "{}", gl[0]);
+    let mut exact_rows = 0;
+    for (a, b) in gl[1..].iter().zip(&el[1..]) {
+        if let Some(row) = a.strip_suffix(",exact") {
+            assert_eq!(row, *b);
+            exact_rows += 1;
+        } else {
+            assert!(a.ends_with(",compiled"), "{a}");
+        }
+    }
+    let share = exact_rows as f64 / (gl.len() - 1) as f64;
+    assert!((share - shares[1].as_f64().unwrap()).abs() < 1e-12);
+    // The file round-trips, and reading it as any model gives the guarded kind.
+    let (m, _) = AnyModel::load(&out).unwrap();
+    assert!(matches!(m, AnyModel::Guarded(_)));
+    // report on a guarded file.
+    let rt = ok(&[
+        "report",
+        s(&out),
+        "--exact",
+        s(&model),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+        "--no-timing",
+    ]);
+    assert!(rt.contains("answered by"), "{rt}");
+    // inspect names the guard.
+    assert!(ok(&["inspect", s(&out)]).contains("guarded"));
+    // export refuses, writing nothing.
+    let err = bad(&[
+        "export",
+        s(&out),
+        "--format",
+        "onnx",
+        "--out",
+        s(&d.join("g.onnx")),
+    ]);
+    assert!(err.contains("cannot be exported"), "{err}");
+    assert!(!d.join("g.onnx").exists());
+    // Regression models cannot be guarded; bad flags are bad input.
+    let err = bad(&[
+        "compile",
+        s(&model),
+        "--calib",
+        s(&calib),
+        "--method",
+        "fourier",
+        "--features",
+        "64",
+        "--guard-agreement",
+        "1.5",
+        "--out",
+        s(&d.join("x.safetensors")),
+    ]);
+    assert!(err.contains("--guard-agreement"), "{err}");
+}
