@@ -6,7 +6,10 @@ use clap::ValueEnum;
 use kernelpress::choose::{search, Budget, Choice, SearchOptions};
 use kernelpress::data::{check_batch, read_table, write_all_atomic};
 use kernelpress::features::{methods_for, Method};
-use kernelpress::fit::{audit_row, compile_exact, compile_labels, HeadKind, RidgeGrid, Teacher};
+use kernelpress::fit::{
+    audit_row, check_statistics_memory, compile_exact, compile_labels, HeadKind, RidgeGrid,
+    Teacher, BANDWIDTH_MULTIPLES,
+};
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
 use kernelpress::{Error, ErrorKind, Result};
@@ -108,6 +111,12 @@ pub(crate) struct Args {
     /// Guard: send this share of rows (the least confident) to the exact model.
     #[arg(long)]
     guard_rate: Option<f64>,
+    /// Keep the kernel's own bandwidth for the random map. By default distillation of a
+    /// random map of a shift-invariant kernel tries the map at 1, 0.5 and 0.7 times the
+    /// kernel's bandwidth (a Gaussian's γ) and keeps the one that reproduces the teacher
+    /// best on the ridge-choice rows (three distillations).
+    #[arg(long)]
+    no_bandwidth_search: bool,
     /// Budget search: measure this machine again instead of using the cached profile.
     #[arg(long)]
     recalibrate: bool,
@@ -225,15 +234,45 @@ pub(crate) fn run(a: Args) -> Result<()> {
         Some(p) => Some(read_landmarks(p, d, &|x| x.to_owned())?),
         None => None,
     };
-    let (model, info) = compile_exact(
-        &exact,
-        calib.as_ref().map(|t| t.x.view()),
-        &spec,
-        kind,
-        &grid,
-        lm.as_ref().map(|l| l.view()),
-        &super::progress::Bars::default(),
-    )?;
+    let tune = kind == HeadKind::Distill
+        && !a.no_bandwidth_search
+        && lm.is_none()
+        && spec.kernel.is_shift_invariant()
+        && !spec.from_data();
+    let (model, info) = if tune {
+        check_statistics_memory(spec.features)?;
+        let bars = super::progress::Bars::default();
+        let x = calib
+            .as_ref()
+            .map(|t| t.x.view())
+            .expect("distillation has --calib");
+        let teacher = Teacher::new(&exact, x, &bars)?;
+        teacher.distil_tuned(&spec, &grid, &BANDWIDTH_MULTIPLES, &bars)?
+    } else {
+        compile_exact(
+            &exact,
+            calib.as_ref().map(|t| t.x.view()),
+            &spec,
+            kind,
+            &grid,
+            lm.as_ref().map(|l| l.view()),
+            &super::progress::Bars::default(),
+        )?
+    };
+    if let Some(t) = model.fit.get("bandwidth_search") {
+        let chosen = model.spec().options.map_bandwidth;
+        super::progress::note(format!(
+            "map bandwidth: {chosen}× the kernel's (tried {}; judged on the ridge-choice rows; --no-bandwidth-search keeps the kernel's)",
+            t["tried"]
+                .as_array()
+                .map(|v| v
+                    .iter()
+                    .map(|x| format!("{}× → {:.4}", x["multiple"], x["score"].as_f64().unwrap_or(f64::NAN)))
+                    .collect::<Vec<_>>()
+                    .join(", "))
+                .unwrap_or_default()
+        ));
+    }
     for n in &info.notes {
         super::progress::warn(n);
     }

@@ -66,7 +66,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         kernelpress::model::AnyModel::Guarded(g) => (g.compact().clone(), Some(g)),
         kernelpress::model::AnyModel::Exact(_) => {
             return Err(Error::input(format!(
-                "{} is an exact model; report compares a compiled (or guarded) model with its exact model",
+                "{}: model kind is 'exact'; expected a compiled model (or a guarded one) to compare with the exact model",
                 a.compiled.display()
             )))
         }

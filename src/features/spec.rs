@@ -171,6 +171,11 @@ pub struct MapOptions {
     pub landmarks: Landmarks,
     /// Nyström: eigenvalues below `rank_tol · λ_max` are dropped.
     pub rank_tol: f64,
+    /// Random maps of shift-invariant kernels: the map reads the inputs scaled by `√m`, so
+    /// it approximates the kernel with its bandwidth multiplied (a Gaussian's `γ` becomes
+    /// `m·γ`). 1 (the default) approximates the kernel itself; distillation may pick
+    /// another multiple when it fits the teacher better.
+    pub map_bandwidth: f64,
 }
 
 impl Default for MapOptions {
@@ -181,6 +186,7 @@ impl Default for MapOptions {
             scramble: true,
             landmarks: Landmarks::Uniform,
             rank_tol: 1e-10,
+            map_bandwidth: 1.0,
         }
     }
 }
@@ -263,12 +269,26 @@ impl FeatureSpec {
         if !(self.options.rank_tol > 0.0 && self.options.rank_tol < 1.0) {
             return Err(Error::input("rank tolerance must be in (0, 1)"));
         }
+        let m = self.options.map_bandwidth;
+        if !(m > 0.0 && m <= 1e6) {
+            return Err(Error::input(format!(
+                "map bandwidth multiple {m} must be in (0, 1e6]"
+            )));
+        }
+        if m != 1.0 && (!self.kernel.is_shift_invariant() || self.method.sampler().whole_kernel()) {
+            return Err(Error::input(format!(
+                "a map bandwidth other than the kernel's needs a random map ({}) of a shift-invariant kernel; {} with {} has none",
+                "fourier, orthogonal, hadamard, fastfood or quasi",
+                self.method.name(),
+                self.kernel
+            )));
+        }
         Ok(())
     }
 
     /// The spec as JSON (stored in model manifests).
     pub fn to_json(&self) -> Value {
-        json!({
+        let mut v = json!({
             "kernel": self.kernel.to_string(),
             "method": self.method.name(),
             "input_dim": self.input_dim,
@@ -280,7 +300,11 @@ impl FeatureSpec {
             "scramble": self.options.scramble,
             "landmarks": match self.options.landmarks { Landmarks::Uniform => "uniform", Landmarks::KmeansPP => "kmeans++", Landmarks::Leverage => "leverage", Landmarks::Support => "support" },
             "rank_tol": self.options.rank_tol,
-        })
+        });
+        if self.options.map_bandwidth != 1.0 {
+            v["map_bandwidth"] = json!(self.options.map_bandwidth);
+        }
+        v
     }
 
     /// Reads a spec from JSON.
@@ -309,6 +333,10 @@ impl FeatureSpec {
             scramble: v.get("scramble").and_then(|x| x.as_bool()).unwrap_or(true),
             landmarks: parse_landmarks(s("landmarks")?)?,
             rank_tol: v.get("rank_tol").and_then(|x| x.as_f64()).unwrap_or(1e-10),
+            map_bandwidth: v
+                .get("map_bandwidth")
+                .and_then(|x| x.as_f64())
+                .unwrap_or(1.0),
         };
         let spec = FeatureSpec {
             kernel: s("kernel")?.parse()?,

@@ -26,7 +26,8 @@
 mod compile;
 
 pub use compile::{
-    audit_row, compile_exact, compile_labels, row_part, HeadKind, Teacher, FIT_CHUNK,
+    audit_row, check_statistics_memory, compile_exact, compile_labels, row_part, HeadKind, Teacher,
+    BANDWIDTH_MULTIPLES, FIT_CHUNK,
 };
 
 use crate::features::FeatureMap;

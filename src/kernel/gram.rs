@@ -107,6 +107,14 @@ fn block(k: &Kernel, a: &Node, b: &Node) -> Array2<f64> {
         }
         (k, Node::Euclid { scaled: sa, sq: qa }, Node::Euclid { scaled: sb, sq: qb }) => {
             let mut g = linalg::abt_seq(sa.view(), sb.view());
+            if matches!(k, Kernel::Gaussian { .. }) {
+                // The hot case: a vectorised exponential over each row.
+                for (i, mut row) in g.axis_iter_mut(Axis(0)).enumerate() {
+                    let r = row.as_slice_mut().expect("a fresh product is row-major");
+                    crate::transform::expo::gaussian_row(r, qa[i], qb, 0.5);
+                }
+                return g;
+            }
             for (i, mut row) in g.axis_iter_mut(Axis(0)).enumerate() {
                 for (j, v) in row.iter_mut().enumerate() {
                     let r2 = (qa[i] + qb[j] - 2.0 * *v).max(0.0);

@@ -72,6 +72,10 @@ pub struct Report {
     pub features: usize,
     /// Seed of the map.
     pub seed: u64,
+    /// The random map's bandwidth as a multiple of the kernel's (1 unless distillation's
+    /// bandwidth search chose another).
+    #[serde(default = "one")]
+    pub map_bandwidth: f64,
     /// Kernel expression.
     pub kernel: String,
     /// Largest `|k(x, y) − z(x)·z(y)|` over the kernel rows.
@@ -221,6 +225,10 @@ pub fn build_guarded(
         };
     }
     Ok(r)
+}
+
+fn one() -> f64 {
+    1.0
 }
 
 /// Options for [`build`].
@@ -389,6 +397,7 @@ pub fn build(
         method: spec.method.name().to_string(),
         features: compiled.features(),
         seed: spec.seed,
+        map_bandwidth: spec.options.map_bandwidth,
         kernel: spec.kernel.to_string(),
         kernel_max_abs_error: kmax,
         kernel_rmse: krmse,

@@ -52,8 +52,16 @@ fn row(s: &mut String, label: &str, exact: &str, compiled: &str, note: &str) {
 pub fn render_text(r: &Report) -> String {
     let mut s = String::new();
     s.push_str(&format!(
-        "compiled model: {}, {} features (seed {}), for {}\n",
-        r.method, r.features, r.seed, r.kernel
+        "compiled model: {}, {} features (seed {}), for {}{}\n",
+        r.method,
+        r.features,
+        r.seed,
+        r.kernel,
+        if r.map_bandwidth != 1.0 {
+            format!(" (map at {}× the kernel's bandwidth)", r.map_bandwidth)
+        } else {
+            String::new()
+        }
     ));
     s.push_str(&format!(
         "evaluated on {} rows{}\n\n",

@@ -5,6 +5,7 @@
 //!   orthogonal version).
 //! - [`trig`]: vectorised sine and cosine of slices (Cody–Waite reduction, fdlibm kernels).
 
+pub mod expo;
 pub mod trig;
 pub mod wht;
 

@@ -177,6 +177,15 @@ pub(crate) fn sample(
 ) -> Result<crate::program::Program> {
     let mut b = Builder::new(spec.input_dim);
     let m = spec.method.sampler();
+    // A tuned bandwidth: the map reads the inputs scaled by √m.
+    let x = if spec.options.map_bandwidth != 1.0 {
+        b.push(
+            steps::ConstScale::new(spec.options.map_bandwidth.sqrt())?,
+            &[Builder::INPUT],
+        )?
+    } else {
+        Builder::INPUT
+    };
     let out = {
         let mut cx = Ctx {
             b: &mut b,
@@ -189,14 +198,7 @@ pub(crate) fn sample(
         if m.whole_kernel() {
             m.whole(&mut cx, data)?
         } else {
-            plan(
-                &mut cx,
-                m,
-                &spec.kernel,
-                spec.features,
-                spec.seed,
-                Builder::INPUT,
-            )?
+            plan(&mut cx, m, &spec.kernel, spec.features, spec.seed, x)?
         }
     };
     Ok(b.finish(out))
