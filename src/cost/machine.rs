@@ -12,7 +12,7 @@ use std::hint::black_box;
 use std::time::Instant;
 
 /// Version of the profile's fields; a stored profile of another version is measured again.
-pub const PROFILE_VERSION: u32 = 2;
+pub const PROFILE_VERSION: u32 = 3;
 
 /// Time per flop and per transcendental call of one step kind (nanoseconds).
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
