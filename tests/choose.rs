@@ -342,6 +342,8 @@ fn sweep_writes_json_svg_and_a_page_a_browser_renders() {
         "fourier,nystrom",
         "--features",
         "64,256",
+        "--guard-agreement",
+        "0.95",
         "--out",
         s(&out),
     ]);
@@ -350,7 +352,26 @@ fn sweep_writes_json_svg_and_a_page_a_browser_renders() {
     let j: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(out.join("sweep.json")).unwrap()).unwrap();
     let recs = j["records"].as_array().unwrap();
-    assert_eq!(recs.len(), 5);
+    let guarded: Vec<_> = recs
+        .iter()
+        .filter(|r| r["method"].as_str().unwrap().ends_with("+guard"))
+        .collect();
+    assert_eq!(recs.len(), 5 + guarded.len());
+    assert!(!guarded.is_empty(), "no guarded points");
+    for g in &guarded {
+        assert_eq!(g["latency_basis"], "mean");
+        let base = g["method"].as_str().unwrap().trim_end_matches("+guard");
+        let plain = recs
+            .iter()
+            .find(|r| r["method"] == base && r["features"] == g["features"])
+            .unwrap();
+        assert!(
+            g["agreement"].as_f64().unwrap() >= plain["agreement"].as_f64().unwrap(),
+            "a guard cannot lower agreement: {g} vs {plain}"
+        );
+        let shares = g["stage_shares"].as_array().unwrap();
+        assert!(shares[1].as_f64().unwrap() > 0.0);
+    }
     let keys = [
         "agreement",
         "agreement_ci95",
@@ -365,7 +386,10 @@ fn sweep_writes_json_svg_and_a_page_a_browser_renders() {
         "pareto",
         "loss",
     ];
-    for r in recs.iter().filter(|r| r["exact_model"] == false) {
+    for r in recs
+        .iter()
+        .filter(|r| r["exact_model"] == false && !r["method"].as_str().unwrap().ends_with("+guard"))
+    {
         for k in keys {
             assert!(!r[k].is_null(), "record lacks {k}: {r}");
         }

@@ -52,7 +52,8 @@ fn compile_report_score_agree_and_match_numpy() {
             s(&test),
             "--target",
             "condition",
-            "--no-timing",
+            "--reps",
+            "30",
             "--json",
             s(&rep),
         ]);
@@ -112,6 +113,23 @@ fn compile_report_score_agree_and_match_numpy() {
             "n_rows",
         ] {
             assert!(r.get(key).is_some(), "{method}: report lacks {key}");
+        }
+        // Timings are measured numbers: finite and positive, never null.
+        for key in [
+            "latency_us_exact_p50",
+            "latency_us_compiled_p50",
+            "latency_us_compiled_p99",
+            "throughput_rows_per_s_exact",
+            "throughput_rows_per_s_compiled",
+            "speedup_single",
+            "speedup_batch",
+        ] {
+            let v = r[key].as_f64();
+            assert!(
+                v.is_some_and(|v| v.is_finite() && v > 0.0),
+                "{method}: {key} is {}",
+                r[key]
+            );
         }
         assert!(
             r["agreement"].as_f64().unwrap() > 0.9,

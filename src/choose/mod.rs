@@ -68,6 +68,7 @@ impl Record {
             None => json!({"method": self.method, "features": self.features}),
         };
         let extra = json!({
+            "method": self.method,
             "exact_model": self.exact,
             "loss": self.loss,
             "latency_us_p50": self.latency_us,
@@ -78,6 +79,7 @@ impl Record {
             "latency_prediction_error": self.latency_prediction_error(),
             "compile_seconds": self.compile_s,
             "pareto": self.pareto,
+            "latency_basis": if self.method.ends_with("+guard") { "mean" } else { "median" },
         });
         if let (Some(o), Some(e)) = (v.as_object_mut(), extra.as_object()) {
             for (k, x) in e {

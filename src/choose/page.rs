@@ -80,10 +80,10 @@ pub fn render_page(s: &Sweep, svg: &str, title: &str, max_loss: f64, context: &[
     }
     h.push_str("</p>\n<h2>Fidelity against latency</h2>\n");
     h.push_str(svg);
-    h.push_str("\n<p>Lower is better on both axes. Ringed points joined by the dashed line are the Pareto front: no other candidate is both faster and more faithful. The grey dashed line is the exact model.</p>\n");
+    h.push_str("\n<p>Lower is better on both axes. Ringed points joined by the dashed line are the Pareto front: no other candidate is both faster and more faithful. The grey dashed line is the exact model. Lines named <code>+guard</code> are the same candidates guarded by the exact model, placed at their mean single-row latency.</p>\n");
     h.push_str("<h2>Candidates</h2>\n<table>\n<tr><th>method</th><th>features</th>");
     h.push_str(&format!(
-        "<th>{}</th><th>agreement 95% CI</th><th>latency p50 (µs)</th><th>predicted (µs)</th><th>prediction error</th><th>throughput (rows/s)</th><th>parameters (KiB)</th><th>accuracy</th><th>compile (s)</th></tr>\n",
+        "<th>{}</th><th>agreement 95% CI</th><th>latency p50 (µs; +guard: mean)</th><th>predicted (µs)</th><th>prediction error</th><th>throughput (rows/s)</th><th>parameters (KiB)</th><th>accuracy</th><th>compile (s)</th></tr>\n",
         esc(&s.loss_name)
     ));
     let mut order: Vec<usize> = (0..s.records.len()).collect();

@@ -76,9 +76,22 @@ pub fn render_svg(s: &Sweep, width: u32, height: u32) -> Result<String> {
             .map_err(err)?;
         chart
             .configure_mesh()
-            .x_desc("single-row latency, median (µs, log scale)")
+            .x_desc(if s.records.iter().any(|r| r.method.ends_with("+guard")) {
+                "single-row latency, median; +guard lines: mean (µs, log scale)"
+            } else {
+                "single-row latency, median (µs, log scale)"
+            })
+            .x_labels(8)
             .y_desc(format!("{} (log scale)", s.loss_name))
-            .x_label_formatter(&|v| format!("{v:.3}"))
+            .x_label_formatter(&|v| {
+                if *v >= 10.0 {
+                    format!("{v:.0}")
+                } else if *v >= 1.0 {
+                    format!("{v:.1}")
+                } else {
+                    format!("{v:.2}")
+                }
+            })
             .y_label_formatter(&|v| format!("{v:.1e}"))
             .draw()
             .map_err(err)?;

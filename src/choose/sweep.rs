@@ -2,13 +2,15 @@
 //! on the same evaluation rows, timed, and predicted.
 
 use super::{loss_of, mark_front, Record};
-use crate::cost::{predict, predict_exact, program_lines, MachineProfile};
+use crate::cost::{predict, predict_exact, program_lines, MachineProfile, Prediction};
 use crate::features::{FeatureSpec, Method};
-use crate::fit::{RidgeGrid, Teacher};
+use crate::fit::{audit_row, RidgeGrid, Teacher};
+use crate::model::guarded::threshold_for_agreement;
+use crate::model::{CompiledModel, GuardedModel};
 use crate::observe::{Observer, Silent};
 use crate::report::{self, measure_exact, ReportOptions};
 use crate::{Error, Result};
-use ndarray::ArrayView2;
+use ndarray::{ArrayView2, Axis};
 use std::time::Instant;
 
 /// What to sweep.
@@ -24,6 +26,9 @@ pub struct SweepOptions {
     pub grid: RidgeGrid,
     /// Report settings (tolerance, timing, repetitions).
     pub report: ReportOptions,
+    /// Also a guarded point per candidate (classifiers): the exact model answers the rows
+    /// below the threshold that meets this agreement on the calibration audit rows.
+    pub guard_agreement: Option<f64>,
 }
 
 /// A finished sweep.
@@ -41,8 +46,59 @@ pub struct Sweep {
     pub n_rows: usize,
 }
 
+/// The guarded version of `model`: threshold for agreement `p` on the audit rows, report
+/// on `eval`; its latency is the mean over the rows (the guard's cost), its prediction the
+/// compiled prediction plus the fallback share of the exact model's.
+#[allow(clippy::too_many_arguments)]
+fn guarded_point(
+    teacher: &Teacher,
+    model: &CompiledModel,
+    eval: ArrayView2<f64>,
+    truth: Option<&[String]>,
+    ropts: &ReportOptions,
+    p: f64,
+    profile: &MachineProfile,
+    predicted: Prediction,
+) -> Result<Option<Record>> {
+    let exact = teacher.exact();
+    let idx: Vec<usize> = (0..teacher.raw().nrows())
+        .filter(|&i| audit_row(i))
+        .collect();
+    let xa = teacher.raw().select(Axis(0), &idx);
+    let ya = teacher.decisions().select(Axis(0), &idx);
+    let sc = model.decision(xa.view());
+    let k = exact.labels().len();
+    let Some((t, share)) = threshold_for_agreement(exact.task(), k, sc.view(), ya.view(), p) else {
+        return Ok(None);
+    };
+    let g = GuardedModel::new(model.clone(), exact.clone(), t)?;
+    let r = report::build_guarded(&g, exact, eval, truth, ropts)?;
+    let pe = predict_exact(profile, exact);
+    Ok(Some(Record {
+        method: String::new(),
+        features: model.features(),
+        exact: false,
+        loss: loss_of(&r),
+        agreement: r.agreement,
+        latency_us: r.timing.latency_us_compiled_mean.unwrap_or(f64::NAN),
+        rows_per_s: r.timing.throughput_rows_per_s_compiled.unwrap_or(f64::NAN),
+        bytes: r.bytes_compiled,
+        predicted: Prediction {
+            latency_us: predicted.latency_us + share * pe.latency_us,
+            rows_per_s: 1.0 / (1.0 / predicted.rows_per_s + share / pe.rows_per_s),
+            param_bytes: predicted.param_bytes + pe.param_bytes,
+            flops: predicted.flops + (share * pe.flops as f64) as u64,
+        },
+        compile_s: 0.0,
+        pareto: false,
+        report: Some(r),
+    }))
+}
+
 /// Runs the sweep: `eval` (raw rows) with optional true labels judges every candidate; the
-/// teacher's calibration decisions are computed once. `obs` gets one unit per pair.
+/// teacher's calibration decisions are computed once. `obs` gets one unit per pair. With
+/// `guard_agreement`, each classifier candidate also gets a guarded record (method
+/// `<method>+guard`) whose latency is the mean single-row latency over the rows.
 pub fn run_sweep(
     teacher: &Teacher,
     eval: ArrayView2<f64>,
@@ -119,6 +175,25 @@ pub fn run_sweep(
             pareto: false,
             report: Some(r),
         });
+        if let (Some(p), true) = (opts.guard_agreement, exact.task().is_classifier()) {
+            let point = guarded_point(teacher, &model, eval, truth, &ropts, p, profile, predicted)?;
+            match point {
+                Some(rec) => records.push(Record {
+                    method: format!("{}+guard", m.name()),
+                    features: f,
+                    compile_s,
+                    ..rec
+                }),
+                None => skipped.push((
+                    format!("{}+guard", m.name()),
+                    f,
+                    format!(
+                        "no guard reaches agreement {p} with 95% confidence on the {} calibration audit rows, even sending every row to the exact model",
+                        teacher.raw().nrows() / 10
+                    ),
+                )),
+            }
+        }
         obs.advance(1);
     }
     obs.finish();

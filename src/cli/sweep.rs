@@ -50,6 +50,11 @@ pub(crate) struct Args {
     /// decision RMSE must stay below 1 − P).
     #[arg(long, default_value_t = 0.99)]
     min_agreement: f64,
+    /// Also plot each candidate guarded by the exact model (classifiers): the threshold
+    /// that keeps agreement at least P on the calibration audit rows (one-sided 95%
+    /// bound); its point is placed at the mean single-row latency.
+    #[arg(long)]
+    guard_agreement: Option<f64>,
     /// Measure this machine again instead of using the cached profile.
     #[arg(long)]
     recalibrate: bool,
@@ -67,6 +72,13 @@ pub(crate) fn run(a: Args) -> Result<()> {
             "--min-agreement {} must be between 0 and 1",
             a.min_agreement
         )));
+    }
+    if let Some(p) = a.guard_agreement {
+        if !(p > 0.0 && p < 1.0) {
+            return Err(Error::input(format!(
+                "--guard-agreement {p} must be in (0, 1)"
+            )));
+        }
     }
     if a.features.iter().any(|&f| f == 0 || f > 1 << 20) {
         return Err(Error::input(
@@ -134,6 +146,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
             min_agreement: a.min_agreement,
             ..ReportOptions::default()
         },
+        guard_agreement: a.guard_agreement,
     };
     let s = run_sweep(
         &teacher,
