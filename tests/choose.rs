@@ -7,7 +7,6 @@ mod common;
 use common::*;
 use kernelpress::choose::{pareto_front, search, spearman, Budget, Choice, SearchOptions};
 use kernelpress::cost::{predict_compiled, MachineProfile};
-use kernelpress::data::read_for_model;
 use kernelpress::features::{FeatureSpec, Method};
 use kernelpress::fit::{audit_row, RidgeGrid, Teacher};
 use kernelpress::model::{label_indices, ExactModel};
@@ -17,17 +16,7 @@ use ndarray::{s, Array2, Axis};
 use std::path::Path;
 
 fn demo() -> (ExactModel, Array2<f64>) {
-    let exact = ExactModel::load(&root().join("models/pump_svm.safetensors")).unwrap();
-    let calib = read_for_model(
-        &root().join("models/pump_calib.csv"),
-        None,
-        &exact.feature_names,
-        false,
-    )
-    .unwrap()
-    .table
-    .x;
-    (exact, calib)
+    (demo_exact(), demo_rows("pump_calib.csv"))
 }
 
 #[test]
@@ -461,16 +450,4 @@ fn sweep_writes_json_svg_and_a_page_a_browser_renders() {
         px.len() > 1000 && distinct > 20,
         "blank screenshot ({distinct} byte values)"
     );
-}
-
-/// Runs a one-line Python program in the reference environment.
-fn py_inline(code: &str, args: &[&str]) -> String {
-    let o = std::process::Command::new(python())
-        .arg("-c")
-        .arg(code)
-        .args(args)
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    String::from_utf8_lossy(&o.stdout).to_string()
 }

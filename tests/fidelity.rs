@@ -7,7 +7,7 @@ mod common;
 use common::*;
 use kernelpress::features::{FeatureSpec, Landmarks, Method};
 use kernelpress::fit::{audit_row, row_part, Part, RidgeGrid, Teacher, BANDWIDTH_MULTIPLES};
-use kernelpress::model::{CompiledModel, ExactModel};
+use kernelpress::model::CompiledModel;
 use kernelpress::observe::Silent;
 use ndarray::Array2;
 
@@ -60,16 +60,8 @@ fn audit_rows_never_enter_the_fit() {
     assert_eq!(parts.iter().filter(|p| **p == Part::Skip).count(), 2);
     assert_eq!(parts.iter().filter(|p| **p == Part::Choose).count(), 2);
     // Changing only the audit rows' targets leaves the fitted head unchanged.
-    let exact = ExactModel::load(&root().join("models/pump_svm.safetensors")).unwrap();
-    let x = kernelpress::data::read_for_model(
-        &root().join("models/pump_calib.csv"),
-        None,
-        &exact.feature_names,
-        false,
-    )
-    .unwrap()
-    .table
-    .x;
+    let exact = demo_exact();
+    let x = demo_rows("pump_calib.csv");
     let x = x.slice(ndarray::s![..1000, ..]).to_owned();
     let spec = FeatureSpec::new(
         exact.kernel().clone(),
@@ -96,16 +88,8 @@ fn audit_rows_never_enter_the_fit() {
 
 #[test]
 fn support_vector_landmarks_come_from_the_teacher() {
-    let exact = ExactModel::load(&root().join("models/pump_svm.safetensors")).unwrap();
-    let x = kernelpress::data::read_for_model(
-        &root().join("models/pump_calib.csv"),
-        None,
-        &exact.feature_names,
-        false,
-    )
-    .unwrap()
-    .table
-    .x;
+    let exact = demo_exact();
+    let x = demo_rows("pump_calib.csv");
     let x = x.slice(ndarray::s![..600, ..]).to_owned();
     let t = Teacher::new(&exact, x.view(), &Silent).unwrap();
     let mut spec = FeatureSpec::new(

@@ -6,7 +6,6 @@
 mod common;
 
 use common::*;
-use kernelpress::data::read_for_model;
 use kernelpress::features::{FeatureSpec, Method};
 use kernelpress::fit::{audit_row, RidgeGrid, Teacher};
 use kernelpress::model::guarded::{
@@ -17,20 +16,11 @@ use kernelpress::observe::Silent;
 use ndarray::{Array2, Axis};
 
 fn demo() -> (ExactModel, Array2<f64>, Array2<f64>) {
-    let exact = ExactModel::load(&root().join("models/pump_svm.safetensors")).unwrap();
-    let read = |f: &str| {
-        read_for_model(
-            &root().join(f),
-            Some("condition"),
-            &exact.feature_names,
-            false,
-        )
-        .unwrap()
-        .table
-        .x
-    };
-    let (c, t) = (read("models/pump_calib.csv"), read("models/pump_test.csv"));
-    (exact, c, t)
+    (
+        demo_exact(),
+        demo_rows("pump_calib.csv"),
+        demo_rows("pump_test.csv"),
+    )
 }
 
 /// A deliberately weak compiled model (64 random Fourier features), so the guard has work.
@@ -140,17 +130,6 @@ fn one_sided_bound_matches_scipy_wilson() {
         let got = wilson_lower_one_sided(k, n);
         assert!((got - want).abs() < 1e-9, "{k}/{n}: {got} vs scipy {want}");
     }
-}
-
-fn py_inline(code: &str, args: &[&str]) -> String {
-    let o = std::process::Command::new(python())
-        .arg("-c")
-        .arg(code)
-        .args(args)
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    String::from_utf8_lossy(&o.stdout).to_string()
 }
 
 #[test]

@@ -5,7 +5,6 @@ use super::featurize::{read_landmarks, MapArgs};
 use clap::ValueEnum;
 use kernelpress::choose::{search, Budget, Choice, SearchOptions};
 use kernelpress::data::{check_batch, read_table, write_all_atomic};
-use kernelpress::features::{methods_for, Method};
 use kernelpress::fit::{
     audit_row, check_statistics_memory, compile_exact, compile_labels, HeadKind, RidgeGrid,
     Teacher, BANDWIDTH_MULTIPLES,
@@ -390,14 +389,7 @@ fn run_guard(
         g.compact().features(),
         exact.n_support_vectors()
     ));
-    super::print_stdout(&text)?;
-    match gate {
-        Some(why) => Err(Error::new(
-            ErrorKind::Gate,
-            format!("{why}; the model was written to {}", a.out.display()),
-        )),
-        None => Ok(()),
-    }
+    super::finish_gate(&text, gate, &a.out)
 }
 
 /// Builds the report (on --eval, else on the calibration audit rows), applies the gate
@@ -477,24 +469,7 @@ fn run_budget(
         }
     }
     let kernel = exact.kernel().clone();
-    let methods: Vec<Method> = if a.methods.is_empty() {
-        methods_for(&kernel)
-            .into_iter()
-            .filter(|m| *m != Method::Identity)
-            .collect()
-    } else {
-        a.methods
-            .iter()
-            .map(|m| Method::parse(m.trim()))
-            .collect::<Result<_>>()?
-    };
-    for m in &methods {
-        if !methods_for(&kernel).contains(m) {
-            return Err(Error::input(format!(
-                "--methods: {m} cannot serve kernel {kernel}"
-            )));
-        }
-    }
+    let methods = super::methods_arg(&a.methods, &kernel)?;
     let budget = Budget {
         latency_us: a.budget_us,
         max_bytes,
@@ -654,14 +629,7 @@ fn finish(
         if model.program().len() == 1 { "" } else { "s" },
         model.parameter_bytes()
     ));
-    super::print_stdout(&text)?;
-    match gate {
-        Some(why) => Err(Error::new(
-            ErrorKind::Gate,
-            format!("{why}; the model was written to {}", a.out.display()),
-        )),
-        None => Ok(()),
-    }
+    super::finish_gate(&text, gate, &a.out)
 }
 
 fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {

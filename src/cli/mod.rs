@@ -277,3 +277,44 @@ pub(crate) fn kernel_arg(s: &str) -> Result<kernelpress::kernel::Kernel> {
     s.parse()
         .map_err(|e: Error| e.context(format!("--kernel '{s}'")))
 }
+
+/// The methods of `--methods` (default: every method for the kernel but identity), each
+/// checked to serve `kernel`.
+pub(crate) fn methods_arg(
+    names: &[String],
+    kernel: &kernelpress::kernel::Kernel,
+) -> Result<Vec<kernelpress::features::Method>> {
+    use kernelpress::features::{methods_for, Method};
+    let all = methods_for(kernel);
+    let methods: Vec<Method> = if names.is_empty() {
+        all.iter()
+            .copied()
+            .filter(|m| *m != Method::Identity)
+            .collect()
+    } else {
+        names
+            .iter()
+            .map(|m| Method::parse(m.trim()))
+            .collect::<Result<_>>()?
+    };
+    for m in &methods {
+        if !all.contains(m) {
+            return Err(Error::input(format!(
+                "--methods: {m} cannot serve kernel {kernel}"
+            )));
+        }
+    }
+    Ok(methods)
+}
+
+/// Prints `text` and turns a failed gate into exit code 3, after the model was written.
+pub(crate) fn finish_gate(text: &str, gate: Option<String>, out: &std::path::Path) -> Result<()> {
+    print_stdout(text)?;
+    match gate {
+        Some(why) => Err(Error::new(
+            ErrorKind::Gate,
+            format!("{why}; the model was written to {}", out.display()),
+        )),
+        None => Ok(()),
+    }
+}

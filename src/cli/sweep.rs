@@ -5,7 +5,6 @@
 use super::progress;
 use kernelpress::choose::{recommend, render_page, render_svg, run_sweep, SweepOptions};
 use kernelpress::data::write_all_atomic;
-use kernelpress::features::{methods_for, Method};
 use kernelpress::fit::{RidgeGrid, Teacher};
 use kernelpress::model::ExactModel;
 use kernelpress::report::ReportOptions;
@@ -104,24 +103,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     }
     let exact = ExactModel::load(&a.model)?;
     let kernel = exact.kernel().clone();
-    let methods: Vec<Method> = if a.methods.is_empty() {
-        methods_for(&kernel)
-            .into_iter()
-            .filter(|m| *m != Method::Identity)
-            .collect()
-    } else {
-        a.methods
-            .iter()
-            .map(|m| Method::parse(m.trim()))
-            .collect::<Result<_>>()?
-    };
-    for m in &methods {
-        if !methods_for(&kernel).contains(m) {
-            return Err(Error::input(format!(
-                "--methods: {m} cannot serve kernel {kernel}"
-            )));
-        }
-    }
+    let methods = super::methods_arg(&a.methods, &kernel)?;
     let calib = super::read_for(
         &a.calib,
         a.target.as_deref(),

@@ -131,3 +131,35 @@ pub fn write_csv(
     }
     std::fs::write(path, t).unwrap();
 }
+
+/// Runs a short Python program (`-c`) in the reference environment; returns stdout.
+pub fn py_inline(code: &str, args: &[&str]) -> String {
+    let o = Command::new(python())
+        .arg("-c")
+        .arg(code)
+        .args(args)
+        .output()
+        .expect("run python");
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    String::from_utf8_lossy(&o.stdout).to_string()
+}
+
+/// The demo's exact model.
+pub fn demo_exact() -> kernelpress::model::ExactModel {
+    kernelpress::model::ExactModel::load(&root().join("models/pump_svm.safetensors")).unwrap()
+}
+
+/// The feature rows of a demo data file (under `models/`), columns matched to the demo
+/// model's by name.
+pub fn demo_rows(file: &str) -> ndarray::Array2<f64> {
+    let names = demo_exact().feature_names;
+    kernelpress::data::read_for_model(
+        &root().join("models").join(file),
+        Some("condition"),
+        &names,
+        false,
+    )
+    .unwrap()
+    .table
+    .x
+}
