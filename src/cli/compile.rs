@@ -364,13 +364,8 @@ fn run_guard(
     }
     text.push_str(&report::render_text(&rep));
     text.push('\n');
-    if gate.is_some() && a.discard_below_gate {
-        text.push_str(&format!(
-            "not written: {} (--discard-below-gate)\n",
-            a.out.display()
-        ));
-        super::print_stdout(&text)?;
-        return Err(Error::new(ErrorKind::Gate, gate.unwrap_or_default()));
+    if let (Some(why), true) = (&gate, a.discard_below_gate) {
+        return discard(&mut text, a, why);
     }
     let mut stored = rep.without_timing();
     stored.warnings.clear();
@@ -603,13 +598,8 @@ fn finish(
         text.push_str(&report::render_text(r));
         text.push('\n');
     }
-    if gate.is_some() && a.discard_below_gate {
-        text.push_str(&format!(
-            "not written: {} (--discard-below-gate)\n",
-            a.out.display()
-        ));
-        super::print_stdout(&text)?;
-        return Err(Error::new(ErrorKind::Gate, gate.unwrap_or_default()));
+    if let (Some(why), true) = (&gate, a.discard_below_gate) {
+        return discard(&mut text, a, why);
     }
     // The model and the JSON report are published together, or neither.
     let bytes = model.to_file().to_bytes()?;
@@ -687,4 +677,14 @@ fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {
     model.save(&a.out)?;
     msg.push_str(&format!("\nwrote {}\n", a.out.display()));
     super::print_stdout(&msg)
+}
+
+/// `--discard-below-gate` with a failed gate: say so, write nothing, exit 3.
+fn discard(text: &mut String, a: &Args, why: &str) -> Result<()> {
+    text.push_str(&format!(
+        "not written: {} (--discard-below-gate)\n",
+        a.out.display()
+    ));
+    super::print_stdout(text)?;
+    Err(Error::new(ErrorKind::Gate, why.to_string()))
 }
