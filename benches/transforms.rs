@@ -1,7 +1,9 @@
 //! Benchmarks: the Walsh–Hadamard transform against rustfft's complex FFT of the same length
-//! (f32, 2^8 … 2^16), and each feature map's throughput for d = 784, D = 4096.
+//! (f32, 2^8 … 2^16), each feature map's throughput for d = 784, D = 4096, and a Gaussian
+//! Gram row with the vectorised exponential against the standard library's `exp`.
 //!
-//! Run: `cargo bench --bench transforms` (add `-- wht` or `-- maps` to pick a group).
+//! Run: `cargo bench --bench transforms` (add `-- wht`, `-- maps` or `-- gauss_row` to pick
+//! a group).
 
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
 use kernelpress::features::{FeatureSpec, Method};
@@ -70,5 +72,38 @@ fn maps(c: &mut Criterion) {
     g.finish();
 }
 
-criterion_group!(benches, wht_vs_fft, maps);
+/// One row of a Gaussian Gram block (4,825 entries, the Fashion-MNIST teacher's support
+/// vectors) from its inner products: the vectorised exponential against the standard
+/// library's `exp` per entry, same inputs.
+fn gaussian_rows(c: &mut Criterion) {
+    let n = 4825;
+    let qb: Vec<f64> = (0..n)
+        .map(|j| 700.0 + (j as f64 * 0.37).sin() * 50.0)
+        .collect();
+    let dots: Vec<f64> = (0..n)
+        .map(|j| 300.0 + (j as f64 * 0.11).cos() * 40.0)
+        .collect();
+    let qa = 690.0;
+    let half = 0.5 * 0.0012755;
+    let mut g = c.benchmark_group("gauss_row");
+    g.throughput(Throughput::Elements(n as u64));
+    let mut v = dots.clone();
+    g.bench_function("vectorised", |b| {
+        b.iter(|| {
+            v.copy_from_slice(&dots);
+            kernelpress::transform::expo::gaussian_row(black_box(&mut v), qa, &qb, half)
+        })
+    });
+    g.bench_function("libm_exp", |b| {
+        b.iter(|| {
+            v.copy_from_slice(&dots);
+            for (x, q) in black_box(&mut v).iter_mut().zip(&qb) {
+                *x = (-half * (qa + q - 2.0 * *x).max(0.0)).exp();
+            }
+        })
+    });
+    g.finish();
+}
+
+criterion_group!(benches, wht_vs_fft, maps, gaussian_rows);
 criterion_main!(benches);
