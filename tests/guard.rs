@@ -249,4 +249,48 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
         s(&d.join("x.safetensors")),
     ]);
     assert!(err.contains("--guard-agreement"), "{err}");
+    // A regression model has no margin: refused before any work, nothing written.
+    let rows: Vec<Vec<f64>> = (0..60)
+        .map(|i| vec![(i as f64 * 0.37).sin(), (i as f64 * 0.11).cos()])
+        .collect();
+    let y: Vec<String> = rows
+        .iter()
+        .map(|r| format!("{}", r[0] - 2.0 * r[1]))
+        .collect();
+    let data = d.join("reg.csv");
+    write_csv(&data, &["a", "b"], &rows, Some(("y", &y)));
+    let reg = d.join("reg.safetensors");
+    ok(&[
+        "train",
+        "--data",
+        s(&data),
+        "--target",
+        "y",
+        "--kernel",
+        "gaussian(gamma=1)",
+        "--model",
+        "ridge",
+        "--ridge",
+        "0.1",
+        "--out",
+        s(&reg),
+    ]);
+    let err = bad(&[
+        "compile",
+        s(&reg),
+        "--calib",
+        s(&data),
+        "--target",
+        "y",
+        "--method",
+        "fourier",
+        "--features",
+        "16",
+        "--guard-rate",
+        "0.1",
+        "--out",
+        s(&d.join("rg.safetensors")),
+    ]);
+    assert!(err.contains("needs a classifier"), "{err}");
+    assert!(!d.join("rg.safetensors").exists());
 }
