@@ -84,9 +84,28 @@ unsafe fn scaled_avx512(p: &[f64], f: f64, cos_out: &mut [f64], sin_out: &mut [f
 /// # Panics
 /// If the slices have different lengths.
 pub fn scaled_sin_cos(p: &[f64], f: f64, cos_out: &mut [f64], sin_out: &mut [f64]) {
+    scaled_sin_cos_at(crate::simd::level(), p, f, cos_out, sin_out)
+}
+
+/// [`scaled_sin_cos`] with the instruction-set level forced (tests run every level).
+///
+/// # Panics
+/// If the slices have different lengths, or this CPU cannot run `level`.
+pub fn scaled_sin_cos_at(
+    level: crate::simd::Level,
+    p: &[f64],
+    f: f64,
+    cos_out: &mut [f64],
+    sin_out: &mut [f64],
+) {
     assert!(
         p.len() == cos_out.len() && p.len() == sin_out.len(),
         "sin_cos: lengths differ"
+    );
+    assert!(
+        level <= crate::simd::detected(),
+        "this CPU cannot run the {} path",
+        level.name()
     );
     if p.iter().any(|x| !(x.abs() <= LIMIT)) {
         for ((x, c), s) in p.iter().zip(cos_out.iter_mut()).zip(sin_out.iter_mut()) {
@@ -96,8 +115,8 @@ pub fn scaled_sin_cos(p: &[f64], f: f64, cos_out: &mut [f64], sin_out: &mut [f64
         }
         return;
     }
-    match crate::simd::level() {
-        // SAFETY: the level was detected at run time (AVX2 implies FMA there).
+    match level {
+        // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
         #[cfg(target_arch = "x86_64")]
         crate::simd::Level::Avx512 => unsafe { scaled_avx512(p, f, cos_out, sin_out) },
         #[cfg(target_arch = "x86_64")]
@@ -109,6 +128,30 @@ pub fn scaled_sin_cos(p: &[f64], f: f64, cos_out: &mut [f64], sin_out: &mut [f64
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Every instruction-set copy this CPU can run, forced in turn, against the standard
+    /// library (an independent reference, not another copy).
+    #[test]
+    fn every_level_matches_the_standard_library() {
+        let p: Vec<f64> = (0..1001).map(|i| (i as f64 - 500.0) * 0.731).collect();
+        for level in crate::simd::available() {
+            let (mut c, mut s) = (vec![0.0; p.len()], vec![0.0; p.len()]);
+            scaled_sin_cos_at(level, &p, 0.5, &mut c, &mut s);
+            for i in 0..p.len() {
+                let (s0, c0) = p[i].sin_cos();
+                assert!(
+                    (s[i] - 0.5 * s0).abs() < 1e-15 && (c[i] - 0.5 * c0).abs() < 1e-15,
+                    "{} at {}: ({}, {}) vs ({}, {})",
+                    level.name(),
+                    p[i],
+                    s[i],
+                    c[i],
+                    0.5 * s0,
+                    0.5 * c0
+                );
+            }
+        }
+    }
 
     #[test]
     fn matches_the_standard_library() {

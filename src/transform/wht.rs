@@ -256,6 +256,33 @@ mod tests {
         }
     }
 
+    /// Every instruction-set copy this CPU can run, forced in turn, against the definition
+    /// (not against another copy).
+    #[test]
+    fn every_level_matches_the_definition() {
+        for level in crate::simd::available() {
+            for k in [0, 1, 3, 5, 8, 10] {
+                let n = 1usize << k;
+                let x: Vec<f64> = (0..n).map(|i| ((i * 11 + 2) as f64 * 0.43).cos()).collect();
+                let want = wht_reference(&x);
+                let mut got = x.clone();
+                wht_in_place_at(level, &mut got);
+                for (a, b) in got.iter().zip(&want) {
+                    assert!((a - b).abs() <= 1e-12 * n as f64, "{} n={n}", level.name());
+                }
+                let mut g32: Vec<f32> = x.iter().map(|v| *v as f32).collect();
+                wht_in_place_at(level, &mut g32);
+                for (a, b) in g32.iter().zip(&want) {
+                    assert!(
+                        (*a as f64 - b).abs() <= 1e-5 * n as f64,
+                        "{} f32 n={n}",
+                        level.name()
+                    );
+                }
+            }
+        }
+    }
+
     #[test]
     #[should_panic(expected = "power-of-two")]
     fn rejects_other_lengths() {
