@@ -41,6 +41,67 @@ pub fn add_weighted_rows(z: &[f64], w: &[f64], out: &mut [f64]) {
     }
 }
 
+#[inline(always)]
+fn weighted_rows_f32_body(z: &[f32], w: &[f32], out: &mut [f32]) {
+    let k = out.len();
+    for (zi, row) in z.iter().zip(w.chunks_exact(k)) {
+        for (o, wv) in out.iter_mut().zip(row) {
+            *o += zi * wv;
+        }
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn weighted_rows_f32_avx2(z: &[f32], w: &[f32], out: &mut [f32]) {
+    weighted_rows_f32_body(z, w, out)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,fma")]
+unsafe fn weighted_rows_f32_avx512(z: &[f32], w: &[f32], out: &mut [f32]) {
+    weighted_rows_f32_body(z, w, out)
+}
+
+/// [`add_weighted_rows`] in f32, vectorised for the CPU's level (the sums may differ in the
+/// last bits between levels: fused multiply-adds round once).
+///
+/// # Panics
+/// If `w.len() != z.len() · out.len()`.
+#[track_caller]
+pub fn add_weighted_rows_f32(z: &[f32], w: &[f32], out: &mut [f32]) {
+    add_weighted_rows_f32_at(crate::simd::level(), z, w, out)
+}
+
+/// [`add_weighted_rows_f32`] with the instruction-set level forced (tests run every level).
+///
+/// # Panics
+/// If the shapes differ or this CPU cannot run `level`.
+#[track_caller]
+pub fn add_weighted_rows_f32_at(level: crate::simd::Level, z: &[f32], w: &[f32], out: &mut [f32]) {
+    assert_eq!(
+        w.len(),
+        z.len() * out.len(),
+        "add_weighted_rows_f32: shapes differ"
+    );
+    assert!(
+        level <= crate::simd::detected(),
+        "this CPU cannot run the {} path",
+        level.name()
+    );
+    if out.is_empty() {
+        return;
+    }
+    match level {
+        // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
+        #[cfg(target_arch = "x86_64")]
+        crate::simd::Level::Avx512 => unsafe { weighted_rows_f32_avx512(z, w, out) },
+        #[cfg(target_arch = "x86_64")]
+        crate::simd::Level::Avx2 => unsafe { weighted_rows_f32_avx2(z, w, out) },
+        _ => weighted_rows_f32_body(z, w, out),
+    }
+}
+
 /// `a · bᵀ`, sequential, for one chunk. Panics if the inner dimensions differ.
 #[track_caller]
 pub fn abt_seq(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
@@ -288,6 +349,38 @@ mod tests {
         let r = q.t().dot(&a);
         for j in 0..6 {
             assert!(r[[j, j]] >= 0.0);
+        }
+    }
+}
+
+#[cfg(test)]
+mod f32_head_tests {
+    use super::*;
+
+    /// Every level this CPU runs against the f64 sums of the same numbers (an independent
+    /// reference): f32 rounding only.
+    #[test]
+    fn every_level_matches_the_f64_sums() {
+        let (d, k) = (1031, 45);
+        let z: Vec<f32> = (0..d).map(|i| ((i * 7) as f32 * 0.013).sin()).collect();
+        let w: Vec<f32> = (0..d * k)
+            .map(|i| ((i * 3) as f32 * 0.0071).cos() * 0.1)
+            .collect();
+        let z64: Vec<f64> = z.iter().map(|v| *v as f64).collect();
+        let w64: Vec<f64> = w.iter().map(|v| *v as f64).collect();
+        let mut want = vec![0.0f64; k];
+        add_weighted_rows(&z64, &w64, &mut want);
+        let mass: f64 = z64.iter().map(|v| v.abs()).sum::<f64>() * 0.1;
+        for level in crate::simd::available() {
+            let mut got = vec![0.0f32; k];
+            add_weighted_rows_f32_at(level, &z, &w, &mut got);
+            for (c, (a, b)) in got.iter().zip(&want).enumerate() {
+                assert!(
+                    (*a as f64 - b).abs() <= 1e-5 * mass,
+                    "{} output {c}: {a} vs {b}",
+                    level.name()
+                );
+            }
         }
     }
 }

@@ -123,6 +123,8 @@ fn compile_report_score_agree_and_match_numpy() {
             "throughput_rows_per_s_compiled",
             "speedup_single",
             "speedup_batch",
+            "latency_us_compiled_f32_p50",
+            "agreement_f32",
         ] {
             let v = r[key].as_f64();
             assert!(

@@ -33,6 +33,8 @@ pub struct CompiledModel {
     features: usize,
     program: Program,
     head: Array2<f64>,
+    /// The head in f32 (converted once at construction) for the f32 scoring path.
+    head32: Vec<f32>,
     intercept: Vec<f64>,
     rule: OutputRule,
     scaling: Option<Standardizer>,
@@ -123,11 +125,13 @@ impl CompiledModel {
             )));
         }
         check_scaling(scaling.as_ref(), d)?;
+        let head32 = head.iter().map(|v| *v as f32).collect();
         Ok(CompiledModel {
             spec,
             features,
             program,
             head,
+            head32,
             intercept,
             rule,
             scaling,
@@ -238,6 +242,33 @@ impl CompiledModel {
             .expect("the head is kept in standard layout");
         linalg::add_weighted_rows(&z, w, &mut out);
         out
+    }
+
+    /// Decision values for one raw row with the head in f32: the program runs in f64, its
+    /// features are rounded to f32 and go through the f32 head with f32 sums (half the
+    /// head's bytes; the f64 path stays the reference). The report measures this path's
+    /// latency and its agreement with the exact model.
+    pub fn decision_one_f32(&self, x: &[f64]) -> Vec<f64> {
+        let xs: Vec<f64> = match &self.scaling {
+            Some(s) => x
+                .iter()
+                .enumerate()
+                .map(|(j, v)| (v - s.mean[j]) / s.scale[j])
+                .collect(),
+            None => x.to_vec(),
+        };
+        let z: Vec<f32> = self
+            .program
+            .apply_one(&xs)
+            .iter()
+            .map(|v| *v as f32)
+            .collect();
+        let mut out = vec![0f32; self.intercept.len()];
+        linalg::add_weighted_rows_f32(&z, &self.head32, &mut out);
+        out.iter()
+            .zip(&self.intercept)
+            .map(|(o, b)| *o as f64 + b)
+            .collect()
     }
 
     /// Labels of decision values (empty strings for regression).

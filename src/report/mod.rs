@@ -41,6 +41,9 @@ pub struct Timing {
     pub speedup_batch: Option<f64>,
     /// Threads used by the batched measurements.
     pub threads: Option<usize>,
+    /// Compiled model with its head in f32, single row, median (µs).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub latency_us_compiled_f32_p50: Option<f64>,
     /// Guarded models: mean single-row latency of the exact model (µs).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub latency_us_exact_mean: Option<f64>,
@@ -127,6 +130,13 @@ pub struct Report {
     /// moves decisions by about this × 2⁻²⁴ of their scale.
     #[serde(default)]
     pub head_cancellation: f64,
+    /// Label agreement with the exact model (f64) of the compiled model scored with its
+    /// head in f32 (classifiers).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub agreement_f32: Option<f64>,
+    /// Largest decision-value difference between the f32-head and the f64 compiled paths.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub f32_max_abs_difference: Option<f64>,
     /// Guarded models: share of rows answered by each stage (compiled, exact).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub stage_shares: Option<Vec<f64>>,
@@ -176,6 +186,9 @@ pub fn build_guarded(
     };
     let mut r = build(g.compact(), exact, x, truth, Some(se.clone()), &quiet)?;
     let (sg, stage) = g.decision(x);
+    // The f32-head figures describe a compiled model alone, not the guard.
+    r.agreement_f32 = None;
+    r.f32_max_abs_difference = None;
     let (rmse, r2, maxe) = decision_errors(se.view(), sg.view());
     r.decision_rmse = rmse;
     r.decision_r2 = r2.is_finite().then_some(r2);
@@ -219,6 +232,7 @@ pub fn build_guarded(
             speedup_single: Some(et.single.p50_us / c1.p50_us),
             speedup_batch: Some(cb / et.rows_per_s),
             threads: Some(rayon::current_num_threads()),
+            latency_us_compiled_f32_p50: None,
             latency_us_exact_mean: Some(e_mean.mean_us),
             latency_us_compiled_mean: Some(c1.mean_us),
             speedup_mean: Some(e_mean.mean_us / c1.mean_us),
@@ -420,6 +434,8 @@ pub fn build(
         n_rows: n,
         changed_decisions: Vec::new(),
         head_cancellation: cancellation,
+        agreement_f32: None,
+        f32_max_abs_difference: None,
         stage_shares: None,
         stage_agreement: None,
         warnings: Vec::new(),
@@ -435,12 +451,30 @@ pub fn build(
         ));
     }
     label_figures(&mut r, exact, se.view(), sc.view(), truth, opts);
+    // The f32-head path, row by row, against the exact model and the f64 path.
+    let mut s32 = Array2::<f64>::zeros(sc.dim());
+    for (i, row) in x.rows().into_iter().enumerate() {
+        let v = match row.as_slice() {
+            Some(sl) => compiled.decision_one_f32(sl),
+            None => compiled.decision_one_f32(&row.to_vec()),
+        };
+        s32.row_mut(i).assign(&ndarray::ArrayView1::from(&v));
+    }
+    r.f32_max_abs_difference = Some((&s32 - &sc).iter().fold(0.0f64, |m, v| m.max(v.abs())));
+    if exact.task().is_classifier() {
+        let k = exact.labels().len();
+        let le = label_indices(exact.task(), k, se.view());
+        let l32 = label_indices(exact.task(), k, s32.view());
+        r.agreement_f32 =
+            Some(le.iter().zip(&l32).filter(|(a, b)| a == b).count() as f64 / n.max(1) as f64);
+    }
     if opts.timing {
         let et = opts
             .exact_timing
             .unwrap_or_else(|| measure_exact(exact, x, opts));
         let (e1, eb) = (et.single, et.rows_per_s);
         let c1 = measure_single(x, opts.reps * 4, |row| compiled.decision_one(row));
+        let c32 = measure_single(x, opts.reps * 4, |row| compiled.decision_one_f32(row));
         let cb = measure_batch(x, |b| compiled.decision(b));
         r.timing = Timing {
             latency_us_exact_p50: Some(e1.p50_us),
@@ -452,6 +486,7 @@ pub fn build(
             speedup_single: Some(e1.p50_us / c1.p50_us),
             speedup_batch: Some(cb / eb),
             threads: Some(rayon::current_num_threads()),
+            latency_us_compiled_f32_p50: Some(c32.p50_us),
             ..Timing::default()
         };
     }

@@ -91,6 +91,12 @@ pub fn render_text(r: &Report) -> String {
             100.0 * sh.get(1).copied().unwrap_or(0.0)
         ));
     }
+    if let (Some(a), Some(d)) = (r.agreement_f32, r.f32_max_abs_difference) {
+        s.push_str(&format!(
+            "  with the head in f32            agreement {a:.4}; decisions move by at most {} from the f64 path\n",
+            sig3(d)
+        ));
+    }
     if let (Some(e), Some(c)) = (r.accuracy_exact, r.accuracy_compiled) {
         s.push_str(&format!(
             "  accuracy                        exact {e:.4}, compiled {c:.4} ({:+.2} points)\n      share of rows given the true label\n",
@@ -138,6 +144,15 @@ pub fn render_text(r: &Report) -> String {
             &format!("{} µs", sig3(e)),
             &format!("{} µs", sig3(c)),
             &speed,
+        );
+    }
+    if let (Some(e), Some(c)) = (t.latency_us_exact_p50, t.latency_us_compiled_f32_p50) {
+        row(
+            &mut s,
+            "  with the head in f32",
+            "",
+            &format!("{} µs", sig3(c)),
+            &format!("{}× faster", sig3(e / c)),
         );
     }
     if let (Some(e), Some(c)) = (t.latency_us_exact_mean, t.latency_us_compiled_mean) {
