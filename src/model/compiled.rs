@@ -224,16 +224,21 @@ impl CompiledModel {
         })
     }
 
-    /// Decision values for one raw row, sequentially (single-row latency).
-    pub fn decision_one(&self, x: &[f64]) -> Vec<f64> {
-        let xs: Vec<f64> = match &self.scaling {
+    /// One raw row in the model's scaled input space.
+    fn scaled_row(&self, x: &[f64]) -> Vec<f64> {
+        match &self.scaling {
             Some(s) => x
                 .iter()
                 .enumerate()
                 .map(|(j, v)| (v - s.mean[j]) / s.scale[j])
                 .collect(),
             None => x.to_vec(),
-        };
+        }
+    }
+
+    /// Decision values for one raw row, sequentially (single-row latency).
+    pub fn decision_one(&self, x: &[f64]) -> Vec<f64> {
+        let xs = self.scaled_row(x);
         let z = self.program.apply_one(&xs);
         let mut out = self.intercept.clone();
         let w = self
@@ -249,14 +254,7 @@ impl CompiledModel {
     /// head's bytes; the f64 path stays the reference). The report measures this path's
     /// latency and its agreement with the exact model.
     pub fn decision_one_f32(&self, x: &[f64]) -> Vec<f64> {
-        let xs: Vec<f64> = match &self.scaling {
-            Some(s) => x
-                .iter()
-                .enumerate()
-                .map(|(j, v)| (v - s.mean[j]) / s.scale[j])
-                .collect(),
-            None => x.to_vec(),
-        };
+        let xs = self.scaled_row(x);
         let z: Vec<f32> = self
             .program
             .apply_one(&xs)
