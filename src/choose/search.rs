@@ -11,7 +11,7 @@ use crate::model::{label_indices, CompiledModel};
 use crate::observe::{Observer, Silent};
 use crate::report::measure_single;
 use crate::{Error, Result};
-use ndarray::{Array2, ArrayView2, Axis};
+use ndarray::ArrayView2;
 use std::time::Instant;
 
 /// The constraints of a search (at least one).
@@ -155,9 +155,7 @@ pub fn search(
     let classifier = exact.task().is_classifier();
     let k = exact.labels().len();
     let n = teacher.raw().nrows();
-    let idx: Vec<usize> = (0..n).filter(|&i| audit_row(i)).collect();
-    let xv: Array2<f64> = teacher.raw().select(Axis(0), &idx);
-    let yv: Array2<f64> = teacher.decisions().select(Axis(0), &idx);
+    let (xv, yv) = teacher.rows_where(audit_row);
     let reps = opts.reps.max(20);
     let el = measure_single(xv.view(), reps, |r| exact.decision_one(r));
     let exact_rec = Record {

@@ -10,7 +10,7 @@ use crate::model::{CompiledModel, GuardedModel};
 use crate::observe::{Observer, Silent};
 use crate::report::{self, measure_exact, ReportOptions};
 use crate::{Error, Result};
-use ndarray::{ArrayView2, Axis};
+use ndarray::ArrayView2;
 use std::time::Instant;
 
 /// What to sweep.
@@ -61,11 +61,7 @@ fn guarded_point(
     predicted: Prediction,
 ) -> Result<Option<Record>> {
     let exact = teacher.exact();
-    let idx: Vec<usize> = (0..teacher.raw().nrows())
-        .filter(|&i| audit_row(i))
-        .collect();
-    let xa = teacher.raw().select(Axis(0), &idx);
-    let ya = teacher.decisions().select(Axis(0), &idx);
+    let (xa, ya) = teacher.rows_where(audit_row);
     let sc = model.decision(xa.view());
     let k = exact.labels().len();
     let Some((t, share)) = threshold_for_agreement(exact.task(), k, sc.view(), ya.view(), p) else {

@@ -118,6 +118,13 @@ impl<'a> Teacher<'a> {
         self.y.view()
     }
 
+    /// The calibration rows (raw) whose index satisfies `keep`, with the exact model's
+    /// decision values on them (e.g. the audit rows: `rows_where(audit_row)`).
+    pub fn rows_where(&self, keep: impl Fn(usize) -> bool) -> (Array2<f64>, Array2<f64>) {
+        let idx: Vec<usize> = (0..self.raw.nrows()).filter(|&i| keep(i)).collect();
+        (self.raw.select(Axis(0), &idx), self.y.select(Axis(0), &idx))
+    }
+
     /// Distils a head for `spec` (landmarks from `landmarks`, raw, when given, else from the
     /// calibration rows).
     pub fn distil(
@@ -244,11 +251,7 @@ impl Teacher<'_> {
         if !tunable {
             return self.distil(spec, grid, None, obs);
         }
-        let rows: Vec<usize> = (0..self.raw.nrows())
-            .filter(|&i| row_part(i) == Part::Choose)
-            .collect();
-        let xv = self.raw.select(Axis(0), &rows);
-        let yv = self.y.select(Axis(0), &rows);
+        let (xv, yv) = self.rows_where(|i| row_part(i) == Part::Choose);
         let task = exact.task();
         let k = exact.labels().len();
         let want = crate::model::label_indices(task, k, yv.view());
@@ -271,7 +274,7 @@ impl Teacher<'_> {
             // (tried first) only for a gain larger than the score's sampling noise.
             let margin = match &best {
                 Some((b, _, _)) if task.is_classifier() => {
-                    (b * (1.0 - b) / rows.len().max(1) as f64).sqrt()
+                    (b * (1.0 - b) / xv.nrows().max(1) as f64).sqrt()
                 }
                 Some((b, _, _)) => 0.01 * b.abs(),
                 None => 0.0,
