@@ -6,8 +6,7 @@ use clap::ValueEnum;
 use kernelpress::choose::{search, Budget, Choice, SearchOptions};
 use kernelpress::data::{check_batch, read_table, write_all_atomic};
 use kernelpress::fit::{
-    audit_row, check_statistics_memory, compile_exact, compile_labels, HeadKind, RidgeGrid,
-    Teacher, BANDWIDTH_MULTIPLES,
+    audit_row, compile_exact, compile_exact_tuned, compile_labels, HeadKind, RidgeGrid, Teacher,
 };
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
@@ -119,13 +118,38 @@ pub(crate) struct Args {
     /// Budget search: measure this machine again instead of using the cached profile.
     #[arg(long)]
     recalibrate: bool,
-    /// Output compiled model file.
-    #[arg(long)]
-    out: PathBuf,
+    /// Sharded distillation, step 1: write the distillation statistics of the --calib rows
+    /// (one shard of a larger calibration set) to this file instead of a model. Needs
+    /// --method and --features; the map bandwidth is not searched.
+    #[arg(long, requires = "calib", conflicts_with = "out")]
+    stats_out: Option<PathBuf>,
+    /// Sharded distillation: the global index (counting from 0) of the first --calib row in
+    /// the whole calibration set, so that every row keeps its part (fit, ridge choice, audit)
+    /// however the rows are split.
+    #[arg(long, default_value_t = 0, requires = "stats_out")]
+    first_row: usize,
+    /// Sharded distillation, step 2: merge these statistics files (any number, any order,
+    /// disjoint rows) and fit the head from them. The report is computed on --eval when
+    /// given (the audit rows stayed on the machines that made the statistics).
+    #[arg(long, num_args = 1.., conflicts_with_all = ["calib", "stats_out"])]
+    from_stats: Vec<PathBuf>,
+    /// Output compiled model file (with --stats-out, not written).
+    #[arg(long, required_unless_present = "stats_out")]
+    out: Option<PathBuf>,
     /// Also write the report as JSON here (as `report --json FILE` does; `--report` is
     /// accepted too).
     #[arg(long = "json", visible_alias = "report")]
     report: Option<PathBuf>,
+}
+
+impl Args {
+    /// The output model path (present unless --stats-out: clap checks it).
+    fn out(&self) -> &std::path::Path {
+        self.out
+            .as_deref()
+            .or(self.stats_out.as_deref())
+            .expect("clap requires --out or --stats-out")
+    }
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
@@ -137,7 +161,10 @@ pub(crate) fn run(a: Args) -> Result<()> {
         {
             ins.push(p);
         }
-        let mut outs = vec![(a.out.as_path(), false)];
+        let mut outs = vec![(a.out(), false)];
+        for p in &a.from_stats {
+            ins.push(p);
+        }
         if let Some(r) = &a.report {
             outs.push((r.as_path(), false));
         }
@@ -207,6 +234,9 @@ pub(crate) fn run(a: Args) -> Result<()> {
             model_path.display()
         )));
     }
+    if a.stats_out.is_some() || !a.from_stats.is_empty() {
+        return run_shards(&a, &exact, &grid);
+    }
     let d = exact.input_dim();
     let calib = match &a.calib {
         Some(p) => Some(super::read_for(
@@ -239,30 +269,26 @@ pub(crate) fn run(a: Args) -> Result<()> {
         Some(p) => Some(read_landmarks(p, d, &|x| x.to_owned())?),
         None => None,
     };
-    let tune = kind == HeadKind::Distill
-        && !a.no_bandwidth_search
-        && lm.is_none()
-        && spec.kernel.is_shift_invariant()
-        && !spec.from_data();
-    let (model, info) = if tune {
-        check_statistics_memory(spec.features)?;
-        let bars = super::progress::Bars::default();
-        let x = calib
-            .as_ref()
-            .map(|t| t.x.view())
-            .expect("distillation has --calib");
-        let teacher = Teacher::new(&exact, x, &bars)?;
-        teacher.distil_tuned(&spec, &grid, &BANDWIDTH_MULTIPLES, &bars)?
-    } else {
-        compile_exact(
+    let bars = super::progress::Bars::default();
+    let (model, info) = match (kind, &calib) {
+        (HeadKind::Distill, Some(c)) => compile_exact_tuned(
+            &exact,
+            c.x.view(),
+            &spec,
+            &grid,
+            !a.no_bandwidth_search,
+            lm.as_ref().map(|l| l.view()),
+            &bars,
+        )?,
+        _ => compile_exact(
             &exact,
             calib.as_ref().map(|t| t.x.view()),
             &spec,
             kind,
             &grid,
             lm.as_ref().map(|l| l.view()),
-            &super::progress::Bars::default(),
-        )?
+            &bars,
+        )?,
     };
     if let Some(t) = model.fit.get("bandwidth_search") {
         let chosen = model.spec().options.map_bandwidth;
@@ -379,18 +405,18 @@ fn run_guard(
     file.manifest.insert("report".into(), stored.to_json());
     let bytes = file.to_bytes()?;
     let json = format!("{}\n", serde_json::to_string_pretty(&rep).unwrap());
-    let mut items: Vec<(&std::path::Path, &[u8])> = vec![(a.out.as_path(), &bytes)];
+    let mut items: Vec<(&std::path::Path, &[u8])> = vec![(a.out(), &bytes)];
     if let Some(p) = &a.report {
         items.push((p.as_path(), json.as_bytes()));
     }
     write_all_atomic(&items)?;
     text.push_str(&format!(
         "wrote {} (guarded: {} features, exact fallback with {} support vectors)\n",
-        a.out.display(),
+        a.out().display(),
         g.compact().features(),
         exact.n_support_vectors()
     ));
-    super::finish_gate(&text, gate, &a.out)
+    super::finish_gate(&text, gate, a.out())
 }
 
 /// Builds the report (on --eval, else on the calibration audit rows), applies the gate
@@ -612,20 +638,20 @@ fn finish(
     let json = rep
         .as_ref()
         .map(|r| format!("{}\n", serde_json::to_string_pretty(r).unwrap()));
-    let mut items: Vec<(&std::path::Path, &[u8])> = vec![(a.out.as_path(), &bytes)];
+    let mut items: Vec<(&std::path::Path, &[u8])> = vec![(a.out(), &bytes)];
     if let (Some(p), Some(j)) = (&a.report, &json) {
         items.push((p.as_path(), j.as_bytes()));
     }
     write_all_atomic(&items)?;
     text.push_str(&format!(
         "wrote {} ({} features, {} program step{}, {} bytes of parameters)\n",
-        a.out.display(),
+        a.out().display(),
         model.features(),
         model.program().len(),
         if model.program().len() == 1 { "" } else { "s" },
         model.parameter_bytes()
     ));
-    super::finish_gate(&text, gate, &a.out)
+    super::finish_gate(&text, gate, a.out())
 }
 
 fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {
@@ -680,8 +706,8 @@ fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {
         ));
         model.report = serde_json::json!({"accuracy_audit_rows": acc, "n_rows": idx.len()});
     }
-    model.save(&a.out)?;
-    msg.push_str(&format!("\nwrote {}\n", a.out.display()));
+    model.save(a.out())?;
+    msg.push_str(&format!("\nwrote {}\n", a.out().display()));
     super::print_stdout(&msg)
 }
 
@@ -689,8 +715,82 @@ fn run_labels(a: &Args, grid: &RidgeGrid) -> Result<()> {
 fn discard(text: &mut String, a: &Args, why: &str) -> Result<()> {
     text.push_str(&format!(
         "not written: {} (--discard-below-gate)\n",
-        a.out.display()
+        a.out().display()
     ));
     super::print_stdout(text)?;
     Err(Error::new(ErrorKind::Gate, why.to_string()))
+}
+
+/// Sharded distillation: `--stats-out` (statistics of one shard) or `--from-stats` (merge
+/// and fit).
+fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
+    use kernelpress::fit::shard::ShardStats;
+    if a.budget_us.is_some()
+        || a.max_bytes.is_some()
+        || a.max_disagreement.is_some()
+        || a.guard_agreement.is_some()
+        || a.guard_rate.is_some()
+        || a.map.landmarks.is_some()
+        || !matches!(a.head, Head::Distill)
+    {
+        return Err(Error::input(
+            "a sharded distillation (--stats-out, --from-stats) takes --method and --features with the standard settings: drop the budget, guard, --landmarks and --head flags",
+        ));
+    }
+    if let Some(path) = &a.stats_out {
+        let spec = a.map.spec(exact.kernel().clone(), exact.input_dim())?;
+        let calib = super::read_for(
+            a.calib.as_deref().expect("clap requires --calib"),
+            a.target.as_deref(),
+            &exact.feature_names,
+            a.by_position,
+        )?;
+        let pb = super::progress::bar(1, "shard statistics");
+        let st = ShardStats::compute(exact, &spec, calib.x.view(), a.first_row)?;
+        pb.finish();
+        st.save(path)?;
+        let (fit, choose, audit) = st.parts();
+        return super::print_stdout(&format!(
+            "wrote {}: distillation statistics of calibration rows {}–{} ({fit} to fit, {choose} to choose the ridge, {audit} audit rows left out) for {} with {} features\n",
+            path.display(),
+            a.first_row + 1,
+            a.first_row + st.rows(),
+            spec.method.name(),
+            spec.features
+        ));
+    }
+    if a.map.method.is_some() || a.map.features.is_some() {
+        return Err(Error::input(
+            "--from-stats takes the map from the statistics files: drop --method and --features",
+        ));
+    }
+    let mut parts = a.from_stats.iter();
+    let first = parts.next().expect("clap requires one file");
+    let mut st = ShardStats::load(first)?;
+    for p in parts {
+        let other = ShardStats::load(p)?;
+        st.merge(&other).map_err(|e| e.context(p.display()))?;
+    }
+    let model = st.fit(exact, grid)?;
+    for n in model
+        .fit
+        .get("notes")
+        .and_then(|v| v.as_array())
+        .into_iter()
+        .flatten()
+    {
+        super::progress::warn(n.as_str().unwrap_or(""));
+    }
+    super::progress::note(format!(
+        "fitted from {} statistics file{} covering {} calibration rows",
+        a.from_stats.len(),
+        if a.from_stats.len() == 1 { "" } else { "s" },
+        st.rows()
+    ));
+    if a.eval.is_none() {
+        super::progress::warn(
+            "no --eval: the audit rows stayed with the shards, so there is no report; give --eval FILE to measure the compiled model",
+        );
+    }
+    evaluate_and_finish(a, exact, None, model, None)
 }

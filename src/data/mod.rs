@@ -16,7 +16,10 @@ mod npy;
 pub use crate::fsio::{read_bytes, temp_path, write_all_atomic, write_atomic};
 pub use csv::{read_csv, read_csv_str, write_csv};
 pub use idx::{read_idx_images, read_idx_labels};
-pub use npy::{parse_npy, read_npy, write_npy_f32, write_npy_f64, NpyArray};
+pub use npy::{
+    dtype_message, not_finite_message, parse_npy, read_npy, shape_message, write_npy_f32,
+    write_npy_f64, NpyArray,
+};
 
 use crate::{Error, Result};
 use ndarray::{Array2, ArrayView2};
@@ -251,12 +254,7 @@ pub fn check_batch(x: ArrayView2<f64>, d: usize, source: &str) -> Result<()> {
     }
     for (i, row) in x.rows().into_iter().enumerate() {
         if let Some(j) = row.iter().position(|v| !v.is_finite()) {
-            return Err(Error::input(format!(
-                "{source}: row {}, feature {}: value {} is not finite",
-                i + 1,
-                j,
-                row[j]
-            )));
+            return Err(Error::input(npy::not_finite_message(source, i, j, row[j])));
         }
         if let Some(j) = row.iter().position(|v| v.abs() > MAX_ABS_VALUE) {
             return Err(Error::input(format!(

@@ -88,14 +88,7 @@ pub fn parse_npy(b: &[u8], source: &str) -> Result<NpyArray> {
         "<f4" | "f4" => (4, 'f'),
         "<i8" | "i8" => (8, 'i'),
         "<i4" | "i4" => (4, 'i'),
-        other => {
-            return Err(bad(
-                source,
-                format!(
-                    "dtype '{other}' is not supported; expected little-endian float64 or float32"
-                ),
-            ))
-        }
+        other => return Err(Error::input(dtype_message(source, other))),
     };
     let fortran = dict_value(header, "fortran_order")
         .map(|v| v.trim() == "True")
@@ -110,9 +103,7 @@ pub fn parse_npy(b: &[u8], source: &str) -> Result<NpyArray> {
         .collect::<std::result::Result<_, _>>()
         .map_err(|_| bad(source, format!("shape {shape_s} is not a list of sizes")))?;
     if shape.is_empty() || shape.len() > 2 {
-        return Err(Error::input(format!(
-            "{source}: array has shape {shape:?}; expected 1 or 2 dimensions"
-        )));
+        return Err(Error::input(shape_message(source, &shape)));
     }
     let count = shape
         .iter()
@@ -151,17 +142,34 @@ pub fn parse_npy(b: &[u8], source: &str) -> Result<NpyArray> {
         data = t;
     }
     if let Some(i) = data.iter().position(|v| !v.is_finite()) {
-        let pos = if shape.len() == 2 {
-            format!("row {}, column {}", i / shape[1] + 1, i % shape[1])
-        } else {
-            format!("element {i}")
-        };
-        return Err(Error::input(format!(
-            "{source}: {pos}: value {} is not finite",
-            data[i]
+        let cols = if shape.len() == 2 { shape[1] } else { 1 };
+        return Err(Error::input(not_finite_message(
+            source,
+            i / cols,
+            i % cols,
+            data[i],
         )));
     }
     Ok(NpyArray { shape, data })
+}
+
+/// The message for an array of a type the readers do not take (`descr` as NumPy writes
+/// it, e.g. `<U3`); shared by the `.npy` reader and the Python binding.
+pub fn dtype_message(source: &str, descr: &str) -> String {
+    format!("{source}: dtype '{descr}' is not supported; expected little-endian float64 or float32")
+}
+
+/// The message for an array of neither one nor two dimensions.
+pub fn shape_message(source: &str, shape: &[usize]) -> String {
+    format!("{source}: array has shape {shape:?}; expected 1 or 2 dimensions")
+}
+
+/// The message for a value that is not finite at (0-based) `row`, `col` of a batch.
+pub fn not_finite_message(source: &str, row: usize, col: usize, v: f64) -> String {
+    format!(
+        "{source}: row {}, feature {col}: value {v} is not finite",
+        row + 1
+    )
 }
 
 fn dict_value<'a>(header: &'a str, key: &str) -> Option<&'a str> {

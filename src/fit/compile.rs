@@ -176,7 +176,7 @@ impl<'a> Teacher<'a> {
 /// given; for the `support` rule, the teacher's support vectors by total |coefficient|
 /// (largest first; ties by index), topped up with calibration rows drawn uniformly (seeded)
 /// when the landmarks outnumber them; otherwise none (the calibration rows are the pool).
-fn landmark_pool(
+pub(super) fn landmark_pool(
     exact: &ExactModel,
     landmarks: Option<ArrayView2<f64>>,
     calib_scaled: Option<ArrayView2<f64>>,
@@ -293,7 +293,7 @@ impl Teacher<'_> {
     }
 }
 
-fn check_spec(exact: &ExactModel, spec: &FeatureSpec) -> Result<()> {
+pub(super) fn check_spec(exact: &ExactModel, spec: &FeatureSpec) -> Result<()> {
     let d = exact.input_dim();
     if spec.input_dim != d {
         return Err(Error::input(format!(
@@ -309,7 +309,7 @@ fn check_spec(exact: &ExactModel, spec: &FeatureSpec) -> Result<()> {
     Ok(())
 }
 
-fn finish_model(
+pub(super) fn finish_model(
     exact: &ExactModel,
     map: crate::features::FeatureMap,
     head: Array2<f64>,
@@ -370,7 +370,47 @@ pub fn compile_exact(
     }
 }
 
-fn with_kind(fit: &HeadFit, kind: &str) -> serde_json::Value {
+/// Distils `exact` on the raw calibration rows `calib` as `kernelpress compile` does:
+/// with `search_bandwidth`, a random map of a shift-invariant kernel is tried at the
+/// [`BANDWIDTH_MULTIPLES`] of the kernel's bandwidth ([`Teacher::distil_tuned`]);
+/// otherwise (or for landmark maps, or with user `landmarks`) one distillation.
+pub fn compile_exact_tuned(
+    exact: &ExactModel,
+    calib: ArrayView2<f64>,
+    spec: &FeatureSpec,
+    grid: &RidgeGrid,
+    search_bandwidth: bool,
+    landmarks: Option<ArrayView2<f64>>,
+    obs: &dyn Observer,
+) -> Result<(CompiledModel, SampleInfo)> {
+    let tune = search_bandwidth
+        && landmarks.is_none()
+        && spec.kernel.is_shift_invariant()
+        && !spec.from_data();
+    if !tune {
+        return compile_exact(
+            exact,
+            Some(calib),
+            spec,
+            HeadKind::Distill,
+            grid,
+            landmarks,
+            obs,
+        );
+    }
+    check_spec(exact, spec)?;
+    check_statistics_memory(spec.features)?;
+    let teacher = Teacher::new(exact, calib, obs)?;
+    teacher.distil_tuned(spec, grid, &BANDWIDTH_MULTIPLES, obs)
+}
+
+/// The audit rows of a calibration set (every tenth row, [`audit_row`]) and their indices.
+pub fn audit_rows(x: ArrayView2<f64>) -> (Array2<f64>, Vec<usize>) {
+    let idx: Vec<usize> = (0..x.nrows()).filter(|&i| audit_row(i)).collect();
+    (x.select(Axis(0), &idx), idx)
+}
+
+pub(super) fn with_kind(fit: &HeadFit, kind: &str) -> serde_json::Value {
     let mut j = fit.to_json();
     j["head"] = json!(kind);
     j

@@ -24,10 +24,11 @@
 //! ```
 
 mod compile;
+pub mod shard;
 
 pub use compile::{
-    audit_row, check_statistics_memory, compile_exact, compile_labels, row_part, HeadKind, Teacher,
-    BANDWIDTH_MULTIPLES, FIT_CHUNK,
+    audit_row, audit_rows, check_statistics_memory, compile_exact, compile_exact_tuned,
+    compile_labels, row_part, HeadKind, Teacher, BANDWIDTH_MULTIPLES, FIT_CHUNK,
 };
 
 use crate::features::FeatureMap;
@@ -200,10 +201,22 @@ impl Distiller {
     /// Adds a chunk; `part(i)` says what global row `i` is for: fitting, choosing the
     /// ridge strength, or nothing (rows kept for an honest evaluation).
     pub fn add(&mut self, z: ArrayView2<f64>, y: ArrayView2<f64>, part: impl Fn(usize) -> Part) {
+        self.add_at(self.seen, z, y, part)
+    }
+
+    /// Adds a chunk whose first row has global index `first` (a shard of a larger set:
+    /// `part` is asked about global indices, so any split of the rows gives the same parts).
+    pub fn add_at(
+        &mut self,
+        first: usize,
+        z: ArrayView2<f64>,
+        y: ArrayView2<f64>,
+        part: impl Fn(usize) -> Part,
+    ) {
         assert_eq!(z.nrows(), y.nrows(), "distill: rows differ");
         let of = |want: Part| -> Vec<usize> {
             (0..z.nrows())
-                .filter(|&i| part(self.seen + i) == want)
+                .filter(|&i| part(first + i) == want)
                 .collect()
         };
         let (idx_t, idx_h) = (of(Part::Fit), of(Part::Choose));
@@ -216,6 +229,88 @@ impl Distiller {
             y.select(Axis(0), &idx_h).view(),
         );
         self.seen += z.nrows();
+    }
+
+    /// Feature and target counts `(D, k)`.
+    pub fn shape(&self) -> (usize, usize) {
+        (self.train.zz.nrows(), self.train.zy.ncols())
+    }
+
+    /// Rows in the fitting and the ridge-choice parts.
+    pub fn rows(&self) -> (usize, usize) {
+        (self.train.n, self.hold.n)
+    }
+
+    /// Adds the statistics of `other` (the same features and targets, other rows): the
+    /// sums are over rows, so merging in any order gives the same statistics up to
+    /// rounding.
+    ///
+    /// # Panics
+    /// If the shapes differ.
+    #[track_caller]
+    pub fn merge(&mut self, other: &Distiller) {
+        assert_eq!(self.shape(), other.shape(), "distill: merged shapes differ");
+        self.train = self.train.merged(&other.train);
+        self.hold = self.hold.merged(&other.hold);
+        self.seen += other.seen;
+    }
+
+    /// Writes the statistics as tensors `{prefix}{part}.{zz,zy,sz,sy,yy}` (parts `fit` and
+    /// `choose`) and returns the row counts for the manifest.
+    pub fn write(&self, f: &mut crate::format::TensorFile, prefix: &str) -> Value {
+        for (name, s) in [("fit", &self.train), ("choose", &self.hold)] {
+            let (p, k) = (s.zz.nrows(), s.zy.ncols());
+            let t = |field: &str| format!("{prefix}{name}.{field}");
+            f.put_f64(&t("zz"), vec![p, p], s.zz.iter().copied().collect());
+            f.put_f64(&t("zy"), vec![p, k], s.zy.iter().copied().collect());
+            f.put_f64(&t("sz"), vec![p], s.sz.to_vec());
+            f.put_f64(&t("sy"), vec![k], s.sy.to_vec());
+            f.put_f64(&t("yy"), vec![k], s.yy.to_vec());
+        }
+        json!({"fit": self.train.n, "choose": self.hold.n})
+    }
+
+    /// Reads statistics written by [`Distiller::write`] for `p` features and `k` targets;
+    /// `rows` is the manifest value it returned.
+    pub fn read(
+        f: &crate::format::TensorFile,
+        prefix: &str,
+        p: usize,
+        k: usize,
+        rows: &Value,
+        src: &str,
+    ) -> Result<Distiller> {
+        let mut d = Distiller::new(p, k);
+        let mut seen = 0;
+        for (name, s) in [("fit", &mut d.train), ("choose", &mut d.hold)] {
+            let t = |field: &str| format!("{prefix}{name}.{field}");
+            let n = rows.get(name).and_then(|v| v.as_u64()).ok_or_else(|| {
+                Error::file(format!(
+                    "{src}: manifest field 'rows.{name}' is missing or not a whole number"
+                ))
+            })?;
+            s.n = usize::try_from(n)
+                .map_err(|_| Error::file(format!("{src}: rows.{name} {n} is too large")))?;
+            seen += s.n;
+            s.zz = Array2::from_shape_vec((p, p), f.f64(&t("zz"), &[Some(p), Some(p)], src)?)
+                .expect("shape checked");
+            s.zy = Array2::from_shape_vec((p, k), f.f64(&t("zy"), &[Some(p), Some(k)], src)?)
+                .expect("shape checked");
+            s.sz = Array1::from(f.f64(&t("sz"), &[Some(p)], src)?);
+            s.sy = Array1::from(f.f64(&t("sy"), &[Some(k)], src)?);
+            s.yy = Array1::from(f.f64(&t("yy"), &[Some(k)], src)?);
+            let finite = |v: &f64| v.is_finite();
+            if !(s.zz.iter().all(finite)
+                && s.zy.iter().all(finite)
+                && [&s.sz, &s.sy, &s.yy].iter().all(|a| a.iter().all(finite)))
+            {
+                return Err(Error::file(format!(
+                    "{src}: statistics '{prefix}{name}.*' hold a value that is not finite"
+                )));
+            }
+        }
+        d.seen = seen;
+        Ok(d)
     }
 
     fn centred(s: &Stats) -> (Array2<f64>, Array2<f64>, Array1<f64>, Array1<f64>) {

@@ -38,6 +38,11 @@ pub use exact::ExactModel;
 pub use guarded::GuardedModel;
 pub use output::{label_indices, OutputRule, Task};
 
+/// The `generator` string model files record: `kernelpress <version>`.
+pub fn generator_name() -> String {
+    io::generator()
+}
+
 use crate::{Error, Result};
 use ndarray::{Array2, ArrayView2};
 use std::path::Path;
