@@ -118,16 +118,8 @@ pub(crate) fn run(a: Args) -> Result<()> {
     let k = coef.ncols();
     let task = match a.task.as_deref() {
         Some(t) => Task::parse(t)?,
-        None if labels.is_empty() => Task::Regression,
-        None if labels.len() == 2 && k == 1 => Task::Binary,
-        None if labels.len() == k => Task::Ovr,
-        None if labels.len() * (labels.len() - 1) / 2 == k => Task::Ovo,
-        None => {
-            return Err(Error::input(format!(
-                "cannot infer the task from {} labels and {k} coefficient columns; pass --task",
-                labels.len()
-            )))
-        }
+        None => Task::infer(labels.len(), k)
+            .map_err(|e| Error::input(format!("{}; pass --task", e.message())))?,
     };
     kernelpress::data::check_batch(sv.view(), sv.ncols(), &sv_src)?;
     let mut m = ExactModel::new(kernel, sv, coef, intercept, task, labels, None)?;

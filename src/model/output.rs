@@ -67,6 +67,21 @@ impl Task {
     pub fn is_classifier(self) -> bool {
         self != Task::Regression
     }
+
+    /// The task of an expansion with `k` coefficient columns and these class labels, when
+    /// none is named: no labels → regression; two labels, one column → binary; one column
+    /// per label → one-vs-rest; one per pair → one-vs-one.
+    pub fn infer(labels: usize, k: usize) -> Result<Task> {
+        match labels {
+            0 => Ok(Task::Regression),
+            2 if k == 1 => Ok(Task::Binary),
+            n if n == k => Ok(Task::Ovr),
+            n if n * (n - 1) / 2 == k => Ok(Task::Ovo),
+            n => Err(Error::input(format!(
+                "cannot infer the task from {n} labels and {k} coefficient columns; name it (regression, binary, ovr or ovo)"
+            ))),
+        }
+    }
 }
 
 /// Turns decision values into label indices under a task's rule.

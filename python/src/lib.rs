@@ -1,0 +1,863 @@
+//! The Python binding of kernelpress: a thin layer over the library (`kernelpress`), as the
+//! command-line tool is. NumPy arrays come in without a copy when they are C-contiguous,
+//! aligned float64; other layouts and dtypes are copied once. Long calls release the
+//! interpreter lock. Errors are raised as `kernelpress.Error` with the library's message,
+//! its `kind` and the `exit_code` the command-line tool would use.
+
+use kernelpress::data::{self, Table};
+use kernelpress::export::{ExportOptions, Format, Precision};
+use kernelpress::features::{parse_landmarks, FeatureSpec, Method};
+use kernelpress::fit::shard::ShardStats;
+use kernelpress::fit::{audit_rows, compile_exact_tuned, RidgeGrid};
+use kernelpress::kernel::Kernel;
+use kernelpress::model::{CompiledModel, ExactModel, Task};
+use kernelpress::observe::Silent;
+use kernelpress::report::{self as kreport, ReportOptions};
+use ndarray::{Array2, ArrayView2};
+use numpy::{IntoPyArray, PyArray2, PyArrayMethods, PyReadonlyArray2};
+use pyo3::exceptions::{PyException, PyUserWarning};
+use pyo3::prelude::*;
+use pyo3::types::{PyBytes, PyList};
+use std::path::PathBuf;
+use std::sync::Arc;
+
+pyo3::create_exception!(
+    kernelpress,
+    Error,
+    PyException,
+    "A kernelpress error: `str(e)` is the message (it names the array or file, the row, the field and what was expected); `e.kind` is the library's error kind ('input', 'file', 'numerical', 'io', 'internal', 'gate', 'budget', 'keep_exact'); `e.exit_code` is the command-line tool's exit code for it."
+);
+
+fn kind_name(k: kernelpress::ErrorKind) -> &'static str {
+    use kernelpress::ErrorKind as K;
+    match k {
+        K::Input => "input",
+        K::File => "file",
+        K::Numerical => "numerical",
+        K::Io => "io",
+        K::Gate => "gate",
+        K::Budget => "budget",
+        K::KeepExact => "keep_exact",
+        _ => "internal",
+    }
+}
+
+/// The library's error as a Python `kernelpress.Error` carrying `kind` and `exit_code`.
+fn err(e: kernelpress::Error) -> PyErr {
+    Python::attach(|py| {
+        let pe = Error::new_err(e.message().to_string());
+        let v = pe.value(py);
+        let _ = v.setattr("kind", kind_name(e.kind()));
+        let _ = v.setattr("exit_code", e.exit_code());
+        pe
+    })
+}
+
+type Res<T> = PyResult<T>;
+
+fn lib<T>(r: kernelpress::Result<T>) -> Res<T> {
+    r.map_err(err)
+}
+
+/// Rows of a batch: a zero-copy view of a C-contiguous aligned float64 array, or a copy.
+struct Rows<'py> {
+    arr: PyReadonlyArray2<'py, f64>,
+}
+
+impl Rows<'_> {
+    fn view(&self) -> ArrayView2<'_, f64> {
+        self.arr.as_array()
+    }
+}
+
+/// Reads `x` (any array-like) as an `n × d` float64 batch; `what` names it in messages
+/// (as a file name does for the command-line tool). A 1-D array is one column, as for
+/// `.npy` files.
+fn rows<'py>(py: Python<'py>, x: &Bound<'py, PyAny>, what: &str) -> Res<Rows<'py>> {
+    let np = py.import("numpy")?;
+    let ndarray_t = np.getattr("ndarray")?;
+    let mut a = if x.is_instance(&ndarray_t)? {
+        x.clone()
+    } else {
+        np.call_method1("asarray", (x,))?
+    };
+    let shape: Vec<usize> = a.getattr("shape")?.extract()?;
+    if shape.is_empty() || shape.len() > 2 {
+        return Err(err(kernelpress::Error::input(data::shape_message(
+            what, &shape,
+        ))));
+    }
+    let dtype = a.getattr("dtype")?;
+    let kind: String = dtype.getattr("kind")?.extract()?;
+    if !matches!(kind.as_str(), "f" | "i" | "u") {
+        let descr: String = dtype.getattr("str")?.extract()?;
+        return Err(err(kernelpress::Error::input(data::dtype_message(
+            what, &descr,
+        ))));
+    }
+    if shape.len() == 1 {
+        a = a.call_method1("reshape", (-1i64, 1i64))?;
+    }
+    let flags = a.getattr("flags")?;
+    let direct = dtype.getattr("str")?.extract::<String>()? == "<f8"
+        && flags.getattr("c_contiguous")?.extract::<bool>()?
+        && flags.getattr("aligned")?.extract::<bool>()?;
+    if !direct {
+        // A fresh, aligned, C-ordered float64 copy (unaligned buffers arrive from pickle
+        // protocol 5, e.g. when Dask ships arrays between processes).
+        let kw = pyo3::types::PyDict::new(py);
+        kw.set_item("dtype", np.getattr("float64")?)?;
+        kw.set_item("order", "C")?;
+        kw.set_item("copy", true)?;
+        a = np.call_method("array", (a,), Some(&kw))?;
+    }
+    let arr = a.cast_into::<PyArray2<f64>>()?.readonly();
+    Ok(Rows { arr })
+}
+
+/// Rows checked for a model of input width `d` (finite, the right width).
+fn model_rows<'py>(py: Python<'py>, x: &Bound<'py, PyAny>, what: &str, d: usize) -> Res<Rows<'py>> {
+    let r = rows(py, x, what)?;
+    lib(data::check_batch(r.view(), d, what))?;
+    Ok(r)
+}
+
+/// A data source given as a path (str or os.PathLike) rather than an array.
+fn as_path(x: &Bound<'_, PyAny>) -> Option<PathBuf> {
+    x.extract::<PathBuf>().ok()
+}
+
+/// `x` as an owned batch for a model with these feature names: read from a file (columns
+/// matched by name, as the command-line tool does) or taken from an array.
+fn model_batch(
+    py: Python<'_>,
+    x: &Bound<'_, PyAny>,
+    what: &str,
+    names: &[String],
+    target: Option<&str>,
+) -> Res<(Array2<f64>, Option<Vec<String>>)> {
+    if let Some(p) = as_path(x) {
+        let m = py.detach(|| data::read_for_model(&p, target, names, false));
+        let t = lib(m)?.table;
+        return Ok((t.x, t.target));
+    }
+    let r = model_rows(py, x, what, names.len())?;
+    Ok((r.view().to_owned(), None))
+}
+
+fn to_py<'py>(py: Python<'py>, a: Array2<f64>) -> Bound<'py, PyArray2<f64>> {
+    a.into_pyarray(py)
+}
+
+fn json_to_py<'py>(py: Python<'py>, v: &serde_json::Value) -> Res<Bound<'py, PyAny>> {
+    py.import("json")?.call_method1("loads", (v.to_string(),))
+}
+
+fn warn(py: Python<'_>, msg: &str) -> Res<()> {
+    let cat = py.get_type::<PyUserWarning>();
+    PyErr::warn(
+        py,
+        &cat,
+        &std::ffi::CString::new(msg).unwrap_or_default(),
+        1,
+    )
+}
+
+fn spec_for(
+    kernel: Kernel,
+    d: usize,
+    method: &str,
+    features: usize,
+    seed: u64,
+    landmark_rule: &str,
+) -> Res<FeatureSpec> {
+    let mut spec = FeatureSpec::new(kernel, lib(Method::parse(method))?, d, features, seed);
+    spec.options.landmarks = lib(parse_landmarks(landmark_rule))?;
+    lib(spec.validate())?;
+    Ok(spec)
+}
+
+fn labels_or_values(
+    py: Python<'_>,
+    task: Task,
+    rule_labels: Vec<String>,
+    s: Array2<f64>,
+) -> Res<Py<PyAny>> {
+    if task.is_classifier() {
+        Ok(PyList::new(py, rule_labels)?.into_any().unbind())
+    } else {
+        Ok(to_py(py, s).call_method1("ravel", ())?.unbind())
+    }
+}
+
+/// An exact kernel model: support vectors, coefficients, intercepts, a kernel and an
+/// output rule. Every prediction compares the input with every support vector.
+///
+/// >>> import kernelpress as kp
+/// >>> exact = kp.ExactModel.load("models/pump_svm.safetensors")
+/// >>> exact.decision(x).shape      # (rows, decision functions)
+/// >>> exact.predict(x)[:3]         # class labels
+#[pyclass(name = "ExactModel", module = "kernelpress", frozen)]
+struct PyExact {
+    inner: Arc<ExactModel>,
+}
+
+#[pymethods]
+impl PyExact {
+    /// Reads a model file (kind `exact`).
+    #[staticmethod]
+    fn load(py: Python<'_>, path: PathBuf) -> Res<Self> {
+        let m = py.detach(|| ExactModel::load(&path));
+        Ok(PyExact {
+            inner: Arc::new(lib(m)?),
+        })
+    }
+
+    /// A model from the bytes of a model file (as `to_bytes` gives).
+    #[staticmethod]
+    fn from_bytes(py: Python<'_>, data: &[u8]) -> Res<Self> {
+        let m = py.detach(|| {
+            let f = kernelpress::format::TensorFile::from_bytes(data, "bytes")?;
+            ExactModel::from_file(&f, "bytes")
+        });
+        Ok(PyExact {
+            inner: Arc::new(lib(m)?),
+        })
+    }
+
+    /// An exact model from arrays: `support_vectors` (n × d), `coef` (n × k, one column per
+    /// decision function), `intercept` (k values), a kernel expression such as
+    /// `"gaussian(gamma=0.5)"`, class `labels` (none for regression) and the `task`
+    /// (`regression`, `binary`, `ovr`, `ovo`; inferred from the labels and columns when
+    /// omitted). Decision values follow the library's conventions: a binary model's value
+    /// is positive for the second label.
+    #[staticmethod]
+    #[pyo3(signature = (support_vectors, coef, intercept, kernel, labels=None, task=None))]
+    fn from_arrays(
+        py: Python<'_>,
+        support_vectors: &Bound<'_, PyAny>,
+        coef: &Bound<'_, PyAny>,
+        intercept: Vec<f64>,
+        kernel: &str,
+        labels: Option<Vec<String>>,
+        task: Option<&str>,
+    ) -> Res<Self> {
+        let k: Kernel = lib(kernel.parse())?;
+        let sv = rows(py, support_vectors, "support_vectors")?;
+        let svv = sv.view();
+        lib(data::check_batch(svv, svv.ncols(), "support_vectors"))?;
+        let c = rows(py, coef, "coef")?;
+        let cv = c.view();
+        lib(data::check_batch(cv, cv.ncols(), "coef"))?;
+        if cv.nrows() != svv.nrows() {
+            return Err(err(kernelpress::Error::input(format!(
+                "coef: has {} rows but support_vectors has {} support vectors",
+                cv.nrows(),
+                svv.nrows()
+            ))));
+        }
+        let labels = labels.unwrap_or_default();
+        let task = match task {
+            Some(t) => lib(Task::parse(t))?,
+            None => lib(Task::infer(labels.len(), cv.ncols()))?,
+        };
+        let mut m = lib(ExactModel::new(
+            k,
+            svv.to_owned(),
+            cv.to_owned(),
+            intercept,
+            task,
+            labels,
+            None,
+        ))?;
+        m.training = serde_json::json!({"model": "imported", "from": "arrays (Python)"});
+        Ok(PyExact { inner: Arc::new(m) })
+    }
+
+    /// The model file's bytes (safetensors).
+    fn to_bytes<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyBytes>> {
+        let b = lib(self.inner.to_file().to_bytes())?;
+        Ok(PyBytes::new(py, &b))
+    }
+
+    /// Writes the model file atomically.
+    fn save(&self, py: Python<'_>, path: PathBuf) -> Res<()> {
+        lib(py.detach(|| self.inner.save(&path)))
+    }
+
+    /// Decision values, rows × decision functions (float64).
+    fn decision<'py>(
+        &self,
+        py: Python<'py>,
+        x: &Bound<'py, PyAny>,
+    ) -> Res<Bound<'py, PyArray2<f64>>> {
+        let r = model_rows(py, x, "x", self.inner.input_dim())?;
+        let v = r.view();
+        let s = py.detach(|| self.inner.decision(v));
+        Ok(to_py(py, s))
+    }
+
+    /// Class labels (a list of str) for classifiers; values (1-D array) for regression.
+    fn predict(&self, py: Python<'_>, x: &Bound<'_, PyAny>) -> Res<Py<PyAny>> {
+        let r = model_rows(py, x, "x", self.inner.input_dim())?;
+        let v = r.view();
+        let s = py.detach(|| self.inner.decision(v));
+        let l = self.inner.labels_of(s.view());
+        labels_or_values(py, self.inner.task(), l, s)
+    }
+
+    /// The kernel expression.
+    #[getter]
+    fn kernel(&self) -> String {
+        self.inner.kernel().to_string()
+    }
+    /// `regression`, `binary`, `ovr` or `ovo`.
+    #[getter]
+    fn task(&self) -> &'static str {
+        self.inner.task().name()
+    }
+    /// Class labels (empty for regression).
+    #[getter]
+    fn labels(&self) -> Vec<String> {
+        self.inner.labels().to_vec()
+    }
+    /// Input width `d`.
+    #[getter]
+    fn input_dim(&self) -> usize {
+        self.inner.input_dim()
+    }
+    /// Number of decision functions.
+    #[getter]
+    fn outputs(&self) -> usize {
+        self.inner.n_outputs()
+    }
+    /// Number of support vectors.
+    #[getter]
+    fn n_support_vectors(&self) -> usize {
+        self.inner.n_support_vectors()
+    }
+    /// Feature (column) names the model matches data by.
+    #[getter]
+    fn feature_names(&self) -> Vec<String> {
+        self.inner.feature_names.clone()
+    }
+    /// FNV-1a fingerprint of the model (compiled models record their teacher's).
+    #[getter]
+    fn fingerprint(&self) -> String {
+        self.inner.fingerprint()
+    }
+
+    fn __reduce__<'py>(&self, py: Python<'py>) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let f = py.get_type::<PyExact>().getattr("from_bytes")?;
+        Ok((f, (self.to_bytes(py)?,)))
+    }
+
+    fn __repr__(&self) -> String {
+        format!(
+            "ExactModel(kernel='{}', task='{}', support_vectors={}, input_dim={})",
+            self.inner.kernel(),
+            self.inner.task().name(),
+            self.inner.n_support_vectors(),
+            self.inner.input_dim()
+        )
+    }
+}
+
+/// A compiled model: input scaling → feature program → linear head → the teacher's label
+/// rule. Its cost does not depend on the number of support vectors.
+///
+/// >>> compiled = kp.compile(exact, "models/pump_calib.csv", method="nystrom", features=1024)
+/// >>> compiled.report["agreement"]     # on the calibration audit rows
+/// >>> compiled.predict(x)
+#[pyclass(name = "CompiledModel", module = "kernelpress", frozen)]
+struct PyCompiled {
+    inner: Arc<CompiledModel>,
+}
+
+#[pymethods]
+impl PyCompiled {
+    /// Reads a model file (kind `compiled`).
+    #[staticmethod]
+    fn load(py: Python<'_>, path: PathBuf) -> Res<Self> {
+        let m = py.detach(|| CompiledModel::load(&path));
+        Ok(PyCompiled {
+            inner: Arc::new(lib(m)?),
+        })
+    }
+
+    /// A model from the bytes of a model file (as `to_bytes` gives).
+    #[staticmethod]
+    fn from_bytes(py: Python<'_>, data: &[u8]) -> Res<Self> {
+        let m = py.detach(|| {
+            let f = kernelpress::format::TensorFile::from_bytes(data, "bytes")?;
+            CompiledModel::from_file(&f, "bytes")
+        });
+        Ok(PyCompiled {
+            inner: Arc::new(lib(m)?),
+        })
+    }
+
+    /// The model file's bytes (safetensors).
+    fn to_bytes<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyBytes>> {
+        let b = lib(self.inner.to_file().to_bytes())?;
+        Ok(PyBytes::new(py, &b))
+    }
+
+    /// Writes the model file atomically.
+    fn save(&self, py: Python<'_>, path: PathBuf) -> Res<()> {
+        lib(py.detach(|| self.inner.save(&path)))
+    }
+
+    /// Decision values, rows × decision functions (float64).
+    fn decision<'py>(
+        &self,
+        py: Python<'py>,
+        x: &Bound<'py, PyAny>,
+    ) -> Res<Bound<'py, PyArray2<f64>>> {
+        let r = model_rows(py, x, "x", self.inner.input_dim())?;
+        let v = r.view();
+        let s = py.detach(|| self.inner.decision(v));
+        Ok(to_py(py, s))
+    }
+
+    /// Class labels (a list of str) for classifiers; values (1-D array) for regression.
+    fn predict(&self, py: Python<'_>, x: &Bound<'_, PyAny>) -> Res<Py<PyAny>> {
+        let r = model_rows(py, x, "x", self.inner.input_dim())?;
+        let v = r.view();
+        let s = py.detach(|| self.inner.decision(v));
+        let l = self.inner.labels_of(s.view());
+        labels_or_values(py, self.inner.task(), l, s)
+    }
+
+    /// The feature program's output on `x` (after the model's input scaling), rows × D.
+    fn featurize<'py>(
+        &self,
+        py: Python<'py>,
+        x: &Bound<'py, PyAny>,
+    ) -> Res<Bound<'py, PyArray2<f64>>> {
+        let r = model_rows(py, x, "x", self.inner.input_dim())?;
+        let v = r.view();
+        let z = py.detach(|| {
+            let xs = match self.inner.scaling() {
+                Some(s) => s.apply(v),
+                None => v.to_owned(),
+            };
+            self.inner.program().apply(xs.view())
+        });
+        Ok(to_py(py, z))
+    }
+
+    /// The method name (`fourier`, `hadamard`, `nystrom`, …).
+    #[getter]
+    fn method(&self) -> &'static str {
+        self.inner.spec().method.name()
+    }
+    /// Feature count `D`.
+    #[getter]
+    fn features(&self) -> usize {
+        self.inner.features()
+    }
+    /// The seed the map was drawn with.
+    #[getter]
+    fn seed(&self) -> u64 {
+        self.inner.spec().seed
+    }
+    /// The kernel expression.
+    #[getter]
+    fn kernel(&self) -> String {
+        self.inner.spec().kernel.to_string()
+    }
+    /// `regression`, `binary`, `ovr` or `ovo`.
+    #[getter]
+    fn task(&self) -> &'static str {
+        self.inner.task().name()
+    }
+    /// Class labels (empty for regression).
+    #[getter]
+    fn labels(&self) -> Vec<String> {
+        self.inner.labels().to_vec()
+    }
+    /// Input width `d`.
+    #[getter]
+    fn input_dim(&self) -> usize {
+        self.inner.input_dim()
+    }
+    /// Bytes of parameters.
+    #[getter]
+    fn parameter_bytes(&self) -> usize {
+        self.inner.parameter_bytes()
+    }
+    /// The stored report (a dict with the report keys, timings left out), or None.
+    #[getter]
+    fn report<'py>(&self, py: Python<'py>) -> Res<Option<Bound<'py, PyAny>>> {
+        if self.inner.report.is_null() {
+            return Ok(None);
+        }
+        json_to_py(py, &self.inner.report).map(Some)
+    }
+    /// How the head was fitted (ridge strength, rows, bandwidth search …), a dict.
+    #[getter]
+    fn fit<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyAny>> {
+        json_to_py(py, &self.inner.fit)
+    }
+
+    fn __reduce__<'py>(&self, py: Python<'py>) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let f = py.get_type::<PyCompiled>().getattr("from_bytes")?;
+        Ok((f, (self.to_bytes(py)?,)))
+    }
+
+    fn __repr__(&self) -> String {
+        format!(
+            "CompiledModel(method='{}', features={}, kernel='{}', task='{}')",
+            self.inner.spec().method.name(),
+            self.inner.features(),
+            self.inner.spec().kernel,
+            self.inner.task().name()
+        )
+    }
+}
+
+/// Distillation statistics of some calibration rows (one shard, or several merged):
+/// picklable, mergeable, and enough to fit the head (`compile_from_statistics`).
+#[pyclass(name = "Statistics", module = "kernelpress", frozen)]
+struct PyStats {
+    inner: ShardStats,
+}
+
+#[pymethods]
+impl PyStats {
+    /// Statistics from bytes (as `to_bytes` gives: a safetensors file).
+    #[staticmethod]
+    fn from_bytes(py: Python<'_>, data: &[u8]) -> Res<Self> {
+        let s = py.detach(|| ShardStats::from_bytes(data, "bytes"));
+        Ok(PyStats { inner: lib(s)? })
+    }
+    /// The statistics as bytes (a safetensors file, as `compile --stats-out` writes).
+    fn to_bytes<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyBytes>> {
+        let b = lib(self.inner.to_bytes())?;
+        Ok(PyBytes::new(py, &b))
+    }
+    /// Writes the statistics file atomically (readable by `compile --from-stats`).
+    fn save(&self, py: Python<'_>, path: PathBuf) -> Res<()> {
+        lib(py.detach(|| self.inner.save(&path)))
+    }
+    /// Reads a statistics file.
+    #[staticmethod]
+    fn load(py: Python<'_>, path: PathBuf) -> Res<Self> {
+        let s = py.detach(|| ShardStats::load(&path));
+        Ok(PyStats { inner: lib(s)? })
+    }
+    /// Calibration rows covered (audit rows included).
+    #[getter]
+    fn rows(&self) -> usize {
+        self.inner.rows()
+    }
+    /// Global row ranges `[start, end)` covered.
+    #[getter]
+    fn ranges(&self) -> Vec<(usize, usize)> {
+        self.inner.ranges().to_vec()
+    }
+    /// Rows that fit the head, rows that choose the ridge strength, audit rows left out.
+    #[getter]
+    fn parts(&self) -> (usize, usize, usize) {
+        self.inner.parts()
+    }
+    fn __reduce__<'py>(&self, py: Python<'py>) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let f = py.get_type::<PyStats>().getattr("from_bytes")?;
+        Ok((f, (self.to_bytes(py)?,)))
+    }
+    fn __repr__(&self) -> String {
+        let (f, c, a) = self.inner.parts();
+        format!(
+            "Statistics(method='{}', features={}, rows={}, fit={f}, choose={c}, audit={a})",
+            self.inner.spec().method.name(),
+            self.inner.spec().features,
+            self.inner.rows()
+        )
+    }
+}
+
+/// Builds the report of `compiled` against `exact` on `x` and stores it (timings left
+/// out) in the model; warns when the agreement is below `min_agreement`.
+fn attach_report(
+    py: Python<'_>,
+    exact: &ExactModel,
+    model: &mut CompiledModel,
+    x: ArrayView2<f64>,
+    truth: Option<&[String]>,
+    on: String,
+    min_agreement: f64,
+) -> Res<()> {
+    let opts = ReportOptions {
+        min_agreement,
+        timing: false,
+        ..ReportOptions::default()
+    };
+    let mut rep = lib(py.detach(|| kreport::build(model, exact, x, truth, None, &opts)))?;
+    rep.evaluated_on = Some(on);
+    for w in &rep.warnings {
+        warn(py, w)?;
+    }
+    model.report = rep.without_timing().to_json();
+    Ok(())
+}
+
+/// Compiles `exact` into a feature map plus a linear head distilled from the exact model's
+/// decision values on `calib` (an array of rows, or a CSV / .npy path whose columns are
+/// matched to the model's by name). Every tenth calibration row is an audit row, never
+/// fitted on; the report (`model.report`) is computed on `eval` when given (with
+/// `eval_labels` for accuracy), else on the audit rows. A `UserWarning` is raised when the
+/// label agreement is below `min_agreement`. As `kernelpress compile MODEL --calib FILE
+/// --method M --features D` does, including the map bandwidth search unless
+/// `bandwidth_search=False`.
+///
+/// >>> compiled = kp.compile(exact, "models/pump_calib.csv", method="nystrom", features=1024)
+#[pyfunction]
+#[pyo3(signature = (exact, calib, method, features, *, seed=0, landmark_rule="uniform", bandwidth_search=true, eval=None, eval_labels=None, min_agreement=0.99))]
+#[allow(clippy::too_many_arguments)]
+fn compile(
+    py: Python<'_>,
+    exact: &PyExact,
+    calib: &Bound<'_, PyAny>,
+    method: &str,
+    features: usize,
+    seed: u64,
+    landmark_rule: &str,
+    bandwidth_search: bool,
+    eval: Option<&Bound<'_, PyAny>>,
+    eval_labels: Option<Vec<String>>,
+    min_agreement: f64,
+) -> Res<PyCompiled> {
+    let e = exact.inner.clone();
+    let spec = spec_for(
+        e.kernel().clone(),
+        e.input_dim(),
+        method,
+        features,
+        seed,
+        landmark_rule,
+    )?;
+    let (x, _) = model_batch(py, calib, "calib", &e.feature_names, None)?;
+    let (mut model, _) = lib(py.detach(|| {
+        compile_exact_tuned(
+            &e,
+            x.view(),
+            &spec,
+            &RidgeGrid::standard(),
+            bandwidth_search,
+            None,
+            &Silent,
+        )
+    }))?;
+    match eval {
+        Some(ev) => {
+            let (xe, _) = model_batch(py, ev, "eval", &e.feature_names, None)?;
+            attach_report(
+                py,
+                &e,
+                &mut model,
+                xe.view(),
+                eval_labels.as_deref(),
+                "eval".into(),
+                min_agreement,
+            )?;
+        }
+        None => {
+            let (xa, _) = audit_rows(x.view());
+            attach_report(
+                py,
+                &e,
+                &mut model,
+                xa.view(),
+                None,
+                "calibration audit rows (every tenth row; never fitted on)".into(),
+                min_agreement,
+            )?;
+        }
+    }
+    Ok(PyCompiled {
+        inner: Arc::new(model),
+    })
+}
+
+/// The report of `compiled` against `exact` on rows `x` (array or path), as a dict with the
+/// keys of `kernelpress report --json`. `labels` (true class labels) add the accuracies;
+/// `timing=True` measures latency and throughput on this machine (seconds).
+#[pyfunction]
+#[pyo3(signature = (compiled, exact, x, *, labels=None, timing=false, min_agreement=0.99))]
+fn report<'py>(
+    py: Python<'py>,
+    compiled: &PyCompiled,
+    exact: &PyExact,
+    x: &Bound<'py, PyAny>,
+    labels: Option<Vec<String>>,
+    timing: bool,
+    min_agreement: f64,
+) -> Res<Bound<'py, PyAny>> {
+    let e = exact.inner.clone();
+    let (xr, _) = model_batch(py, x, "x", &e.feature_names, None)?;
+    let opts = ReportOptions {
+        min_agreement,
+        timing,
+        ..ReportOptions::default()
+    };
+    let c = compiled.inner.clone();
+    let rep = lib(py.detach(|| kreport::build(&c, &e, xr.view(), labels.as_deref(), None, &opts)))?;
+    json_to_py(py, &rep.to_json())
+}
+
+/// Random features of `x` for a kernel expression: rows × D with ⟨z(x), z(y)⟩ ≈ k(x, y)
+/// (as `kernelpress featurize` writes them).
+#[pyfunction]
+#[pyo3(signature = (kernel, method, features, x, *, seed=0, landmark_rule="uniform"))]
+fn featurize<'py>(
+    py: Python<'py>,
+    kernel: &str,
+    method: &str,
+    features: usize,
+    x: &Bound<'py, PyAny>,
+    seed: u64,
+    landmark_rule: &str,
+) -> Res<Bound<'py, PyArray2<f64>>> {
+    let k: Kernel = lib(kernel.parse())?;
+    let r = rows(py, x, "x")?;
+    let v = r.view();
+    lib(data::check_batch(v, v.ncols(), "x"))?;
+    lib(k.check_dim(v.ncols()))?;
+    let spec = spec_for(k, v.ncols(), method, features, seed, landmark_rule)?;
+    let z = lib(py.detach(|| -> kernelpress::Result<Array2<f64>> {
+        let (map, _) = spec.sample(Some(v))?;
+        Ok(map.transform(v))
+    }))?;
+    Ok(to_py(py, z))
+}
+
+/// Exports `compiled` to `path` in `format` (`onnx`, `c`, `rust`, `npy`, `safetensors`) at
+/// `precision` (`f64`, `f32`, `f16`, `int8`); returns a dict of what was written.
+#[pyfunction]
+#[pyo3(signature = (compiled, format, path, *, precision="f32"))]
+fn export<'py>(
+    py: Python<'py>,
+    compiled: &PyCompiled,
+    format: &str,
+    path: PathBuf,
+    precision: &str,
+) -> Res<Bound<'py, PyAny>> {
+    let mut opts = ExportOptions::new(lib(Format::parse(format))?);
+    opts.precision = lib(Precision::parse(precision))?;
+    let c = compiled.inner.clone();
+    let s = lib(py.detach(|| kernelpress::export::export(&c, &opts, &path)))?;
+    json_to_py(py, &serde_json::to_value(&s).unwrap_or_default())
+}
+
+/// Reads a CSV (header row) or .npy data file: `(x, columns, target)`, `target` a list of
+/// str when `target` names a column, else None.
+#[pyfunction]
+#[pyo3(signature = (path, target=None))]
+fn read_data<'py>(
+    py: Python<'py>,
+    path: PathBuf,
+    target: Option<&str>,
+) -> Res<(Bound<'py, PyArray2<f64>>, Vec<String>, Option<Vec<String>>)> {
+    let t: Table = lib(py.detach(|| data::read_table(&path, target, target.is_some())))?;
+    Ok((to_py(py, t.x), t.columns, t.target))
+}
+
+/// Distillation statistics of one shard of calibration rows `x` (array or path) whose
+/// first row has global index `first_row` in the whole calibration set (rows keep their
+/// part — fit, ridge choice, audit — however the set is split). Map options as `compile`;
+/// the map bandwidth is not searched. Nyström needs `landmark_rule="support"` (the
+/// teacher's support vectors), so that every shard draws the same map.
+#[pyfunction]
+#[pyo3(signature = (exact, x, method, features, *, first_row=0, seed=0, landmark_rule="uniform"))]
+#[allow(clippy::too_many_arguments)]
+fn shard_statistics(
+    py: Python<'_>,
+    exact: &PyExact,
+    x: &Bound<'_, PyAny>,
+    method: &str,
+    features: usize,
+    first_row: usize,
+    seed: u64,
+    landmark_rule: &str,
+) -> Res<PyStats> {
+    let e = exact.inner.clone();
+    let spec = spec_for(
+        e.kernel().clone(),
+        e.input_dim(),
+        method,
+        features,
+        seed,
+        landmark_rule,
+    )?;
+    let (xr, _) = model_batch(py, x, "x", &e.feature_names, None)?;
+    let st = lib(py.detach(|| ShardStats::compute(&e, &spec, xr.view(), first_row)))?;
+    Ok(PyStats { inner: st })
+}
+
+/// Merges statistics of disjoint rows (same map and teacher), in any order.
+#[pyfunction]
+fn merge_statistics(py: Python<'_>, parts: Vec<Py<PyStats>>) -> Res<PyStats> {
+    let mut it = parts.iter();
+    let first = it.next().ok_or_else(|| {
+        err(kernelpress::Error::input(
+            "merge_statistics: no statistics given",
+        ))
+    })?;
+    let mut acc = first.get().inner.clone();
+    for p in it {
+        let other = &p.get().inner;
+        lib(py.detach(|| acc.merge(other)))?;
+    }
+    Ok(PyStats { inner: acc })
+}
+
+/// Fits the head from (merged) statistics and builds the compiled model; with `eval`
+/// (array or path) the report is computed there.
+#[pyfunction]
+#[pyo3(signature = (exact, statistics, *, eval=None, eval_labels=None, min_agreement=0.99))]
+fn compile_from_statistics(
+    py: Python<'_>,
+    exact: &PyExact,
+    statistics: &PyStats,
+    eval: Option<&Bound<'_, PyAny>>,
+    eval_labels: Option<Vec<String>>,
+    min_agreement: f64,
+) -> Res<PyCompiled> {
+    let e = exact.inner.clone();
+    let mut model = lib(py.detach(|| statistics.inner.fit(&e, &RidgeGrid::standard())))?;
+    if let Some(ev) = eval {
+        let (xe, _) = model_batch(py, ev, "eval", &e.feature_names, None)?;
+        attach_report(
+            py,
+            &e,
+            &mut model,
+            xe.view(),
+            eval_labels.as_deref(),
+            "eval".into(),
+            min_agreement,
+        )?;
+    }
+    Ok(PyCompiled {
+        inner: Arc::new(model),
+    })
+}
+
+/// The compiled part of kernelpress; import `kernelpress`, not this module.
+#[pymodule]
+fn _kernelpress(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add("Error", m.py().get_type::<Error>())?;
+    m.add_class::<PyExact>()?;
+    m.add_class::<PyCompiled>()?;
+    m.add_class::<PyStats>()?;
+    m.add_function(wrap_pyfunction!(compile, m)?)?;
+    m.add_function(wrap_pyfunction!(report, m)?)?;
+    m.add_function(wrap_pyfunction!(featurize, m)?)?;
+    m.add_function(wrap_pyfunction!(export, m)?)?;
+    m.add_function(wrap_pyfunction!(read_data, m)?)?;
+    m.add_function(wrap_pyfunction!(shard_statistics, m)?)?;
+    m.add_function(wrap_pyfunction!(merge_statistics, m)?)?;
+    m.add_function(wrap_pyfunction!(compile_from_statistics, m)?)?;
+    m.add("__version__", env!("CARGO_PKG_VERSION"))?;
+    Ok(())
+}
