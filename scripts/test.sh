@@ -1,13 +1,16 @@
 #!/usr/bin/env bash
 # The whole test suite, set-up included: a Python reference environment under
-# target/pyenv (numpy, scipy, the safetensors package, onnx, onnxruntime) and Debian's
-# chromium (installed with apt-get when missing), then the Rust tests, which call the
-# reference scripts in tests/reference/ and the browser. Safe to rerun; the environment is reused.
+# target/pyenv (numpy, scipy, the safetensors package, onnx, onnxruntime; maturin, pytest
+# and Dask's distributed for the Python package) and Debian's chromium (installed with
+# apt-get when missing), then the Rust tests, which call the reference scripts in
+# tests/reference/ and the browser, then the Python package's tests (pytest, after
+# `maturin develop` builds the package into target/pyenv). Safe to rerun; the environment
+# is reused.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 PYENV=target/pyenv
-REQS="numpy scipy safetensors onnx onnxruntime"
-if [ ! -x "$PYENV/bin/python" ] || ! "$PYENV/bin/python" -c "import numpy, scipy, safetensors, onnx, onnxruntime" 2>/dev/null; then
+REQS="numpy scipy safetensors onnx onnxruntime maturin pytest distributed"
+if [ ! -x "$PYENV/bin/python" ] || ! "$PYENV/bin/python" -c "import numpy, scipy, safetensors, onnx, onnxruntime, maturin, pytest, distributed" 2>/dev/null; then
   echo "setting up the Python reference environment in $PYENV" >&2
   mkdir -p target
   python3 -m venv "$PYENV"
@@ -26,3 +29,8 @@ cargo test --lib --bins --tests --examples "$@"
 cargo test --doc "$@"
 # Benches are compiled (not run: speed claims live in benchmarks, not in tests).
 cargo bench --no-run --quiet
+# The Python package: built into the reference environment, then its tests, which compare
+# it with the release binary (built here) and run a Dask cluster of two local processes.
+cargo build --release --quiet
+VIRTUAL_ENV="$PWD/$PYENV" "$PYENV/bin/maturin" develop --release --quiet
+"$PYENV/bin/python" -m pytest -q python/tests

@@ -1,0 +1,170 @@
+"""Type stubs of the compiled module (see the docstrings for the behaviour)."""
+
+from os import PathLike
+from typing import Any, Dict, List, Optional, Sequence, Tuple, Union
+
+import numpy as np
+import numpy.typing as npt
+
+Rows = Union[npt.ArrayLike, str, PathLike]
+"""An array of rows (n × d; 1-D is one column), or a CSV / .npy path whose columns are
+matched to the model's by name."""
+
+__version__: str
+
+class Error(Exception):
+    """Raised for every library failure. ``str(e)`` names the array or file, the row and
+    field, and what was expected; ``kind`` is ``'input'``, ``'file'``, ``'numerical'``,
+    ``'io'``, ``'internal'``, ``'gate'``, ``'budget'`` or ``'keep_exact'``; ``exit_code`` is
+    the command-line tool's exit code for it (2 for bad input)."""
+
+    kind: str
+    exit_code: int
+
+class ExactModel:
+    """An exact kernel model.
+
+    >>> exact = ExactModel.load("models/pump_svm.safetensors")
+    >>> exact.decision(x).shape   # (rows, decision functions)
+    """
+
+    @staticmethod
+    def load(path: Union[str, PathLike]) -> "ExactModel": ...
+    @staticmethod
+    def from_bytes(data: bytes) -> "ExactModel": ...
+    @staticmethod
+    def from_arrays(
+        support_vectors: npt.ArrayLike,
+        coef: npt.ArrayLike,
+        intercept: Sequence[float],
+        kernel: str,
+        labels: Optional[Sequence[str]] = None,
+        task: Optional[str] = None,
+    ) -> "ExactModel":
+        """>>> m = ExactModel.from_arrays(sv, coef, [0.1], "gaussian(gamma=0.5)", labels=["no", "yes"])"""
+    def to_bytes(self) -> bytes: ...
+    def save(self, path: Union[str, PathLike]) -> None: ...
+    def decision(self, x: npt.ArrayLike) -> npt.NDArray[np.float64]: ...
+    def predict(self, x: npt.ArrayLike) -> Union[List[str], npt.NDArray[np.float64]]: ...
+    kernel: str
+    task: str
+    labels: List[str]
+    input_dim: int
+    outputs: int
+    n_support_vectors: int
+    feature_names: List[str]
+    fingerprint: str
+
+class CompiledModel:
+    """A compiled model: scaling → feature program → linear head → label rule.
+
+    >>> compiled = compile(exact, "models/pump_calib.csv", method="nystrom", features=1024)
+    >>> compiled.report["agreement"]
+    """
+
+    @staticmethod
+    def load(path: Union[str, PathLike]) -> "CompiledModel": ...
+    @staticmethod
+    def from_bytes(data: bytes) -> "CompiledModel": ...
+    def to_bytes(self) -> bytes: ...
+    def save(self, path: Union[str, PathLike]) -> None: ...
+    def decision(self, x: npt.ArrayLike) -> npt.NDArray[np.float64]: ...
+    def predict(self, x: npt.ArrayLike) -> Union[List[str], npt.NDArray[np.float64]]: ...
+    def featurize(self, x: npt.ArrayLike) -> npt.NDArray[np.float64]: ...
+    method: str
+    features: int
+    seed: int
+    kernel: str
+    task: str
+    labels: List[str]
+    input_dim: int
+    parameter_bytes: int
+    report: Optional[Dict[str, Any]]
+    fit: Dict[str, Any]
+
+class Statistics:
+    """Distillation statistics of some calibration rows; picklable and mergeable.
+
+    >>> s = shard_statistics(exact, rows, "hadamard", 4096, first_row=250_000, seed=1)
+    """
+
+    @staticmethod
+    def from_bytes(data: bytes) -> "Statistics": ...
+    @staticmethod
+    def load(path: Union[str, PathLike]) -> "Statistics": ...
+    def to_bytes(self) -> bytes: ...
+    def save(self, path: Union[str, PathLike]) -> None: ...
+    rows: int
+    ranges: List[Tuple[int, int]]
+    parts: Tuple[int, int, int]
+
+def compile(
+    exact: ExactModel,
+    calib: Rows,
+    method: str,
+    features: int,
+    *,
+    seed: int = 0,
+    landmark_rule: str = "uniform",
+    bandwidth_search: bool = True,
+    eval: Optional[Rows] = None,
+    eval_labels: Optional[Sequence[str]] = None,
+    min_agreement: float = 0.99,
+) -> CompiledModel:
+    """>>> compiled = compile(exact, "models/pump_calib.csv", "hadamard", 2048, seed=1)"""
+
+def report(
+    compiled: CompiledModel,
+    exact: ExactModel,
+    x: Rows,
+    *,
+    labels: Optional[Sequence[str]] = None,
+    timing: bool = False,
+    min_agreement: float = 0.99,
+) -> Dict[str, Any]:
+    """>>> report(compiled, exact, x_test, labels=y_test)["agreement"]"""
+
+def featurize(
+    kernel: str,
+    method: str,
+    features: int,
+    x: npt.ArrayLike,
+    *,
+    seed: int = 0,
+    landmark_rule: str = "uniform",
+) -> npt.NDArray[np.float64]:
+    """>>> z = featurize("gaussian(gamma=0.3)", "orthogonal", 2048, x, seed=7)"""
+
+def export(
+    compiled: CompiledModel,
+    format: str,
+    path: Union[str, PathLike],
+    *,
+    precision: str = "f32",
+) -> Dict[str, Any]:
+    """>>> export(compiled, "onnx", "model.onnx")"""
+
+def read_data(
+    path: Union[str, PathLike], target: Optional[str] = None
+) -> Tuple[npt.NDArray[np.float64], List[str], Optional[List[str]]]:
+    """>>> x, columns, y = read_data("models/pump_test.csv", target="condition")"""
+
+def shard_statistics(
+    exact: ExactModel,
+    x: Rows,
+    method: str,
+    features: int,
+    *,
+    first_row: int = 0,
+    seed: int = 0,
+    landmark_rule: str = "uniform",
+) -> Statistics: ...
+def merge_statistics(parts: Sequence[Statistics]) -> Statistics: ...
+def compile_from_statistics(
+    exact: ExactModel,
+    statistics: Statistics,
+    *,
+    eval: Optional[Rows] = None,
+    eval_labels: Optional[Sequence[str]] = None,
+    min_agreement: float = 0.99,
+) -> CompiledModel: ...
