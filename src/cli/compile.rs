@@ -6,7 +6,8 @@ use clap::ValueEnum;
 use kernelpress::choose::{search, Budget, Choice, SearchOptions};
 use kernelpress::data::{check_batch, read_table, write_all_atomic};
 use kernelpress::fit::{
-    audit_row, compile_exact, compile_exact_tuned, compile_labels, HeadKind, RidgeGrid, Teacher,
+    audit_row, audit_rows, compile_exact, compile_exact_tuned, compile_labels, HeadKind, RidgeGrid,
+    Teacher,
 };
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
@@ -237,6 +238,9 @@ pub(crate) fn run(a: Args) -> Result<()> {
     if a.stats_out.is_some() || !a.from_stats.is_empty() {
         return run_shards(&a, &exact, &grid);
     }
+    if let Some(done) = try_streamed(&a, &exact, &grid)? {
+        return done;
+    }
     let d = exact.input_dim();
     let calib = match &a.calib {
         Some(p) => Some(super::read_for(
@@ -319,7 +323,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     if a.guard_agreement.is_some() || a.guard_rate.is_some() {
         return run_guard(&a, &exact, calib.as_ref(), model);
     }
-    evaluate_and_finish(&a, &exact, calib.as_ref(), model, None)
+    evaluate_and_finish(&a, &exact, calib.as_ref().map(audit_of), model, None)
 }
 
 fn run_guard(
@@ -421,10 +425,24 @@ fn run_guard(
 
 /// Builds the report (on --eval, else on the calibration audit rows), applies the gate
 /// and writes the model. `budget_line` is printed after the report.
+/// The audit rows of a calibration table (every tenth row, never fitted on) with their
+/// target values.
+fn audit_of(t: &kernelpress::data::Table) -> Rows {
+    let (x, idx) = audit_rows(t.x.view());
+    let y = t
+        .target
+        .as_ref()
+        .map(|y| idx.iter().map(|&i| y[i].clone()).collect());
+    (x, y)
+}
+
+/// Rows with their target values, when present.
+type Rows = (ndarray::Array2<f64>, Option<Vec<String>>);
+
 fn evaluate_and_finish(
     a: &Args,
     exact: &ExactModel,
-    calib: Option<&kernelpress::data::Table>,
+    audit: Option<Rows>,
     mut model: kernelpress::model::CompiledModel,
     budget_line: Option<&dyn Fn(&report::Report) -> String>,
 ) -> Result<()> {
@@ -434,19 +452,12 @@ fn evaluate_and_finish(
             let t = super::read_for(p, a.target.as_deref(), &exact.feature_names, a.by_position)?;
             (t.x, t.target, format!("{}", p.display()))
         }
-        None => match calib {
-            Some(t) => {
-                let idx: Vec<usize> = (0..t.x.nrows()).filter(|&i| audit_row(i)).collect();
-                let y = t
-                    .target
-                    .as_ref()
-                    .map(|y| idx.iter().map(|&i| y[i].clone()).collect());
-                (
-                    t.x.select(Axis(0), &idx),
-                    y,
-                    "calibration audit rows (every tenth row; never fitted on)".to_string(),
-                )
-            }
+        None => match audit {
+            Some((x, y)) => (
+                x,
+                y,
+                "calibration audit rows (every tenth row; never fitted on)".to_string(),
+            ),
             None => {
                 return finish(a, &mut model, None);
             }
@@ -548,7 +559,7 @@ fn run_budget(
                     _ => String::new(),
                 }
             };
-            evaluate_and_finish(a, exact, Some(&calib), *model, Some(&line))
+            evaluate_and_finish(a, exact, Some(audit_of(&calib)), *model, Some(&line))
         }
         Choice::Exact {
             exact: e,
@@ -793,4 +804,74 @@ fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
         );
     }
     evaluate_and_finish(a, exact, None, model, None)
+}
+
+/// A compile whose map does not depend on the calibration rows and has no bandwidth
+/// search reads --calib a chunk at a time (memory: one chunk, the statistics, and the
+/// audit rows when the report is computed on them). `None` when the compile needs the
+/// rows in memory (landmarks drawn from them, the bandwidth search, a budget or a guard).
+fn try_streamed(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<Option<Result<()>>> {
+    use kernelpress::data::RowFile;
+    use kernelpress::features::Landmarks;
+    use kernelpress::fit::shard::distil_streamed;
+    let (Some(path), Head::Distill) = (&a.calib, a.head) else {
+        return Ok(None);
+    };
+    if a.budget_us.is_some()
+        || a.max_bytes.is_some()
+        || a.max_disagreement.is_some()
+        || a.guard_agreement.is_some()
+        || a.guard_rate.is_some()
+        || a.map.landmarks.is_some()
+        || !a.methods.is_empty()
+    {
+        return Ok(None);
+    }
+    let spec = a.map.spec(exact.kernel().clone(), exact.input_dim())?;
+    let tunes = !a.no_bandwidth_search && spec.kernel.is_shift_invariant() && !spec.from_data();
+    let fixed_landmarks =
+        spec.options.landmarks == Landmarks::Support && spec.features <= exact.n_support_vectors();
+    if tunes || (spec.from_data() && !fixed_landmarks) {
+        return Ok(None);
+    }
+    let mut file = RowFile::open_for_model(
+        path,
+        a.target.as_deref(),
+        &exact.feature_names,
+        a.by_position,
+    )?;
+    for n in &file.notes {
+        super::progress::note(n);
+    }
+    let keep_audit = a.eval.is_none();
+    let mut audit_y: Vec<String> = Vec::new();
+    let mut has_target = false;
+    let mut next = || -> Result<Option<ndarray::Array2<f64>>> {
+        let Some(c) = file.next_chunk(kernelpress::fit::FIT_CHUNK)? else {
+            return Ok(None);
+        };
+        if let (true, Some(t)) = (keep_audit, &c.target) {
+            has_target = true;
+            for (i, v) in t.iter().enumerate() {
+                if audit_row(c.first_row + i) {
+                    audit_y.push(v.clone());
+                }
+            }
+        }
+        Ok(Some(c.x))
+    };
+    let keep = |i: usize| keep_audit && audit_row(i);
+    let bars = super::progress::Bars::default();
+    let (model, audit_x) = distil_streamed(exact, &spec, grid, &mut next, &keep, &bars)?;
+    for n in model
+        .fit
+        .get("notes")
+        .and_then(|v| v.as_array())
+        .into_iter()
+        .flatten()
+    {
+        super::progress::warn(n.as_str().unwrap_or(""));
+    }
+    let audit = keep_audit.then(|| (audit_x, has_target.then_some(audit_y)));
+    Ok(Some(evaluate_and_finish(a, exact, audit, model, None)))
 }

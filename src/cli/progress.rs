@@ -47,20 +47,29 @@ impl Stage {
         } else if terminal() {
             let pb = ProgressBar::new(len.max(1));
             pb.set_draw_target(ProgressDrawTarget::stderr());
+            // Length unknown (a streamed pass): a count instead of a bar.
+            let template = if len == 0 {
+                "{msg:>14} {pos} done ({elapsed})"
+            } else {
+                "{msg:>14} [{bar:30}] {pos}/{len} ({elapsed}, eta {eta})"
+            };
             pb.set_style(
-                ProgressStyle::with_template(
-                    "{msg:>14} [{bar:30}] {pos}/{len} ({elapsed}, eta {eta})",
-                )
-                .expect("template")
-                .progress_chars("=> "),
+                ProgressStyle::with_template(template)
+                    .expect("template")
+                    .progress_chars("=> "),
             );
             pb.set_message(name.to_string());
             Some(pb)
         } else {
-            eprintln!(
-                "[kernelpress] {name}: started ({len} step{})",
-                if len == 1 { "" } else { "s" }
-            );
+            if len == 0 {
+                // Length unknown (a streamed pass): the heartbeat lines count what is done.
+                eprintln!("[kernelpress] {name}: started");
+            } else {
+                eprintln!(
+                    "[kernelpress] {name}: started ({len} step{})",
+                    if len == 1 { "" } else { "s" }
+                );
+            }
             None
         };
         Stage {

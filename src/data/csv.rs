@@ -121,33 +121,112 @@ pub(crate) fn read_csv_select(
         .enumerate()
         .filter(|(_, l)| !l.trim().is_empty());
     lines.next();
-    let tcol = target.and_then(|t| names.iter().position(|n| n == t));
-    // Feature column indices in output order.
-    let cols: Vec<usize> = match select {
-        Some(sel) => sel
-            .iter()
-            .map(|s| {
-                names
-                    .iter()
-                    .position(|n| n == s)
-                    .expect("selected columns exist")
-            })
-            .collect(),
-        None => (0..names.len()).filter(|j| Some(*j) != tcol).collect(),
-    };
-    if cols.is_empty() {
-        return Err(Error::input(format!("{source}: no feature columns")));
-    }
-    let mut slot = vec![usize::MAX; names.len()];
-    for (k, j) in cols.iter().enumerate() {
-        slot[*j] = k;
-    }
-    let d = cols.len();
+    let p = RowParser::new(names, source, target, select, model_names)?;
     let mut vals = Vec::new();
-    let mut row = vec![0.0; d];
     let mut tvals = Vec::new();
     let mut n = 0usize;
     for (li, line) in lines {
+        p.parse(line, n, li, &mut vals, &mut tvals)?;
+        n += 1;
+    }
+    if n == 0 {
+        return Err(p.no_rows());
+    }
+    Ok(Table {
+        x: Array2::from_shape_vec((n, p.width()), vals).expect("row lengths checked"),
+        columns: p.columns(),
+        target: p.tcol.map(|_| tvals),
+        source: source.to_string(),
+    })
+}
+
+/// Parses data lines of one CSV layout: which fields are features (in output order) and
+/// which is the target. Shared by the whole-file reader and the chunked one
+/// ([`super::RowFile`]), so both give the same checks and messages.
+#[derive(Debug, Clone)]
+pub(crate) struct RowParser {
+    names: Vec<String>,
+    cols: Vec<usize>,
+    slot: Vec<usize>,
+    tcol: Option<usize>,
+    source: String,
+    target_given: bool,
+    model_names: Vec<String>,
+}
+
+impl RowParser {
+    /// A parser for a file whose header is `names`.
+    pub(crate) fn new(
+        names: Vec<String>,
+        source: &str,
+        target: Option<&str>,
+        select: Option<&[String]>,
+        model_names: &[String],
+    ) -> Result<RowParser> {
+        let tcol = target.and_then(|t| names.iter().position(|n| n == t));
+        // Feature column indices in output order.
+        let cols: Vec<usize> = match select {
+            Some(sel) => sel
+                .iter()
+                .map(|s| {
+                    names
+                        .iter()
+                        .position(|n| n == s)
+                        .expect("selected columns exist")
+                })
+                .collect(),
+            None => (0..names.len()).filter(|j| Some(*j) != tcol).collect(),
+        };
+        if cols.is_empty() {
+            return Err(Error::input(format!("{source}: no feature columns")));
+        }
+        let mut slot = vec![usize::MAX; names.len()];
+        for (k, j) in cols.iter().enumerate() {
+            slot[*j] = k;
+        }
+        Ok(RowParser {
+            names,
+            cols,
+            slot,
+            tcol,
+            source: source.to_string(),
+            target_given: target.is_some(),
+            model_names: model_names.to_vec(),
+        })
+    }
+
+    /// Feature count.
+    pub(crate) fn width(&self) -> usize {
+        self.cols.len()
+    }
+
+    /// True when the target column is present.
+    pub(crate) fn has_target(&self) -> bool {
+        self.tcol.is_some()
+    }
+
+    /// Feature names in output order.
+    pub(crate) fn columns(&self) -> Vec<String> {
+        self.cols.iter().map(|j| self.names[*j].clone()).collect()
+    }
+
+    /// The error for a file without data rows.
+    pub(crate) fn no_rows(&self) -> Error {
+        Error::input(format!("{}: has a header but no data rows", self.source))
+    }
+
+    /// Parses data row `n` (0-based), found on line `li` (0-based), appending its features
+    /// to `vals` and its target to `tvals`.
+    pub(crate) fn parse(
+        &self,
+        line: &str,
+        n: usize,
+        li: usize,
+        vals: &mut Vec<f64>,
+        tvals: &mut Vec<String>,
+    ) -> Result<()> {
+        let source = &self.source;
+        let names = &self.names;
         let fields = split(line);
         if fields.len() != names.len() {
             return Err(Error::input(format!(
@@ -158,12 +237,14 @@ pub(crate) fn read_csv_select(
                 names.len()
             )));
         }
+        let at = vals.len();
+        vals.resize(at + self.cols.len(), 0.0);
         for (j, f) in fields.into_iter().enumerate() {
-            if Some(j) == tcol {
+            if Some(j) == self.tcol {
                 tvals.push(f);
                 continue;
             }
-            if slot[j] == usize::MAX {
+            if self.slot[j] == usize::MAX {
                 continue;
             }
             let v: f64 = f.parse().map_err(|_| {
@@ -173,12 +254,12 @@ pub(crate) fn read_csv_select(
                     li + 1,
                     names[j]
                 );
-                if !model_names.is_empty() && !model_names.contains(&names[j]) {
+                if !self.model_names.is_empty() && !self.model_names.contains(&names[j]) {
                     m.push_str(&format!(
                         "; '{}' is not one of the model's features — if it holds the labels, pass --target {}",
                         names[j], names[j]
                     ));
-                } else if model_names.is_empty() && target.is_none() {
+                } else if self.model_names.is_empty() && !self.target_given {
                     m.push_str(&format!(
                         "; if the column holds labels, pass --target {}",
                         names[j]
@@ -194,23 +275,10 @@ pub(crate) fn read_csv_select(
                     names[j]
                 )));
             }
-            row[slot[j]] = v;
+            vals[at + self.slot[j]] = v;
         }
-        vals.extend_from_slice(&row);
-        n += 1;
+        Ok(())
     }
-    if n == 0 {
-        return Err(Error::input(format!(
-            "{source}: has a header but no data rows"
-        )));
-    }
-    let x = Array2::from_shape_vec((n, d), vals).expect("row lengths checked");
-    Ok(Table {
-        x,
-        columns: cols.iter().map(|j| names[*j].clone()).collect(),
-        target: tcol.map(|_| tvals),
-        source: source.to_string(),
-    })
 }
 
 /// Writes a CSV (header + rows of already formatted fields) atomically.

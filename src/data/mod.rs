@@ -12,6 +12,7 @@
 mod csv;
 mod idx;
 mod npy;
+mod stream;
 
 pub use crate::fsio::{read_bytes, temp_path, write_all_atomic, write_atomic};
 pub use csv::{read_csv, read_csv_str, write_csv};
@@ -20,6 +21,7 @@ pub use npy::{
     dtype_message, not_finite_message, parse_npy, read_npy, shape_message, write_npy_f32,
     write_npy_f64, NpyArray,
 };
+pub use stream::{Chunk, RowFile};
 
 use crate::{Error, Result};
 use ndarray::{Array2, ArrayView2};
@@ -153,6 +155,23 @@ pub fn read_for_model(
     }
     let text = csv::read_text(path)?;
     let header = csv::header(&text, &src)?;
+    let select = plan_columns(&header, target, names, by_position, &src, &mut notes)?;
+    let t = csv::read_csv_select(&text, &src, target, select.as_deref(), names)?;
+    check_batch(t.x.view(), names.len(), &src)?;
+    Ok(Matched { table: t, notes })
+}
+
+/// Which CSV columns are a model's features: by name (any order; missing ones are an
+/// error naming them, extra ones a note), or by position for `by_position` and models
+/// without names. `None` means every column but the target, in file order.
+pub(crate) fn plan_columns(
+    header: &[String],
+    target: Option<&str>,
+    names: &[String],
+    by_position: bool,
+    src: &str,
+    notes: &mut Vec<String>,
+) -> Result<Option<Vec<String>>> {
     let others: Vec<&String> = header
         .iter()
         .filter(|h| Some(h.as_str()) != target)
@@ -199,9 +218,7 @@ pub fn read_for_model(
         }
         None
     };
-    let t = csv::read_csv_select(&text, &src, target, select.as_deref(), names)?;
-    check_batch(t.x.view(), names.len(), &src)?;
-    Ok(Matched { table: t, notes })
+    Ok(select)
 }
 
 /// Per-feature standardisation `(x − mean) / scale`, stored in model files.

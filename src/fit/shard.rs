@@ -139,7 +139,9 @@ impl ShardStats {
         x: ArrayView2<f64>,
         first_row: usize,
     ) -> Result<()> {
-        if exact.fingerprint() != self.teacher || map_fingerprint(map) != self.map_fingerprint {
+        // A cheap guard against mixing up maps (the full fingerprints are checked when
+        // statistics are merged or fitted).
+        if (map.output_dim(), exact.n_outputs()) != self.dist.shape() {
             return Err(Error::input(
                 "rows added to statistics with another teacher or map than they were made for",
             ));
@@ -274,11 +276,15 @@ impl ShardStats {
         }
         let fit = self.dist.solve(grid)?;
         let mut j = with_kind(&fit, "distill");
-        j["sharded"] = json!({
-            "calibration_rows": self.rows(),
-            "audit_rows": self.audit_rows,
-            "ranges": self.ranges.iter().map(|(a, b)| json!([a, b])).collect::<Vec<_>>(),
-        });
+        if self.ranges.len() != 1 || self.ranges[0].0 != 0 {
+            // Several shards (a single pass over all rows from the first is an ordinary
+            // compile, streamed or not, and records nothing more).
+            j["sharded"] = json!({
+                "calibration_rows": self.rows(),
+                "audit_rows": self.audit_rows,
+                "ranges": self.ranges.iter().map(|(a, b)| json!([a, b])).collect::<Vec<_>>(),
+            });
+        }
         finish_model(exact, map, fit.head, fit.intercept, j)
     }
 
@@ -389,4 +395,48 @@ impl ShardStats {
         }
         Ok(st)
     }
+}
+
+/// A compile that reads its calibration rows as a stream of chunks (in file order): one
+/// pass, the teacher's decisions and the map's features computed chunk by chunk, so memory
+/// holds one chunk and the statistics however many rows there are. The rows whose global
+/// index satisfies `keep` (e.g. [`super::audit_row`], for the report) are returned with the
+/// model. Same result as [`super::compile_exact`] with the same map, rows and chunking of
+/// [`FIT_CHUNK`] rows (the map must not depend on the rows: see [`shard_map`]).
+pub fn distil_streamed(
+    exact: &ExactModel,
+    spec: &FeatureSpec,
+    grid: &RidgeGrid,
+    next: &mut dyn FnMut() -> Result<Option<ndarray::Array2<f64>>>,
+    keep: &dyn Fn(usize) -> bool,
+    obs: &dyn crate::observe::Observer,
+) -> Result<(CompiledModel, ndarray::Array2<f64>)> {
+    let (mut st, map) = ShardStats::new(exact, spec)?;
+    let d = exact.input_dim();
+    let mut kept: Vec<f64> = Vec::new();
+    obs.stage("distilling (streamed)", 0);
+    while let Some(x) = next()? {
+        let first = st.rows();
+        st.add(exact, &map, x.view(), first)?;
+        for (i, row) in x.rows().into_iter().enumerate() {
+            if keep(first + i) {
+                kept.extend(row.iter().copied());
+            }
+        }
+        obs.advance(x.nrows() as u64);
+    }
+    if st.rows() < 10 {
+        return Err(Error::input(format!(
+            "distillation needs at least 10 calibration rows, got {}",
+            st.rows()
+        )));
+    }
+    obs.stage("ridge solve", 1);
+    let model = st.fit(exact, grid)?;
+    obs.finish();
+    let n = kept.len() / d.max(1);
+    Ok((
+        model,
+        ndarray::Array2::from_shape_vec((n, d), kept).expect("whole rows"),
+    ))
 }
