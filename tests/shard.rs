@@ -284,6 +284,7 @@ fn wrong_merges_are_refused() {
         "gaussian(gamma=0.3)",
         "--model",
         "ridge",
+        "--classify",
         "--ridge",
         "1",
         "--out",

@@ -756,8 +756,9 @@ fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
             &exact.feature_names,
             a.by_position,
         )?;
+        let (mut st, map) = ShardStats::new(exact, &spec)?;
         let pb = super::progress::bar(1, "shard statistics");
-        let st = ShardStats::compute(exact, &spec, calib.x.view(), a.first_row)?;
+        st.add(exact, &map, calib.x.view(), a.first_row)?;
         pb.finish();
         st.save(path)?;
         let (fit, choose, audit) = st.parts();

@@ -414,8 +414,11 @@ pub fn distil_streamed(
     let (mut st, map) = ShardStats::new(exact, spec)?;
     let d = exact.input_dim();
     let mut kept: Vec<f64> = Vec::new();
+    // The first chunk is read before the stage starts, so that a file that is bad from
+    // its first rows fails with its message alone.
+    let mut pending = next()?;
     obs.stage("distilling (streamed)", 0);
-    while let Some(x) = next()? {
+    while let Some(x) = pending.take() {
         let first = st.rows();
         st.add(exact, &map, x.view(), first)?;
         for (i, row) in x.rows().into_iter().enumerate() {
@@ -424,6 +427,7 @@ pub fn distil_streamed(
             }
         }
         obs.advance(x.nrows() as u64);
+        pending = next()?;
     }
     if st.rows() < 10 {
         return Err(Error::input(format!(

@@ -1,0 +1,105 @@
+//! The streamed compile (calibration files read a chunk at a time) against the in-memory
+//! compile of the library, on CSV and .npy calibration files; a bad cell deep in the file
+//! is named by its row and line.
+
+mod common;
+use common::*;
+use kernelpress::features::{FeatureSpec, Method};
+use kernelpress::fit::{compile_exact, HeadKind, RidgeGrid};
+use kernelpress::model::CompiledModel;
+
+#[test]
+fn streamed_compile_is_bit_identical_to_the_in_memory_one() {
+    let dir = tmpdir("streaming_equal");
+    let exact = demo_exact();
+    let calib = demo_rows("pump_calib.csv");
+    let test = demo_rows("pump_test.csv");
+    let npy = dir.join("calib.npy");
+    kernelpress::data::write_npy_f64(
+        &npy,
+        &[calib.nrows(), calib.ncols()],
+        calib.as_slice().unwrap(),
+    )
+    .unwrap();
+    let spec = FeatureSpec::new(exact.kernel().clone(), Method::Fastfood, 8, 512, 6);
+    let (mem, _) = compile_exact(
+        &exact,
+        Some(calib.view()),
+        &spec,
+        HeadKind::Distill,
+        &RidgeGrid::standard(),
+        None,
+        &kernelpress::observe::Silent,
+    )
+    .unwrap();
+    let want = mem.decision(test.view());
+    let csv = root().join("models/pump_calib.csv");
+    for (i, src) in [csv.as_path(), npy.as_path()].into_iter().enumerate() {
+        let out = dir.join(format!("c{i}.safetensors"));
+        let stderr = String::from_utf8(
+            run(&[
+                "compile",
+                s(&root().join("models/pump_svm.safetensors")),
+                "--calib",
+                s(src),
+                "--target",
+                "condition",
+                "--method",
+                "fastfood",
+                "--features",
+                "512",
+                "--seed",
+                "6",
+                "--no-bandwidth-search",
+                "--no-timing",
+                "--out",
+                s(&out),
+            ])
+            .stderr,
+        )
+        .unwrap();
+        assert!(stderr.contains("distilling (streamed)"), "{stderr}");
+        let got = CompiledModel::load(&out).unwrap().decision(test.view());
+        assert_eq!(got, want, "calibration from {}", src.display());
+    }
+}
+
+#[test]
+fn a_bad_cell_deep_in_a_streamed_file_is_named_by_row_and_line() {
+    let dir = tmpdir("streaming_bad");
+    let text = std::fs::read_to_string(root().join("models/pump_calib.csv")).unwrap();
+    let mut lines: Vec<String> = text.lines().map(|l| l.to_string()).collect();
+    // Row 5,000 is line 5,001 (after the header).
+    let cells: Vec<&str> = lines[5000].split(',').collect();
+    let mut cells: Vec<String> = cells.iter().map(|c| c.to_string()).collect();
+    cells[2] = "n/a".into();
+    lines[5000] = cells.join(",");
+    let bad_csv = dir.join("bad.csv");
+    std::fs::write(&bad_csv, lines.join("\n") + "\n").unwrap();
+    let out = dir.join("m.safetensors");
+    let o = run(&[
+        "compile",
+        s(&root().join("models/pump_svm.safetensors")),
+        "--calib",
+        s(&bad_csv),
+        "--target",
+        "condition",
+        "--method",
+        "hadamard",
+        "--features",
+        "256",
+        "--no-bandwidth-search",
+        "--out",
+        s(&out),
+    ]);
+    // The pass was under way: progress lines come first, the error is the last line.
+    assert_eq!(o.status.code(), Some(2));
+    let stderr = String::from_utf8(o.stderr).unwrap();
+    let e = stderr.trim().lines().last().unwrap();
+    assert!(!stderr.contains("panicked"), "{stderr}");
+    assert!(
+        e.contains("row 5000 (line 5001), column 'crest_factor'"),
+        "{e}"
+    );
+    assert!(!out.exists());
+}
