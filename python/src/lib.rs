@@ -750,6 +750,9 @@ fn export<'py>(
     json_to_py(py, &serde_json::to_value(&s).unwrap_or_default())
 }
 
+/// `(x, columns, target)` as `read_data` returns them.
+type DataTuple<'py> = (Bound<'py, PyArray2<f64>>, Vec<String>, Option<Vec<String>>);
+
 /// Reads a CSV (header row) or .npy data file: `(x, columns, target)`, `target` a list of
 /// str when `target` names a column, else None.
 #[pyfunction]
@@ -758,7 +761,7 @@ fn read_data<'py>(
     py: Python<'py>,
     path: PathBuf,
     target: Option<&str>,
-) -> Res<(Bound<'py, PyArray2<f64>>, Vec<String>, Option<Vec<String>>)> {
+) -> Res<DataTuple<'py>> {
     let t: Table = lib(py.detach(|| data::read_table(&path, target, target.is_some())))?;
     Ok((to_py(py, t.x), t.columns, t.target))
 }
