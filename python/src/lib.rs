@@ -190,6 +190,92 @@ fn labels_or_values(
     }
 }
 
+/// The methods every model class has: files, bytes, pickling, decisions and labels.
+macro_rules! model_class {
+    ($py:ident, $model:ident, { $($extra:tt)* }) => {
+        #[pymethods]
+        impl $py {
+            /// Reads a model file of this kind.
+            #[staticmethod]
+            fn load(py: Python<'_>, path: PathBuf) -> Res<Self> {
+                let m = py.detach(|| $model::load(&path));
+                Ok($py { inner: Arc::new(lib(m)?) })
+            }
+
+            /// A model from the bytes of a model file (as `to_bytes` gives).
+            #[staticmethod]
+            fn from_bytes(py: Python<'_>, data: &[u8]) -> Res<Self> {
+                let m = py.detach(|| {
+                    let f = kernelpress::format::TensorFile::from_bytes(data, "bytes")?;
+                    $model::from_file(&f, "bytes")
+                });
+                Ok($py { inner: Arc::new(lib(m)?) })
+            }
+
+            /// The model file's bytes (safetensors).
+            fn to_bytes<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyBytes>> {
+                let b = lib(self.inner.to_file().to_bytes())?;
+                Ok(PyBytes::new(py, &b))
+            }
+
+            /// Writes the model file atomically.
+            fn save(&self, py: Python<'_>, path: PathBuf) -> Res<()> {
+                lib(py.detach(|| self.inner.save(&path)))
+            }
+
+            /// Decision values, rows × decision functions (float64).
+            fn decision<'py>(
+                &self,
+                py: Python<'py>,
+                x: &Bound<'py, PyAny>,
+            ) -> Res<Bound<'py, PyArray2<f64>>> {
+                let r = model_rows(py, x, "x", self.inner.input_dim())?;
+                let v = r.view();
+                let s = py.detach(|| self.inner.decision(v));
+                Ok(to_py(py, s))
+            }
+
+            /// Class labels (a list of str) for classifiers; values (1-D array) for
+            /// regression.
+            fn predict(&self, py: Python<'_>, x: &Bound<'_, PyAny>) -> Res<Py<PyAny>> {
+                let r = model_rows(py, x, "x", self.inner.input_dim())?;
+                let v = r.view();
+                let s = py.detach(|| self.inner.decision(v));
+                let l = self.inner.labels_of(s.view());
+                labels_or_values(py, self.inner.task(), l, s)
+            }
+
+            /// `regression`, `binary`, `ovr` or `ovo`.
+            #[getter]
+            fn task(&self) -> &'static str {
+                self.inner.task().name()
+            }
+
+            /// Class labels (empty for regression).
+            #[getter]
+            fn labels(&self) -> Vec<String> {
+                self.inner.labels().to_vec()
+            }
+
+            /// Input width `d`.
+            #[getter]
+            fn input_dim(&self) -> usize {
+                self.inner.input_dim()
+            }
+
+            fn __reduce__<'py>(
+                &self,
+                py: Python<'py>,
+            ) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+                let f = py.get_type::<$py>().getattr("from_bytes")?;
+                Ok((f, (self.to_bytes(py)?,)))
+            }
+
+            $($extra)*
+        }
+    };
+}
+
 /// An exact kernel model: support vectors, coefficients, intercepts, a kernel and an
 /// output rule. Every prediction compares the input with every support vector.
 ///
@@ -202,29 +288,7 @@ struct PyExact {
     inner: Arc<ExactModel>,
 }
 
-#[pymethods]
-impl PyExact {
-    /// Reads a model file (kind `exact`).
-    #[staticmethod]
-    fn load(py: Python<'_>, path: PathBuf) -> Res<Self> {
-        let m = py.detach(|| ExactModel::load(&path));
-        Ok(PyExact {
-            inner: Arc::new(lib(m)?),
-        })
-    }
-
-    /// A model from the bytes of a model file (as `to_bytes` gives).
-    #[staticmethod]
-    fn from_bytes(py: Python<'_>, data: &[u8]) -> Res<Self> {
-        let m = py.detach(|| {
-            let f = kernelpress::format::TensorFile::from_bytes(data, "bytes")?;
-            ExactModel::from_file(&f, "bytes")
-        });
-        Ok(PyExact {
-            inner: Arc::new(lib(m)?),
-        })
-    }
-
+model_class!(PyExact, ExactModel, {
     /// An exact model from arrays: `support_vectors` (n × d), `coef` (n × k, one column per
     /// decision function), `intercept` (k values), a kernel expression such as
     /// `"gaussian(gamma=0.5)"`, class `labels` (none for regression) and the `task`
@@ -274,57 +338,10 @@ impl PyExact {
         Ok(PyExact { inner: Arc::new(m) })
     }
 
-    /// The model file's bytes (safetensors).
-    fn to_bytes<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyBytes>> {
-        let b = lib(self.inner.to_file().to_bytes())?;
-        Ok(PyBytes::new(py, &b))
-    }
-
-    /// Writes the model file atomically.
-    fn save(&self, py: Python<'_>, path: PathBuf) -> Res<()> {
-        lib(py.detach(|| self.inner.save(&path)))
-    }
-
-    /// Decision values, rows × decision functions (float64).
-    fn decision<'py>(
-        &self,
-        py: Python<'py>,
-        x: &Bound<'py, PyAny>,
-    ) -> Res<Bound<'py, PyArray2<f64>>> {
-        let r = model_rows(py, x, "x", self.inner.input_dim())?;
-        let v = r.view();
-        let s = py.detach(|| self.inner.decision(v));
-        Ok(to_py(py, s))
-    }
-
-    /// Class labels (a list of str) for classifiers; values (1-D array) for regression.
-    fn predict(&self, py: Python<'_>, x: &Bound<'_, PyAny>) -> Res<Py<PyAny>> {
-        let r = model_rows(py, x, "x", self.inner.input_dim())?;
-        let v = r.view();
-        let s = py.detach(|| self.inner.decision(v));
-        let l = self.inner.labels_of(s.view());
-        labels_or_values(py, self.inner.task(), l, s)
-    }
-
     /// The kernel expression.
     #[getter]
     fn kernel(&self) -> String {
         self.inner.kernel().to_string()
-    }
-    /// `regression`, `binary`, `ovr` or `ovo`.
-    #[getter]
-    fn task(&self) -> &'static str {
-        self.inner.task().name()
-    }
-    /// Class labels (empty for regression).
-    #[getter]
-    fn labels(&self) -> Vec<String> {
-        self.inner.labels().to_vec()
-    }
-    /// Input width `d`.
-    #[getter]
-    fn input_dim(&self) -> usize {
-        self.inner.input_dim()
     }
     /// Number of decision functions.
     #[getter]
@@ -347,11 +364,6 @@ impl PyExact {
         self.inner.fingerprint()
     }
 
-    fn __reduce__<'py>(&self, py: Python<'py>) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
-        let f = py.get_type::<PyExact>().getattr("from_bytes")?;
-        Ok((f, (self.to_bytes(py)?,)))
-    }
-
     fn __repr__(&self) -> String {
         format!(
             "ExactModel(kernel='{}', task='{}', support_vectors={}, input_dim={})",
@@ -361,7 +373,7 @@ impl PyExact {
             self.inner.input_dim()
         )
     }
-}
+});
 
 /// A compiled model: input scaling → feature program → linear head → the teacher's label
 /// rule. Its cost does not depend on the number of support vectors.
@@ -374,61 +386,7 @@ struct PyCompiled {
     inner: Arc<CompiledModel>,
 }
 
-#[pymethods]
-impl PyCompiled {
-    /// Reads a model file (kind `compiled`).
-    #[staticmethod]
-    fn load(py: Python<'_>, path: PathBuf) -> Res<Self> {
-        let m = py.detach(|| CompiledModel::load(&path));
-        Ok(PyCompiled {
-            inner: Arc::new(lib(m)?),
-        })
-    }
-
-    /// A model from the bytes of a model file (as `to_bytes` gives).
-    #[staticmethod]
-    fn from_bytes(py: Python<'_>, data: &[u8]) -> Res<Self> {
-        let m = py.detach(|| {
-            let f = kernelpress::format::TensorFile::from_bytes(data, "bytes")?;
-            CompiledModel::from_file(&f, "bytes")
-        });
-        Ok(PyCompiled {
-            inner: Arc::new(lib(m)?),
-        })
-    }
-
-    /// The model file's bytes (safetensors).
-    fn to_bytes<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyBytes>> {
-        let b = lib(self.inner.to_file().to_bytes())?;
-        Ok(PyBytes::new(py, &b))
-    }
-
-    /// Writes the model file atomically.
-    fn save(&self, py: Python<'_>, path: PathBuf) -> Res<()> {
-        lib(py.detach(|| self.inner.save(&path)))
-    }
-
-    /// Decision values, rows × decision functions (float64).
-    fn decision<'py>(
-        &self,
-        py: Python<'py>,
-        x: &Bound<'py, PyAny>,
-    ) -> Res<Bound<'py, PyArray2<f64>>> {
-        let r = model_rows(py, x, "x", self.inner.input_dim())?;
-        let v = r.view();
-        let s = py.detach(|| self.inner.decision(v));
-        Ok(to_py(py, s))
-    }
-
-    /// Class labels (a list of str) for classifiers; values (1-D array) for regression.
-    fn predict(&self, py: Python<'_>, x: &Bound<'_, PyAny>) -> Res<Py<PyAny>> {
-        let r = model_rows(py, x, "x", self.inner.input_dim())?;
-        let v = r.view();
-        let s = py.detach(|| self.inner.decision(v));
-        let l = self.inner.labels_of(s.view());
-        labels_or_values(py, self.inner.task(), l, s)
-    }
-
+model_class!(PyCompiled, CompiledModel, {
     /// The feature program's output on `x` (after the model's input scaling), rows × D.
     fn featurize<'py>(
         &self,
@@ -467,21 +425,6 @@ impl PyCompiled {
     fn kernel(&self) -> String {
         self.inner.spec().kernel.to_string()
     }
-    /// `regression`, `binary`, `ovr` or `ovo`.
-    #[getter]
-    fn task(&self) -> &'static str {
-        self.inner.task().name()
-    }
-    /// Class labels (empty for regression).
-    #[getter]
-    fn labels(&self) -> Vec<String> {
-        self.inner.labels().to_vec()
-    }
-    /// Input width `d`.
-    #[getter]
-    fn input_dim(&self) -> usize {
-        self.inner.input_dim()
-    }
     /// Bytes of parameters.
     #[getter]
     fn parameter_bytes(&self) -> usize {
@@ -501,11 +444,6 @@ impl PyCompiled {
         json_to_py(py, &self.inner.fit)
     }
 
-    fn __reduce__<'py>(&self, py: Python<'py>) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
-        let f = py.get_type::<PyCompiled>().getattr("from_bytes")?;
-        Ok((f, (self.to_bytes(py)?,)))
-    }
-
     fn __repr__(&self) -> String {
         format!(
             "CompiledModel(method='{}', features={}, kernel='{}', task='{}')",
@@ -515,7 +453,7 @@ impl PyCompiled {
             self.inner.task().name()
         )
     }
-}
+});
 
 /// Distillation statistics of some calibration rows (one shard, or several merged):
 /// picklable, mergeable, and enough to fit the head (`compile_from_statistics`).
@@ -757,11 +695,7 @@ type DataTuple<'py> = (Bound<'py, PyArray2<f64>>, Vec<String>, Option<Vec<String
 /// str when `target` names a column, else None.
 #[pyfunction]
 #[pyo3(signature = (path, target=None))]
-fn read_data<'py>(
-    py: Python<'py>,
-    path: PathBuf,
-    target: Option<&str>,
-) -> Res<DataTuple<'py>> {
+fn read_data<'py>(py: Python<'py>, path: PathBuf, target: Option<&str>) -> Res<DataTuple<'py>> {
     let t: Table = lib(py.detach(|| data::read_table(&path, target, target.is_some())))?;
     Ok((to_py(py, t.x), t.columns, t.target))
 }

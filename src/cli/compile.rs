@@ -311,15 +311,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     for n in &info.notes {
         super::progress::warn(n);
     }
-    for n in model
-        .fit
-        .get("notes")
-        .and_then(|v| v.as_array())
-        .cloned()
-        .unwrap_or_default()
-    {
-        super::progress::warn(n.as_str().unwrap_or(""));
-    }
+    warn_fit_notes(&model);
     if a.guard_agreement.is_some() || a.guard_rate.is_some() {
         return run_guard(&a, &exact, calib.as_ref(), model);
     }
@@ -784,15 +776,7 @@ fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
         st.merge(&other).map_err(|e| e.context(p.display()))?;
     }
     let model = st.fit(exact, grid)?;
-    for n in model
-        .fit
-        .get("notes")
-        .and_then(|v| v.as_array())
-        .into_iter()
-        .flatten()
-    {
-        super::progress::warn(n.as_str().unwrap_or(""));
-    }
+    warn_fit_notes(&model);
     super::progress::note(format!(
         "fitted from {} statistics file{} covering {} calibration rows",
         a.from_stats.len(),
@@ -864,6 +848,13 @@ fn try_streamed(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<Option
     let keep = |i: usize| keep_audit && audit_row(i);
     let bars = super::progress::Bars::default();
     let (model, audit_x) = distil_streamed(exact, &spec, grid, &mut next, &keep, &bars)?;
+    warn_fit_notes(&model);
+    let audit = keep_audit.then(|| (audit_x, has_target.then_some(audit_y)));
+    Ok(Some(evaluate_and_finish(a, exact, audit, model, None)))
+}
+
+/// Prints what the head fit had to do (jitter, retries) as warnings.
+fn warn_fit_notes(model: &kernelpress::model::CompiledModel) {
     for n in model
         .fit
         .get("notes")
@@ -873,6 +864,4 @@ fn try_streamed(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<Option
     {
         super::progress::warn(n.as_str().unwrap_or(""));
     }
-    let audit = keep_audit.then(|| (audit_x, has_target.then_some(audit_y)));
-    Ok(Some(evaluate_and_finish(a, exact, audit, model, None)))
 }

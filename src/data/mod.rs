@@ -65,11 +65,7 @@ impl Table {
 /// CSV column holding labels; with `require_target` a missing column is an error, otherwise
 /// a named but absent column is ignored (as `score` does).
 pub fn read_table(path: &Path, target: Option<&str>, require_target: bool) -> Result<Table> {
-    let is_npy = path
-        .extension()
-        .map(|e| e.eq_ignore_ascii_case("npy"))
-        .unwrap_or(false);
-    if is_npy {
+    if is_npy(path) {
         if target.is_some() && require_target {
             return Err(Error::input(format!(
                 "{}: a .npy data file holds features only; put the target in a CSV column",
@@ -96,6 +92,13 @@ pub fn read_table(path: &Path, target: Option<&str>, require_target: bool) -> Re
         )));
     }
     Ok(t)
+}
+
+/// True for a `.npy` path (by extension, any case).
+pub(crate) fn is_npy(path: &Path) -> bool {
+    path.extension()
+        .map(|e| e.eq_ignore_ascii_case("npy"))
+        .unwrap_or(false)
 }
 
 /// Up to twelve names, quoted, then how many more (so that a file with a million columns
@@ -143,12 +146,8 @@ pub fn read_for_model(
     by_position: bool,
 ) -> Result<Matched> {
     let src = path.display().to_string();
-    let is_npy = path
-        .extension()
-        .map(|e| e.eq_ignore_ascii_case("npy"))
-        .unwrap_or(false);
     let mut notes = Vec::new();
-    if is_npy {
+    if is_npy(path) {
         let t = read_table(path, None, false)?;
         check_batch(t.x.view(), names.len(), &src)?;
         return Ok(Matched { table: t, notes });

@@ -6,7 +6,7 @@
 
 use super::csv::{header, RowParser};
 use super::npy::{dtype_message, not_finite_message, parse_npy, shape_message};
-use super::{check_batch, plan_columns};
+use super::{check_batch, is_npy, plan_columns};
 use crate::error::io_error;
 use crate::{Error, Result};
 use ndarray::Array2;
@@ -68,12 +68,6 @@ impl std::fmt::Debug for RowFile {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         write!(f, "RowFile({}, {} rows read)", self.source, self.rows)
     }
-}
-
-fn is_npy(path: &Path) -> bool {
-    path.extension()
-        .map(|e| e.eq_ignore_ascii_case("npy"))
-        .unwrap_or(false)
 }
 
 impl RowFile {
