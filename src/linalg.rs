@@ -310,6 +310,45 @@ mod tests {
     use ndarray::array;
 
     #[test]
+    fn f32_row_dots_at_every_level_match_the_definition() {
+        // Widths around the 16-lane blocks, rows of mixed signs and magnitudes.
+        for d in [1usize, 15, 16, 17, 100, 784] {
+            let n = 37;
+            let rows: Vec<f32> = (0..n * d)
+                .map(|i| ((i as f32 * 0.37).sin() * (1.0 + (i % 13) as f32)))
+                .collect();
+            let x: Vec<f32> = (0..d).map(|j| (j as f32 * 0.11).cos() - 0.2).collect();
+            // The definition, in f64 over the same f32 values.
+            let want: Vec<f64> = rows
+                .chunks_exact(d)
+                .map(|r| r.iter().zip(&x).map(|(a, b)| *a as f64 * *b as f64).sum())
+                .collect();
+            let mass: Vec<f64> = rows
+                .chunks_exact(d)
+                .map(|r| {
+                    r.iter()
+                        .zip(&x)
+                        .map(|(a, b)| (*a as f64 * *b as f64).abs())
+                        .sum()
+                })
+                .collect();
+            for level in crate::simd::available() {
+                let mut got = vec![f64::NAN; n];
+                dot_rows_f32_at(level, &rows, &x, &mut got);
+                for j in 0..n {
+                    assert!(
+                        (got[j] - want[j]).abs() <= 1e-6 * mass[j] + 1e-30,
+                        "{} d={d} row {j}: {} vs {}",
+                        level.name(),
+                        got[j],
+                        want[j]
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
     fn products_match_ndarray_dot() {
         let a = Array2::from_shape_fn((300, 7), |(i, j)| ((i * 7 + j) as f64).sin());
         let b = Array2::from_shape_fn((5, 7), |(i, j)| ((i + 3 * j) as f64).cos());
@@ -382,5 +421,78 @@ mod f32_head_tests {
                 );
             }
         }
+    }
+}
+
+#[inline(always)]
+fn dot_rows_f32_body(rows: &[f32], x: &[f32], out: &mut [f64]) {
+    const L: usize = 16;
+    let d = x.len();
+    let head = d - d % L;
+    for (o, r) in out.iter_mut().zip(rows.chunks_exact(d)) {
+        let mut acc = [0.0f32; L];
+        for (a, b) in r[..head].chunks_exact(L).zip(x[..head].chunks_exact(L)) {
+            for l in 0..L {
+                acc[l] += a[l] * b[l];
+            }
+        }
+        let mut t = 0.0f32;
+        for (a, b) in r[head..].iter().zip(&x[head..]) {
+            t += a * b;
+        }
+        *o = acc.iter().sum::<f32>() as f64 + t as f64;
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn dot_rows_f32_avx2(rows: &[f32], x: &[f32], out: &mut [f64]) {
+    dot_rows_f32_body(rows, x, out)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,fma")]
+unsafe fn dot_rows_f32_avx512(rows: &[f32], x: &[f32], out: &mut [f64]) {
+    dot_rows_f32_body(rows, x, out)
+}
+
+/// `out[j] = rows[j] · x` for a row-major `out.len() × x.len()` matrix in f32 (sums in f32
+/// lanes, returned as f64), vectorised for the CPU's level: the exact model's single-row
+/// f32 path streams its support vectors through this.
+///
+/// # Panics
+/// If `rows.len() != out.len() · x.len()`.
+#[track_caller]
+pub fn dot_rows_f32(rows: &[f32], x: &[f32], out: &mut [f64]) {
+    dot_rows_f32_at(crate::simd::level(), rows, x, out)
+}
+
+/// [`dot_rows_f32`] with the instruction-set level forced (tests run every level).
+///
+/// # Panics
+/// If the shapes differ or this CPU cannot run `level`.
+#[track_caller]
+pub fn dot_rows_f32_at(level: crate::simd::Level, rows: &[f32], x: &[f32], out: &mut [f64]) {
+    assert_eq!(
+        rows.len(),
+        x.len() * out.len(),
+        "dot_rows_f32: shapes differ"
+    );
+    assert!(
+        level <= crate::simd::detected(),
+        "this CPU cannot run the {} path",
+        level.name()
+    );
+    if x.is_empty() {
+        out.iter_mut().for_each(|o| *o = 0.0);
+        return;
+    }
+    match level {
+        // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
+        #[cfg(target_arch = "x86_64")]
+        crate::simd::Level::Avx512 => unsafe { dot_rows_f32_avx512(rows, x, out) },
+        #[cfg(target_arch = "x86_64")]
+        crate::simd::Level::Avx2 => unsafe { dot_rows_f32_avx2(rows, x, out) },
+        _ => dot_rows_f32_body(rows, x, out),
     }
 }

@@ -350,3 +350,90 @@ fn import_from_arrays_scores_like_the_formula() {
         ],
     );
 }
+
+/// The exact model's single-row f32 path (support vectors in f32, profiles in f64) against
+/// the expansion computed in numpy in f64, for every kind of Gram block: Euclidean
+/// (Gaussian, Matérn), L1 (Laplacian), dot product (polynomial), and sums, products and
+/// scaling of them.
+#[test]
+fn f32_single_row_path_matches_numpy_for_every_block_kind() {
+    use kernelpress::model::{ExactModel, Task};
+    let dir = tmpdir("exact_f32");
+    let mut next = lcg(11);
+    let (n, d, k) = (300, 20, 3);
+    let sv = Array2::from_shape_fn((n, d), |_| next() * 2.0 - 1.0);
+    let coef = Array2::from_shape_fn((n, k), |_| next() - 0.5);
+    let x = Array2::from_shape_fn((40, d), |_| next() * 2.0 - 1.0);
+    let dump = |name: &str, a: &Array2<f64>| {
+        let p = dir.join(name);
+        kernelpress::data::write_npy_f64(&p, &[a.nrows(), a.ncols()], a.as_slice().unwrap())
+            .unwrap();
+        p
+    };
+    let (psv, pcoef, px) = (
+        dump("sv.npy", &sv),
+        dump("coef.npy", &coef),
+        dump("x.npy", &x),
+    );
+    for kernel in [
+        "gaussian(gamma=0.05)",
+        "matern(nu=1.5, lengthscale=3)",
+        "laplacian(gamma=0.1)",
+        "polynomial(degree=3, gamma=0.2, coef0=1)",
+        "gaussian(gamma=0.02) + 0.5 * polynomial(degree=2, gamma=0.1, coef0=1)",
+        "gaussian(gamma=0.03) * laplacian(gamma=0.05)",
+    ] {
+        let m = ExactModel::new(
+            kernel.parse().unwrap(),
+            sv.clone(),
+            coef.clone(),
+            vec![0.1, -0.2, 0.3],
+            Task::Ovr,
+            vec!["a".into(), "b".into(), "c".into()],
+            None,
+        )
+        .unwrap();
+        let out = py_inline(
+            r#"
+import sys, numpy as np
+from scipy.spatial.distance import cdist
+sv, coef, x = (np.load(p) for p in sys.argv[1:4]); kind = sys.argv[4]
+def gauss(g): return np.exp(-g * cdist(x, sv, "sqeuclidean"))
+def lap(g): return np.exp(-g * cdist(x, sv, "cityblock"))
+def poly(p, g, c): return (g * x @ sv.T + c) ** p
+def matern15(l):
+    r = np.sqrt(3) * cdist(x, sv) / l
+    return (1 + r) * np.exp(-r)
+K = {
+ "gaussian(gamma=0.05)": lambda: gauss(0.05),
+ "matern(nu=1.5, lengthscale=3)": lambda: matern15(3.0),
+ "laplacian(gamma=0.1)": lambda: lap(0.1),
+ "polynomial(degree=3, gamma=0.2, coef0=1)": lambda: poly(3, 0.2, 1),
+ "gaussian(gamma=0.02) + 0.5 * polynomial(degree=2, gamma=0.1, coef0=1)": lambda: gauss(0.02) + 0.5 * poly(2, 0.1, 1),
+ "gaussian(gamma=0.03) * laplacian(gamma=0.05)": lambda: gauss(0.03) * lap(0.05),
+}[kind]()
+s = K @ coef
+np.savetxt(sys.stdout, s, fmt="%.17g")
+"#,
+            &[s(&psv), s(&pcoef), s(&px), kernel],
+        );
+        let want: Vec<Vec<f64>> = out
+            .lines()
+            .map(|l| l.split_whitespace().map(|v| v.parse().unwrap()).collect())
+            .collect();
+        let mut worst = 0.0f64;
+        let mut scale = 0.0f64;
+        for (i, row) in x.rows().into_iter().enumerate() {
+            let got = m.decision_one_f32(row.as_slice().unwrap());
+            for (j, g) in got.iter().enumerate() {
+                let w = want[i][j] + m.intercept()[j];
+                worst = worst.max((g - w).abs());
+                scale = scale.max(w.abs());
+            }
+        }
+        assert!(
+            worst <= 1e-5 * scale.max(1.0),
+            "{kernel}: f32 path vs numpy {worst:e} (scale {scale:.3})"
+        );
+    }
+}

@@ -199,3 +199,158 @@ impl Kernel {
             .collect()
     }
 }
+
+/// One side of a Gram block stored in f32 (half the bytes of [`Prepared`]), for the exact
+/// model's single-row f32 path: products in f32, norms, kernel profiles and everything
+/// after them in f64. Built from a [`Prepared`] set.
+#[derive(Debug, Clone)]
+pub struct Prepared32 {
+    rows: usize,
+    node: Node32,
+}
+
+#[derive(Debug, Clone)]
+enum Node32 {
+    /// Scaled rows (row-major) and the squared norms of their f32 values.
+    Euclid {
+        scaled: Vec<f32>,
+        sq: Vec<f64>,
+    },
+    L1 {
+        scaled: Vec<f32>,
+    },
+    Dot {
+        data: Vec<f32>,
+        norms: Vec<f64>,
+    },
+    Many(Vec<Node32>),
+    One(Box<Node32>),
+}
+
+fn to32(a: &Array2<f64>) -> Vec<f32> {
+    a.iter().map(|&v| v as f32).collect()
+}
+
+fn sq_norms32(v: &[f32], d: usize) -> Vec<f64> {
+    v.chunks_exact(d.max(1))
+        .map(|r| r.iter().map(|&x| x as f64 * x as f64).sum())
+        .collect()
+}
+
+fn build32(n: &Node) -> Node32 {
+    match n {
+        Node::Euclid { scaled, .. } => {
+            let v = to32(scaled);
+            let sq = sq_norms32(&v, scaled.ncols());
+            Node32::Euclid { scaled: v, sq }
+        }
+        Node::L1 { scaled } => Node32::L1 {
+            scaled: to32(scaled),
+        },
+        Node::Dot { data, norms } => Node32::Dot {
+            data: to32(data),
+            norms: norms.clone(),
+        },
+        Node::Many(v) => Node32::Many(v.iter().map(build32).collect()),
+        Node::One(c) => Node32::One(Box::new(build32(c))),
+    }
+}
+
+impl Prepared32 {
+    /// The f32 copy of a prepared set.
+    pub fn new(p: &Prepared) -> Prepared32 {
+        Prepared32 {
+            rows: p.rows,
+            node: build32(&p.node),
+        }
+    }
+
+    /// Number of rows.
+    pub fn rows(&self) -> usize {
+        self.rows
+    }
+
+    /// Bytes of the f32 rows (what one row against the set streams).
+    pub fn bytes(&self) -> usize {
+        fn b(n: &Node32) -> usize {
+            match n {
+                Node32::Euclid { scaled, sq } => 4 * scaled.len() + 8 * sq.len(),
+                Node32::L1 { scaled } => 4 * scaled.len(),
+                Node32::Dot { data, norms } => 4 * data.len() + 8 * norms.len(),
+                Node32::Many(v) => v.iter().map(b).sum(),
+                Node32::One(c) => b(c),
+            }
+        }
+        b(&self.node)
+    }
+}
+
+fn row32(k: &Kernel, x: &[f64], b: &Node32, out: &mut [f64]) {
+    let d = x.len();
+    match (k, b) {
+        (Kernel::Sum(ks), Node32::Many(nb)) => {
+            row32(&ks[0], x, &nb[0], out);
+            let mut tmp = vec![0.0; out.len()];
+            for i in 1..ks.len() {
+                row32(&ks[i], x, &nb[i], &mut tmp);
+                out.iter_mut().zip(&tmp).for_each(|(o, t)| *o += t);
+            }
+        }
+        (Kernel::Product(ks), Node32::Many(nb)) => {
+            row32(&ks[0], x, &nb[0], out);
+            let mut tmp = vec![0.0; out.len()];
+            for i in 1..ks.len() {
+                row32(&ks[i], x, &nb[i], &mut tmp);
+                out.iter_mut().zip(&tmp).for_each(|(o, t)| *o *= t);
+            }
+        }
+        (Kernel::Scaled(c, inner), Node32::One(nb)) => {
+            row32(inner, x, nb, out);
+            out.iter_mut().for_each(|v| *v *= c);
+        }
+        (k, Node32::Euclid { scaled, sq }) => {
+            let s = k.inverse_scale(d).expect("shift-invariant");
+            let xs: Vec<f32> = x.iter().zip(&s).map(|(v, f)| (v * f) as f32).collect();
+            let qa: f64 = xs.iter().map(|&v| v as f64 * v as f64).sum();
+            linalg::dot_rows_f32(scaled, &xs, out);
+            if matches!(k, Kernel::Gaussian { .. }) {
+                crate::transform::expo::gaussian_row(out, qa, sq, 0.5);
+                return;
+            }
+            for (v, qb) in out.iter_mut().zip(sq) {
+                let r2 = (qa + qb - 2.0 * *v).max(0.0);
+                *v = k.euclidean_profile(r2).unwrap();
+            }
+        }
+        (k, Node32::L1 { scaled }) => {
+            let s = k.inverse_scale(d).expect("laplacian");
+            let xs: Vec<f32> = x.iter().zip(&s).map(|(v, f)| (v * f) as f32).collect();
+            for (v, r) in out.iter_mut().zip(scaled.chunks_exact(d.max(1))) {
+                let l1: f32 = r.iter().zip(&xs).map(|(a, b)| (a - b).abs()).sum();
+                *v = (-(l1 as f64)).exp();
+            }
+        }
+        (k, Node32::Dot { data, norms }) => {
+            let xs: Vec<f32> = x.iter().map(|&v| v as f32).collect();
+            let na = x.iter().map(|v| v * v).sum::<f64>().sqrt();
+            linalg::dot_rows_f32(data, &xs, out);
+            for (v, nb) in out.iter_mut().zip(norms) {
+                *v = k.dot_profile(*v, na, *nb).unwrap();
+            }
+        }
+        _ => unreachable!("Prepared32 built for a different kernel"),
+    }
+}
+
+impl Kernel {
+    /// One kernel row `k(x, b_j)` for all rows of `b` (f32 products, f64 profiles), into
+    /// `out` (`b.rows()` values).
+    ///
+    /// # Panics
+    /// If `out` does not have `b.rows()` values.
+    #[track_caller]
+    pub fn row_f32(&self, x: &[f64], b: &Prepared32, out: &mut [f64]) {
+        assert_eq!(out.len(), b.rows, "row_f32: output length");
+        row32(self, x, &b.node, out)
+    }
+}

@@ -25,7 +25,7 @@
 mod gram;
 mod parse;
 
-pub use gram::Prepared;
+pub use gram::{Prepared, Prepared32};
 
 use crate::{Error, Result};
 use std::f64::consts::PI;

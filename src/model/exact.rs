@@ -26,6 +26,7 @@ pub struct ExactModel {
     /// Fit settings and notes recorded in the manifest (`training`).
     pub training: serde_json::Value,
     prepared: OnceLock<Prepared>,
+    prepared32: OnceLock<crate::kernel::Prepared32>,
 }
 
 impl ExactModel {
@@ -64,6 +65,12 @@ impl ExactModel {
         }
         let rule = OutputRule::new(task, labels, k)?;
         check_scaling(scaling.as_ref(), d)?;
+        // Row-major coefficients: the single-row paths read them as one slice.
+        let coef = if coef.is_standard_layout() {
+            coef
+        } else {
+            coef.as_standard_layout().into_owned()
+        };
         Ok(ExactModel {
             kernel,
             support_vectors,
@@ -74,6 +81,7 @@ impl ExactModel {
             feature_names: crate::data::placeholder_names(d),
             training: json!({}),
             prepared: OnceLock::new(),
+            prepared32: OnceLock::new(),
         })
     }
 
@@ -174,6 +182,31 @@ impl ExactModel {
             .zip(&self.intercept)
             .map(|(a, b)| a + b)
             .collect()
+    }
+
+    /// Decision values for one row with the support vectors read in f32 (half the bytes of
+    /// [`Self::decision_one`]; the f32 copy is made on first use): products in f32, kernel
+    /// profiles, coefficient sums and intercepts in f64. Decisions differ from the f64
+    /// path by about the f32 rounding of the products (the report measures the agreement).
+    pub fn decision_one_f32(&self, x: &[f64]) -> Vec<f64> {
+        let p32 = self
+            .prepared32
+            .get_or_init(|| crate::kernel::Prepared32::new(self.prepared()));
+        let row = ndarray::ArrayView2::from_shape((1, x.len()), x).expect("one row");
+        let xs = self.scale_inputs(row);
+        let mut g = vec![0.0; p32.rows()];
+        self.kernel
+            .row_f32(xs.as_slice().expect("a fresh row"), p32, &mut g);
+        let mut out = self.intercept.clone();
+        linalg::add_weighted_rows(&g, self.coef.as_slice().expect("standard layout"), &mut out);
+        out
+    }
+
+    /// Bytes one single-row prediction reads: the support vectors (f64, or f32 with
+    /// `f32`) and the coefficients (f64).
+    pub fn bytes_per_prediction(&self, f32: bool) -> usize {
+        let sv = self.support_vectors.len() * if f32 { 4 } else { 8 };
+        sv + 8 * self.coef.len()
     }
 
     /// Labels for decision values (empty strings for regression).

@@ -44,6 +44,12 @@ pub struct Timing {
     /// Compiled model with its head in f32, single row, median (µs).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub latency_us_compiled_f32_p50: Option<f64>,
+    /// Exact model with its support vectors in f32, single row, median (µs).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub latency_us_exact_f32_p50: Option<f64>,
+    /// Both in f32: exact f32 single-row median ÷ compiled f32-head single-row median.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub speedup_single_f32: Option<f64>,
     /// Guarded models: mean single-row latency of the exact model (µs).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub latency_us_exact_mean: Option<f64>,
@@ -137,6 +143,10 @@ pub struct Report {
     /// Largest decision-value difference between the f32-head and the f64 compiled paths.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub f32_max_abs_difference: Option<f64>,
+    /// Label agreement of the exact model's single-row f32 path with its f64 path
+    /// (classifiers; measured with the timings).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub agreement_exact_f32: Option<f64>,
     /// Guarded models: share of rows answered by each stage (compiled, exact).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub stage_shares: Option<Vec<f64>>,
@@ -233,6 +243,8 @@ pub fn build_guarded(
             speedup_batch: Some(cb / et.rows_per_s),
             threads: Some(rayon::current_num_threads()),
             latency_us_compiled_f32_p50: None,
+            latency_us_exact_f32_p50: None,
+            speedup_single_f32: None,
             latency_us_exact_mean: Some(e_mean.mean_us),
             latency_us_compiled_mean: Some(c1.mean_us),
             speedup_mean: Some(e_mean.mean_us / c1.mean_us),
@@ -265,6 +277,8 @@ pub struct ReportOptions {
 pub struct ExactTiming {
     /// Single-row latency.
     pub single: LatencyStats,
+    /// Single-row latency of the f32 path ([`ExactModel::decision_one_f32`]).
+    pub single_f32: LatencyStats,
     /// Batched throughput (rows/s).
     pub rows_per_s: f64,
 }
@@ -275,6 +289,9 @@ pub fn measure_exact(exact: &ExactModel, x: ArrayView2<f64>, opts: &ReportOption
     ExactTiming {
         single: measure_single(x, opts.reps.min(n.max(1) * 50), |row| {
             exact.decision_one(row)
+        }),
+        single_f32: measure_single(x, opts.reps.min(n.max(1) * 50), |row| {
+            exact.decision_one_f32(row)
         }),
         rows_per_s: measure_batch(x, |b| exact.decision(b)),
     }
@@ -435,6 +452,7 @@ pub fn build(
         changed_decisions: Vec::new(),
         head_cancellation: cancellation,
         agreement_f32: None,
+        agreement_exact_f32: None,
         f32_max_abs_difference: None,
         stage_shares: None,
         stage_agreement: None,
@@ -487,8 +505,23 @@ pub fn build(
             speedup_batch: Some(cb / eb),
             threads: Some(rayon::current_num_threads()),
             latency_us_compiled_f32_p50: Some(c32.p50_us),
+            latency_us_exact_f32_p50: Some(et.single_f32.p50_us),
+            speedup_single_f32: Some(et.single_f32.p50_us / c32.p50_us),
             ..Timing::default()
         };
+        if exact.task().is_classifier() {
+            // The exact f32 path's labels against its f64 labels, row by row.
+            let mut e32 = Array2::<f64>::zeros(se.dim());
+            for (i, row) in x.rows().into_iter().enumerate() {
+                let v = exact.decision_one_f32(&row.to_vec());
+                e32.row_mut(i).assign(&ndarray::ArrayView1::from(&v));
+            }
+            let k = exact.labels().len();
+            let le = label_indices(exact.task(), k, se.view());
+            let l32 = label_indices(exact.task(), k, e32.view());
+            r.agreement_exact_f32 =
+                Some(le.iter().zip(&l32).filter(|(a, b)| a == b).count() as f64 / n.max(1) as f64);
+        }
     }
     Ok(r)
 }

@@ -155,6 +155,19 @@ pub fn render_text(r: &Report) -> String {
             &format!("{}× faster", sig3(e / c)),
         );
     }
+    if let (Some(e), Some(c)) = (t.latency_us_exact_f32_p50, t.latency_us_compiled_f32_p50) {
+        let agree = r
+            .agreement_exact_f32
+            .map(|a| format!(", exact f32 agrees with f64 on {a:.4}"))
+            .unwrap_or_default();
+        row(
+            &mut s,
+            "  both in f32",
+            &format!("{} µs", sig3(e)),
+            &format!("{} µs", sig3(c)),
+            &format!("{}× faster{agree}", sig3(e / c)),
+        );
+    }
     if let (Some(e), Some(c)) = (t.latency_us_exact_mean, t.latency_us_compiled_mean) {
         let speed = t
             .speedup_mean

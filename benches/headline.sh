@@ -1,0 +1,26 @@
+#!/usr/bin/env bash
+# The headline speed figures in one run: builds the `headline` example (release) and runs
+# it, writing one JSON object (see examples/headline.rs for what each key measures).
+# Installs Debian's dataset-fashion-mnist when it is missing (apt-get, as root or through
+# sudo). About three minutes on a 2-core machine.
+#
+# Usage: bash benches/headline.sh --out FILE.json
+set -euo pipefail
+cd "$(dirname "$0")/.."
+OUT=target/headline.json
+while [ $# -gt 0 ]; do
+  case "$1" in
+    --out) OUT="$2"; shift 2 ;;
+    *) echo "usage: bash benches/headline.sh --out FILE.json" >&2; exit 2 ;;
+  esac
+done
+if [ ! -f /usr/share/datasets/fashion-mnist/train-images-idx3-ubyte.gz ]; then
+  echo "installing Debian's dataset-fashion-mnist" >&2
+  SUDO=""
+  if [ "$(id -u)" -ne 0 ]; then SUDO="sudo"; fi
+  $SUDO apt-get update -qq
+  DEBIAN_FRONTEND=noninteractive $SUDO apt-get install -y -qq dataset-fashion-mnist >/dev/null
+fi
+cargo build --release --quiet --example headline
+case "$OUT" in /*) ABS="$OUT" ;; *) ABS="$PWD/$OUT" ;; esac
+./target/release/examples/headline "$ABS"

@@ -1,0 +1,264 @@
+//! The headline speed figures, measured side by side in one run and written as one JSON
+//! object (`bash benches/headline.sh --out FILE.json` builds this and runs it).
+//!
+//! - `wht_vs_fft_1024`: rustfft's complex f32 FFT of length 1,024 ÷ our f32 Walsh–Hadamard
+//!   transform of the same length (median time per transform; > 1: ours is faster).
+//! - `projection_vs_gemm`: faer's matrix product ÷ our dense projection step applied as a
+//!   program (same shapes: 4,096 rows × 784 → 4,096; > 1: ours is faster).
+//! - `machine_bandwidth_gbps`: a streaming read of 512 MiB of f64, best of five.
+//! - `exact_single_bandwidth_fraction`: bytes the exact model's f32 single-row path reads
+//!   per prediction ÷ its median time ÷ the measured bandwidth.
+//! - `fmnist_speedup_single`, `fmnist_speedup_batch`, `fmnist_agreement`: the best compiled
+//!   model at D = 4,096 (Hadamard or Fastfood, distilled on the 60,000 training images,
+//!   without the bandwidth search) against the exact Fashion-MNIST teacher, on the 10,000
+//!   test images: single row with both in f32 (the compiled model's f32 head, the exact
+//!   model's f32 support vectors), batched in f64 (there is no f32 batch path yet), and the
+//!   label agreement of the compiled f32-head path with the f64 exact model.
+//! - `compile_rows_ratio`: compile time at 60,000 calibration rows ÷ at 20,000 (linear
+//!   growth gives 3).
+//! - `compile_vs_gemm_floor`: the 60,000-row compile's wall time ÷ the time its `ZᵀZ`
+//!   product would take at the matrix-product rate measured in this run (2·n·D² flops).
+//!
+//! The teacher: an exact Gaussian C-SVM (γ = 1/784 on pixels standardised on the training
+//! subset, C = 10, one-vs-one) trained here on the first 10,000 training images of
+//! Fashion-MNIST (Xiao, Rasul & Vollgraf 2017, MIT licence; Debian's
+//! `dataset-fashion-mnist`).
+//!
+//! Run: `cargo run --release --example headline -- OUT.json`
+
+use kernelpress::data::{read_idx_images, read_idx_labels, Standardizer};
+use kernelpress::exact::{fit_svm, SmoOptions};
+use kernelpress::features::{FeatureSpec, Method};
+use kernelpress::fit::{compile_exact, HeadKind, RidgeGrid};
+use kernelpress::observe::Silent;
+use kernelpress::program::{steps::Dense, Builder};
+use kernelpress::report::{build, ReportOptions};
+use kernelpress::transform::wht_in_place;
+use ndarray::{s, Array2};
+use rustfft::num_complex::Complex;
+use serde_json::json;
+use std::hint::black_box;
+use std::path::Path;
+use std::time::Instant;
+
+/// Median over `rounds` of the time per call of `f` (each round runs `per_round` calls).
+fn median_secs(rounds: usize, per_round: usize, mut f: impl FnMut()) -> f64 {
+    let mut t: Vec<f64> = (0..rounds)
+        .map(|_| {
+            let t0 = Instant::now();
+            for _ in 0..per_round {
+                f();
+            }
+            t0.elapsed().as_secs_f64() / per_round as f64
+        })
+        .collect();
+    t.sort_by(f64::total_cmp);
+    t[rounds / 2]
+}
+
+fn bandwidth_gbps() -> f64 {
+    let n = 64 << 20; // 512 MiB of f64
+    let v: Vec<f64> = (0..n).map(|i| (i % 7) as f64).collect();
+    let mut best = f64::INFINITY;
+    for _ in 0..5 {
+        let t0 = Instant::now();
+        let mut acc = [0.0f64; 8];
+        for c in v.chunks_exact(8) {
+            for (a, x) in acc.iter_mut().zip(c) {
+                *a += x;
+            }
+        }
+        black_box(acc);
+        best = best.min(t0.elapsed().as_secs_f64());
+    }
+    (n * 8) as f64 / best / 1e9
+}
+
+fn main() -> Result<(), Box<dyn std::error::Error>> {
+    let out = std::env::args()
+        .nth(1)
+        .unwrap_or_else(|| "target/headline.json".into());
+    let mut res = serde_json::Map::new();
+    let say = |m: &str| eprintln!("[headline] {m}");
+
+    // 1. WHT against the FFT, f32, length 1,024.
+    let n = 1024;
+    let mut x: Vec<f32> = (0..n).map(|i| (i as f32 * 0.1).sin()).collect();
+    let wht = median_secs(31, 20_000, || wht_in_place(black_box(&mut x)));
+    let mut planner = rustfft::FftPlanner::<f32>::new();
+    let fft = planner.plan_fft_forward(n);
+    let mut buf: Vec<Complex<f32>> = (0..n)
+        .map(|i| Complex::new((i as f32 * 0.1).sin(), 0.0))
+        .collect();
+    let mut scratch = vec![Complex::new(0.0, 0.0); fft.get_inplace_scratch_len()];
+    let fftt = median_secs(31, 20_000, || {
+        fft.process_with_scratch(black_box(&mut buf), &mut scratch)
+    });
+    res.insert("wht_1024_ns".into(), json!(wht * 1e9));
+    res.insert("fft_1024_ns".into(), json!(fftt * 1e9));
+    res.insert("wht_vs_fft_1024".into(), json!(fftt / wht));
+    say(&format!(
+        "WHT {:.0} ns, FFT {:.0} ns",
+        wht * 1e9,
+        fftt * 1e9
+    ));
+
+    // 2. Dense projection as a program step against faer's product, same shapes.
+    let (rows, d, dd) = (4096, 784, 4096);
+    let xa = Array2::from_shape_fn((rows, d), |(i, j)| ((i * 7 + j * 3) as f64 * 0.01).sin());
+    let w = Array2::from_shape_fn((dd, d), |(i, j)| ((i * 5 + j * 11) as f64 * 0.013).cos());
+    let wt = w.t().as_standard_layout().into_owned();
+    let mut b = Builder::new(d);
+    let v = b.push(Dense::new(w.clone())?, &[Builder::INPUT])?;
+    let prog = b.finish(v);
+    let ours = median_secs(5, 1, || {
+        black_box(prog.apply(xa.view()));
+    });
+    let gemm = median_secs(5, 1, || {
+        let mut o = faer::Mat::<f64>::zeros(rows, dd);
+        let fa = faer::MatRef::from_row_major_slice(xa.as_slice().unwrap(), rows, d);
+        let fb = faer::MatRef::from_row_major_slice(wt.as_slice().unwrap(), d, dd);
+        faer::linalg::matmul::matmul(
+            o.as_mut(),
+            faer::Accum::Replace,
+            fa,
+            fb,
+            1.0,
+            faer::Par::rayon(0),
+        );
+        black_box(o);
+    });
+    let gemm_flops = 2.0 * (rows * d * dd) as f64 / gemm;
+    res.insert("projection_ms".into(), json!(ours * 1e3));
+    res.insert("gemm_ms".into(), json!(gemm * 1e3));
+    res.insert("gemm_gflops".into(), json!(gemm_flops / 1e9));
+    res.insert("projection_vs_gemm".into(), json!(gemm / ours));
+    say(&format!(
+        "projection {:.1} ms, faer {:.1} ms ({:.1} GFLOP/s)",
+        ours * 1e3,
+        gemm * 1e3,
+        gemm_flops / 1e9
+    ));
+
+    // 3. Bandwidth.
+    let bw = bandwidth_gbps();
+    res.insert("machine_bandwidth_gbps".into(), json!(bw));
+    say(&format!("bandwidth {bw:.1} GB/s"));
+
+    // 4. The Fashion-MNIST teacher.
+    let dir = Path::new("/usr/share/datasets/fashion-mnist");
+    let xtr = read_idx_images(&dir.join("train-images-idx3-ubyte.gz"))?.mapv(|v| v * 255.0);
+    let ytr: Vec<String> = read_idx_labels(&dir.join("train-labels-idx1-ubyte.gz"))?
+        .iter()
+        .map(|v| v.to_string())
+        .collect();
+    let xte = read_idx_images(&dir.join("t10k-images-idx3-ubyte.gz"))?.mapv(|v| v * 255.0);
+    let sub = xtr.slice(s![..10_000, ..]);
+    let scaler = Standardizer::fit(sub);
+    let kernel: kernelpress::kernel::Kernel = "gaussian(gamma=0.0012755102040816326)".parse()?;
+    let t0 = Instant::now();
+    let opts = SmoOptions {
+        c: 10.0,
+        ..SmoOptions::default()
+    };
+    let exact = fit_svm(
+        &kernel,
+        scaler.apply(sub).view(),
+        &ytr[..10_000],
+        &opts,
+        Some(scaler),
+        &Silent,
+    )?;
+    say(&format!(
+        "teacher: {} support vectors in {:.1} s",
+        exact.n_support_vectors(),
+        t0.elapsed().as_secs_f64()
+    ));
+    res.insert(
+        "teacher_support_vectors".into(),
+        json!(exact.n_support_vectors()),
+    );
+
+    // 5. Compile times at 20,000 and 60,000 rows (Hadamard, D = 4,096).
+    let compile = |m: Method, rows: usize| -> Result<_, kernelpress::Error> {
+        let spec = FeatureSpec::new(kernel.clone(), m, 784, 4096, 1);
+        let t0 = Instant::now();
+        let (c, _) = compile_exact(
+            &exact,
+            Some(xtr.slice(s![..rows, ..])),
+            &spec,
+            HeadKind::Distill,
+            &RidgeGrid::standard(),
+            None,
+            &Silent,
+        )?;
+        Ok((c, t0.elapsed().as_secs_f64()))
+    };
+    let (_, t20) = compile(Method::Hadamard, 20_000)?;
+    let (had, t60) = compile(Method::Hadamard, 60_000)?;
+    let floor = 2.0 * 60_000.0 * 4096.0f64 * 4096.0 / gemm_flops;
+    res.insert("compile_s_20k".into(), json!(t20));
+    res.insert("compile_s_60k".into(), json!(t60));
+    res.insert("compile_rows_ratio".into(), json!(t60 / t20));
+    res.insert("ztz_floor_s_60k".into(), json!(floor));
+    res.insert("compile_vs_gemm_floor".into(), json!(t60 / floor));
+    say(&format!(
+        "compile 20k {t20:.1} s, 60k {t60:.1} s (ZᵀZ floor {floor:.1} s)"
+    ));
+    let (ff, _) = compile(Method::Fastfood, 60_000)?;
+
+    // 6. Speed and agreement on the test images.
+    let ropts = ReportOptions {
+        timing: true,
+        ..ReportOptions::default()
+    };
+    let mut best: Option<(String, f64, f64, f64)> = None;
+    let mut exact_p50 = (f64::NAN, f64::NAN);
+    for (name, m) in [("hadamard", &had), ("fastfood", &ff)] {
+        let r = build(m, &exact, xte.view(), None, None, &ropts)?;
+        let t = &r.timing;
+        let nan = f64::NAN;
+        exact_p50 = (
+            t.latency_us_exact_p50.unwrap_or(nan),
+            t.latency_us_exact_f32_p50.unwrap_or(nan),
+        );
+        let single = t.speedup_single_f32.unwrap_or(nan);
+        let batch = t.speedup_batch.unwrap_or(nan);
+        let agree = r.agreement_f32.unwrap_or(nan);
+        say(&format!(
+            "{name} 4096: single {single:.1}× (both f32), batch {batch:.1}×, agreement {agree:.4} (exact p50 {:.0} µs f64, {:.0} µs f32)",
+            exact_p50.0, exact_p50.1
+        ));
+        res.insert(
+            format!("fmnist_{name}"),
+            json!({"speedup_single_f32": single, "speedup_single_f64": t.speedup_single,
+                   "speedup_batch": batch, "agreement_f32_head": agree,
+                   "agreement_f64": r.agreement,
+                   "agreement_exact_f32": r.agreement_exact_f32,
+                   "latency_us_exact_p50": t.latency_us_exact_p50,
+                   "latency_us_exact_f32_p50": t.latency_us_exact_f32_p50,
+                   "latency_us_compiled_f32_p50": t.latency_us_compiled_f32_p50,
+                   "latency_us_compiled_p50": t.latency_us_compiled_p50}),
+        );
+        if best.as_ref().is_none_or(|b| single > b.1) {
+            best = Some((name.to_string(), single, batch, agree));
+        }
+    }
+    let (name, single, batch, agree) = best.expect("two candidates");
+    res.insert("fmnist_best".into(), json!(name));
+    res.insert("fmnist_speedup_single".into(), json!(single));
+    res.insert("fmnist_speedup_batch".into(), json!(batch));
+    res.insert("fmnist_agreement".into(), json!(agree));
+    // The exact model's f32 single-row path reads its support vectors in f32 and its
+    // coefficients in f64.
+    let bytes = exact.bytes_per_prediction(true) as f64;
+    res.insert(
+        "exact_single_bandwidth_fraction".into(),
+        json!(bytes / (exact_p50.1 * 1e-6) / (bw * 1e9)),
+    );
+    res.insert("exact_bytes_per_prediction_f32".into(), json!(bytes));
+    let text = serde_json::to_string_pretty(&serde_json::Value::Object(res))?;
+    std::fs::write(&out, format!("{text}\n"))?;
+    say(&format!("wrote {out}"));
+    Ok(())
+}
