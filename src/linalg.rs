@@ -315,7 +315,7 @@ mod tests {
         for d in [1usize, 15, 16, 17, 100, 784] {
             let n = 37;
             let rows: Vec<f32> = (0..n * d)
-                .map(|i| ((i as f32 * 0.37).sin() * (1.0 + (i % 13) as f32)))
+                .map(|i| (i as f32 * 0.37).sin() * (1.0 + (i % 13) as f32))
                 .collect();
             let x: Vec<f32> = (0..d).map(|j| (j as f32 * 0.11).cos() - 0.2).collect();
             // The definition, in f64 over the same f32 values.
