@@ -29,8 +29,8 @@ cargo test --lib --bins --tests --examples "$@"
 cargo test --doc "$@"
 # Benches are compiled (not run: speed claims live in benchmarks, not in tests).
 cargo bench --no-run --quiet
-# The Python package: built into the reference environment, then its tests, which compare
-# it with the release binary (built here) and run a Dask cluster of two local processes.
-cargo build --release --quiet
-VIRTUAL_ENV="$PWD/$PYENV" "$PYENV/bin/maturin" develop --release --quiet
-"$PYENV/bin/python" -m pytest -q python/tests
+# The Python package: built into the reference environment (the dev profile, whose
+# dependencies the tests above compiled), then its tests, which compare it with the binary
+# the tests above built and run a Dask cluster of two local processes.
+VIRTUAL_ENV="$PWD/$PYENV" "$PYENV/bin/maturin" develop --quiet
+KP_BIN="$PWD/target/debug/kernelpress" "$PYENV/bin/python" -m pytest -q python/tests

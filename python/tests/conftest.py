@@ -1,5 +1,5 @@
-"""Shared fixtures: the repository's demo files and the release binary (built by the
-project's test command before pytest runs)."""
+"""Shared fixtures: the repository's demo files and the command-line binary (`KP_BIN`, set
+by the project's test command; else the release build)."""
 
 import os
 import pathlib
