@@ -26,7 +26,9 @@ pub(crate) enum Head {
 /// Compile an exact kernel model into a feature map plus a linear head.
 ///
 /// With MODEL and --calib, the head is distilled from the model's decision values on the
-/// calibration inputs. Every tenth calibration row is an audit row, never fitted on; of
+/// calibration inputs (read a chunk at a time when the map does not depend on them and no
+/// bandwidth search runs). --stats-out and --from-stats shard the distillation across
+/// machines. Every tenth calibration row is an audit row, never fitted on; of
 /// the others, one in nine chooses the ridge strength. The report is
 /// printed on stdout: on --eval if given, else on the audit rows.
 /// Without MODEL, --kernel, --data and --target fit the features to labels directly.
@@ -36,6 +38,10 @@ pub(crate) enum Head {
 ///       --method orthogonal --features 1024 --seed 1 --out pump_compiled.safetensors --json r.json
 ///   kernelpress compile --kernel 'gaussian(gamma=0.25)' --data models/pump_train.csv --target condition
 ///       --standardize --method fourier --features 1024 --out direct.safetensors
+///   kernelpress compile models/pump_svm.safetensors --calib shard1.csv --first-row 4000 --target condition
+///       --method hadamard --features 2048 --seed 1 --stats-out s1.kpstats
+///   kernelpress compile models/pump_svm.safetensors --from-stats s0.kpstats s1.kpstats
+///       --eval models/pump_test.csv --target condition --out sharded.safetensors
 #[derive(Debug, clap::Args)]
 #[command(verbatim_doc_comment)]
 pub(crate) struct Args {
