@@ -15,7 +15,10 @@
 use std::ops::{Add, Sub};
 
 /// Floats the transform runs on (`f32`, `f64`).
-pub trait WhtFloat: Copy + Add<Output = Self> + Sub<Output = Self> + Default + Send + Sync {}
+pub trait WhtFloat:
+    Copy + Add<Output = Self> + Sub<Output = Self> + Default + Send + Sync + 'static
+{
+}
 impl WhtFloat for f32 {}
 impl WhtFloat for f64 {}
 
@@ -73,14 +76,21 @@ fn radix4<T: WhtFloat>(q0: &mut [T], q1: &mut [T], q2: &mut [T], q3: &mut [T]) {
 /// compiles its own copy.
 #[inline(always)]
 fn wht_body<T: WhtFloat>(x: &mut [T]) {
-    let n = x.len();
-    let mut h = 1;
-    if n >= 8 {
+    if x.len() >= 8 {
         for c in x.chunks_exact_mut(8) {
             radix8(c);
         }
-        h = 8;
+        levels_from(x, 8)
+    } else {
+        levels_from(x, 1)
     }
+}
+
+/// The levels from butterfly span `h` on (the levels below `h` already done).
+#[inline(always)]
+fn levels_from<T: WhtFloat>(x: &mut [T], h: usize) {
+    let n = x.len();
+    let mut h = h;
     // Two levels per pass over memory (radix 4), then one radix-2 pass if a level is left.
     while 4 * h <= n {
         for block in x.chunks_exact_mut(4 * h) {
@@ -102,20 +112,108 @@ fn wht_body<T: WhtFloat>(x: &mut [T]) {
 
 #[cfg(target_arch = "x86_64")]
 mod x86 {
-    use super::{wht_body, WhtFloat};
+    use super::{levels_from, wht_body, WhtFloat};
+    use std::any::TypeId;
+    use std::arch::x86_64::*;
 
+    /// The first three levels (span 1, 2, 4) of an f32 transform, one 8-float chunk per
+    /// register: each level is a lane permutation and one `±v + permuted` (a fused
+    /// multiply-add by ±1, which rounds once, as the scalar addition does: the results are
+    /// bit-identical to [`super::radix8`]).
+    ///
     /// # Safety
-    /// The CPU must support AVX2 (checked by the caller).
+    /// The CPU must support AVX2 and FMA.
     #[target_feature(enable = "avx2,fma")]
-    pub(super) unsafe fn wht_avx2<T: WhtFloat>(x: &mut [T]) {
-        wht_body(x)
+    unsafe fn radix8_f32(x: &mut [f32]) {
+        let s1 = _mm256_setr_ps(1., -1., 1., -1., 1., -1., 1., -1.);
+        let s2 = _mm256_setr_ps(1., 1., -1., -1., 1., 1., -1., -1.);
+        let s4 = _mm256_setr_ps(1., 1., 1., 1., -1., -1., -1., -1.);
+        for c in x.chunks_exact_mut(8) {
+            let p = c.as_mut_ptr();
+            // SAFETY: `c` holds 8 floats; unaligned loads and stores.
+            let mut v = unsafe { _mm256_loadu_ps(p) };
+            v = _mm256_fmadd_ps(v, s1, _mm256_permute_ps(v, 0b10_11_00_01));
+            v = _mm256_fmadd_ps(v, s2, _mm256_permute_ps(v, 0b01_00_11_10));
+            v = _mm256_fmadd_ps(v, s4, _mm256_permute2f128_ps(v, v, 0x01));
+            unsafe { _mm256_storeu_ps(p, v) };
+        }
+    }
+
+    /// The first five levels (span 1 … 16) of an f32 transform of length ≥ 32: four
+    /// registers of 8 floats each get the radix-8 levels in registers, then the radix-4
+    /// levels of span 8 and 16 across the four (the same operations as the scalar
+    /// [`super::radix4`], so the results are bit-identical), with one load and one store
+    /// per float.
+    ///
+    /// # Safety
+    /// The CPU must support AVX2 and FMA.
+    #[target_feature(enable = "avx2,fma")]
+    unsafe fn first5_f32(x: &mut [f32]) {
+        let s1 = _mm256_setr_ps(1., -1., 1., -1., 1., -1., 1., -1.);
+        let s2 = _mm256_setr_ps(1., 1., -1., -1., 1., 1., -1., -1.);
+        let s4 = _mm256_setr_ps(1., 1., 1., 1., -1., -1., -1., -1.);
+        let r8 = |mut v: __m256| {
+            v = _mm256_fmadd_ps(v, s1, _mm256_permute_ps(v, 0b10_11_00_01));
+            v = _mm256_fmadd_ps(v, s2, _mm256_permute_ps(v, 0b01_00_11_10));
+            _mm256_fmadd_ps(v, s4, _mm256_permute2f128_ps(v, v, 0x01))
+        };
+        for c in x.chunks_exact_mut(32) {
+            let p = c.as_mut_ptr();
+            // SAFETY: `c` holds 32 floats; unaligned loads and stores.
+            let (a, b, cc, d) = unsafe {
+                (
+                    r8(_mm256_loadu_ps(p)),
+                    r8(_mm256_loadu_ps(p.add(8))),
+                    r8(_mm256_loadu_ps(p.add(16))),
+                    r8(_mm256_loadu_ps(p.add(24))),
+                )
+            };
+            let (t0, t1) = (_mm256_add_ps(a, b), _mm256_sub_ps(a, b));
+            let (t2, t3) = (_mm256_add_ps(cc, d), _mm256_sub_ps(cc, d));
+            unsafe {
+                _mm256_storeu_ps(p, _mm256_add_ps(t0, t2));
+                _mm256_storeu_ps(p.add(8), _mm256_add_ps(t1, t3));
+                _mm256_storeu_ps(p.add(16), _mm256_sub_ps(t0, t2));
+                _mm256_storeu_ps(p.add(24), _mm256_sub_ps(t1, t3));
+            }
+        }
+    }
+
+    /// The transform with the register passes for f32 (other types: the generic body);
+    /// inlined into each instruction-set entry point below.
+    ///
+    /// # Safety
+    /// The CPU must support AVX2 and FMA.
+    #[inline(always)]
+    unsafe fn wht_f32_or<T: WhtFloat>(x: &mut [T]) {
+        if TypeId::of::<T>() == TypeId::of::<f32>() && x.len() >= 8 {
+            // SAFETY: T is f32 (the same type, so the same layout).
+            let xf = unsafe { std::slice::from_raw_parts_mut(x.as_mut_ptr() as *mut f32, x.len()) };
+            // SAFETY: the caller's CPU supports AVX2 and FMA.
+            if xf.len() >= 32 {
+                unsafe { first5_f32(xf) };
+                levels_from(x, 32)
+            } else {
+                unsafe { radix8_f32(xf) };
+                levels_from(x, 8)
+            }
+        } else {
+            wht_body(x)
+        }
     }
 
     /// # Safety
-    /// The CPU must support AVX-512F (checked by the caller).
-    #[target_feature(enable = "avx512f")]
+    /// The CPU must support AVX2 and FMA (checked by the caller).
+    #[target_feature(enable = "avx2,fma")]
+    pub(super) unsafe fn wht_avx2<T: WhtFloat>(x: &mut [T]) {
+        unsafe { wht_f32_or(x) }
+    }
+
+    /// # Safety
+    /// The CPU must support AVX-512F, AVX2 and FMA (checked by the caller).
+    #[target_feature(enable = "avx512f,avx2,fma")]
     pub(super) unsafe fn wht_avx512<T: WhtFloat>(x: &mut [T]) {
-        wht_body(x)
+        unsafe { wht_f32_or(x) }
     }
 }
 
