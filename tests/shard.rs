@@ -301,6 +301,12 @@ fn wrong_merges_are_refused() {
     ]);
     assert!(e.contains("another exact model"), "{e}");
     assert!(!out.exists());
+    // A statistics file is not a model.
+    let e = bad(&["inspect", s(&a)]);
+    assert!(
+        e.contains("not a model") && e.contains("--from-stats"),
+        "{e}"
+    );
     // The good pair fits.
     ok(&[
         "compile",

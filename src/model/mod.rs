@@ -74,6 +74,9 @@ impl AnyModel {
             "exact" => Ok(AnyModel::Exact(ExactModel::from_file(f, src)?)),
             "compiled" => Ok(AnyModel::Compiled(CompiledModel::from_file(f, src)?)),
             "guarded" => Ok(AnyModel::Guarded(GuardedModel::from_file(f, src)?)),
+            "statistics" => Err(Error::input(format!(
+                "{src}: distillation statistics (compile --stats-out), not a model; fit a model from them with `compile MODEL --from-stats {src} …`"
+            ))),
             other => Err(Error::file(format!(
                 "{src}: model kind '{other}' unknown; expected exact, compiled or guarded"
             ))),
