@@ -9,14 +9,16 @@
 //!
 //! Run: `cargo run --release --example fashion_bench -- [OUT.json] [D1,D2,...] [M1,M2,...] [uniform|kmeans++|leverage] [svm|ridge|both]`
 
-use kernelpress::data::{read_idx_images, read_idx_labels, Standardizer};
+#[path = "common/fashion.rs"]
+mod fashion;
+
+use kernelpress::data::Standardizer;
 use kernelpress::exact::{fit_ridge, fit_svm, RidgeOptions, SmoOptions};
 use kernelpress::features::{FeatureSpec, Method};
 use kernelpress::fit::{compile_exact, HeadKind, RidgeGrid};
 use kernelpress::model::ExactModel;
 use kernelpress::report::{build, ReportOptions};
 use ndarray::s;
-use std::path::Path;
 use std::time::Instant;
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
@@ -43,17 +45,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         args.get(4).map(|s| s.as_str()).unwrap_or("uniform"),
     )?;
     let which = args.get(5).cloned().unwrap_or_else(|| "both".into());
-    let dir = Path::new("/usr/share/datasets/fashion-mnist");
-    let xtr = read_idx_images(&dir.join("train-images-idx3-ubyte.gz"))?.mapv(|v| v * 255.0);
-    let ytr: Vec<String> = read_idx_labels(&dir.join("train-labels-idx1-ubyte.gz"))?
-        .iter()
-        .map(|v| v.to_string())
-        .collect();
-    let xte = read_idx_images(&dir.join("t10k-images-idx3-ubyte.gz"))?.mapv(|v| v * 255.0);
-    let yte: Vec<String> = read_idx_labels(&dir.join("t10k-labels-idx1-ubyte.gz"))?
-        .iter()
-        .map(|v| v.to_string())
-        .collect();
+    let (train, test) = fashion::load()?;
+    let (xtr, ytr, xte, yte) = (train.x, train.y, test.x, test.y);
     std::fs::create_dir_all("target/fashion")?;
     let sub = xtr.slice(s![..10_000, ..]);
     let scaler = Standardizer::fit(sub);

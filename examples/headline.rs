@@ -28,7 +28,10 @@
 //! Run: `cargo run --release --example headline -- OUT.json [--micro]` (`--micro`: the
 //! first three figures only).
 
-use kernelpress::data::{read_idx_images, read_idx_labels, Standardizer};
+#[path = "common/fashion.rs"]
+mod fashion;
+
+use kernelpress::data::Standardizer;
 use kernelpress::exact::{fit_svm, SmoOptions};
 use kernelpress::features::{FeatureSpec, Method};
 use kernelpress::fit::{compile_exact, HeadKind, RidgeGrid};
@@ -40,7 +43,6 @@ use ndarray::{s, Array2};
 use rustfft::num_complex::Complex;
 use serde_json::json;
 use std::hint::black_box;
-use std::path::Path;
 use std::time::Instant;
 
 /// Median over `rounds` of the time per call of `f` (each round runs `per_round` calls).
@@ -156,13 +158,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     }
 
     // 4. The Fashion-MNIST teacher.
-    let dir = Path::new("/usr/share/datasets/fashion-mnist");
-    let xtr = read_idx_images(&dir.join("train-images-idx3-ubyte.gz"))?.mapv(|v| v * 255.0);
-    let ytr: Vec<String> = read_idx_labels(&dir.join("train-labels-idx1-ubyte.gz"))?
-        .iter()
-        .map(|v| v.to_string())
-        .collect();
-    let xte = read_idx_images(&dir.join("t10k-images-idx3-ubyte.gz"))?.mapv(|v| v * 255.0);
+    let (train, test) = fashion::load()?;
+    let (xtr, ytr, xte) = (train.x, train.y, test.x);
     let sub = xtr.slice(s![..10_000, ..]);
     let scaler = Standardizer::fit(sub);
     let kernel: kernelpress::kernel::Kernel = "gaussian(gamma=0.0012755102040816326)".parse()?;

@@ -163,7 +163,25 @@ fn warn(py: Python<'_>, msg: &str) -> Res<()> {
     )
 }
 
+/// The map spec for a model's kernel and input width.
 fn spec_for(
+    exact: &ExactModel,
+    method: &str,
+    features: usize,
+    seed: u64,
+    landmark_rule: &str,
+) -> Res<FeatureSpec> {
+    spec_of(
+        exact.kernel().clone(),
+        exact.input_dim(),
+        method,
+        features,
+        seed,
+        landmark_rule,
+    )
+}
+
+fn spec_of(
     kernel: Kernel,
     d: usize,
     method: &str,
@@ -567,14 +585,7 @@ fn compile(
     min_agreement: f64,
 ) -> Res<PyCompiled> {
     let e = exact.inner.clone();
-    let spec = spec_for(
-        e.kernel().clone(),
-        e.input_dim(),
-        method,
-        features,
-        seed,
-        landmark_rule,
-    )?;
+    let spec = spec_for(&e, method, features, seed, landmark_rule)?;
     let (x, _) = model_batch(py, calib, "calib", &e.feature_names, None)?;
     let (mut model, _) = lib(py.detach(|| {
         compile_exact_tuned(
@@ -662,7 +673,7 @@ fn featurize<'py>(
     let v = r.view();
     lib(data::check_batch(v, v.ncols(), "x"))?;
     lib(k.check_dim(v.ncols()))?;
-    let spec = spec_for(k, v.ncols(), method, features, seed, landmark_rule)?;
+    let spec = spec_of(k, v.ncols(), method, features, seed, landmark_rule)?;
     let z = lib(py.detach(|| -> kernelpress::Result<Array2<f64>> {
         let (map, _) = spec.sample(Some(v))?;
         Ok(map.transform(v))
@@ -719,14 +730,7 @@ fn shard_statistics(
     landmark_rule: &str,
 ) -> Res<PyStats> {
     let e = exact.inner.clone();
-    let spec = spec_for(
-        e.kernel().clone(),
-        e.input_dim(),
-        method,
-        features,
-        seed,
-        landmark_rule,
-    )?;
+    let spec = spec_for(&e, method, features, seed, landmark_rule)?;
     let (xr, _) = model_batch(py, x, "x", &e.feature_names, None)?;
     let st = lib(py.detach(|| ShardStats::compute(&e, &spec, xr.view(), first_row)))?;
     Ok(PyStats { inner: st })

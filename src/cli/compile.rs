@@ -150,6 +150,16 @@ pub(crate) struct Args {
 }
 
 impl Args {
+    /// True when a budget search or a guard is asked for (both need the calibration rows
+    /// in memory).
+    fn budget_or_guard(&self) -> bool {
+        self.budget_us.is_some()
+            || self.max_bytes.is_some()
+            || self.max_disagreement.is_some()
+            || self.guard_agreement.is_some()
+            || self.guard_rate.is_some()
+    }
+
     /// The output model path (present unless --stats-out: clap checks it).
     fn out(&self) -> &std::path::Path {
         self.out
@@ -734,14 +744,7 @@ fn discard(text: &mut String, a: &Args, why: &str) -> Result<()> {
 /// and fit).
 fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
     use kernelpress::fit::shard::ShardStats;
-    if a.budget_us.is_some()
-        || a.max_bytes.is_some()
-        || a.max_disagreement.is_some()
-        || a.guard_agreement.is_some()
-        || a.guard_rate.is_some()
-        || a.map.landmarks.is_some()
-        || !matches!(a.head, Head::Distill)
-    {
+    if a.budget_or_guard() || a.map.landmarks.is_some() || !matches!(a.head, Head::Distill) {
         return Err(Error::input(
             "a sharded distillation (--stats-out, --from-stats) takes --method and --features with the standard settings: drop the budget, guard, --landmarks and --head flags",
         ));
@@ -808,14 +811,7 @@ fn try_streamed(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<Option
     let (Some(path), Head::Distill) = (&a.calib, a.head) else {
         return Ok(None);
     };
-    if a.budget_us.is_some()
-        || a.max_bytes.is_some()
-        || a.max_disagreement.is_some()
-        || a.guard_agreement.is_some()
-        || a.guard_rate.is_some()
-        || a.map.landmarks.is_some()
-        || !a.methods.is_empty()
-    {
+    if a.budget_or_guard() || a.map.landmarks.is_some() || !a.methods.is_empty() {
         return Ok(None);
     }
     let spec = a.map.spec(exact.kernel().clone(), exact.input_dim())?;
