@@ -203,6 +203,17 @@ impl Kernel {
 /// One side of a Gram block stored in f32 (half the bytes of [`Prepared`]), for the exact
 /// model's single-row f32 path: products in f32, norms, kernel profiles and everything
 /// after them in f64. Built from a [`Prepared`] set.
+///
+/// ```
+/// use kernelpress::kernel::{Kernel, Prepared, Prepared32};
+/// use ndarray::array;
+/// let k: Kernel = "gaussian(gamma=1)".parse().unwrap();
+/// let sv = array![[0.0, 0.0], [1.0, 0.0]];
+/// let p32 = Prepared32::new(&Prepared::new(&k, sv.view()));
+/// let mut row = [0.0; 2];
+/// k.row_f32(&[0.0, 0.0], &p32, &mut row);
+/// assert!((row[1] - (-1.0f64).exp()).abs() < 1e-6);
+/// ```
 #[derive(Debug, Clone)]
 pub struct Prepared32 {
     rows: usize,
