@@ -558,6 +558,27 @@ fn attach_report(
     Ok(())
 }
 
+/// [`attach_report`] on the `eval` rows (array or path).
+fn eval_report(
+    py: Python<'_>,
+    exact: &ExactModel,
+    model: &mut CompiledModel,
+    eval: &Bound<'_, PyAny>,
+    labels: Option<&[String]>,
+    min_agreement: f64,
+) -> Res<()> {
+    let (xe, _) = model_batch(py, eval, "eval", &exact.feature_names, None)?;
+    attach_report(
+        py,
+        exact,
+        model,
+        xe.view(),
+        labels,
+        "eval".into(),
+        min_agreement,
+    )
+}
+
 /// Compiles `exact` into a feature map plus a linear head distilled from the exact model's
 /// decision values on `calib` (an array of rows, or a CSV / .npy path whose columns are
 /// matched to the model's by name). Every tenth calibration row is an audit row, never
@@ -599,18 +620,14 @@ fn compile(
         )
     }))?;
     match eval {
-        Some(ev) => {
-            let (xe, _) = model_batch(py, ev, "eval", &e.feature_names, None)?;
-            attach_report(
-                py,
-                &e,
-                &mut model,
-                xe.view(),
-                eval_labels.as_deref(),
-                "eval".into(),
-                min_agreement,
-            )?;
-        }
+        Some(ev) => eval_report(
+            py,
+            &e,
+            &mut model,
+            ev,
+            eval_labels.as_deref(),
+            min_agreement,
+        )?,
         None => {
             let (xa, _) = audit_rows(x.view());
             attach_report(
@@ -768,14 +785,12 @@ fn compile_from_statistics(
     let e = exact.inner.clone();
     let mut model = lib(py.detach(|| statistics.inner.fit(&e, &RidgeGrid::standard())))?;
     if let Some(ev) = eval {
-        let (xe, _) = model_batch(py, ev, "eval", &e.feature_names, None)?;
-        attach_report(
+        eval_report(
             py,
             &e,
             &mut model,
-            xe.view(),
+            ev,
             eval_labels.as_deref(),
-            "eval".into(),
             min_agreement,
         )?;
     }

@@ -274,6 +274,16 @@ impl ShardStats {
                 "the map sampled here differs from the one the statistics were made with (another build?)",
             ));
         }
+        self.fit_map(exact, map, grid)
+    }
+
+    /// [`Self::fit`] with the map already in hand (the one [`Self::new`] returned).
+    fn fit_map(
+        &self,
+        exact: &ExactModel,
+        map: FeatureMap,
+        grid: &RidgeGrid,
+    ) -> Result<CompiledModel> {
         let fit = self.dist.solve(grid)?;
         let mut j = with_kind(&fit, "distill");
         if self.ranges.len() != 1 || self.ranges[0].0 != 0 {
@@ -436,7 +446,8 @@ pub fn distil_streamed(
         )));
     }
     obs.stage("ridge solve", 1);
-    let model = st.fit(exact, grid)?;
+    // The map of this pass, not sampled again (Nyström would redo its eigendecomposition).
+    let model = st.fit_map(exact, map, grid)?;
     obs.finish();
     let n = kept.len() / d.max(1);
     Ok((
