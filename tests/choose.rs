@@ -77,6 +77,7 @@ fn search_returns_the_exhaustive_grid_choice() {
         seed: 3,
         grid: RidgeGrid::standard(),
         reps: 20,
+        guard: false,
     };
     let budget = Budget {
         max_bytes: Some(max_bytes),
@@ -359,7 +360,7 @@ fn sweep_writes_json_svg_and_a_page_a_browser_renders() {
             "a guard cannot lower agreement: {g} vs {plain}"
         );
         let shares = g["stage_shares"].as_array().unwrap();
-        assert!(shares[1].as_f64().unwrap() > 0.0);
+        assert!(shares[1].as_f64().unwrap() + shares[2].as_f64().unwrap() > 0.0);
     }
     let keys = [
         "agreement",

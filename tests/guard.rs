@@ -9,7 +9,8 @@ use common::*;
 use kernelpress::features::{FeatureSpec, Method};
 use kernelpress::fit::{audit_row, RidgeGrid, Teacher};
 use kernelpress::model::guarded::{
-    threshold_for_agreement, threshold_for_rate, wilson_lower_one_sided,
+    choose_guard, choose_guard_auto, pairs_to_check, threshold_for_agreement, threshold_for_rate,
+    wilson_lower_one_sided, GuardRule, GuardTarget,
 };
 use kernelpress::model::{label_indices, AnyModel, CompiledModel, ExactModel, GuardedModel};
 use kernelpress::observe::Silent;
@@ -156,6 +157,8 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
         "128",
         "--guard-agreement",
         "0.99",
+        "--guard-rule",
+        "row",
         "--out",
         s(&out),
         "--json",
@@ -165,7 +168,12 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
     let r: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
     let shares = r["stage_shares"].as_array().unwrap();
-    assert_eq!(shares.len(), 2);
+    assert_eq!(shares.len(), 3);
+    assert_eq!(
+        shares[2].as_f64().unwrap(),
+        0.0,
+        "the row rule completes no row"
+    );
     let total: f64 = shares.iter().map(|v| v.as_f64().unwrap()).sum();
     assert!((total - 1.0).abs() < 1e-12);
     assert!(shares[1].as_f64().unwrap() > 0.0);
@@ -293,4 +301,261 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
     ]);
     assert!(err.contains("needs a classifier"), "{err}");
     assert!(!d.join("rg.safetensors").exists());
+}
+
+/// The pairs rule at its extremes: a threshold of +∞ marks every pair of every row (the
+/// exact model's values, read from its grouped copy: equal to rounding), 0 marks none
+/// (the compiled model, bit for bit); in between, one row at a time equals the batch.
+#[test]
+fn the_pairs_rule_extremes_are_the_exact_and_the_compiled_model() {
+    let (exact, calib, test) = demo();
+    let c = weak(&exact, &calib);
+    let se = exact.decision(test.view());
+    let all =
+        GuardedModel::with_rule(c.clone(), exact.clone(), f64::INFINITY, GuardRule::Pairs).unwrap();
+    let (s, st) = all.decision(test.view());
+    assert!(st.iter().all(|&k| k == 1));
+    for (a, b) in s.iter().zip(se.iter()) {
+        assert!((a - b).abs() <= 1e-12 * (1.0 + b.abs()), "{a} vs {b}");
+    }
+    assert_eq!(all.exact_work_share(test.view()), 1.0);
+    let none = GuardedModel::with_rule(c.clone(), exact.clone(), 0.0, GuardRule::Pairs).unwrap();
+    let (s, st) = none.decision(test.view());
+    assert_eq!(s, c.decision(test.view()));
+    assert!(st.iter().all(|&k| k == 0));
+    let mid = GuardedModel::with_rule(c, exact.clone(), 0.3, GuardRule::Pairs).unwrap();
+    let (s, st) = mid.decision(test.view());
+    assert!(
+        st.contains(&2),
+        "some rows should be completed, not answered whole"
+    );
+    // Batches take the exact values from the batched path (a matrix product), single rows
+    // from the grouped support vectors: the same sums in another order.
+    for i in (0..test.nrows()).step_by(37) {
+        let (one, k) = mid.decision_one(test.row(i).as_slice().unwrap());
+        assert_eq!(k, st[i], "row {i}");
+        for (a, b) in one.iter().zip(s.row(i)) {
+            assert!(
+                (a - b).abs() <= 1e-9 * (1.0 + b.abs()),
+                "row {i}: {a} vs {b}"
+            );
+        }
+    }
+    let w = mid.exact_work_share(test.view());
+    assert!(w > 0.0 && w < 1.0, "work share {w}");
+    // The regression and binary refusals.
+    assert!(
+        GuardedModel::with_rule(weak(&exact, &calib), binary_model(), 0.3, GuardRule::Pairs)
+            .is_err()
+    );
+}
+
+/// A two-class model (the pairs rule needs one-vs-one outputs).
+fn binary_model() -> ExactModel {
+    let sv = Array2::from_shape_fn((20, 8), |(i, j)| ((i * 8 + j) as f64 * 0.37).sin());
+    let coef = Array2::from_shape_fn((20, 1), |(i, _)| if i % 2 == 0 { 1.0 } else { -1.0 });
+    ExactModel::new(
+        "gaussian(gamma=0.25)".parse().unwrap(),
+        sv,
+        coef,
+        vec![0.0],
+        kernelpress::model::Task::Binary,
+        vec!["a".into(), "b".into()],
+        None,
+    )
+    .unwrap()
+}
+
+/// The exact model's partial decisions: every output marked is the full decision value
+/// (to rounding), and the share of support vectors read is the share with a nonzero
+/// coefficient in a marked output, counted directly from the coefficients.
+#[test]
+fn partial_exact_decisions_read_only_the_marked_outputs_support_vectors() {
+    let (exact, _, test) = demo();
+    let k = exact.n_outputs();
+    let coef = exact.coef();
+    for (r, mask) in [0b000001usize, 0b100010, 0b011100, 0b111111]
+        .iter()
+        .enumerate()
+    {
+        let needed: Vec<bool> = (0..k).map(|j| mask >> j & 1 == 1).collect();
+        let row = test.row(r * 11);
+        let row = row.as_slice().unwrap();
+        let full = exact.decision_one(row);
+        let some = exact.decision_some_one(row, &needed);
+        for j in 0..k {
+            if needed[j] {
+                assert!(
+                    (some[j] - full[j]).abs() <= 1e-12 * (1.0 + full[j].abs()),
+                    "output {j}: {} vs {}",
+                    some[j],
+                    full[j]
+                );
+            } else {
+                assert!(some[j].is_nan());
+            }
+        }
+        let count = coef
+            .rows()
+            .into_iter()
+            .filter(|c| (0..k).any(|j| needed[j] && c[j] != 0.0))
+            .count();
+        let want = count as f64 / coef.nrows() as f64;
+        assert_eq!(exact.support_share(&needed), want, "mask {mask:b}");
+        if *mask != 0b111111 {
+            assert!(
+                want < 1.0,
+                "a one-vs-one pair reads only its classes' vectors"
+            );
+        }
+    }
+}
+
+/// What the pairs rule promises: whenever every pair it leaves to the compiled model has
+/// the exact model's sign, the guarded label is the exact label. Checked on every demo test
+/// row at several thresholds (the rows where the premise holds must be most of them, or the
+/// check would be empty).
+#[test]
+fn pairs_rule_gives_the_exact_label_when_the_unmarked_signs_are_right() {
+    let (exact, calib, test) = demo();
+    let c = weak(&exact, &calib);
+    let k = exact.labels().len();
+    let sc = c.decision(test.view());
+    let se = exact.decision(test.view());
+    let le = label_indices(exact.task(), k, se.view());
+    for tau in [0.05, 0.2, 0.5, 1.0] {
+        let g = GuardedModel::with_rule(c.clone(), exact.clone(), tau, GuardRule::Pairs).unwrap();
+        let (sg, _) = g.decision(test.view());
+        let lg = label_indices(exact.task(), k, sg.view());
+        let mut premise = 0;
+        for i in 0..test.nrows() {
+            let d = sc.row(i).to_vec();
+            let m = pairs_to_check(k, &d, tau);
+            let holds = (0..d.len()).all(|j| m[j] || (d[j] > 0.0) == (se[[i, j]] > 0.0));
+            if holds {
+                premise += 1;
+                assert_eq!(lg[i], le[i], "tau {tau}, row {i}");
+            }
+        }
+        assert!(
+            premise * 2 > test.nrows(),
+            "tau {tau}: premise held on {premise} rows"
+        );
+    }
+}
+
+/// A pairs guard chosen for a target on the audit rows meets it on fresh rows (within
+/// sampling noise); the automatic choice takes the rule with less exact work. (On this
+/// four-class demo with a weak compiled stage the row rule reads less; on the
+/// Fashion-MNIST teacher, ten classes, the pairs rule reads a fraction: see the README.)
+#[test]
+fn a_pairs_guard_for_a_target_meets_it_on_fresh_rows_and_auto_takes_the_cheaper_rule() {
+    let (exact, calib, test) = demo();
+    let c = weak(&exact, &calib);
+    let k = exact.labels().len();
+    let idx: Vec<usize> = (0..calib.nrows()).filter(|&i| audit_row(i)).collect();
+    let xa = calib.select(Axis(0), &idx);
+    let sc = c.decision(xa.view());
+    let se = exact.decision(xa.view());
+    let le = label_indices(exact.task(), k, exact.decision(test.view()).view());
+    for target in [0.98, 0.995] {
+        let t = GuardTarget::Agreement(target);
+        let pc = choose_guard(&exact, GuardRule::Pairs, sc.view(), se.view(), t).unwrap();
+        let rc = choose_guard(&exact, GuardRule::Row, sc.view(), se.view(), t).unwrap();
+        let auto = choose_guard_auto(&exact, sc.view(), se.view(), t).unwrap();
+        let cheaper = if pc.work_share < rc.work_share {
+            &pc
+        } else {
+            &rc
+        };
+        assert_eq!(&auto, cheaper, "{target}");
+        assert!(pc.work_share > 0.0 && pc.work_share < 1.0, "{pc:?}");
+        let g = GuardedModel::with_rule(c.clone(), exact.clone(), pc.threshold, GuardRule::Pairs)
+            .unwrap();
+        let (sg, _) = g.decision(test.view());
+        let lg = label_indices(exact.task(), k, sg.view());
+        let n = lg.len() as f64;
+        let agree = lg.iter().zip(&le).filter(|(a, b)| a == b).count() as f64 / n;
+        let se_fresh = (target * (1.0 - target) / n).sqrt();
+        assert!(
+            agree >= target - 2.0 * se_fresh,
+            "target {target}: fresh agreement {agree} ({pc:?})"
+        );
+        // A rate: the exact model takes part in at most that share of the audit rows.
+        let rc = choose_guard(
+            &exact,
+            GuardRule::Pairs,
+            sc.view(),
+            se.view(),
+            GuardTarget::Rate(0.1),
+        )
+        .unwrap();
+        assert!(rc.fallback_share <= 0.1, "{rc:?}");
+    }
+}
+
+/// `--allow-guard` lets the budget search return a guarded model: guarded candidates are
+/// listed beside the plain ones, and whatever is written meets the bound on the audit rows
+/// it was judged on; without a fidelity bound the flag is refused.
+#[test]
+fn the_budget_search_may_return_a_guarded_model() {
+    let d = tmpdir("guard_budget");
+    let model = root().join("models/pump_svm.safetensors");
+    let calib = root().join("models/pump_calib.csv");
+    let out = d.join("b.safetensors");
+    let text = ok(&[
+        "compile",
+        s(&model),
+        "--calib",
+        s(&calib),
+        "--target",
+        "condition",
+        "--methods",
+        "nystrom",
+        "--max-disagreement",
+        "0.01",
+        "--allow-guard",
+        "--no-timing",
+        "--out",
+        s(&out),
+    ]);
+    assert!(text.contains("nystrom+guard"), "{text}");
+    // The candidate table: the chosen line's disagreement is within the bound.
+    let chosen = text
+        .lines()
+        .find(|l| l.starts_with("chosen: "))
+        .unwrap_or_else(|| panic!("{text}"));
+    let guarded = chosen.contains("guarded by the exact model");
+    let (m, _) = AnyModel::load(&out).unwrap();
+    assert_eq!(matches!(m, AnyModel::Guarded(_)), guarded, "{chosen}");
+    let rows: Vec<(String, usize, f64)> = text
+        .lines()
+        .filter_map(|l| {
+            let f: Vec<&str> = l.split_whitespace().collect();
+            (f.len() == 6 && f[0].starts_with("nystrom")).then(|| {
+                (
+                    f[0].to_string(),
+                    f[1].parse().unwrap(),
+                    f[2].parse().unwrap(),
+                )
+            })
+        })
+        .collect();
+    assert!(rows.iter().any(|r| r.0 == "nystrom+guard"), "{text}");
+    for r in rows.iter().filter(|r| r.0 == "nystrom+guard") {
+        assert!(r.2 <= 0.01, "a guarded candidate meets its target: {r:?}");
+    }
+    let err = bad(&[
+        "compile",
+        s(&model),
+        "--calib",
+        s(&calib),
+        "--budget-us",
+        "10",
+        "--allow-guard",
+        "--out",
+        s(&d.join("x.safetensors")),
+    ]);
+    assert!(err.contains("--max-disagreement"), "{err}");
+    assert!(!d.join("x.safetensors").exists());
 }

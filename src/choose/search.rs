@@ -7,7 +7,8 @@ use super::Record;
 use crate::cost::{predict, predict_exact, program_lines, MachineProfile, Prediction};
 use crate::features::{FeatureSpec, Method};
 use crate::fit::{audit_row, RidgeGrid, Teacher};
-use crate::model::{label_indices, CompiledModel};
+use crate::model::guarded::{choose_guard_auto, GuardTarget};
+use crate::model::{label_indices, CompiledModel, GuardedModel};
 use crate::observe::{Observer, Silent};
 use crate::report::measure_single;
 use crate::{Error, Result};
@@ -54,6 +55,11 @@ pub struct SearchOptions {
     pub grid: RidgeGrid,
     /// Single-row timing repetitions per candidate.
     pub reps: usize,
+    /// With a fidelity bound (classifiers): also consider every compiled candidate guarded
+    /// by the exact model (the rule with the least exact work, threshold for agreement
+    /// `1 − max_loss` with 95% confidence on the audit rows), judged at its *mean*
+    /// single-row latency; the fastest of all that meet the bound wins.
+    pub guard: bool,
 }
 
 impl SearchOptions {
@@ -71,6 +77,14 @@ pub enum Choice {
         /// The model.
         model: Box<CompiledModel>,
         /// Its record on the audit rows of the calibration set.
+        record: Box<Record>,
+    },
+    /// A compiled model guarded by the exact model meets the fidelity bound and is the
+    /// fastest on average ([`SearchOptions::guard`]).
+    Guarded {
+        /// The model.
+        model: Box<GuardedModel>,
+        /// Its record on the audit rows (latency: the mean over the rows).
         record: Box<Record>,
     },
     /// The exact model meets the budget and is at least as fast as any compiled model that
@@ -189,7 +203,7 @@ pub fn search(
     // exact model are worth building.
     let cap = exact_fits.then_some(exact_rec.latency_us * PREDICTION_SLACK);
     let mut tried: Vec<Record> = Vec::new();
-    let mut models: Vec<CompiledModel> = Vec::new();
+    let mut models: Vec<Candidate> = Vec::new();
     let mut fastest: Option<(String, usize, Prediction)> = None;
     let scaled = exact.scaling().is_some();
     obs.stage("searching", opts.methods.len() as u64);
@@ -270,8 +284,26 @@ pub fn search(
             };
             let fits = budget.fits(rec.latency_us, rec.bytes as u64);
             let meets = budget.max_loss.is_none_or(|b| rec.loss <= b);
+            let guarded = match budget.max_loss {
+                Some(b) if opts.guard && classifier => guard_candidate(
+                    &model,
+                    exact,
+                    xv.view(),
+                    yv.view(),
+                    s.view(),
+                    1.0 - b,
+                    reps,
+                    &rec,
+                    &exact_rec.predicted,
+                )?,
+                _ => None,
+            };
             tried.push(rec);
-            models.push(model);
+            models.push(Candidate::Plain(Box::new(model)));
+            if let Some((g, grec)) = guarded {
+                tried.push(grec);
+                models.push(Candidate::Guarded(Box::new(g)));
+            }
             if budget.max_loss.is_some() {
                 if meets || !fits {
                     break;
@@ -311,9 +343,15 @@ pub fn search(
             best_compiled: best.map(|b| Box::new(tried[b].clone())),
         }
     } else if let Some(b) = best {
-        Choice::Compiled {
-            model: Box::new(models.swap_remove(b)),
-            record: Box::new(tried[b].clone()),
+        match models.swap_remove(b) {
+            Candidate::Plain(model) => Choice::Compiled {
+                model,
+                record: Box::new(tried[b].clone()),
+            },
+            Candidate::Guarded(model) => Choice::Guarded {
+                model,
+                record: Box::new(tried[b].clone()),
+            },
         }
     } else {
         // Closest: the fastest built candidate for a latency or size budget, the most
@@ -337,4 +375,56 @@ pub fn search(
         tried,
         notes,
     })
+}
+
+/// A built candidate: plain or guarded.
+enum Candidate {
+    Plain(Box<CompiledModel>),
+    Guarded(Box<GuardedModel>),
+}
+
+/// `model` guarded for agreement `target` on the audit rows `xv` (exact decisions `yv`,
+/// compiled ones `s`), with its record (method `<method>+guard`, mean single-row latency,
+/// its parameters and the exact model's); `None` when no threshold meets the target.
+#[allow(clippy::too_many_arguments)]
+fn guard_candidate(
+    model: &CompiledModel,
+    exact: &crate::model::ExactModel,
+    xv: ArrayView2<f64>,
+    yv: ArrayView2<f64>,
+    s: ArrayView2<f64>,
+    target: f64,
+    reps: usize,
+    plain: &Record,
+    pe: &Prediction,
+) -> Result<Option<(GuardedModel, Record)>> {
+    let Some(c) = choose_guard_auto(exact, s, yv, GuardTarget::Agreement(target)) else {
+        return Ok(None);
+    };
+    let mut g = GuardedModel::with_rule(model.clone(), exact.clone(), c.threshold, c.rule)?;
+    g.guard = serde_json::json!({
+        "chosen_on": format!("calibration audit rows ({} rows, never fitted on)", xv.nrows()),
+        "target_agreement": target,
+        "fallback_share": c.fallback_share,
+        "work_share": c.work_share,
+    });
+    let lat = measure_single(xv, reps, |r| g.decision_one(r).0);
+    let rec = Record {
+        method: format!("{}+guard", plain.method),
+        features: plain.features,
+        exact: false,
+        loss: 1.0 - c.agreement,
+        agreement: Some(c.agreement),
+        latency_us: lat.mean_us,
+        rows_per_s: f64::NAN,
+        bytes: model.parameter_bytes() + exact.parameter_bytes(),
+        predicted: Prediction {
+            latency_us: plain.predicted.latency_us + c.work_share * pe.latency_us,
+            ..plain.predicted
+        },
+        compile_s: plain.compile_s,
+        pareto: false,
+        report: None,
+    };
+    Ok(Some((g, rec)))
 }

@@ -5,7 +5,7 @@ use super::{loss_of, mark_front, Record};
 use crate::cost::{predict, predict_exact, program_lines, MachineProfile, Prediction};
 use crate::features::{FeatureSpec, Method};
 use crate::fit::{audit_row, RidgeGrid, Teacher};
-use crate::model::guarded::threshold_for_agreement;
+use crate::model::guarded::{choose_guard_auto, GuardTarget};
 use crate::model::{CompiledModel, GuardedModel};
 use crate::observe::{Observer, Silent};
 use crate::report::{self, measure_exact, ReportOptions};
@@ -63,11 +63,12 @@ fn guarded_point(
     let exact = teacher.exact();
     let (xa, ya) = teacher.rows_where(audit_row);
     let sc = model.decision(xa.view());
-    let k = exact.labels().len();
-    let Some((t, share)) = threshold_for_agreement(exact.task(), k, sc.view(), ya.view(), p) else {
+    let Some(choice) = choose_guard_auto(exact, sc.view(), ya.view(), GuardTarget::Agreement(p))
+    else {
         return Ok(None);
     };
-    let g = GuardedModel::new(model.clone(), exact.clone(), t)?;
+    let share = choice.work_share;
+    let g = GuardedModel::with_rule(model.clone(), exact.clone(), choice.threshold, choice.rule)?;
     let r = report::build_guarded(&g, exact, eval, truth, ropts)?;
     let pe = predict_exact(profile, exact);
     Ok(Some(Record {

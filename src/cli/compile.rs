@@ -113,9 +113,22 @@ pub(crate) struct Args {
     /// (one-sided Wilson bound). Classifiers only.
     #[arg(long)]
     guard_agreement: Option<f64>,
-    /// Guard: send this share of rows (the least confident) to the exact model.
+    /// Guard: the exact model takes part in at most this share of rows (the least
+    /// confident).
     #[arg(long)]
     guard_rate: Option<f64>,
+    /// Budget search with --max-disagreement (classifiers): also consider every candidate
+    /// guarded by the exact model (threshold for agreement 1 − P with 95% confidence on
+    /// the audit rows), judged at its mean single-row latency; the fastest that meets the
+    /// bound is written, guarded or not.
+    #[arg(long)]
+    allow_guard: bool,
+    /// Guard: what the exact model computes. `pairs` (one-vs-one classifiers): only the
+    /// class pairs the compiled model is unsure of among the classes that could still
+    /// win, reading those pairs' support vectors; `row`: the whole row; `auto` (the
+    /// default): whichever reads fewer support vectors for the target on the audit rows.
+    #[arg(long, value_parser = ["auto", "row", "pairs"])]
+    guard_rule: Option<String>,
     /// Keep the kernel's own bandwidth for the random map. By default distillation of a
     /// random map of a shift-invariant kernel tries the map at 1, 0.5 and 0.7 times the
     /// kernel's bandwidth (a Gaussian's γ) and keeps the one that reproduces the teacher
@@ -214,6 +227,16 @@ pub(crate) fn run(a: Args) -> Result<()> {
         _ => {}
     }
     let guarded = a.guard_agreement.is_some() || a.guard_rate.is_some();
+    if a.allow_guard && a.max_disagreement.is_none() {
+        return Err(Error::input(
+            "--allow-guard lets the budget search return a guarded model: give --max-disagreement P with it",
+        ));
+    }
+    if a.guard_rule.is_some() && !guarded {
+        return Err(Error::input(
+            "--guard-rule chooses how a guard works: give --guard-agreement P or --guard-rate R with it",
+        ));
+    }
     if guarded && (a.model.is_none() || matches!(a.head, Head::Project)) {
         return Err(Error::input(
             "a guard needs an exact model and distillation: compile MODEL --calib FILE",
@@ -249,6 +272,19 @@ pub(crate) fn run(a: Args) -> Result<()> {
         return Err(Error::input(format!(
             "{}: a guard needs a classifier: regression models have no margin to judge confidence by",
             model_path.display()
+        )));
+    }
+    if a.allow_guard && !exact.task().is_classifier() {
+        return Err(Error::input(format!(
+            "{}: --allow-guard needs a classifier: regression models have no margin to judge confidence by",
+            model_path.display()
+        )));
+    }
+    if a.guard_rule.as_deref() == Some("pairs") && exact.task() != kernelpress::model::Task::Ovo {
+        return Err(Error::input(format!(
+            "{}: --guard-rule pairs needs a one-vs-one classifier (its decision values are class pairs); this model is {}: use --guard-rule row",
+            model_path.display(),
+            exact.task().name()
         )));
     }
     if a.stats_out.is_some() || !a.from_stats.is_empty() {
@@ -340,7 +376,6 @@ fn run_guard(
     calib: Option<&kernelpress::data::Table>,
     model: kernelpress::model::CompiledModel,
 ) -> Result<()> {
-    use kernelpress::model::guarded::{threshold_for_agreement, threshold_for_rate};
     use kernelpress::model::GuardedModel;
     let calib =
         calib.ok_or_else(|| Error::input("a guard is chosen on calibration rows: give --calib"))?;
@@ -348,27 +383,53 @@ fn run_guard(
     let xa = calib.x.select(Axis(0), &idx);
     let sc = model.decision(xa.view());
     let se = exact.decision(xa.view());
-    let k = exact.labels().len();
-    let (threshold, share) = match (a.guard_agreement, a.guard_rate) {
-        (Some(p), None) => threshold_for_agreement(exact.task(), k, sc.view(), se.view(), p)
-            .ok_or_else(|| {
-                Error::new(
-                    ErrorKind::Budget,
-                    format!(
-                        "no guard reaches agreement {p} with 95% confidence on the {} audit rows, even sending every row to the exact model; give more calibration rows or a lower target",
-                        idx.len()
-                    ),
-                )
-            })?,
-        (None, Some(r)) => (threshold_for_rate(exact.task(), k, sc.view(), r), r),
+    use kernelpress::model::guarded::{choose_guard, choose_guard_auto, GuardRule, GuardTarget};
+    let target = match (a.guard_agreement, a.guard_rate) {
+        (Some(p), None) => GuardTarget::Agreement(p),
+        (None, Some(r)) => GuardTarget::Rate(r),
         _ => unreachable!("checked in run"),
     };
-    let mut g = GuardedModel::new(model, exact.clone(), threshold)?;
+    let choice = match a.guard_rule.as_deref() {
+        Some("row") => choose_guard(exact, GuardRule::Row, sc.view(), se.view(), target),
+        Some("pairs") => choose_guard(exact, GuardRule::Pairs, sc.view(), se.view(), target),
+        _ => choose_guard_auto(exact, sc.view(), se.view(), target),
+    };
+    let choice = choice.ok_or_else(|| {
+        Error::new(
+            ErrorKind::Budget,
+            format!(
+                "no guard reaches agreement {} with 95% confidence on the {} audit rows, even sending every row to the exact model; give more calibration rows or a lower target",
+                a.guard_agreement.unwrap_or(1.0),
+                idx.len()
+            ),
+        )
+    })?;
+    let threshold = choice.threshold;
+    let mut g = GuardedModel::with_rule(model, exact.clone(), threshold, choice.rule)?;
     g.guard = serde_json::json!({
         "chosen_on": format!("calibration audit rows ({} rows, never fitted on)", idx.len()),
         "target_agreement": a.guard_agreement,
-        "fallback_share": share,
+        "fallback_share": choice.fallback_share,
+        "work_share": choice.work_share,
     });
+    finish_guarded(a, exact, calib, g, String::new())
+}
+
+/// Reports a guarded model (on --eval, else on the audit rows it was chosen on), applies
+/// the gate and writes it; `head` is printed first.
+fn finish_guarded(
+    a: &Args,
+    exact: &ExactModel,
+    calib: &kernelpress::data::Table,
+    g: kernelpress::model::GuardedModel,
+    head: String,
+) -> Result<()> {
+    use kernelpress::model::guarded::GuardRule;
+    let idx: Vec<usize> = (0..calib.x.nrows()).filter(|&i| audit_row(i)).collect();
+    let xa = calib.x.select(Axis(0), &idx);
+    let threshold = g.threshold();
+    let fallback = g.guard["fallback_share"].as_f64().unwrap_or(f64::NAN);
+    let work = g.guard["work_share"].as_f64().unwrap_or(f64::NAN);
     let (ex, truth, on) = match &a.eval {
         Some(p) => {
             let t = super::read_for(p, a.target.as_deref(), &exact.feature_names, a.by_position)?;
@@ -399,10 +460,18 @@ fn run_guard(
     pb.finish();
     rep.evaluated_on = Some(on);
     let gate = a.gate.failure(&rep)?;
-    let mut text = format!(
-        "guard: rows whose smallest margin of the predicted class is below {threshold:.4} go to the exact model ({:.1}% of the audit rows)\n",
-        100.0 * share
-    );
+    let mut text = head;
+    text.push_str(&match g.guard_rule() {
+        GuardRule::Row => format!(
+            "guard: rows whose smallest margin of the predicted class is below {threshold:.4} go to the exact model ({:.1}% of the audit rows)\n",
+            100.0 * fallback
+        ),
+        GuardRule::Pairs => format!(
+            "guard: class pairs with |decision| below {threshold:.4} among the classes that could still win are recomputed by the exact model ({:.1}% of the audit rows; {:.1}% of its support vectors read per row on average)\n",
+            100.0 * fallback,
+            100.0 * work
+        ),
+    });
     for w in &rep.warnings {
         super::progress::warn(w);
     }
@@ -530,6 +599,7 @@ fn run_budget(
         seed: a.map.seed,
         grid: grid.clone(),
         reps: 300,
+        guard: a.allow_guard,
     };
     let res = search(&teacher, &profile, budget, &opts, &bars)?;
     for n in &res.notes {
@@ -568,6 +638,15 @@ fn run_budget(
                 }
             };
             evaluate_and_finish(a, exact, Some(audit_of(&calib)), *model, Some(&line))
+        }
+        Choice::Guarded { model, record } => {
+            text.push_str(&format!(
+                "chosen: {} with {} features, guarded by the exact model, for {want} (mean single-row latency {:.2} µs on the audit rows)\n",
+                record.method.trim_end_matches("+guard"),
+                record.features,
+                record.latency_us
+            ));
+            finish_guarded(a, exact, &calib, *model, text)
         }
         Choice::Exact {
             exact: e,

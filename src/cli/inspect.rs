@@ -138,13 +138,31 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 "exact stage     {} support vectors\n",
                 g.exact().n_support_vectors()
             ));
-            s.push_str(&format!(
-                "guard           rows whose smallest margin of the predicted class is below {} go to the exact model\n",
-                g.threshold()
-            ));
+            use kernelpress::model::guarded::GuardRule;
+            s.push_str(&match g.guard_rule() {
+                GuardRule::Row => format!(
+                    "guard           rows whose smallest margin of the predicted class is below {} go to the exact model\n",
+                    g.threshold()
+                ),
+                GuardRule::Pairs => format!(
+                    "guard           class pairs with |decision| below {} that involve a class that could still win are recomputed by the exact model (from those pairs' support vectors only)\n",
+                    g.threshold()
+                ),
+            });
             if let Some(r) = g.guard.get("fallback_share").and_then(|v| v.as_f64()) {
+                let work = g
+                    .guard
+                    .get("work_share")
+                    .and_then(|v| v.as_f64())
+                    .map(|w| {
+                        format!(
+                            ", reading {:.1}% of the support vectors per row on average",
+                            100.0 * w
+                        )
+                    })
+                    .unwrap_or_default();
                 s.push_str(&format!(
-                    "                {:.1}% of the rows it was chosen on fell back\n",
+                    "                the exact model took part in {:.1}% of the rows it was chosen on{work}\n",
                     100.0 * r
                 ));
             }

@@ -365,3 +365,133 @@ impl Kernel {
         row32(self, x, &b.node, out)
     }
 }
+
+/// Kernel values `k(x, b_i)` for the rows `idx` of `b` (ascending), into `out`
+/// (`idx.len()` values).
+fn row64(k: &Kernel, x: &[f64], b: &Node, idx: &[usize], out: &mut [f64]) {
+    match (k, b) {
+        (Kernel::Sum(ks), Node::Many(nb)) => {
+            row64(&ks[0], x, &nb[0], idx, out);
+            let mut tmp = vec![0.0; out.len()];
+            for i in 1..ks.len() {
+                row64(&ks[i], x, &nb[i], idx, &mut tmp);
+                out.iter_mut().zip(&tmp).for_each(|(o, t)| *o += t);
+            }
+        }
+        (Kernel::Product(ks), Node::Many(nb)) => {
+            row64(&ks[0], x, &nb[0], idx, out);
+            let mut tmp = vec![0.0; out.len()];
+            for i in 1..ks.len() {
+                row64(&ks[i], x, &nb[i], idx, &mut tmp);
+                out.iter_mut().zip(&tmp).for_each(|(o, t)| *o *= t);
+            }
+        }
+        (Kernel::Scaled(c, inner), Node::One(nb)) => {
+            row64(inner, x, nb, idx, out);
+            out.iter_mut().for_each(|v| *v *= c);
+        }
+        (k, Node::Euclid { scaled, sq }) => {
+            let s = k.inverse_scale(x.len()).expect("shift-invariant");
+            let xs: Vec<f64> = x.iter().zip(&s).map(|(v, f)| v * f).collect();
+            let qa: f64 = xs.iter().map(|v| v * v).sum();
+            dots(scaled, &xs, idx, out);
+            let qb: Vec<f64> = idx.iter().map(|&i| sq[i]).collect();
+            if matches!(k, Kernel::Gaussian { .. }) {
+                crate::transform::expo::gaussian_row(out, qa, &qb, 0.5);
+                return;
+            }
+            for (v, qb) in out.iter_mut().zip(&qb) {
+                let r2 = (qa + qb - 2.0 * *v).max(0.0);
+                *v = k.euclidean_profile(r2).unwrap();
+            }
+        }
+        (k, Node::L1 { scaled }) => {
+            let s = k.inverse_scale(x.len()).expect("laplacian");
+            let xs: Vec<f64> = x.iter().zip(&s).map(|(v, f)| v * f).collect();
+            for (v, &i) in out.iter_mut().zip(idx) {
+                let l1: f64 = scaled
+                    .row(i)
+                    .iter()
+                    .zip(&xs)
+                    .map(|(a, b)| (a - b).abs())
+                    .sum();
+                *v = (-l1).exp();
+            }
+        }
+        (k, Node::Dot { data, norms }) => {
+            let na = x.iter().map(|v| v * v).sum::<f64>().sqrt();
+            dots(data, x, idx, out);
+            for (v, &i) in out.iter_mut().zip(idx) {
+                *v = k.dot_profile(*v, na, norms[i]).unwrap();
+            }
+        }
+        _ => unreachable!("Prepared built for a different kernel"),
+    }
+}
+
+/// `out[t] = a[idx[t]] · x`: runs of consecutive rows go through the vectorised row kernel
+/// in one call when `a` is row-major.
+fn dots(a: &Array2<f64>, x: &[f64], idx: &[usize], out: &mut [f64]) {
+    let d = x.len();
+    let Some(all) = a.as_slice() else {
+        for (o, &i) in out.iter_mut().zip(idx) {
+            *o = a.row(i).iter().zip(x).map(|(p, q)| p * q).sum();
+        }
+        return;
+    };
+    let mut t = 0;
+    while t < idx.len() {
+        let mut e = t + 1;
+        while e < idx.len() && idx[e] == idx[e - 1] + 1 {
+            e += 1;
+        }
+        let (lo, hi) = (idx[t], idx[e - 1] + 1);
+        linalg::dot_rows(&all[lo * d..hi * d], x, &mut out[t..e]);
+        t = e;
+    }
+}
+
+impl Kernel {
+    /// One kernel row `k(x, b_j)` for all rows of `b`, into `out` (`b.rows()` values):
+    /// the single-row path (vectorised dot products, no matrix-product set-up). Agrees
+    /// with [`Kernel::gram_prepared`] to rounding.
+    ///
+    /// # Panics
+    /// If `out` does not have `b.rows()` values.
+    ///
+    /// ```
+    /// use kernelpress::kernel::{Kernel, Prepared};
+    /// use ndarray::array;
+    /// let k: Kernel = "gaussian(gamma=1)".parse().unwrap();
+    /// let sv = array![[0.0, 0.0], [1.0, 0.0], [0.0, 2.0]];
+    /// let p = Prepared::new(&k, sv.view());
+    /// let mut row = [0.0; 3];
+    /// k.row(&[0.0, 0.0], &p, &mut row);
+    /// assert!((row[1] - (-1.0f64).exp()).abs() < 1e-15);
+    /// // Only some rows: the first and the third.
+    /// let mut some = [0.0; 2];
+    /// k.row_some(&[0.0, 0.0], &p, &[0, 2], &mut some);
+    /// assert_eq!(some, [row[0], row[2]]);
+    /// ```
+    #[track_caller]
+    pub fn row(&self, x: &[f64], b: &Prepared, out: &mut [f64]) {
+        assert_eq!(out.len(), b.rows, "row: output length");
+        let idx: Vec<usize> = (0..b.rows).collect();
+        row64(self, x, &b.node, &idx, out)
+    }
+
+    /// Kernel values `k(x, b_i)` for the rows `idx` of `b` only (ascending indices), into
+    /// `out` (`idx.len()` values): reads only those rows.
+    ///
+    /// # Panics
+    /// If `out` and `idx` differ in length, or an index is out of range or out of order.
+    #[track_caller]
+    pub fn row_some(&self, x: &[f64], b: &Prepared, idx: &[usize], out: &mut [f64]) {
+        assert_eq!(out.len(), idx.len(), "row_some: output length");
+        assert!(
+            idx.windows(2).all(|w| w[0] < w[1]) && idx.last().is_none_or(|&i| i < b.rows),
+            "row_some: indices must ascend within the rows"
+        );
+        row64(self, x, &b.node, idx, out)
+    }
+}

@@ -27,6 +27,7 @@ pub struct ExactModel {
     pub training: serde_json::Value,
     prepared: OnceLock<Prepared>,
     prepared32: OnceLock<crate::kernel::Prepared32>,
+    parts: OnceLock<super::parts::Parts>,
 }
 
 impl ExactModel {
@@ -82,6 +83,7 @@ impl ExactModel {
             training: json!({}),
             prepared: OnceLock::new(),
             prepared32: OnceLock::new(),
+            parts: OnceLock::new(),
         })
     }
 
@@ -200,6 +202,60 @@ impl ExactModel {
         let mut out = self.intercept.clone();
         linalg::add_weighted_rows(&g, self.coef.as_slice().expect("standard layout"), &mut out);
         out
+    }
+
+    fn parts(&self) -> &super::parts::Parts {
+        self.parts.get_or_init(|| {
+            super::parts::Parts::new(&self.kernel, self.support_vectors.view(), self.coef.view())
+        })
+    }
+
+    /// Decision values of the outputs marked in `needed` for one row, reading only the
+    /// support vectors with a nonzero coefficient in one of them (on first use the support
+    /// vectors are copied once, ordered by the outputs they feed). Unmarked outputs are
+    /// `NaN`. Marked outputs equal [`Self::decision_one`]'s up to the order of the sums.
+    ///
+    /// # Panics
+    /// If `needed` does not have [`Self::n_outputs`] entries or `x` the model's width.
+    ///
+    /// ```
+    /// use kernelpress::model::{ExactModel, Task};
+    /// use ndarray::array;
+    /// // Two outputs: the first fed by support vector 0, the second by support vector 1.
+    /// let m = ExactModel::new("gaussian(gamma=1)".parse().unwrap(),
+    ///     array![[0.0, 0.0], [1.0, 0.0]], array![[2.0, 0.0], [0.0, -1.0]], vec![0.5, 0.0],
+    ///     Task::Regression, vec![], None).unwrap();
+    /// let some = m.decision_some_one(&[0.0, 0.0], &[true, false]);
+    /// assert_eq!(some[0], 2.5);
+    /// assert!(some[1].is_nan());
+    /// assert_eq!(m.support_share(&[true, false]), 0.5);
+    /// ```
+    #[track_caller]
+    pub fn decision_some_one(&self, x: &[f64], needed: &[bool]) -> Vec<f64> {
+        assert_eq!(needed.len(), self.n_outputs(), "decision_some_one: outputs");
+        let row = ndarray::ArrayView2::from_shape((1, x.len()), x).expect("one row");
+        assert_eq!(x.len(), self.input_dim(), "decision_some_one: wrong width");
+        let xs = self.scale_inputs(row);
+        let mut out: Vec<f64> = self
+            .intercept
+            .iter()
+            .zip(needed)
+            .map(|(&b, &n)| if n { b } else { f64::NAN })
+            .collect();
+        self.parts().add_into(
+            &self.kernel,
+            xs.as_slice().expect("a fresh row"),
+            needed,
+            &mut out,
+        );
+        out
+    }
+
+    /// Share of the support vectors [`Self::decision_some_one`] reads for `needed`.
+    #[track_caller]
+    pub fn support_share(&self, needed: &[bool]) -> f64 {
+        assert_eq!(needed.len(), self.n_outputs(), "support_share: outputs");
+        self.parts().share(needed)
     }
 
     /// Bytes one single-row prediction reads: the support vectors (f64, or f32 with

@@ -33,8 +33,103 @@ use ndarray::{Array2, ArrayView2, Axis};
 use serde_json::{json, Value};
 use std::path::Path;
 
-/// Names of the stages, by index (the `stage` column of `score`).
-pub const STAGES: [&str; 2] = ["compiled", "exact"];
+/// Names of the stages, by index (the `stage` column of `score`): the compiled model
+/// alone, the exact model alone, or the compiled model with some decision values
+/// recomputed exactly (the pairs rule).
+pub const STAGES: [&str; 3] = ["compiled", "exact", "partial"];
+
+/// How a guard decides what the exact model computes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum GuardRule {
+    /// A row whose confidence ([`confidence`]) is below the threshold goes to the exact
+    /// model whole.
+    Row,
+    /// One-vs-one classifiers: the pairs whose compiled decision is within the threshold
+    /// of zero and that involve a class that could still win the vote are recomputed by
+    /// the exact model, reading only those pairs' support vectors ([`pairs_to_check`]).
+    Pairs,
+}
+
+impl GuardRule {
+    /// The rule's description in the file's `guard.rule`.
+    pub fn describe(self) -> &'static str {
+        match self {
+            GuardRule::Row => "smallest margin of the predicted class",
+            GuardRule::Pairs => "uncertain pairs of the classes that could still win",
+        }
+    }
+
+    /// The rule a file's `guard.rule` names.
+    pub fn from_description(s: &str) -> Option<GuardRule> {
+        [GuardRule::Row, GuardRule::Pairs]
+            .into_iter()
+            .find(|r| r.describe() == s)
+    }
+
+    /// The rules that apply to a task: both for one-vs-one classifiers, rows otherwise.
+    pub fn candidates(task: Task) -> Vec<GuardRule> {
+        if task == Task::Ovo {
+            vec![GuardRule::Row, GuardRule::Pairs]
+        } else {
+            vec![GuardRule::Row]
+        }
+    }
+}
+
+/// For a one-vs-one row of compiled decisions `d` over `k` classes (pairs in the order
+/// (0,1), (0,2), …, (1,2), …; a positive value favours the first class), the pairs the
+/// exact model must recompute under threshold `tau`: a pair is *uncertain* when
+/// `|d| < tau`; the classes that could still win are the compiled winner and every class
+/// whose votes, if it won all its uncertain pairs, would reach the winner's votes if the
+/// winner lost all of its own; the uncertain pairs that involve one of those classes are
+/// marked. If every pair with `|d| ≥ tau` has the exact model's sign, the vote over the
+/// compiled decisions with the marked pairs replaced by exact ones gives the exact label:
+/// the contenders' votes are then exact, and no other class can reach the winner's.
+///
+/// ```
+/// use kernelpress::model::guarded::pairs_to_check;
+/// // Three classes; pairs (0,1), (0,2), (1,2). Class 0 wins both its pairs, but (0,1)
+/// // is close: classes 0 and 1 contend, class 2 cannot reach two votes.
+/// let d = [0.05, 2.0, 1.5];
+/// assert_eq!(pairs_to_check(3, &d, 0.1), vec![true, false, false]);
+/// assert_eq!(pairs_to_check(3, &d, 0.01), vec![false, false, false]);
+/// ```
+pub fn pairs_to_check(k: usize, d: &[f64], tau: f64) -> Vec<bool> {
+    let mut votes = vec![0usize; k];
+    let mut gain = vec![0usize; k];
+    let mut loss = vec![0usize; k];
+    let mut p = 0;
+    for i in 0..k {
+        for j in i + 1..k {
+            let (w, l) = if d[p] > 0.0 { (i, j) } else { (j, i) };
+            votes[w] += 1;
+            if d[p].abs() < tau {
+                loss[w] += 1;
+                gain[l] += 1;
+            }
+            p += 1;
+        }
+    }
+    let mut best = 0;
+    for c in 1..k {
+        if votes[c] > votes[best] {
+            best = c;
+        }
+    }
+    let floor = votes[best] - loss[best];
+    let contender: Vec<bool> = (0..k)
+        .map(|c| c == best || votes[c] + gain[c] >= floor)
+        .collect();
+    let mut out = vec![false; d.len()];
+    let mut p = 0;
+    for i in 0..k {
+        for j in i + 1..k {
+            out[p] = d[p].abs() < tau && (contender[i] || contender[j]);
+            p += 1;
+        }
+    }
+    out
+}
 
 /// A compiled model guarded by its exact model.
 #[derive(Debug, Clone)]
@@ -42,6 +137,7 @@ pub struct GuardedModel {
     compact: CompiledModel,
     exact: ExactModel,
     threshold: f64,
+    rule: GuardRule,
     /// How the threshold was chosen (stored in the file).
     pub guard: Value,
 }
@@ -87,6 +183,22 @@ impl GuardedModel {
     /// the exact model. The two must share task, labels, inputs and scaling; regression
     /// models cannot be guarded (they have no margin).
     pub fn new(compact: CompiledModel, exact: ExactModel, threshold: f64) -> Result<Self> {
+        Self::with_rule(compact, exact, threshold, GuardRule::Row)
+    }
+
+    /// Guards `compact` with `exact` under `rule` ([`GuardRule::Pairs`] needs a one-vs-one
+    /// classifier).
+    pub fn with_rule(
+        compact: CompiledModel,
+        exact: ExactModel,
+        threshold: f64,
+        rule: GuardRule,
+    ) -> Result<Self> {
+        if rule == GuardRule::Pairs && exact.task() != Task::Ovo {
+            return Err(Error::input(
+                "the pairs guard needs a one-vs-one classifier (its decision values are class pairs)",
+            ));
+        }
         if threshold.is_nan() {
             return Err(Error::input("the guard threshold is not a number"));
         }
@@ -107,8 +219,68 @@ impl GuardedModel {
             compact,
             exact,
             threshold,
+            rule,
             guard: json!({}),
         })
+    }
+
+    /// The guard's rule.
+    pub fn guard_rule(&self) -> GuardRule {
+        self.rule
+    }
+
+    /// What the exact model computes for a row of compiled decisions `s`: nothing
+    /// (`None`), or the outputs marked (every output: the exact model answers alone).
+    fn plan(&self, s: &[f64]) -> Option<Vec<bool>> {
+        let k = self.exact.labels().len();
+        match self.rule {
+            GuardRule::Row => {
+                let view = ArrayView2::from_shape((1, s.len()), s).expect("one row");
+                (confidence(self.exact.task(), k, view)[0] < self.threshold)
+                    .then(|| vec![true; s.len()])
+            }
+            GuardRule::Pairs => {
+                let m = pairs_to_check(k, s, self.threshold);
+                m.iter().any(|&b| b).then_some(m)
+            }
+        }
+    }
+
+    /// One row: the compiled decisions `s` completed by the exact model as planned.
+    fn finish_one(&self, x: &[f64], mut s: Vec<f64>) -> (Vec<f64>, u8) {
+        match self.plan(&s) {
+            None => (s, 0),
+            Some(_) if self.rule == GuardRule::Row => (self.exact.decision_one(x), 1),
+            Some(m) => {
+                let e = self.exact.decision_some_one(x, &m);
+                let all = m.iter().all(|&b| b);
+                for ((v, &b), ev) in s.iter_mut().zip(&m).zip(e) {
+                    if b {
+                        *v = ev;
+                    }
+                }
+                (s, if all { 1 } else { 2 })
+            }
+        }
+    }
+
+    /// Mean share of the exact model's support vectors read per row of `x` (the exact
+    /// model's share of the work).
+    pub fn exact_work_share(&self, x: ArrayView2<f64>) -> f64 {
+        let s = self.compact.decision(x);
+        let n = s.nrows().max(1) as f64;
+        s.rows()
+            .into_iter()
+            .map(|r| {
+                let r = r.to_vec();
+                match self.plan(&r) {
+                    None => 0.0,
+                    Some(m) if m.iter().all(|&b| b) => 1.0,
+                    Some(m) => self.exact.support_share(&m),
+                }
+            })
+            .sum::<f64>()
+            / n
     }
 
     /// The compiled stage.
@@ -126,23 +298,33 @@ impl GuardedModel {
         self.threshold
     }
 
-    /// Decision values and the stage that answered each row (0 compiled, 1 exact).
+    /// Decision values and the stage that answered each row (indices into [`STAGES`]).
     ///
     /// # Panics
     /// If `x` does not have the model's number of columns.
     pub fn decision(&self, x: ArrayView2<f64>) -> (Array2<f64>, Vec<u8>) {
         let mut s = self.compact.decision(x);
-        let k = self.exact.labels().len();
-        let conf = confidence(self.exact.task(), k, s.view());
-        let idx: Vec<usize> = (0..conf.len())
-            .filter(|&i| conf[i] < self.threshold)
+        let plans: Vec<Option<Vec<bool>>> = s
+            .rows()
+            .into_iter()
+            .map(|r| self.plan(r.as_slice().expect("a fresh batch is row-major")))
             .collect();
-        let mut stage = vec![0u8; conf.len()];
-        if !idx.is_empty() {
-            let se = self.exact.decision(x.select(Axis(0), &idx).view());
-            for (r, &i) in idx.iter().enumerate() {
-                s.row_mut(i).assign(&se.row(r));
-                stage[i] = 1;
+        let mut stage = vec![0u8; plans.len()];
+        // Rows the exact model takes part in go through its batched path (one matrix
+        // product per chunk beats reading the support vectors once per row); the pairs
+        // rule keeps the exact values of the planned outputs only, as one row at a time
+        // does (equal up to the order of the sums).
+        let sent: Vec<usize> = (0..plans.len()).filter(|&i| plans[i].is_some()).collect();
+        if !sent.is_empty() {
+            let se = self.exact.decision(x.select(Axis(0), &sent).view());
+            for (r, &i) in sent.iter().enumerate() {
+                let m = plans[i].as_ref().expect("planned");
+                for ((v, &b), &ev) in s.row_mut(i).iter_mut().zip(m).zip(se.row(r)) {
+                    if b {
+                        *v = ev;
+                    }
+                }
+                stage[i] = if m.iter().all(|&b| b) { 1 } else { 2 };
             }
         }
         (s, stage)
@@ -151,13 +333,7 @@ impl GuardedModel {
     /// Decision values of one row (sequential) and the stage that answered it.
     pub fn decision_one(&self, x: &[f64]) -> (Vec<f64>, u8) {
         let s = self.compact.decision_one(x);
-        let k = self.exact.labels().len();
-        let view = ArrayView2::from_shape((1, s.len()), &s).expect("one row");
-        if confidence(self.exact.task(), k, view)[0] < self.threshold {
-            (self.exact.decision_one(x), 1)
-        } else {
-            (s, 0)
-        }
+        self.finish_one(x, s)
     }
 
     /// The output rule.
@@ -191,7 +367,7 @@ impl GuardedModel {
         if !g.is_object() {
             g = json!({});
         }
-        g["rule"] = json!("smallest margin of the predicted class");
+        g["rule"] = json!(self.rule.describe());
         g["threshold"] = if self.threshold.is_finite() {
             json!(self.threshold)
         } else if self.threshold > 0.0 {
@@ -259,7 +435,19 @@ impl GuardedModel {
                 "{src}: guard.threshold must be a number, \"inf\" or \"-inf\""
             )));
         }
-        let mut m = GuardedModel::new(compact, exact, threshold).map_err(|e| e.context(src))?;
+        let rule = match g.get("rule") {
+            None => GuardRule::Row,
+            Some(Value::String(r)) => GuardRule::from_description(r).ok_or_else(|| {
+                Error::file(format!(
+                    "{src}: guard.rule '{r}' unknown; expected '{}' or '{}'",
+                    GuardRule::Row.describe(),
+                    GuardRule::Pairs.describe()
+                ))
+            })?,
+            Some(_) => return Err(Error::file(format!("{src}: guard.rule must be a string"))),
+        };
+        let mut m =
+            GuardedModel::with_rule(compact, exact, threshold, rule).map_err(|e| e.context(src))?;
         m.guard = g;
         Ok(m)
     }
@@ -346,4 +534,149 @@ pub fn wilson_lower_one_sided(k: usize, n: usize) -> f64 {
     let centre = p + z2 / (2.0 * nf);
     let half = z * (p * (1.0 - p) / nf + z2 / (4.0 * nf * nf)).sqrt();
     ((centre - half) / (1.0 + z2 / nf)).clamp(0.0, 1.0)
+}
+
+/// A guard chosen on audit rows.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GuardChoice {
+    /// The rule.
+    pub rule: GuardRule,
+    /// Its threshold.
+    pub threshold: f64,
+    /// Share of the audit rows the exact model takes part in (alone or completing).
+    pub fallback_share: f64,
+    /// Mean share of the support vectors read per audit row.
+    pub work_share: f64,
+    /// Agreement with the exact model on the audit rows.
+    pub agreement: f64,
+}
+
+/// What a guard is chosen for.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum GuardTarget {
+    /// The least exact work whose one-sided 95% lower bound of agreement on the audit rows
+    /// is at least this.
+    Agreement(f64),
+    /// The exact model takes part in at most this share of the audit rows.
+    Rate(f64),
+}
+
+/// Chooses the guard with the least exact work (mean share of support vectors read per
+/// row) for `target` among the rules that apply to the task ([`GuardRule::candidates`];
+/// ties go to the row rule). Which rule is cheaper depends on the model: on a one-vs-one
+/// model with many classes and a strong compiled stage the pairs rule reads a fraction of
+/// what the row rule reads; with few classes or a weak compiled stage it can read more.
+pub fn choose_guard_auto(
+    exact: &ExactModel,
+    sc: ArrayView2<f64>,
+    se: ArrayView2<f64>,
+    target: GuardTarget,
+) -> Option<GuardChoice> {
+    GuardRule::candidates(exact.task())
+        .into_iter()
+        .filter_map(|r| choose_guard(exact, r, sc, se, target))
+        .min_by(|a, b| a.work_share.total_cmp(&b.work_share))
+}
+
+/// Chooses a guard of `rule` for `target` on audit rows with compiled decisions `sc` and
+/// exact decisions `se`. `None` when no threshold meets an agreement target (only
+/// possible with few rows).
+pub fn choose_guard(
+    exact: &ExactModel,
+    rule: GuardRule,
+    sc: ArrayView2<f64>,
+    se: ArrayView2<f64>,
+    target: GuardTarget,
+) -> Option<GuardChoice> {
+    let task = exact.task();
+    let k = exact.labels().len();
+    let n = sc.nrows();
+    let lc = label_indices(task, k, sc);
+    let le = label_indices(task, k, se);
+    if rule == GuardRule::Row {
+        let (t, share) = match target {
+            GuardTarget::Agreement(p) => threshold_for_agreement(task, k, sc, se, p)?,
+            GuardTarget::Rate(r) => (threshold_for_rate(task, k, sc, r), r),
+        };
+        let conf = confidence(task, k, sc);
+        let agree = (0..n).filter(|&i| conf[i] < t || lc[i] == le[i]).count();
+        let sent = conf.iter().filter(|&&c| c < t).count() as f64 / n.max(1) as f64;
+        return Some(GuardChoice {
+            rule,
+            threshold: t,
+            fallback_share: if matches!(target, GuardTarget::Rate(_)) {
+                share
+            } else {
+                sent
+            },
+            work_share: sent,
+            agreement: agree as f64 / n.max(1) as f64,
+        });
+    }
+    if n == 0 {
+        return None;
+    }
+    // Candidate thresholds: 0, quantiles of |decision| over every audit entry, +∞. The
+    // exact work grows with the threshold, so the first that meets an agreement target is
+    // the cheapest.
+    let mut mags: Vec<f64> = sc.iter().map(|v| v.abs()).collect();
+    mags.sort_by(f64::total_cmp);
+    let levels = 256;
+    let mut taus = vec![0.0];
+    for i in 1..=levels {
+        let v = mags[((i * (mags.len() - 1)) / levels).min(mags.len() - 1)];
+        if v > *taus.last().expect("nonempty") {
+            taus.push(v);
+        }
+    }
+    taus.push(f64::INFINITY);
+    let eval = |tau: f64| -> GuardChoice {
+        let (mut agree, mut touched, mut work) = (0usize, 0usize, 0.0);
+        for i in 0..n {
+            let row = sc.row(i).to_vec();
+            let m = pairs_to_check(k, &row, tau);
+            if !m.iter().any(|&b| b) {
+                agree += usize::from(lc[i] == le[i]);
+                continue;
+            }
+            touched += 1;
+            let mut d = row;
+            for (j, &b) in m.iter().enumerate() {
+                if b {
+                    d[j] = se[[i, j]];
+                }
+            }
+            let v = ArrayView2::from_shape((1, d.len()), &d).expect("one row");
+            agree += usize::from(label_indices(task, k, v)[0] == le[i]);
+            work += if m.iter().all(|&b| b) {
+                1.0
+            } else {
+                exact.support_share(&m)
+            };
+        }
+        GuardChoice {
+            rule,
+            threshold: tau,
+            fallback_share: touched as f64 / n as f64,
+            work_share: work / n as f64,
+            agreement: agree as f64 / n as f64,
+        }
+    };
+    match target {
+        GuardTarget::Agreement(p) => taus
+            .into_iter()
+            .map(eval)
+            .find(|c| wilson_lower_one_sided((c.agreement * n as f64).round() as usize, n) >= p),
+        GuardTarget::Rate(r) => {
+            let mut best = eval(0.0);
+            for &t in &taus[1..] {
+                let c = eval(t);
+                if c.fallback_share > r {
+                    break;
+                }
+                best = c;
+            }
+            Some(best)
+        }
+    }
 }

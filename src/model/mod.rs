@@ -30,6 +30,7 @@ mod exact;
 pub mod guarded;
 mod io;
 pub mod output;
+mod parts;
 mod v1;
 
 pub use crate::format::{TensorFile, FORMAT_VERSION, MANIFEST_KEY, MAX_FILE_BYTES};

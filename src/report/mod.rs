@@ -147,9 +147,13 @@ pub struct Report {
     /// (classifiers; measured with the timings).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub agreement_exact_f32: Option<f64>,
-    /// Guarded models: share of rows answered by each stage (compiled, exact).
+    /// Guarded models: share of rows answered by each stage (compiled, exact, partial:
+    /// the compiled model with some decision values recomputed exactly).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub stage_shares: Option<Vec<f64>>,
+    /// Guarded models: mean share of the exact model's support vectors read per row.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub exact_work_share: Option<f64>,
     /// Guarded models: agreement with the exact model of the rows each stage answered
     /// (none for a stage that answered no row).
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -211,7 +215,7 @@ pub fn build_guarded(
     let lg = label_indices(exact.task(), k, sg.view());
     let mut shares = Vec::new();
     let mut agree = Vec::new();
-    for st in 0..2u8 {
+    for st in 0..crate::model::guarded::STAGES.len() as u8 {
         let rows: Vec<usize> = (0..n).filter(|&i| stage[i] == st).collect();
         shares.push(rows.len() as f64 / n.max(1) as f64);
         agree.push(
@@ -222,6 +226,7 @@ pub fn build_guarded(
     }
     r.stage_shares = Some(shares);
     r.stage_agreement = Some(agree);
+    r.exact_work_share = Some(g.exact_work_share(x));
     r.bytes_compiled = g.compact().parameter_bytes() + exact.parameter_bytes();
     if opts.timing {
         let et = opts
@@ -455,6 +460,7 @@ pub fn build(
         agreement_exact_f32: None,
         f32_max_abs_difference: None,
         stage_shares: None,
+        exact_work_share: None,
         stage_agreement: None,
         warnings: Vec::new(),
         evaluated_on: None,

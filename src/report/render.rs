@@ -83,10 +83,18 @@ pub fn render_text(r: &Report) -> String {
             .flatten()
             .map(|a| format!(", agreement {a:.4} on them"))
             .unwrap_or_default();
+        let part = sh.get(2).copied().unwrap_or(0.0);
+        let part_text = if part > 0.0 {
+            format!("; completed by the exact model {:.1}%", 100.0 * part)
+        } else {
+            String::new()
+        };
+        let work = r
+            .exact_work_share
+            .map(|w| format!("\n      the exact model's work per row: {:.1}% of its support vectors on average", 100.0 * w))
+            .unwrap_or_default();
         s.push_str(&format!(
-            "  answered by                     compiled stage {:.1}% of rows{a0}; exact model {:.1}%
-      the guard sends rows where the compiled model is unsure to the exact model
-",
+            "  answered by                     compiled stage {:.1}% of rows{a0}; exact model {:.1}%{part_text}\n      the guard sends what the compiled model is unsure of to the exact model{work}\n",
             100.0 * sh.first().copied().unwrap_or(0.0),
             100.0 * sh.get(1).copied().unwrap_or(0.0)
         ));
