@@ -426,7 +426,7 @@ mod f32_head_tests {
 
 #[inline(always)]
 fn dot_rows_f32_body(rows: &[f32], x: &[f32], out: &mut [f64]) {
-    const L: usize = 16;
+    const L: usize = 64;
     let d = x.len();
     let head = d - d % L;
     for (o, r) in out.iter_mut().zip(rows.chunks_exact(d)) {
@@ -456,9 +456,11 @@ unsafe fn dot_rows_f32_avx512(rows: &[f32], x: &[f32], out: &mut [f64]) {
     dot_rows_f32_body(rows, x, out)
 }
 
-/// `out[j] = rows[j] · x` for a row-major `out.len() × x.len()` matrix in f32 (sums in f32
-/// lanes, returned as f64), vectorised for the CPU's level: the exact model's single-row
-/// f32 path streams its support vectors through this.
+/// `out[j] = rows[j] · x` for a row-major `out.len() × x.len()` matrix in f32 (sums in 64
+/// f32 lanes, so that several vector accumulators hide the latency of the fused
+/// multiply-adds; returned as f64), vectorised for the CPU's level: the exact model's
+/// single-row f32 path streams its support vectors through this, and the compiled
+/// model's f32 head its transposed columns.
 ///
 /// # Panics
 /// If `rows.len() != out.len() · x.len()`.

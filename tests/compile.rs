@@ -439,3 +439,56 @@ fn compiled_files_are_bit_identical_across_thread_counts() {
         );
     }
 }
+
+/// The f32 head (stored transposed, one f32 dot product per output) gives the f64 head's
+/// decisions up to f32 rounding: within 1e-5 of the sum of |zᵢ·wᵢⱼ| per output.
+#[test]
+fn the_f32_head_matches_the_f64_head_to_f32_rounding() {
+    let exact = demo_exact();
+    let calib = demo_rows("pump_calib.csv");
+    let test = demo_rows("pump_test.csv");
+    let spec = FeatureSpec::new(
+        exact.kernel().clone(),
+        Method::Hadamard,
+        exact.input_dim(),
+        256,
+        4,
+    );
+    let (m, _) = compile_exact(
+        &exact,
+        Some(calib.view()),
+        &spec,
+        HeadKind::Distill,
+        &RidgeGrid::standard(),
+        None,
+        &kernelpress::observe::Silent,
+    )
+    .unwrap();
+    let head = m.head();
+    for i in (0..test.nrows()).step_by(61) {
+        let row = test.row(i).to_vec();
+        let f64s = m.decision_one(&row);
+        let f32s = m.decision_one_f32(&row);
+        let xs = match m.scaling() {
+            Some(s) => s
+                .apply(test.slice(ndarray::s![i..i + 1, ..]))
+                .row(0)
+                .to_vec(),
+            None => row.clone(),
+        };
+        let z = m.program().apply_one(&xs);
+        for j in 0..f64s.len() {
+            let mass: f64 = z
+                .iter()
+                .zip(head.column(j))
+                .map(|(a, b)| (a * b).abs())
+                .sum();
+            assert!(
+                (f32s[j] - f64s[j]).abs() <= 1e-5 * (mass + 1.0),
+                "row {i} output {j}: {} vs {}",
+                f32s[j],
+                f64s[j]
+            );
+        }
+    }
+}

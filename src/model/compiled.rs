@@ -33,7 +33,8 @@ pub struct CompiledModel {
     features: usize,
     program: Program,
     head: Array2<f64>,
-    /// The head in f32 (converted once at construction) for the f32 scoring path.
+    /// The head in f32, transposed (`outputs × features`, row-major; converted once at
+    /// construction) for the f32 scoring path: one dot product per output.
     head32: Vec<f32>,
     intercept: Vec<f64>,
     rule: OutputRule,
@@ -125,7 +126,7 @@ impl CompiledModel {
             )));
         }
         check_scaling(scaling.as_ref(), d)?;
-        let head32 = head.iter().map(|v| *v as f32).collect();
+        let head32 = head.t().iter().map(|v| *v as f32).collect();
         Ok(CompiledModel {
             spec,
             features,
@@ -250,8 +251,8 @@ impl CompiledModel {
     }
 
     /// Decision values for one raw row with the head in f32: the program runs in f64, its
-    /// features are rounded to f32 and go through the f32 head with f32 sums (half the
-    /// head's bytes; the f64 path stays the reference). The report measures this path's
+    /// features are rounded to f32 and each output is one f32 dot product with its column
+    /// of the head (half the head's bytes; the f64 path stays the reference). The report measures this path's
     /// latency and its agreement with the exact model.
     pub fn decision_one_f32(&self, x: &[f64]) -> Vec<f64> {
         let xs = self.scaled_row(x);
@@ -261,12 +262,12 @@ impl CompiledModel {
             .iter()
             .map(|v| *v as f32)
             .collect();
-        let mut out = vec![0f32; self.intercept.len()];
-        linalg::add_weighted_rows_f32(&z, &self.head32, &mut out);
-        out.iter()
+        let mut out = vec![0.0; self.intercept.len()];
+        linalg::dot_rows_f32(&self.head32, &z, &mut out);
+        out.iter_mut()
             .zip(&self.intercept)
-            .map(|(o, b)| *o as f64 + b)
-            .collect()
+            .for_each(|(o, b)| *o += b);
+        out
     }
 
     /// Labels of decision values (empty strings for regression).
