@@ -492,3 +492,44 @@ fn the_f32_head_matches_the_f64_head_to_f32_rounding() {
         }
     }
 }
+
+/// The structured maps run in f32 throughout (scale, pad, tile, signs, Walsh–Hadamard,
+/// gather, cos/sin all have f32 forms): their features agree with the f64 program to f32
+/// rounding of the cosine arguments; maps with a dense projection or a kernel block have
+/// no f32 program and say so.
+#[test]
+fn structured_programs_run_in_f32_to_rounding() {
+    let exact = demo_exact();
+    let test = demo_rows("pump_test.csv");
+    let xs = exact.scale_inputs(test.view());
+    for (method, f32_form) in [
+        (Method::Hadamard, true),
+        (Method::Fastfood, true),
+        (Method::Fourier, false),
+        (Method::Nystrom, false),
+    ] {
+        let spec = FeatureSpec::new(exact.kernel().clone(), method, exact.input_dim(), 512, 9);
+        let (map, _) = spec.sample(Some(xs.view())).unwrap();
+        let p = &map.program;
+        assert_eq!(p.runs_in_f32(), f32_form, "{method:?}");
+        let mut worst: f64 = 0.0;
+        for i in (0..xs.nrows()).step_by(29) {
+            let row = xs.row(i).to_vec();
+            let z64 = p.apply_one(&row);
+            match p.apply_one_f32(&row) {
+                None => assert!(!f32_form),
+                Some(z32) => {
+                    let scale = z64.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+                    for (a, b) in z32.iter().zip(&z64) {
+                        worst = worst.max((*a as f64 - b).abs() / scale);
+                    }
+                }
+            }
+        }
+        eprintln!("{method:?}: worst relative feature difference {worst:e}");
+        assert!(worst < 1e-5, "{method:?}: {worst}");
+        if f32_form {
+            assert!(worst > 0.0, "{method:?}: the f32 path should round somewhere");
+        }
+    }
+}

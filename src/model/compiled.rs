@@ -250,23 +250,25 @@ impl CompiledModel {
         out
     }
 
-    /// Decision values for one raw row with the head in f32: the program runs in f64, its
-    /// features are rounded to f32 and each output is one f32 dot product with its column
-    /// of the head (half the head's bytes; the f64 path stays the reference). The report measures this path's
-    /// latency and its agreement with the exact model.
+    /// Decision values for one raw row in f32: the program runs in f32 when every step has
+    /// an f32 form ([`Program::runs_in_f32`]: the structured maps), otherwise in f64 with
+    /// its features rounded to f32; each output is one f32 dot product with its column of
+    /// the head (half the head's bytes). The f64 path stays the reference; the report
+    /// measures this path's latency and its agreement with the exact model.
     pub fn decision_one_f32(&self, x: &[f64]) -> Vec<f64> {
         let xs = self.scaled_row(x);
-        let z: Vec<f32> = self
-            .program
-            .apply_one(&xs)
-            .iter()
-            .map(|v| *v as f32)
-            .collect();
+        let z: Vec<f32> = match self.program.apply_one_f32(&xs) {
+            Some(z) => z,
+            None => self
+                .program
+                .apply_one(&xs)
+                .iter()
+                .map(|v| *v as f32)
+                .collect(),
+        };
         let mut out = vec![0.0; self.intercept.len()];
         linalg::dot_rows_f32(&self.head32, &z, &mut out);
-        out.iter_mut()
-            .zip(&self.intercept)
-            .for_each(|(o, b)| *o += b);
+        out.iter_mut().zip(&self.intercept).for_each(|(o, b)| *o += b);
         out
     }
 

@@ -94,6 +94,13 @@ macro_rules! step_enum {
             fn apply_many(&self, xs: &[ArrayView2<f64>]) -> Array2<f64> {
                 match self { $(Step::$variant(s) => s.apply_many(xs)),* }
             }
+            /// Whether the step has an f32 single-row form.
+            pub fn has_f32(&self) -> bool {
+                match self { $(Step::$variant(_) => <$ty as Op>::F32),* }
+            }
+            fn apply_row32(&self, v: &mut Vec<f32>, tmp: &mut Vec<f32>) {
+                match self { $(Step::$variant(s) => s.apply_row32(v, tmp)),* }
+            }
             /// Cost per row for the given input and output widths.
             pub fn cost(&self, ins: &[usize], out: usize) -> Cost {
                 match self { $(Step::$variant(s) => s.cost(ins, out)),* }
@@ -379,6 +386,52 @@ impl Program {
     pub fn apply_one(&self, x: &[f64]) -> Vec<f64> {
         let row = ArrayView2::from_shape((1, x.len()), x).expect("one row");
         self.apply_chunk(row).into_raw_vec_and_offset().0
+    }
+
+    /// True when the program is a chain of steps that all have an f32 form (the structured
+    /// maps: scale, pad, tile, signs, Walsh–Hadamard, gather, cos/sin), so that
+    /// [`Self::apply_one_f32`] can run it.
+    pub fn runs_in_f32(&self) -> bool {
+        self.output.0 == self.instrs.len()
+            && self
+                .instrs
+                .iter()
+                .enumerate()
+                .all(|(i, ins)| ins.inputs == [ValueId(i)] && ins.step.has_f32())
+    }
+
+    /// Features of one row computed in f32 throughout, or `None` when the program has a
+    /// step without an f32 form ([`Self::runs_in_f32`]). Agrees with [`Self::apply_one`]
+    /// to f32 rounding.
+    ///
+    /// ```
+    /// use kernelpress::program::{Builder, steps};
+    /// let mut b = Builder::new(2);
+    /// let p = b.push(steps::Pad::new(4).unwrap(), &[Builder::INPUT]).unwrap();
+    /// let h = b.push(steps::Wht::new(4).unwrap(), &[p]).unwrap();
+    /// let z = b.push(steps::CosSin::new(0.5).unwrap(), &[h]).unwrap();
+    /// let prog = b.finish(z);
+    /// let f = prog.apply_one_f32(&[0.3, 0.1]).unwrap();
+    /// for (a, b) in f.iter().zip(prog.apply_one(&[0.3, 0.1])) {
+    ///     assert!((*a as f64 - b).abs() < 1e-6);
+    /// }
+    /// ```
+    #[track_caller]
+    pub fn apply_one_f32(&self, x: &[f64]) -> Option<Vec<f32>> {
+        assert_eq!(
+            x.len(),
+            self.input_dim,
+            "feature program: wrong number of input features"
+        );
+        if !self.runs_in_f32() {
+            return None;
+        }
+        let mut v: Vec<f32> = x.iter().map(|&a| a as f32).collect();
+        let mut tmp = Vec::with_capacity(self.output_dim());
+        for ins in &self.instrs {
+            ins.step.apply_row32(&mut v, &mut tmp);
+        }
+        Some(v)
     }
 
     /// Features of a batch (`n × D`), in parallel over fixed row chunks (deterministic).

@@ -35,6 +35,11 @@ impl Op for ConstScale {
         x.mapv_inplace(|v| v * c);
         x
     }
+    const F32: bool = true;
+    fn apply_row32(&self, v: &mut Vec<f32>, _tmp: &mut Vec<f32>) {
+        let c = self.c as f32;
+        v.iter_mut().for_each(|a| *a *= c);
+    }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {
             flops: out as u64,

@@ -38,6 +38,19 @@ impl Op for CosSin {
             scaled_sin_cos(a, self.c, co, so);
         })
     }
+    const F32: bool = true;
+    fn apply_row32(&self, v: &mut Vec<f32>, tmp: &mut Vec<f32>) {
+        // The vectorised sine/cosine is f64: the arguments are widened, the values rounded
+        // back to f32.
+        let m = v.len();
+        let a: Vec<f64> = v.iter().map(|&x| x as f64).collect();
+        let mut cs = vec![0.0f64; 2 * m];
+        let (co, so) = cs.split_at_mut(m);
+        scaled_sin_cos(&a, self.c, co, so);
+        tmp.clear();
+        tmp.extend(cs.iter().map(|&x| x as f32));
+        std::mem::swap(v, tmp);
+    }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {
             flops: out as u64,

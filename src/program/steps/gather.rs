@@ -49,6 +49,12 @@ impl Op for Gather {
                 .for_each(|(o, i)| *o = a[*i as usize])
         })
     }
+    const F32: bool = true;
+    fn apply_row32(&self, v: &mut Vec<f32>, tmp: &mut Vec<f32>) {
+        tmp.clear();
+        tmp.extend(self.idx.iter().map(|&i| v[i as usize]));
+        std::mem::swap(v, tmp);
+    }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {
             param_bytes: 4 * out as u64,

@@ -41,6 +41,10 @@ impl Op for Pad {
         }
         rows_map(&x, self.to, |a, b| b[..n].copy_from_slice(a))
     }
+    const F32: bool = true;
+    fn apply_row32(&self, v: &mut Vec<f32>, _tmp: &mut Vec<f32>) {
+        v.resize(self.to, 0.0);
+    }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {
             activation_bytes: 8 * (ins[0] + out) as u64,

@@ -32,6 +32,10 @@ impl Op for Scale {
     fn apply(&self, x: Array2<f64>) -> Array2<f64> {
         rows_in_place(x, |r| r.iter_mut().zip(&self.s).for_each(|(v, s)| *v *= s))
     }
+    const F32: bool = true;
+    fn apply_row32(&self, v: &mut Vec<f32>, _tmp: &mut Vec<f32>) {
+        v.iter_mut().zip(&self.s).for_each(|(a, s)| *a *= *s as f32);
+    }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {
             flops: out as u64,

@@ -44,6 +44,13 @@ impl Op for Tile {
             b.chunks_exact_mut(n).for_each(|c| c.copy_from_slice(a))
         })
     }
+    const F32: bool = true;
+    fn apply_row32(&self, v: &mut Vec<f32>, _tmp: &mut Vec<f32>) {
+        let n = v.len();
+        for _ in 1..self.copies {
+            v.extend_from_within(..n);
+        }
+    }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {
             activation_bytes: 8 * (ins[0] + out) as u64,
