@@ -529,7 +529,10 @@ fn structured_programs_run_in_f32_to_rounding() {
         eprintln!("{method:?}: worst relative feature difference {worst:e}");
         assert!(worst < 1e-5, "{method:?}: {worst}");
         if f32_form {
-            assert!(worst > 0.0, "{method:?}: the f32 path should round somewhere");
+            assert!(
+                worst > 0.0,
+                "{method:?}: the f32 path should round somewhere"
+            );
         }
     }
 }

@@ -559,3 +559,74 @@ fn the_budget_search_may_return_a_guarded_model() {
     assert!(err.contains("--max-disagreement"), "{err}");
     assert!(!d.join("x.safetensors").exists());
 }
+
+/// The command line with `--guard-rule pairs`: the file records the rule, `inspect` says
+/// what it does, `score` names completed rows `partial`, and their label columns agree
+/// with the report's stage shares.
+#[test]
+fn command_line_pairs_guard_scores_partial_rows() {
+    let d = tmpdir("guard_pairs_cli");
+    let calib = d.join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 3000);
+    let test = root().join("models/pump_test.csv");
+    let model = root().join("models/pump_svm.safetensors");
+    let out = d.join("g.safetensors");
+    let json = d.join("r.json");
+    ok(&[
+        "compile",
+        s(&model),
+        "--calib",
+        s(&calib),
+        "--eval",
+        s(&test),
+        "--target",
+        "condition",
+        "--method",
+        "hadamard",
+        "--features",
+        "256",
+        "--guard-rate",
+        "0.2",
+        "--guard-rule",
+        "pairs",
+        "--no-timing",
+        "--out",
+        s(&out),
+        "--json",
+        s(&json),
+    ]);
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    let shares: Vec<f64> = r["stage_shares"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_f64().unwrap())
+        .collect();
+    assert!(shares[2] > 0.0, "{shares:?}");
+    let w = r["exact_work_share"].as_f64().unwrap();
+    assert!(
+        w > 0.0 && w < shares[1] + shares[2],
+        "work {w}, shares {shares:?}"
+    );
+    assert!(ok(&["inspect", s(&out)]).contains("class pairs"));
+    let g = ok(&[
+        "score",
+        s(&out),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+    ]);
+    let rows: Vec<&str> = g.lines().skip(1).collect();
+    for (st, want) in ["compiled", "exact", "partial"].iter().zip(&shares) {
+        let n = rows
+            .iter()
+            .filter(|l| l.ends_with(&format!(",{st}")))
+            .count();
+        assert!(
+            (n as f64 / rows.len() as f64 - want).abs() < 1e-12,
+            "{st}: {n} rows vs share {want}"
+        );
+    }
+}

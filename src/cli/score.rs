@@ -11,7 +11,8 @@ use std::path::PathBuf;
 /// first class of the pair, and the pairs come in the order (0,1), (0,2), …, (1,2), …);
 /// `decision_A` is class A's one-vs-rest score (the largest wins); regression outputs are
 /// `decision` or `decision_0 …`. Then `label` for classifiers, and for a guarded model
-/// `stage` (`compiled` or `exact`: which model answered the row); rows in input order. Data
+/// `stage` (`compiled`, `exact`, or `partial` when the exact model recomputed some class
+/// pairs: which model answered the row); rows in input order. Data
 /// columns are matched to the model's by name (extra columns are ignored with a note);
 /// --by-position takes them in file order.
 ///

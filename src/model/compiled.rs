@@ -268,7 +268,9 @@ impl CompiledModel {
         };
         let mut out = vec![0.0; self.intercept.len()];
         linalg::dot_rows_f32(&self.head32, &z, &mut out);
-        out.iter_mut().zip(&self.intercept).for_each(|(o, b)| *o += b);
+        out.iter_mut()
+            .zip(&self.intercept)
+            .for_each(|(o, b)| *o += b);
         out
     }
 

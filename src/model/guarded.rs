@@ -594,9 +594,9 @@ pub fn choose_guard(
     let lc = label_indices(task, k, sc);
     let le = label_indices(task, k, se);
     if rule == GuardRule::Row {
-        let (t, share) = match target {
-            GuardTarget::Agreement(p) => threshold_for_agreement(task, k, sc, se, p)?,
-            GuardTarget::Rate(r) => (threshold_for_rate(task, k, sc, r), r),
+        let t = match target {
+            GuardTarget::Agreement(p) => threshold_for_agreement(task, k, sc, se, p)?.0,
+            GuardTarget::Rate(r) => threshold_for_rate(task, k, sc, r),
         };
         let conf = confidence(task, k, sc);
         let agree = (0..n).filter(|&i| conf[i] < t || lc[i] == le[i]).count();
@@ -604,11 +604,7 @@ pub fn choose_guard(
         return Some(GuardChoice {
             rule,
             threshold: t,
-            fallback_share: if matches!(target, GuardTarget::Rate(_)) {
-                share
-            } else {
-                sent
-            },
+            fallback_share: sent,
             work_share: sent,
             agreement: agree as f64 / n.max(1) as f64,
         });
