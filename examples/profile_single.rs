@@ -26,12 +26,20 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             .take(1000)
             .map(|r| r.to_vec())
             .collect();
+    // The compiled f32 path runs with one scratch for the whole loop (allocation-free).
+    let (mut scratch, mut out) = match &model {
+        AnyModel::Compiled(c) => (vec![0f32; c.scratch_len()], vec![0.0; c.head().ncols()]),
+        _ => (Vec::new(), Vec::new()),
+    };
     let start = Instant::now();
     let mut n = 0usize;
     while start.elapsed().as_secs_f64() < secs {
         for r in &rows {
             match (&model, f32) {
-                (AnyModel::Compiled(c), true) => black_box(c.decision_one_f32(r)),
+                (AnyModel::Compiled(c), true) => {
+                    c.decision_one_f32_with(r, &mut scratch, &mut out);
+                    black_box(out.clone())
+                }
                 (AnyModel::Compiled(c), false) => black_box(c.decision_one(r)),
                 (AnyModel::Exact(e), true) => black_box(e.decision_one_f32(r)),
                 (AnyModel::Exact(e), false) => black_box(e.decision_one(r)),

@@ -536,3 +536,32 @@ fn structured_programs_run_in_f32_to_rounding() {
         }
     }
 }
+
+/// The caller-scratch path gives the allocating path's decisions bit for bit, with one
+/// scratch reused across rows (stale contents from a previous row must not leak in).
+#[test]
+fn the_scratch_path_equals_the_allocating_path() {
+    let exact = demo_exact();
+    let calib = demo_rows("pump_calib.csv");
+    let test = demo_rows("pump_test.csv");
+    for method in [Method::Fastfood, Method::Fourier] {
+        let spec = FeatureSpec::new(exact.kernel().clone(), method, exact.input_dim(), 128, 2);
+        let (m, _) = compile_exact(
+            &exact,
+            Some(calib.view()),
+            &spec,
+            HeadKind::Distill,
+            &RidgeGrid::standard(),
+            None,
+            &kernelpress::observe::Silent,
+        )
+        .unwrap();
+        let mut scratch = vec![f32::NAN; m.scratch_len()];
+        let mut out = vec![0.0; m.head().ncols()];
+        for i in 0..50 {
+            let row = test.row(i).to_vec();
+            m.decision_one_f32_with(&row, &mut scratch, &mut out);
+            assert_eq!(out, m.decision_one_f32(&row), "{method:?} row {i}");
+        }
+    }
+}

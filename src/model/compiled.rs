@@ -256,22 +256,83 @@ impl CompiledModel {
     /// the head (half the head's bytes). The f64 path stays the reference; the report
     /// measures this path's latency and its agreement with the exact model.
     pub fn decision_one_f32(&self, x: &[f64]) -> Vec<f64> {
-        let xs = self.scaled_row(x);
-        let z: Vec<f32> = match self.program.apply_one_f32(&xs) {
-            Some(z) => z,
-            None => self
-                .program
-                .apply_one(&xs)
-                .iter()
-                .map(|v| *v as f32)
-                .collect(),
-        };
+        let mut scratch = vec![0f32; self.scratch_len()];
         let mut out = vec![0.0; self.intercept.len()];
-        linalg::dot_rows_f32(&self.head32, &z, &mut out);
+        self.decision_one_f32_with(x, &mut scratch, &mut out);
+        out
+    }
+
+    /// Scratch (f32 values) for [`Self::decision_one_f32_with`].
+    pub fn scratch_len(&self) -> usize {
+        self.program.f32_scratch_len()
+    }
+
+    /// [`Self::decision_one_f32`] into `out` (one value per output) with the caller's
+    /// scratch: allocates nothing when the program runs in f32 ([`Program::runs_in_f32`]),
+    /// so a serving loop can keep one scratch per thread.
+    ///
+    /// # Panics
+    /// If `x` does not have the model's width, `scratch` is shorter than
+    /// [`Self::scratch_len`], or `out` does not have one value per output.
+    ///
+    /// ```
+    /// # use kernelpress::features::{FeatureSpec, Method};
+    /// # use kernelpress::fit::{compile_exact, HeadKind, RidgeGrid};
+    /// # use kernelpress::model::{ExactModel, Task};
+    /// # use ndarray::Array2;
+    /// # let sv = Array2::from_shape_fn((30, 2), |(i, j)| ((i * 2 + j) as f64 * 0.7).sin());
+    /// # let coef = Array2::from_shape_fn((30, 1), |(i, _)| if i % 2 == 0 { 1.0 } else { -1.0 });
+    /// # let exact = ExactModel::new("gaussian(gamma=1)".parse().unwrap(), sv, coef, vec![0.0],
+    /// #     Task::Binary, vec!["a".into(), "b".into()], None).unwrap();
+    /// # let x = Array2::from_shape_fn((300, 2), |(i, j)| ((i * 2 + j) as f64 * 0.31).cos());
+    /// let spec = FeatureSpec::new(exact.kernel().clone(), Method::Hadamard, 2, 64, 1);
+    /// let (m, _) = compile_exact(&exact, Some(x.view()), &spec, HeadKind::Distill,
+    ///     &RidgeGrid::standard(), None, &kernelpress::observe::Silent).unwrap();
+    /// let mut scratch = vec![0f32; m.scratch_len()];
+    /// let mut out = vec![0.0; 1];
+    /// for row in x.rows() {
+    ///     m.decision_one_f32_with(row.as_slice().unwrap(), &mut scratch, &mut out);
+    ///     assert!((out[0] - m.decision_one(row.as_slice().unwrap())[0]).abs() < 1e-4);
+    /// }
+    /// ```
+    #[track_caller]
+    pub fn decision_one_f32_with(&self, x: &[f64], scratch: &mut [f32], out: &mut [f64]) {
+        let d = self.program.input_dim();
+        assert_eq!(x.len(), d, "decision: wrong number of features");
+        assert_eq!(
+            out.len(),
+            self.intercept.len(),
+            "decision: one value per output"
+        );
+        assert!(
+            scratch.len() >= self.scratch_len(),
+            "decision: scratch of {} values, needs {}",
+            scratch.len(),
+            self.scratch_len()
+        );
+        match &self.scaling {
+            Some(s) => {
+                for (j, (o, v)) in scratch.iter_mut().zip(x).enumerate() {
+                    *o = ((v - s.mean[j]) / s.scale[j]) as f32;
+                }
+            }
+            None => scratch.iter_mut().zip(x).for_each(|(o, v)| *o = *v as f32),
+        }
+        match self.program.apply_one_f32_with(scratch) {
+            Some(z) => linalg::dot_rows_f32(&self.head32, z, out),
+            None => {
+                let z: Vec<f32> = self
+                    .program
+                    .apply_one(&self.scaled_row(x))
+                    .iter()
+                    .map(|v| *v as f32)
+                    .collect();
+                linalg::dot_rows_f32(&self.head32, &z, out);
+            }
+        }
         out.iter_mut()
             .zip(&self.intercept)
             .for_each(|(o, b)| *o += b);
-        out
     }
 
     /// Labels of decision values (empty strings for regression).

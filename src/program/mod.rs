@@ -98,8 +98,8 @@ macro_rules! step_enum {
             pub fn has_f32(&self) -> bool {
                 match self { $(Step::$variant(_) => <$ty as Op>::F32),* }
             }
-            fn apply_row32(&self, v: &mut Vec<f32>, tmp: &mut Vec<f32>) {
-                match self { $(Step::$variant(s) => s.apply_row32(v, tmp)),* }
+            fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+                match self { $(Step::$variant(s) => s.apply_row32(x, y)),* }
             }
             /// Cost per row for the given input and output widths.
             pub fn cost(&self, ins: &[usize], out: usize) -> Cost {
@@ -400,6 +400,12 @@ impl Program {
                 .all(|(i, ins)| ins.inputs == [ValueId(i)] && ins.step.has_f32())
     }
 
+    /// Scratch (f32 values) that [`Self::apply_one_f32_with`] needs: two buffers of the
+    /// widest value.
+    pub fn f32_scratch_len(&self) -> usize {
+        2 * self.dims.iter().copied().max().unwrap_or(0)
+    }
+
     /// Features of one row computed in f32 throughout, or `None` when the program has a
     /// step without an f32 form ([`Self::runs_in_f32`]). Agrees with [`Self::apply_one`]
     /// to f32 rounding.
@@ -415,6 +421,10 @@ impl Program {
     /// for (a, b) in f.iter().zip(prog.apply_one(&[0.3, 0.1])) {
     ///     assert!((*a as f64 - b).abs() < 1e-6);
     /// }
+    /// // The same without allocating: the caller's scratch.
+    /// let mut scratch = vec![0f32; prog.f32_scratch_len()];
+    /// scratch[..2].copy_from_slice(&[0.3, 0.1]);
+    /// assert_eq!(prog.apply_one_f32_with(&mut scratch).unwrap(), &f[..]);
     /// ```
     #[track_caller]
     pub fn apply_one_f32(&self, x: &[f64]) -> Option<Vec<f32>> {
@@ -423,15 +433,38 @@ impl Program {
             self.input_dim,
             "feature program: wrong number of input features"
         );
+        let mut scratch = vec![0f32; self.f32_scratch_len()];
+        for (s, v) in scratch.iter_mut().zip(x) {
+            *s = *v as f32;
+        }
+        self.apply_one_f32_with(&mut scratch).map(|z| z.to_vec())
+    }
+
+    /// [`Self::apply_one_f32`] in the caller's scratch, allocating nothing: the input row
+    /// (f32) is read from `scratch[..input_dim]`, and the features are returned as a slice
+    /// of `scratch`. `None` when the program has a step without an f32 form.
+    ///
+    /// # Panics
+    /// If `scratch` is shorter than [`Self::f32_scratch_len`].
+    #[track_caller]
+    pub fn apply_one_f32_with<'a>(&self, scratch: &'a mut [f32]) -> Option<&'a [f32]> {
+        let half = self.f32_scratch_len() / 2;
+        assert!(
+            scratch.len() >= 2 * half,
+            "feature program: scratch of {} values, needs {}",
+            scratch.len(),
+            2 * half
+        );
         if !self.runs_in_f32() {
             return None;
         }
-        let mut v: Vec<f32> = x.iter().map(|&a| a as f32).collect();
-        let mut tmp = Vec::with_capacity(self.output_dim());
-        for ins in &self.instrs {
-            ins.step.apply_row32(&mut v, &mut tmp);
+        let (mut a, mut b) = scratch[..2 * half].split_at_mut(half);
+        for (i, ins) in self.instrs.iter().enumerate() {
+            let (din, dout) = (self.dims[i], self.dims[i + 1]);
+            ins.step.apply_row32(&a[..din], &mut b[..dout]);
+            std::mem::swap(&mut a, &mut b);
         }
-        Some(v)
+        Some(&a[..self.dims[self.instrs.len()]])
     }
 
     /// Features of a batch (`n × D`), in parallel over fixed row chunks (deterministic).

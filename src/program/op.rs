@@ -74,10 +74,10 @@ pub(crate) trait Op: Sized {
     /// Whether the step has an f32 single-row form ([`Op::apply_row32`]).
     const F32: bool = false;
 
-    /// One row in f32 (steps with [`Op::F32`]): the row in `v` becomes the step's output,
-    /// in place or through `tmp` (swapped into `v`). Arithmetic in f32; parameters stored
-    /// in f64 are rounded to f32 as they are read.
-    fn apply_row32(&self, _v: &mut Vec<f32>, _tmp: &mut Vec<f32>) {
+    /// One row in f32 (steps with [`Op::F32`]): reads `x` (the input width), writes all of
+    /// `y` (the output width), allocating nothing. Arithmetic in f32; parameters stored in
+    /// f64 are rounded to f32 as they are read.
+    fn apply_row32(&self, _x: &[f32], _y: &mut [f32]) {
         unreachable!("{} has no f32 form", Self::NAME)
     }
 

@@ -36,9 +36,9 @@ impl Op for ConstScale {
         x
     }
     const F32: bool = true;
-    fn apply_row32(&self, v: &mut Vec<f32>, _tmp: &mut Vec<f32>) {
+    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         let c = self.c as f32;
-        v.iter_mut().for_each(|a| *a *= c);
+        y.iter_mut().zip(x).for_each(|(o, a)| *o = a * c);
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {

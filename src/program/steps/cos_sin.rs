@@ -39,17 +39,24 @@ impl Op for CosSin {
         })
     }
     const F32: bool = true;
-    fn apply_row32(&self, v: &mut Vec<f32>, tmp: &mut Vec<f32>) {
-        // The vectorised sine/cosine is f64: the arguments are widened, the values rounded
-        // back to f32.
-        let m = v.len();
-        let a: Vec<f64> = v.iter().map(|&x| x as f64).collect();
-        let mut cs = vec![0.0f64; 2 * m];
-        let (co, so) = cs.split_at_mut(m);
-        scaled_sin_cos(&a, self.c, co, so);
-        tmp.clear();
-        tmp.extend(cs.iter().map(|&x| x as f32));
-        std::mem::swap(v, tmp);
+    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+        // The vectorised sine/cosine is f64: arguments are widened and values rounded back
+        // to f32, 64 at a time on the stack.
+        const B: usize = 64;
+        let m = x.len();
+        let (co32, so32) = y.split_at_mut(m);
+        let (mut a, mut co, mut so) = ([0.0f64; B], [0.0f64; B], [0.0f64; B]);
+        for (start, xs) in (0..m).step_by(B).zip(x.chunks(B)) {
+            let l = xs.len();
+            for (t, v) in a.iter_mut().zip(xs) {
+                *t = *v as f64;
+            }
+            scaled_sin_cos(&a[..l], self.c, &mut co[..l], &mut so[..l]);
+            for t in 0..l {
+                co32[start + t] = co[t] as f32;
+                so32[start + t] = so[t] as f32;
+            }
+        }
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -50,10 +50,10 @@ impl Op for Gather {
         })
     }
     const F32: bool = true;
-    fn apply_row32(&self, v: &mut Vec<f32>, tmp: &mut Vec<f32>) {
-        tmp.clear();
-        tmp.extend(self.idx.iter().map(|&i| v[i as usize]));
-        std::mem::swap(v, tmp);
+    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+        y.iter_mut()
+            .zip(&self.idx)
+            .for_each(|(o, i)| *o = x[*i as usize]);
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -42,8 +42,10 @@ impl Op for Pad {
         rows_map(&x, self.to, |a, b| b[..n].copy_from_slice(a))
     }
     const F32: bool = true;
-    fn apply_row32(&self, v: &mut Vec<f32>, _tmp: &mut Vec<f32>) {
-        v.resize(self.to, 0.0);
+    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+        let n = x.len();
+        y[..n].copy_from_slice(x);
+        y[n..].iter_mut().for_each(|o| *o = 0.0);
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -33,8 +33,10 @@ impl Op for Scale {
         rows_in_place(x, |r| r.iter_mut().zip(&self.s).for_each(|(v, s)| *v *= s))
     }
     const F32: bool = true;
-    fn apply_row32(&self, v: &mut Vec<f32>, _tmp: &mut Vec<f32>) {
-        v.iter_mut().zip(&self.s).for_each(|(a, s)| *a *= *s as f32);
+    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+        for ((o, a), s) in y.iter_mut().zip(x).zip(&self.s) {
+            *o = a * *s as f32;
+        }
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -45,8 +45,9 @@ impl Op for Wht {
         rows_in_place(x, |r| r.chunks_exact_mut(b).for_each(wht_in_place))
     }
     const F32: bool = true;
-    fn apply_row32(&self, v: &mut Vec<f32>, _tmp: &mut Vec<f32>) {
-        v.chunks_exact_mut(self.block).for_each(wht_in_place);
+    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+        y.copy_from_slice(x);
+        y.chunks_exact_mut(self.block).for_each(wht_in_place);
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {
