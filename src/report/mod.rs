@@ -254,6 +254,12 @@ pub fn build_guarded(
             latency_us_compiled_mean: Some(c1.mean_us),
             speedup_mean: Some(e_mean.mean_us / c1.mean_us),
         };
+        let sp = e_mean.mean_us / c1.mean_us;
+        if sp < 1.0 {
+            r.warnings.push(format!(
+                "speed: the guarded model is slower on average than the exact model ({sp:.2}× its mean speed): the exact model takes part in too many rows; use a more faithful compiled model or a lower target, or keep the exact model"
+            ));
+        }
     }
     Ok(r)
 }
