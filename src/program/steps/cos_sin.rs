@@ -1,7 +1,7 @@
 //! `cos_sin`: the paired Fourier output `y = c·[cos x, sin x]` (width doubles).
 
 use crate::program::op::{check_finite, rows_map, Cost, Op, Reader, Writer};
-use crate::transform::trig::scaled_sin_cos;
+use crate::transform::trig::{scaled_sin_cos, scaled_sin_cos_f32};
 use crate::Result;
 use ndarray::Array2;
 
@@ -40,23 +40,8 @@ impl Op for CosSin {
     }
     const F32: bool = true;
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
-        // The vectorised sine/cosine is f64: arguments are widened and values rounded back
-        // to f32, 64 at a time on the stack.
-        const B: usize = 64;
-        let m = x.len();
-        let (co32, so32) = y.split_at_mut(m);
-        let (mut a, mut co, mut so) = ([0.0f64; B], [0.0f64; B], [0.0f64; B]);
-        for (start, xs) in (0..m).step_by(B).zip(x.chunks(B)) {
-            let l = xs.len();
-            for (t, v) in a.iter_mut().zip(xs) {
-                *t = *v as f64;
-            }
-            scaled_sin_cos(&a[..l], self.c, &mut co[..l], &mut so[..l]);
-            for t in 0..l {
-                co32[start + t] = co[t] as f32;
-                so32[start + t] = so[t] as f32;
-            }
-        }
+        let (co, so) = y.split_at_mut(x.len());
+        scaled_sin_cos_f32(x, self.c as f32, co, so);
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {
