@@ -312,8 +312,8 @@ impl CompiledModel {
         );
         match &self.scaling {
             Some(s) => {
-                for (j, (o, v)) in scratch.iter_mut().zip(x).enumerate() {
-                    *o = ((v - s.mean[j]) / s.scale[j]) as f32;
+                for (((o, v), m), sc) in scratch.iter_mut().zip(x).zip(&s.mean).zip(&s.scale) {
+                    *o = ((v - m) / sc) as f32;
                 }
             }
             None => scratch.iter_mut().zip(x).for_each(|(o, v)| *o = *v as f32),

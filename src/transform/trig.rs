@@ -208,7 +208,8 @@ pub fn scaled_sin_cos_f32_at(
         "this CPU cannot run the {} path",
         level.name()
     );
-    if p.iter().any(|x| !(x.abs() <= F_LIMIT)) {
+    // Without early exit, so the check vectorises (NaN fails it).
+    if !p.iter().fold(true, |ok, x| ok & (x.abs() <= F_LIMIT)) {
         for ((x, c), s) in p.iter().zip(cos_out.iter_mut()).zip(sin_out.iter_mut()) {
             let (sv, cv) = sin_cos(*x as f64);
             *c = (f as f64 * cv) as f32;
