@@ -41,67 +41,6 @@ pub fn add_weighted_rows(z: &[f64], w: &[f64], out: &mut [f64]) {
     }
 }
 
-#[inline(always)]
-fn weighted_rows_f32_body(z: &[f32], w: &[f32], out: &mut [f32]) {
-    let k = out.len();
-    for (zi, row) in z.iter().zip(w.chunks_exact(k)) {
-        for (o, wv) in out.iter_mut().zip(row) {
-            *o += zi * wv;
-        }
-    }
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
-unsafe fn weighted_rows_f32_avx2(z: &[f32], w: &[f32], out: &mut [f32]) {
-    weighted_rows_f32_body(z, w, out)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx512f,avx2,fma")]
-unsafe fn weighted_rows_f32_avx512(z: &[f32], w: &[f32], out: &mut [f32]) {
-    weighted_rows_f32_body(z, w, out)
-}
-
-/// [`add_weighted_rows`] in f32, vectorised for the CPU's level (the sums may differ in the
-/// last bits between levels: fused multiply-adds round once).
-///
-/// # Panics
-/// If `w.len() != z.len() · out.len()`.
-#[track_caller]
-pub fn add_weighted_rows_f32(z: &[f32], w: &[f32], out: &mut [f32]) {
-    add_weighted_rows_f32_at(crate::simd::level(), z, w, out)
-}
-
-/// [`add_weighted_rows_f32`] with the instruction-set level forced (tests run every level).
-///
-/// # Panics
-/// If the shapes differ or this CPU cannot run `level`.
-#[track_caller]
-pub fn add_weighted_rows_f32_at(level: crate::simd::Level, z: &[f32], w: &[f32], out: &mut [f32]) {
-    assert_eq!(
-        w.len(),
-        z.len() * out.len(),
-        "add_weighted_rows_f32: shapes differ"
-    );
-    assert!(
-        level <= crate::simd::detected(),
-        "this CPU cannot run the {} path",
-        level.name()
-    );
-    if out.is_empty() {
-        return;
-    }
-    match level {
-        // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
-        #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx512 => unsafe { weighted_rows_f32_avx512(z, w, out) },
-        #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx2 => unsafe { weighted_rows_f32_avx2(z, w, out) },
-        _ => weighted_rows_f32_body(z, w, out),
-    }
-}
-
 /// `a · bᵀ`, sequential, for one chunk. Panics if the inner dimensions differ.
 #[track_caller]
 pub fn abt_seq(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
@@ -334,7 +273,7 @@ mod tests {
                 .collect();
             for level in crate::simd::available() {
                 let mut got = vec![f64::NAN; n];
-                dot_rows_f32_at(level, &rows, &x, &mut got);
+                dot_rows_at(level, &rows, &x, &mut got);
                 for j in 0..n {
                     assert!(
                         (got[j] - want[j]).abs() <= 1e-6 * mass[j] + 1e-30,
@@ -392,154 +331,73 @@ mod tests {
     }
 }
 
-#[cfg(test)]
-mod f32_head_tests {
-    use super::*;
+/// An element type of the row products: f32 (the f32 scoring paths) or f64.
+pub trait RowFloat:
+    Copy + Default + std::ops::Mul<Output = Self> + std::ops::AddAssign + std::iter::Sum + Into<f64>
+{
+    /// Partial sums per row: four 512-bit registers' worth, so that several vector
+    /// accumulators hide the latency of the fused multiply-adds.
+    const LANES: usize;
+}
 
-    /// Every level this CPU runs against the f64 sums of the same numbers (an independent
-    /// reference): f32 rounding only.
-    #[test]
-    fn every_level_matches_the_f64_sums() {
-        let (d, k) = (1031, 45);
-        let z: Vec<f32> = (0..d).map(|i| ((i * 7) as f32 * 0.013).sin()).collect();
-        let w: Vec<f32> = (0..d * k)
-            .map(|i| ((i * 3) as f32 * 0.0071).cos() * 0.1)
-            .collect();
-        let z64: Vec<f64> = z.iter().map(|v| *v as f64).collect();
-        let w64: Vec<f64> = w.iter().map(|v| *v as f64).collect();
-        let mut want = vec![0.0f64; k];
-        add_weighted_rows(&z64, &w64, &mut want);
-        let mass: f64 = z64.iter().map(|v| v.abs()).sum::<f64>() * 0.1;
-        for level in crate::simd::available() {
-            let mut got = vec![0.0f32; k];
-            add_weighted_rows_f32_at(level, &z, &w, &mut got);
-            for (c, (a, b)) in got.iter().zip(&want).enumerate() {
-                assert!(
-                    (*a as f64 - b).abs() <= 1e-5 * mass,
-                    "{} output {c}: {a} vs {b}",
-                    level.name()
-                );
-            }
-        }
-    }
+impl RowFloat for f32 {
+    const LANES: usize = 64;
+}
+
+impl RowFloat for f64 {
+    const LANES: usize = 32;
 }
 
 #[inline(always)]
-fn dot_rows_f32_body(rows: &[f32], x: &[f32], out: &mut [f64]) {
-    const L: usize = 64;
+fn dot_rows_body<T: RowFloat, const L: usize>(rows: &[T], x: &[T], out: &mut [f64]) {
     let d = x.len();
     let head = d - d % L;
     for (o, r) in out.iter_mut().zip(rows.chunks_exact(d)) {
-        let mut acc = [0.0f32; L];
+        let mut acc = [T::default(); L];
         for (a, b) in r[..head].chunks_exact(L).zip(x[..head].chunks_exact(L)) {
             for l in 0..L {
                 acc[l] += a[l] * b[l];
             }
         }
-        let mut t = 0.0f32;
+        let mut t = T::default();
         for (a, b) in r[head..].iter().zip(&x[head..]) {
-            t += a * b;
+            t += *a * *b;
         }
-        *o = acc.iter().sum::<f32>() as f64 + t as f64;
+        let s: T = acc.iter().copied().sum();
+        *o = s.into() + t.into();
     }
 }
 
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
-unsafe fn dot_rows_f32_avx2(rows: &[f32], x: &[f32], out: &mut [f64]) {
-    dot_rows_f32_body(rows, x, out)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx512f,avx2,fma")]
-unsafe fn dot_rows_f32_avx512(rows: &[f32], x: &[f32], out: &mut [f64]) {
-    dot_rows_f32_body(rows, x, out)
-}
-
-/// `out[j] = rows[j] · x` for a row-major `out.len() × x.len()` matrix in f32 (sums in 64
-/// f32 lanes, so that several vector accumulators hide the latency of the fused
-/// multiply-adds; returned as f64), vectorised for the CPU's level: the exact model's
-/// single-row f32 path streams its support vectors through this, and the compiled
-/// model's f32 head its transposed columns.
-///
-/// # Panics
-/// If `rows.len() != out.len() · x.len()`.
-#[track_caller]
-pub fn dot_rows_f32(rows: &[f32], x: &[f32], out: &mut [f64]) {
-    dot_rows_f32_at(crate::simd::level(), rows, x, out)
-}
-
-/// [`dot_rows_f32`] with the instruction-set level forced (tests run every level).
-///
-/// # Panics
-/// If the shapes differ or this CPU cannot run `level`.
-#[track_caller]
-pub fn dot_rows_f32_at(level: crate::simd::Level, rows: &[f32], x: &[f32], out: &mut [f64]) {
-    assert_eq!(
-        rows.len(),
-        x.len() * out.len(),
-        "dot_rows_f32: shapes differ"
-    );
-    assert!(
-        level <= crate::simd::detected(),
-        "this CPU cannot run the {} path",
-        level.name()
-    );
-    if x.is_empty() {
-        out.iter_mut().for_each(|o| *o = 0.0);
-        return;
-    }
-    match level {
-        // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
-        #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx512 => unsafe { dot_rows_f32_avx512(rows, x, out) },
-        #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx2 => unsafe { dot_rows_f32_avx2(rows, x, out) },
-        _ => dot_rows_f32_body(rows, x, out),
-    }
-}
-
+/// The body at `T`'s lane count (a `const` generic needs the number itself).
 #[inline(always)]
-fn dot_rows_f64_body(rows: &[f64], x: &[f64], out: &mut [f64]) {
-    const L: usize = 32;
-    let d = x.len();
-    let head = d - d % L;
-    for (o, r) in out.iter_mut().zip(rows.chunks_exact(d)) {
-        let mut acc = [0.0f64; L];
-        for (a, b) in r[..head].chunks_exact(L).zip(x[..head].chunks_exact(L)) {
-            for l in 0..L {
-                acc[l] += a[l] * b[l];
-            }
-        }
-        let mut t = 0.0f64;
-        for (a, b) in r[head..].iter().zip(&x[head..]) {
-            t += a * b;
-        }
-        *o = acc.iter().sum::<f64>() + t;
+fn dot_rows_lanes<T: RowFloat>(rows: &[T], x: &[T], out: &mut [f64]) {
+    match T::LANES {
+        64 => dot_rows_body::<T, 64>(rows, x, out),
+        _ => dot_rows_body::<T, 32>(rows, x, out),
     }
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
-unsafe fn dot_rows_f64_avx2(rows: &[f64], x: &[f64], out: &mut [f64]) {
-    dot_rows_f64_body(rows, x, out)
+unsafe fn dot_rows_avx2<T: RowFloat>(rows: &[T], x: &[T], out: &mut [f64]) {
+    dot_rows_lanes(rows, x, out)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx512f,avx2,fma")]
-unsafe fn dot_rows_f64_avx512(rows: &[f64], x: &[f64], out: &mut [f64]) {
-    dot_rows_f64_body(rows, x, out)
+unsafe fn dot_rows_avx512<T: RowFloat>(rows: &[T], x: &[T], out: &mut [f64]) {
+    dot_rows_lanes(rows, x, out)
 }
 
-/// `out[j] = rows[j] · x` for a row-major `out.len() × x.len()` matrix, vectorised for the
-/// CPU's level (32 partial sums per row, so that several vector accumulators hide the
-/// latency of the fused multiply-adds): one input row against a set of support
-/// vectors.
+/// `out[j] = rows[j] · x` for a row-major `out.len() × x.len()` matrix of f32 or f64
+/// (sums in [`RowFloat::LANES`] partial sums of the element type, returned as f64),
+/// vectorised for the CPU's level: the exact model's single-row paths stream their support
+/// vectors through this, and the compiled model's f32 head its transposed columns.
 ///
 /// # Panics
 /// If `rows.len() != out.len() · x.len()`.
 #[track_caller]
-pub fn dot_rows(rows: &[f64], x: &[f64], out: &mut [f64]) {
+pub fn dot_rows<T: RowFloat>(rows: &[T], x: &[T], out: &mut [f64]) {
     dot_rows_at(crate::simd::level(), rows, x, out)
 }
 
@@ -548,7 +406,7 @@ pub fn dot_rows(rows: &[f64], x: &[f64], out: &mut [f64]) {
 /// # Panics
 /// If the shapes differ or this CPU cannot run `level`.
 #[track_caller]
-pub fn dot_rows_at(level: crate::simd::Level, rows: &[f64], x: &[f64], out: &mut [f64]) {
+pub fn dot_rows_at<T: RowFloat>(level: crate::simd::Level, rows: &[T], x: &[T], out: &mut [f64]) {
     assert_eq!(rows.len(), x.len() * out.len(), "dot_rows: shapes differ");
     assert!(
         level <= crate::simd::detected(),
@@ -562,10 +420,10 @@ pub fn dot_rows_at(level: crate::simd::Level, rows: &[f64], x: &[f64], out: &mut
     match level {
         // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
         #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx512 => unsafe { dot_rows_f64_avx512(rows, x, out) },
+        crate::simd::Level::Avx512 => unsafe { dot_rows_avx512(rows, x, out) },
         #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx2 => unsafe { dot_rows_f64_avx2(rows, x, out) },
-        _ => dot_rows_f64_body(rows, x, out),
+        crate::simd::Level::Avx2 => unsafe { dot_rows_avx2(rows, x, out) },
+        _ => dot_rows_lanes(rows, x, out),
     }
 }
 

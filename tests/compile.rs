@@ -440,21 +440,18 @@ fn compiled_files_are_bit_identical_across_thread_counts() {
     }
 }
 
-/// The f32 head (stored transposed, one f32 dot product per output) gives the f64 head's
-/// decisions up to f32 rounding: within 1e-5 of the sum of |zᵢ·wᵢⱼ| per output.
-#[test]
-fn the_f32_head_matches_the_f64_head_to_f32_rounding() {
+/// The demo model distilled on its calibration rows with the standard ridge grid.
+fn demo_compiled(method: Method, features: usize, seed: u64) -> kernelpress::model::CompiledModel {
     let exact = demo_exact();
     let calib = demo_rows("pump_calib.csv");
-    let test = demo_rows("pump_test.csv");
     let spec = FeatureSpec::new(
         exact.kernel().clone(),
-        Method::Hadamard,
+        method,
         exact.input_dim(),
-        256,
-        4,
+        features,
+        seed,
     );
-    let (m, _) = compile_exact(
+    compile_exact(
         &exact,
         Some(calib.view()),
         &spec,
@@ -463,7 +460,16 @@ fn the_f32_head_matches_the_f64_head_to_f32_rounding() {
         None,
         &kernelpress::observe::Silent,
     )
-    .unwrap();
+    .unwrap()
+    .0
+}
+
+/// The f32 head (stored transposed, one f32 dot product per output) gives the f64 head's
+/// decisions up to f32 rounding: within 1e-5 of the sum of |zᵢ·wᵢⱼ| per output.
+#[test]
+fn the_f32_head_matches_the_f64_head_to_f32_rounding() {
+    let test = demo_rows("pump_test.csv");
+    let m = demo_compiled(Method::Hadamard, 256, 4);
     let head = m.head();
     for i in (0..test.nrows()).step_by(61) {
         let row = test.row(i).to_vec();
@@ -541,21 +547,9 @@ fn structured_programs_run_in_f32_to_rounding() {
 /// scratch reused across rows (stale contents from a previous row must not leak in).
 #[test]
 fn the_scratch_path_equals_the_allocating_path() {
-    let exact = demo_exact();
-    let calib = demo_rows("pump_calib.csv");
     let test = demo_rows("pump_test.csv");
     for method in [Method::Fastfood, Method::Fourier] {
-        let spec = FeatureSpec::new(exact.kernel().clone(), method, exact.input_dim(), 128, 2);
-        let (m, _) = compile_exact(
-            &exact,
-            Some(calib.view()),
-            &spec,
-            HeadKind::Distill,
-            &RidgeGrid::standard(),
-            None,
-            &kernelpress::observe::Silent,
-        )
-        .unwrap();
+        let m = demo_compiled(method, 128, 2);
         let mut scratch = vec![f32::NAN; m.scratch_len()];
         let mut out = vec![0.0; m.head().ncols()];
         for i in 0..50 {

@@ -24,6 +24,18 @@ fn demo() -> (ExactModel, Array2<f64>, Array2<f64>) {
     )
 }
 
+/// Compiled and exact decisions on the calibration audit rows (every tenth row, where
+/// thresholds are chosen).
+fn audit_decisions(
+    exact: &ExactModel,
+    c: &CompiledModel,
+    calib: &Array2<f64>,
+) -> (Array2<f64>, Array2<f64>) {
+    let idx: Vec<usize> = (0..calib.nrows()).filter(|&i| audit_row(i)).collect();
+    let xa = calib.select(Axis(0), &idx);
+    (c.decision(xa.view()), exact.decision(xa.view()))
+}
+
 /// A deliberately weak compiled model (64 random Fourier features), so the guard has work.
 fn weak(exact: &ExactModel, calib: &Array2<f64>) -> CompiledModel {
     let t = Teacher::new(exact, calib.view(), &Silent).unwrap();
@@ -74,10 +86,7 @@ fn a_threshold_for_an_agreement_target_meets_it_on_fresh_rows() {
     let (exact, calib, test) = demo();
     let c = weak(&exact, &calib);
     let k = exact.labels().len();
-    let idx: Vec<usize> = (0..calib.nrows()).filter(|&i| audit_row(i)).collect();
-    let xa = calib.select(Axis(0), &idx);
-    let sc = c.decision(xa.view());
-    let se = exact.decision(xa.view());
+    let (sc, se) = audit_decisions(&exact, &c, &calib);
     let base = {
         let a = label_indices(exact.task(), k, sc.view());
         let b = label_indices(exact.task(), k, se.view());
@@ -453,10 +462,7 @@ fn a_pairs_guard_for_a_target_meets_it_on_fresh_rows_and_auto_takes_the_cheaper_
     let (exact, calib, test) = demo();
     let c = weak(&exact, &calib);
     let k = exact.labels().len();
-    let idx: Vec<usize> = (0..calib.nrows()).filter(|&i| audit_row(i)).collect();
-    let xa = calib.select(Axis(0), &idx);
-    let sc = c.decision(xa.view());
-    let se = exact.decision(xa.view());
+    let (sc, se) = audit_decisions(&exact, &c, &calib);
     let le = label_indices(exact.task(), k, exact.decision(test.view()).view());
     for target in [0.98, 0.995] {
         let t = GuardTarget::Agreement(target);

@@ -323,7 +323,7 @@ fn row32(k: &Kernel, x: &[f64], b: &Node32, out: &mut [f64]) {
             let s = k.inverse_scale(d).expect("shift-invariant");
             let xs: Vec<f32> = x.iter().zip(&s).map(|(v, f)| (v * f) as f32).collect();
             let qa: f64 = xs.iter().map(|&v| v as f64 * v as f64).sum();
-            linalg::dot_rows_f32(scaled, &xs, out);
+            linalg::dot_rows(scaled, &xs, out);
             if matches!(k, Kernel::Gaussian { .. }) {
                 crate::transform::expo::gaussian_row(out, qa, sq, 0.5);
                 return;
@@ -344,7 +344,7 @@ fn row32(k: &Kernel, x: &[f64], b: &Node32, out: &mut [f64]) {
         (k, Node32::Dot { data, norms }) => {
             let xs: Vec<f32> = x.iter().map(|&v| v as f32).collect();
             let na = x.iter().map(|v| v * v).sum::<f64>().sqrt();
-            linalg::dot_rows_f32(data, &xs, out);
+            linalg::dot_rows(data, &xs, out);
             for (v, nb) in out.iter_mut().zip(norms) {
                 *v = k.dot_profile(*v, na, *nb).unwrap();
             }
@@ -452,12 +452,13 @@ fn dots(a: &Array2<f64>, x: &[f64], idx: &[usize], out: &mut [f64]) {
 }
 
 impl Kernel {
-    /// One kernel row `k(x, b_j)` for all rows of `b`, into `out` (`b.rows()` values):
-    /// the single-row path (vectorised dot products, no matrix-product set-up). Agrees
-    /// with [`Kernel::gram_prepared`] to rounding.
+    /// Kernel values `k(x, b_i)` for the rows `idx` of `b` only (ascending indices), into
+    /// `out` (`idx.len()` values): reads only those rows, consecutive ones through the
+    /// vectorised row products in one call. Agrees with [`Kernel::gram_prepared`] to
+    /// rounding.
     ///
     /// # Panics
-    /// If `out` does not have `b.rows()` values.
+    /// If `out` and `idx` differ in length, or an index is out of range or out of order.
     ///
     /// ```
     /// use kernelpress::kernel::{Kernel, Prepared};
@@ -465,26 +466,12 @@ impl Kernel {
     /// let k: Kernel = "gaussian(gamma=1)".parse().unwrap();
     /// let sv = array![[0.0, 0.0], [1.0, 0.0], [0.0, 2.0]];
     /// let p = Prepared::new(&k, sv.view());
-    /// let mut row = [0.0; 3];
-    /// k.row(&[0.0, 0.0], &p, &mut row);
-    /// assert!((row[1] - (-1.0f64).exp()).abs() < 1e-15);
-    /// // Only some rows: the first and the third.
+    /// let g = k.gram_prepared(array![[0.0, 0.0]].view(), &p);
+    /// // Only the first and the third.
     /// let mut some = [0.0; 2];
     /// k.row_some(&[0.0, 0.0], &p, &[0, 2], &mut some);
-    /// assert_eq!(some, [row[0], row[2]]);
+    /// assert!((some[0] - g[[0, 0]]).abs() < 1e-15 && (some[1] - g[[0, 2]]).abs() < 1e-15);
     /// ```
-    #[track_caller]
-    pub fn row(&self, x: &[f64], b: &Prepared, out: &mut [f64]) {
-        assert_eq!(out.len(), b.rows, "row: output length");
-        let idx: Vec<usize> = (0..b.rows).collect();
-        row64(self, x, &b.node, &idx, out)
-    }
-
-    /// Kernel values `k(x, b_i)` for the rows `idx` of `b` only (ascending indices), into
-    /// `out` (`idx.len()` values): reads only those rows.
-    ///
-    /// # Panics
-    /// If `out` and `idx` differ in length, or an index is out of range or out of order.
     #[track_caller]
     pub fn row_some(&self, x: &[f64], b: &Prepared, idx: &[usize], out: &mut [f64]) {
         assert_eq!(out.len(), idx.len(), "row_some: output length");

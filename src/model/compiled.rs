@@ -319,7 +319,7 @@ impl CompiledModel {
             None => scratch.iter_mut().zip(x).for_each(|(o, v)| *o = *v as f32),
         }
         match self.program.apply_one_f32_with(scratch) {
-            Some(z) => linalg::dot_rows_f32(&self.head32, z, out),
+            Some(z) => linalg::dot_rows(&self.head32, z, out),
             None => {
                 let z: Vec<f32> = self
                     .program
@@ -327,7 +327,7 @@ impl CompiledModel {
                     .iter()
                     .map(|v| *v as f32)
                     .collect();
-                linalg::dot_rows_f32(&self.head32, &z, out);
+                linalg::dot_rows(&self.head32, &z, out);
             }
         }
         out.iter_mut()
