@@ -73,6 +73,51 @@ pub fn ab_seq(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
     out
 }
 
+/// `out = a · bᵀ` in f32, sequential, for row-major slices: `a` is `m × k`, `b` is
+/// `n × k`, `out` is `m × n` (the f32 batch paths: one product per chunk).
+///
+/// # Panics
+/// If the lengths do not fit the shapes.
+#[track_caller]
+pub fn abt_f32(a: &[f32], b: &[f32], k: usize, out: &mut [f32]) {
+    let (m, n) = (a.len() / k.max(1), b.len() / k.max(1));
+    assert!(
+        a.len() == m * k && b.len() == n * k && out.len() == m * n,
+        "abt_f32: shapes differ"
+    );
+    if k == 0 || m == 0 || n == 0 {
+        out.iter_mut().for_each(|o| *o = 0.0);
+        return;
+    }
+    let fa = MatRef::from_row_major_slice(a, m, k);
+    let fb = MatRef::from_row_major_slice(b, n, k);
+    let dst = faer::MatMut::from_row_major_slice_mut(out, m, n);
+    matmul(dst, Accum::Replace, fa, fb.transpose(), 1.0f32, Par::Seq);
+}
+
+/// `out = a · b` in f32, sequential, for row-major slices: `a` is `m × k`, `b` is `k × n`,
+/// `out` is `m × n`.
+///
+/// # Panics
+/// If the lengths do not fit the shapes.
+#[track_caller]
+pub fn ab_f32(a: &[f32], b: &[f32], k: usize, out: &mut [f32]) {
+    let m = a.len() / k.max(1);
+    let n = b.len() / k.max(1);
+    assert!(
+        a.len() == m * k && b.len() == k * n && out.len() == m * n,
+        "ab_f32: shapes differ"
+    );
+    if k == 0 || m == 0 || n == 0 {
+        out.iter_mut().for_each(|o| *o = 0.0);
+        return;
+    }
+    let fa = MatRef::from_row_major_slice(a, m, k);
+    let fb = MatRef::from_row_major_slice(b, k, n);
+    let dst = faer::MatMut::from_row_major_slice_mut(out, m, n);
+    matmul(dst, Accum::Replace, fa, fb, 1.0f32, Par::Seq);
+}
+
 /// Applies `f` to fixed-size row chunks of `a` in parallel and stacks the results
 /// (each `chunk_rows × k`) in row order.
 pub fn map_row_chunks<F>(a: ArrayView2<f64>, k: usize, f: F) -> Array2<f64>
@@ -298,6 +343,30 @@ mod tests {
         assert!((&want - &got2).iter().all(|v| v.abs() < 1e-12));
         let g = ata(a.view());
         assert!((&g - &a.t().dot(&a)).iter().all(|v| v.abs() < 1e-9));
+    }
+
+    /// The f32 products against a plain triple loop in f64 (ndarray's definition of the
+    /// product), to f32 rounding of the sums' mass.
+    #[test]
+    fn f32_products_match_the_definition() {
+        let (m, k, n) = (37, 129, 11);
+        let a: Vec<f32> = (0..m * k).map(|i| (i as f32 * 0.37).sin()).collect();
+        let b: Vec<f32> = (0..n * k).map(|i| (i as f32 * 0.11).cos()).collect();
+        let mut got = vec![0f32; m * n];
+        abt_f32(&a, &b, k, &mut got);
+        let bt: Vec<f32> = (0..k * n).map(|t| b[(t % n) * k + t / n]).collect();
+        let mut got2 = vec![0f32; m * n];
+        ab_f32(&a, &bt, k, &mut got2);
+        for i in 0..m {
+            for j in 0..n {
+                let want: f64 = (0..k)
+                    .map(|t| a[i * k + t] as f64 * b[j * k + t] as f64)
+                    .sum();
+                let tol = 1e-6 * k as f64;
+                assert!((got[i * n + j] as f64 - want).abs() < tol, "abt ({i}, {j})");
+                assert!((got2[i * n + j] as f64 - want).abs() < tol, "ab ({i}, {j})");
+            }
+        }
     }
 
     #[test]

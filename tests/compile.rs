@@ -125,6 +125,11 @@ fn compile_report_score_agree_and_match_numpy() {
             "speedup_batch",
             "latency_us_compiled_f32_p50",
             "agreement_f32",
+            "throughput_rows_per_s_exact_f32",
+            "throughput_rows_per_s_compiled_f32",
+            "speedup_batch_f32",
+            "agreement_f32_batch",
+            "agreement_exact_f32_batch",
         ] {
             let v = r[key].as_f64();
             assert!(
@@ -539,6 +544,78 @@ fn structured_programs_run_in_f32_to_rounding() {
                 worst > 0.0,
                 "{method:?}: the f32 path should round somewhere"
             );
+        }
+    }
+}
+
+/// The f32 batches (features per row from the f32 program, one f32 product with the head
+/// per block of rows) give the f64 path's decisions up to f32 rounding, for a map with an
+/// f32 program (Fastfood), one without (Fourier: its f64 features rounded), and a strided
+/// view of the inputs (rows that are not contiguous slices).
+#[test]
+fn f32_batches_match_the_f64_path_to_f32_rounding() {
+    let test = demo_rows("pump_test.csv");
+    for method in [Method::Fastfood, Method::Fourier] {
+        let m = demo_compiled(method, 256, 4);
+        let want = m.decision(test.view());
+        let head = m.head();
+        let xs = m.scaling().unwrap().apply(test.view());
+        let z = m.program().apply(xs.view());
+        // 1e-5 of the sum of |zᵢ·wᵢⱼ| per output, as for the single-row f32 head.
+        let mass = z.mapv(f64::abs).dot(&head.mapv(f64::abs));
+        let check = |got: &Array2<f64>, what: &str| {
+            for ((g, w), ms) in got.iter().zip(want.iter()).zip(mass.iter()) {
+                assert!(
+                    (g - w).abs() <= 1e-5 * (ms + 1.0),
+                    "{method:?} {what}: {g} vs {w}"
+                );
+            }
+        };
+        let got = m.decision_f32(test.view());
+        check(&got, "contiguous");
+        assert!(
+            got != want,
+            "{method:?}: the f32 batch should round somewhere"
+        );
+        // The same rows through a column-major copy: every row is a strided view.
+        let strided = test.t().as_standard_layout().into_owned();
+        let got_t = m.decision_f32(strided.t());
+        assert_eq!(got_t, got, "{method:?}: strided rows");
+    }
+}
+
+/// The f32 program's steps and its input map are compiled once per instruction-set level;
+/// every level this CPU runs gives features within f32 rounding of the f64 program on the
+/// standardised row (a wrong vectorised copy fails here).
+#[test]
+fn f32_programs_at_every_level_match_the_f64_program() {
+    use kernelpress::program::InputMap;
+    let test = demo_rows("pump_test.csv");
+    for method in [Method::Fastfood, Method::Hadamard] {
+        let m = demo_compiled(method, 256, 4);
+        let sc = m.scaling().unwrap();
+        let inv: Vec<f64> = sc.scale.iter().map(|v| 1.0 / v).collect();
+        let xs = sc.apply(test.view());
+        let p = m.program();
+        let mut scratch = vec![f32::NAN; m.scratch_len()];
+        for level in kernelpress::simd::available() {
+            let mut worst: f64 = 0.0;
+            for i in (0..test.nrows()).step_by(37) {
+                let z64 = p.apply_one(&xs.row(i).to_vec());
+                let map = InputMap {
+                    shift: &sc.mean,
+                    factor: &inv,
+                };
+                let row = test.row(i).to_vec();
+                let z32 = p
+                    .apply_row_f32_at(level, &row, Some(map), &mut scratch)
+                    .unwrap();
+                let scale = z64.iter().fold(0.0f64, |a, v| a.max(v.abs()));
+                for (a, b) in z32.iter().zip(&z64) {
+                    worst = worst.max((*a as f64 - b).abs() / scale);
+                }
+            }
+            assert!(worst < 1e-5, "{method:?} at {}: {worst:e}", level.name());
         }
     }
 }

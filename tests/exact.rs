@@ -352,7 +352,8 @@ fn import_from_arrays_scores_like_the_formula() {
 }
 
 /// The exact model's single-row f32 path (support vectors in f32, profiles in f64) against
-/// the expansion computed in numpy in f64, for every kind of Gram block: Euclidean
+/// the expansion computed in numpy in f64, and so do its f32 batches (products, profiles
+/// and coefficient sums in f32), for every kind of Gram block: Euclidean
 /// (Gaussian, Matérn), L1 (Laplacian), dot product (polynomial), and sums, products and
 /// scaling of them.
 #[test]
@@ -434,6 +435,16 @@ np.savetxt(sys.stdout, s, fmt="%.17g")
         assert!(
             worst <= 1e-5 * scale.max(1.0),
             "{kernel}: f32 path vs numpy {worst:e} (scale {scale:.3})"
+        );
+        // The f32 batches: products, profiles and the coefficient sums all in f32.
+        let batch = m.decision_f32(x.view());
+        let mut worst_b = 0.0f64;
+        for ((i, j), g) in batch.indexed_iter() {
+            worst_b = worst_b.max((g - (want[i][j] + m.intercept()[j])).abs());
+        }
+        assert!(
+            worst_b <= 1e-5 * scale.max(1.0),
+            "{kernel}: f32 batch vs numpy {worst_b:e} (scale {scale:.3})"
         );
     }
 }

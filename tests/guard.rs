@@ -221,6 +221,41 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
     }
     let share = exact_rows as f64 / (gl.len() - 1) as f64;
     assert!((share - shares[1].as_f64().unwrap()).abs() < 1e-12);
+    // score --f32: the exact model's single-precision batches stay near its f64 decisions
+    // (1e-4 of the scale on this model, where the coefficient sums cancel); a guarded model refuses (its threshold was set on f64 decisions).
+    let e32 = ok(&[
+        "score",
+        s(&model),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+        "--f32",
+    ]);
+    let e32l: Vec<&str> = e32.lines().collect();
+    assert_eq!(e32l[0], el[0]);
+    let mut same_label = 0;
+    for (a, b) in e32l[1..].iter().zip(&el[1..]) {
+        let (ca, cb): (Vec<&str>, Vec<&str>) = (a.split(',').collect(), b.split(',').collect());
+        let k = ca.len() - 1;
+        for (u, v) in ca[..k].iter().zip(&cb[..k]) {
+            let (u, v): (f64, f64) = (u.parse().unwrap(), v.parse().unwrap());
+            assert!((u - v).abs() <= 1e-3 * v.abs().max(1.0), "{a} vs {b}");
+        }
+        same_label += usize::from(ca[k] == cb[k]);
+    }
+    assert!(same_label as f64 >= 0.99 * (el.len() - 1) as f64);
+    assert_ne!(e32, e, "f32 decisions round somewhere");
+    let err = bad(&[
+        "score",
+        s(&out),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+        "--f32",
+    ]);
+    assert!(err.contains("f64 only"), "{err}");
     // The file round-trips, and reading it as any model gives the guarded kind.
     let (m, _) = AnyModel::load(&out).unwrap();
     assert!(matches!(m, AnyModel::Guarded(_)));

@@ -14,7 +14,7 @@ use std::path::PathBuf;
 /// `stage` (`compiled`, `exact`, or `partial` when the exact model recomputed some class
 /// pairs: which model answered the row); rows in input order. Data
 /// columns are matched to the model's by name (extra columns are ignored with a note);
-/// --by-position takes them in file order.
+/// --by-position takes them in file order. --f32 computes in single precision.
 ///
 /// Example:
 ///   kernelpress score models/pump_svm.safetensors --data models/pump_test.csv --target condition
@@ -35,6 +35,11 @@ pub(crate) struct Args {
     /// Write the CSV here instead of stdout.
     #[arg(long)]
     out: Option<PathBuf>,
+    /// Compute in single precision (exact and compiled models): faster in batches;
+    /// decisions move by f32 rounding, and `report` measures what that does to the labels
+    /// (`agreement_f32_batch`, `agreement_exact_f32_batch`).
+    #[arg(long)]
+    f32: bool,
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
@@ -48,7 +53,17 @@ pub(crate) fn run(a: Args) -> Result<()> {
         model.feature_names(),
         a.by_position,
     )?;
-    let (s, stages) = model.decision_with_stage(t.x.view());
+    let (s, stages) = if a.f32 {
+        let s = model.decision_f32(t.x.view()).ok_or_else(|| {
+            kernelpress::Error::input(format!(
+                "{}: a guarded model scores in f64 only (its threshold was calibrated on f64 decisions); leave out --f32",
+                a.model.display()
+            ))
+        })?;
+        (s, None)
+    } else {
+        model.decision_with_stage(t.x.view())
+    };
     if let Some(i) = s.iter().position(|v| !v.is_finite()) {
         return Err(kernelpress::Error::numerical(format!(
             "{}: row {}: the decision value is not finite (overflow); the model's kernel is too extreme for this row",

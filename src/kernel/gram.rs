@@ -23,6 +23,7 @@ use ndarray::{Array2, ArrayView2, Axis, Zip};
 #[derive(Debug, Clone)]
 pub struct Prepared {
     rows: usize,
+    cols: usize,
     node: Node,
 }
 
@@ -74,6 +75,7 @@ impl Prepared {
     pub fn new(k: &Kernel, a: ArrayView2<f64>) -> Prepared {
         Prepared {
             rows: a.nrows(),
+            cols: a.ncols(),
             node: build(k, a),
         }
     }
@@ -217,15 +219,18 @@ impl Kernel {
 #[derive(Debug, Clone)]
 pub struct Prepared32 {
     rows: usize,
+    cols: usize,
     node: Node32,
 }
 
 #[derive(Debug, Clone)]
 enum Node32 {
-    /// Scaled rows (row-major) and the squared norms of their f32 values.
+    /// Scaled rows (row-major) and the squared norms of their f32 values (in f64 for
+    /// the single-row path, rounded to f32 for the batches).
     Euclid {
         scaled: Vec<f32>,
         sq: Vec<f64>,
+        sq32: Vec<f32>,
     },
     L1 {
         scaled: Vec<f32>,
@@ -253,7 +258,12 @@ fn build32(n: &Node) -> Node32 {
         Node::Euclid { scaled, .. } => {
             let v = to32(scaled);
             let sq = sq_norms32(&v, scaled.ncols());
-            Node32::Euclid { scaled: v, sq }
+            let sq32 = sq.iter().map(|&q| q as f32).collect();
+            Node32::Euclid {
+                scaled: v,
+                sq,
+                sq32,
+            }
         }
         Node::L1 { scaled } => Node32::L1 {
             scaled: to32(scaled),
@@ -272,6 +282,7 @@ impl Prepared32 {
     pub fn new(p: &Prepared) -> Prepared32 {
         Prepared32 {
             rows: p.rows,
+            cols: p.cols,
             node: build32(&p.node),
         }
     }
@@ -285,7 +296,7 @@ impl Prepared32 {
     pub fn bytes(&self) -> usize {
         fn b(n: &Node32) -> usize {
             match n {
-                Node32::Euclid { scaled, sq } => 4 * scaled.len() + 8 * sq.len(),
+                Node32::Euclid { scaled, sq, .. } => 4 * scaled.len() + 8 * sq.len(),
                 Node32::L1 { scaled } => 4 * scaled.len(),
                 Node32::Dot { data, norms } => 4 * data.len() + 8 * norms.len(),
                 Node32::Many(v) => v.iter().map(b).sum(),
@@ -319,7 +330,7 @@ fn row32(k: &Kernel, x: &[f64], b: &Node32, out: &mut [f64]) {
             row32(inner, x, nb, out);
             out.iter_mut().for_each(|v| *v *= c);
         }
-        (k, Node32::Euclid { scaled, sq }) => {
+        (k, Node32::Euclid { scaled, sq, .. }) => {
             let s = k.inverse_scale(d).expect("shift-invariant");
             let xs: Vec<f32> = x.iter().zip(&s).map(|(v, f)| (v * f) as f32).collect();
             let qa: f64 = xs.iter().map(|&v| v as f64 * v as f64).sum();
@@ -363,6 +374,133 @@ impl Kernel {
     pub fn row_f32(&self, x: &[f64], b: &Prepared32, out: &mut [f64]) {
         assert_eq!(out.len(), b.rows, "row_f32: output length");
         row32(self, x, &b.node, out)
+    }
+}
+
+/// `K(a, b)` in f32 (row-major, `a.rows × b.rows`) for two f32 sides: one f32 matrix
+/// product, then the Gaussian profile through the vectorised f32 exponential; other
+/// profiles per entry in f64.
+fn block32(k: &Kernel, a: &Node32, b: &Node32, m: usize, n: usize) -> Vec<f32> {
+    match (k, a, b) {
+        (Kernel::Sum(ks), Node32::Many(na), Node32::Many(nb)) => {
+            let mut acc = block32(&ks[0], &na[0], &nb[0], m, n);
+            for i in 1..ks.len() {
+                let t = block32(&ks[i], &na[i], &nb[i], m, n);
+                acc.iter_mut().zip(&t).for_each(|(o, v)| *o += v);
+            }
+            acc
+        }
+        (Kernel::Product(ks), Node32::Many(na), Node32::Many(nb)) => {
+            let mut acc = block32(&ks[0], &na[0], &nb[0], m, n);
+            for i in 1..ks.len() {
+                let t = block32(&ks[i], &na[i], &nb[i], m, n);
+                acc.iter_mut().zip(&t).for_each(|(o, v)| *o *= v);
+            }
+            acc
+        }
+        (Kernel::Scaled(c, inner), Node32::One(na), Node32::One(nb)) => {
+            let mut g = block32(inner, na, nb, m, n);
+            let c = *c as f32;
+            g.iter_mut().for_each(|v| *v *= c);
+            g
+        }
+        (
+            k,
+            Node32::Euclid {
+                scaled: sa, sq: qa, ..
+            },
+            Node32::Euclid {
+                scaled: sb,
+                sq: qb,
+                sq32,
+            },
+        ) => {
+            let d = sa.len() / m.max(1);
+            let mut g = vec![0f32; m * n];
+            linalg::abt_f32(sa, sb, d, &mut g);
+            if n == 0 {
+                return g;
+            }
+            for (i, row) in g.chunks_exact_mut(n).enumerate() {
+                if matches!(k, Kernel::Gaussian { .. }) {
+                    crate::transform::expo::gaussian_row_f32(row, qa[i] as f32, sq32, 0.5);
+                    continue;
+                }
+                for (v, q) in row.iter_mut().zip(qb) {
+                    let r2 = (qa[i] + q - 2.0 * *v as f64).max(0.0);
+                    *v = k.euclidean_profile(r2).unwrap() as f32;
+                }
+            }
+            g
+        }
+        (_, Node32::L1 { scaled: sa }, Node32::L1 { scaled: sb }) => {
+            let d = sa.len() / m.max(1);
+            let mut g = vec![0f32; m * n];
+            for (i, grow) in g.chunks_exact_mut(n.max(1)).enumerate().take(m) {
+                let arow = &sa[i * d..(i + 1) * d];
+                for (v, brow) in grow.iter_mut().zip(sb.chunks_exact(d.max(1))) {
+                    let l1: f32 = arow.iter().zip(brow).map(|(x, y)| (x - y).abs()).sum();
+                    *v = (-(l1 as f64)).exp() as f32;
+                }
+            }
+            g
+        }
+        (
+            k,
+            Node32::Dot {
+                data: da,
+                norms: na,
+            },
+            Node32::Dot {
+                data: db,
+                norms: nb,
+            },
+        ) => {
+            let d = da.len() / m.max(1);
+            let mut g = vec![0f32; m * n];
+            linalg::abt_f32(da, db, d, &mut g);
+            if n == 0 {
+                return g;
+            }
+            for (i, row) in g.chunks_exact_mut(n).enumerate() {
+                for (v, nbj) in row.iter_mut().zip(nb) {
+                    *v = k.dot_profile(*v as f64, na[i], *nbj).unwrap() as f32;
+                }
+            }
+            g
+        }
+        _ => unreachable!("Prepared32 built for a different kernel"),
+    }
+}
+
+impl Kernel {
+    /// `K(a, b)` in f32 for a block of (scaled) rows `a` against an f32 set `b`,
+    /// sequentially (for callers that are already parallel): row-major, `a.nrows() ×
+    /// b.rows()`. Products in f32; the Gaussian profile in f32 through a vectorised
+    /// exponential, other profiles in f64 per entry. Agrees with [`Kernel::gram_block`] to
+    /// f32 rounding (relative to the norms the products cancel).
+    ///
+    /// # Panics
+    /// If `a` does not have the width of `b`'s rows.
+    ///
+    /// ```
+    /// use kernelpress::kernel::{Kernel, Prepared, Prepared32};
+    /// use ndarray::array;
+    /// let k: Kernel = "gaussian(gamma=1)".parse().unwrap();
+    /// let sv = array![[0.0, 0.0], [1.0, 0.0]];
+    /// let p32 = Prepared32::new(&Prepared::new(&k, sv.view()));
+    /// let g = k.gram_block_f32(array![[0.0, 0.0], [1.0, 0.0]].view(), &p32);
+    /// assert!((g[1] - (-1.0f32).exp()).abs() < 1e-6 && (g[3] - 1.0).abs() < 1e-6);
+    /// ```
+    #[track_caller]
+    pub fn gram_block_f32(&self, a: ArrayView2<f64>, b: &Prepared32) -> Vec<f32> {
+        assert_eq!(
+            a.ncols(),
+            b.cols,
+            "gram_block_f32: inputs of different widths"
+        );
+        let pa = Prepared32::new(&Prepared::new(self, a));
+        block32(self, &pa.node, &b.node, a.nrows(), b.rows)
     }
 }
 

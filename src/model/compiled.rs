@@ -8,9 +8,9 @@ use crate::data::Standardizer;
 use crate::features::{FeatureMap, FeatureSpec};
 use crate::format::{TensorFile, FORMAT_VERSION};
 use crate::linalg;
-use crate::program::Program;
+use crate::program::{InputMap, Program};
 use crate::{Error, Result};
-use ndarray::{Array2, ArrayView2};
+use ndarray::{Array2, ArrayView2, Axis};
 use serde_json::{json, Value};
 use std::path::Path;
 
@@ -36,6 +36,8 @@ pub struct CompiledModel {
     /// The head in f32, transposed (`outputs × features`, row-major; converted once at
     /// construction) for the f32 scoring path: one dot product per output.
     head32: Vec<f32>,
+    /// The reciprocals of the scaling's scales (the f32 paths multiply).
+    inv_scale: Vec<f64>,
     intercept: Vec<f64>,
     rule: OutputRule,
     scaling: Option<Standardizer>,
@@ -127,12 +129,17 @@ impl CompiledModel {
         }
         check_scaling(scaling.as_ref(), d)?;
         let head32 = head.t().iter().map(|v| *v as f32).collect();
+        let inv_scale = scaling
+            .as_ref()
+            .map(|s| s.scale.iter().map(|v| 1.0 / v).collect())
+            .unwrap_or_default();
         Ok(CompiledModel {
             spec,
             features,
             program,
             head,
             head32,
+            inv_scale,
             intercept,
             rule,
             scaling,
@@ -310,15 +317,10 @@ impl CompiledModel {
             scratch.len(),
             self.scratch_len()
         );
-        match &self.scaling {
-            Some(s) => {
-                for (((o, v), m), sc) in scratch.iter_mut().zip(x).zip(&s.mean).zip(&s.scale) {
-                    *o = ((v - m) / sc) as f32;
-                }
-            }
-            None => scratch.iter_mut().zip(x).for_each(|(o, v)| *o = *v as f32),
-        }
-        match self.program.apply_one_f32_with(scratch) {
+        match self
+            .program
+            .apply_row_f32_at(crate::simd::level(), x, self.input_map(), scratch)
+        {
             Some(z) => linalg::dot_rows(&self.head32, z, out),
             None => {
                 let z: Vec<f32> = self
@@ -333,6 +335,94 @@ impl CompiledModel {
         out.iter_mut()
             .zip(&self.intercept)
             .for_each(|(o, b)| *o += b);
+    }
+
+    /// The standardisation as the f32 program's input map.
+    fn input_map(&self) -> Option<InputMap<'_>> {
+        self.scaling.as_ref().map(|s| InputMap {
+            shift: &s.mean,
+            factor: &self.inv_scale,
+        })
+    }
+
+    /// Decision values for raw inputs, batched in f32: per fixed row chunk (chunks in
+    /// parallel) each row's features come from the f32 program with one scratch for the
+    /// chunk (the f64 program rounded to f32 for maps without an f32 form), then one f32
+    /// matrix product with the f32 head; intercepts in f64. Agrees with
+    /// [`Self::decision_one_f32`] to the f32 rounding of the head's sums (a different
+    /// summation order); the f64 [`Self::decision`] stays the reference.
+    ///
+    /// # Panics
+    /// If `x` does not have [`Self::input_dim`] columns.
+    #[track_caller]
+    pub fn decision_f32(&self, x: ArrayView2<f64>) -> Array2<f64> {
+        assert_eq!(
+            x.ncols(),
+            self.input_dim(),
+            "decision: wrong number of features"
+        );
+        let (dz, k) = (self.program.output_dim(), self.n_outputs());
+        // Rows per head product: their features (32 × 4,096 f32 = 512 KB at D = 4,096)
+        // stay in the core's cache between the program and the product.
+        const BLOCK: usize = 128;
+        linalg::map_row_chunks(x, k, |c| {
+            let m = c.nrows();
+            let mut out = Array2::<f64>::zeros((m, k));
+            let rows = BLOCK.min(m);
+            let (mut z, mut s) = (vec![0f32; rows * dz], vec![0f32; rows * k]);
+            let level = crate::simd::level();
+            let mut scratch = vec![0f32; self.scratch_len()];
+            let mut row = vec![0.0; c.ncols()];
+            for (b, xb) in c.axis_chunks_iter(Axis(0), BLOCK).enumerate() {
+                let mb = xb.nrows();
+                let zb = &mut z[..mb * dz];
+                if self.program.runs_in_f32() {
+                    for (i, (r, zr)) in xb
+                        .rows()
+                        .into_iter()
+                        .zip(zb.chunks_exact_mut(dz))
+                        .enumerate()
+                    {
+                        if i + 1 < mb {
+                            if let Some(next) = xb.row(i + 1).as_slice() {
+                                prefetch(next);
+                            }
+                        }
+                        let xr = match r.as_slice() {
+                            Some(sl) => sl,
+                            None => {
+                                row.iter_mut().zip(r).for_each(|(o, v)| *o = *v);
+                                &row
+                            }
+                        };
+                        self.program.apply_row_f32_into_at(
+                            level,
+                            xr,
+                            self.input_map(),
+                            &mut scratch,
+                            zr,
+                        );
+                    }
+                } else {
+                    let xs = match &self.scaling {
+                        Some(sc) => sc.apply(xb),
+                        None => xb.to_owned(),
+                    };
+                    let zz = self.program.apply_chunk(xs.view());
+                    zb.iter_mut()
+                        .zip(zz.iter())
+                        .for_each(|(o, v)| *o = *v as f32);
+                }
+                let sb = &mut s[..mb * k];
+                linalg::abt_f32(zb, &self.head32, dz, sb);
+                for (i, srow) in sb.chunks_exact(k).enumerate() {
+                    for (j, v) in srow.iter().enumerate() {
+                        out[[b * BLOCK + i, j]] = *v as f64 + self.intercept[j];
+                    }
+                }
+            }
+            out
+        })
     }
 
     /// Labels of decision values (empty strings for regression).
@@ -495,5 +585,18 @@ impl CompiledModel {
     pub fn load(path: &Path) -> Result<CompiledModel> {
         let f = TensorFile::read(path)?;
         Self::from_file(&f, &path.display().to_string())
+    }
+}
+
+/// Asks the CPU to start loading a slice into its caches (a row read next while this one
+/// is being transformed).
+#[inline(always)]
+fn prefetch(v: &[f64]) {
+    #[cfg(target_arch = "x86_64")]
+    for c in v.chunks(8) {
+        // SAFETY: prefetching is a hint; the address is inside a live slice.
+        unsafe {
+            std::arch::x86_64::_mm_prefetch(c.as_ptr() as *const i8, std::arch::x86_64::_MM_HINT_T0)
+        };
     }
 }

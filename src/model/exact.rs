@@ -27,6 +27,7 @@ pub struct ExactModel {
     pub training: serde_json::Value,
     prepared: OnceLock<Prepared>,
     prepared32: OnceLock<crate::kernel::Prepared32>,
+    coef32: OnceLock<Vec<f32>>,
     parts: OnceLock<super::parts::Parts>,
 }
 
@@ -83,6 +84,7 @@ impl ExactModel {
             training: json!({}),
             prepared: OnceLock::new(),
             prepared32: OnceLock::new(),
+            coef32: OnceLock::new(),
             parts: OnceLock::new(),
         })
     }
@@ -173,6 +175,55 @@ impl ExactModel {
         })
     }
 
+    fn prepared32(&self) -> &crate::kernel::Prepared32 {
+        self.prepared32
+            .get_or_init(|| crate::kernel::Prepared32::new(self.prepared()))
+    }
+
+    /// Decision values (`n × n_outputs`) for raw inputs, batched in f32: fixed row chunks
+    /// in parallel, each one f32 matrix product with the support vectors (converted to f32
+    /// on first use), the kernel profile in f32 (a vectorised exponential for the
+    /// Gaussian), and one f32 product with the coefficients; intercepts added in f64. What
+    /// a batch server in single precision runs: the report measures its throughput and its
+    /// agreement with the f64 path ([`Self::decision`]), which stays the reference.
+    ///
+    /// # Panics
+    /// If `x` does not have [`Self::input_dim`] columns.
+    ///
+    /// ```
+    /// # use kernelpress::model::{ExactModel, Task};
+    /// # use ndarray::{array, Array2};
+    /// let sv = array![[0.0, 0.0], [1.0, 1.0]];
+    /// let m = ExactModel::new("gaussian(gamma=0.5)".parse().unwrap(), sv,
+    ///     array![[1.0], [-1.0]], vec![0.1], Task::Binary, vec!["a".into(), "b".into()],
+    ///     None).unwrap();
+    /// let x = Array2::from_shape_fn((5, 2), |(i, j)| (i + j) as f64 * 0.3);
+    /// let (d64, d32) = (m.decision(x.view()), m.decision_f32(x.view()));
+    /// assert!((&d64 - &d32).iter().all(|v| v.abs() < 1e-5));
+    /// ```
+    #[track_caller]
+    pub fn decision_f32(&self, x: ArrayView2<f64>) -> Array2<f64> {
+        assert_eq!(
+            x.ncols(),
+            self.input_dim(),
+            "decision: wrong number of features"
+        );
+        let xs = self.scale_inputs(x);
+        let p32 = self.prepared32();
+        let coef32 = self
+            .coef32
+            .get_or_init(|| self.coef.iter().map(|&v| v as f32).collect());
+        let (n_sv, k) = self.coef.dim();
+        linalg::map_row_chunks(xs.view(), k, |chunk| {
+            let g = self.kernel.gram_block_f32(chunk, p32);
+            let mut s = vec![0f32; chunk.nrows() * k];
+            linalg::ab_f32(&g, coef32, n_sv, &mut s);
+            Array2::from_shape_fn((chunk.nrows(), k), |(i, j)| {
+                s[i * k + j] as f64 + self.intercept[j]
+            })
+        })
+    }
+
     /// Decision values for one row, without any parallel machinery (single-row latency).
     pub fn decision_one(&self, x: &[f64]) -> Vec<f64> {
         let row = ndarray::ArrayView2::from_shape((1, x.len()), x).expect("one row");
@@ -191,9 +242,7 @@ impl ExactModel {
     /// profiles, coefficient sums and intercepts in f64. Decisions differ from the f64
     /// path by about the f32 rounding of the products (the report measures the agreement).
     pub fn decision_one_f32(&self, x: &[f64]) -> Vec<f64> {
-        let p32 = self
-            .prepared32
-            .get_or_init(|| crate::kernel::Prepared32::new(self.prepared()));
+        let p32 = self.prepared32();
         let row = ndarray::ArrayView2::from_shape((1, x.len()), x).expect("one row");
         let xs = self.scale_inputs(row);
         let mut g = vec![0.0; p32.rows()];

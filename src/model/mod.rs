@@ -123,6 +123,17 @@ impl AnyModel {
         }
     }
 
+    /// Decision values computed in f32 ([`ExactModel::decision_f32`],
+    /// [`CompiledModel::decision_f32`]); `None` for a guarded model, which scores in f64
+    /// only (its threshold was calibrated on f64 decisions).
+    pub fn decision_f32(&self, x: ArrayView2<f64>) -> Option<Array2<f64>> {
+        match self {
+            AnyModel::Exact(m) => Some(m.decision_f32(x)),
+            AnyModel::Compiled(m) => Some(m.decision_f32(x)),
+            AnyModel::Guarded(_) => None,
+        }
+    }
+
     /// Task.
     pub fn task(&self) -> Task {
         match self {

@@ -98,6 +98,7 @@ macro_rules! step_enum {
             pub fn has_f32(&self) -> bool {
                 match self { $(Step::$variant(_) => <$ty as Op>::F32),* }
             }
+            #[inline(always)]
             fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
                 match self { $(Step::$variant(s) => s.apply_row32(x, y)),* }
             }
@@ -448,6 +449,20 @@ impl Program {
     /// If `scratch` is shorter than [`Self::f32_scratch_len`].
     #[track_caller]
     pub fn apply_one_f32_with<'a>(&self, scratch: &'a mut [f32]) -> Option<&'a [f32]> {
+        self.apply_one_f32_with_at(crate::simd::level(), scratch)
+    }
+
+    /// [`Self::apply_one_f32_with`] with the instruction-set level forced (tests run every
+    /// level).
+    ///
+    /// # Panics
+    /// If `scratch` is too short or this CPU cannot run `level`.
+    #[track_caller]
+    pub fn apply_one_f32_with_at<'a>(
+        &self,
+        level: crate::simd::Level,
+        scratch: &'a mut [f32],
+    ) -> Option<&'a [f32]> {
         let half = self.f32_scratch_len() / 2;
         assert!(
             scratch.len() >= 2 * half,
@@ -458,13 +473,123 @@ impl Program {
         if !self.runs_in_f32() {
             return None;
         }
+        Some(run_f32_at(level, self, None, scratch, None))
+    }
+
+    /// Features of one raw f64 row in f32, allocating nothing: the row enters as
+    /// `(x_j − shift_j)·factor_j` (`input`: a model's standardisation; `None`: as it is),
+    /// rounded to f32, then every step runs in f32 between the halves of `scratch`. `None`
+    /// when the program has a step without an f32 form. The input map and the simple steps
+    /// are compiled once per instruction-set level, so their loops vectorise at the CPU's
+    /// width.
+    ///
+    /// # Panics
+    /// If `x` does not have the program's input width, the input map another width,
+    /// `scratch` is too short, or this CPU cannot run `level`.
+    #[track_caller]
+    pub fn apply_row_f32_at<'a>(
+        &self,
+        level: crate::simd::Level,
+        x: &[f64],
+        input: Option<InputMap>,
+        scratch: &'a mut [f32],
+    ) -> Option<&'a [f32]> {
+        self.check_row_f32(x, &input, scratch);
+        if !self.runs_in_f32() {
+            return None;
+        }
+        Some(run_f32_at(level, self, Some((x, input)), scratch, None))
+    }
+
+    /// The f32 steps one after the other between the two halves of `scratch`, the input
+    /// first written from `x` when given (the callers checked [`Self::runs_in_f32`] and
+    /// every length); inlined into the level-specific copies below.
+    #[inline(always)]
+    fn run_f32<'a>(&self, x: RowIn, scratch: &'a mut [f32], out: Option<&mut [f32]>) -> &'a [f32] {
+        let half = self.f32_scratch_len() / 2;
         let (mut a, mut b) = scratch[..2 * half].split_at_mut(half);
-        for (i, ins) in self.instrs.iter().enumerate() {
+        match x {
+            Some((x, Some(m))) => {
+                for (((o, v), s), f) in a.iter_mut().zip(x).zip(m.shift).zip(m.factor) {
+                    *o = ((v - s) * f) as f32;
+                }
+            }
+            Some((x, None)) => a.iter_mut().zip(x).for_each(|(o, v)| *o = *v as f32),
+            None => {}
+        }
+        let last = self.instrs.len().saturating_sub(1);
+        for (i, ins) in self.instrs[..last].iter().enumerate() {
             let (din, dout) = (self.dims[i], self.dims[i + 1]);
             ins.step.apply_row32(&a[..din], &mut b[..dout]);
             std::mem::swap(&mut a, &mut b);
         }
-        Some(&a[..self.dims[self.instrs.len()]])
+        let Some(ins) = self.instrs.last() else {
+            if let Some(o) = out {
+                o.copy_from_slice(&a[..self.input_dim]);
+            }
+            return &a[..self.input_dim];
+        };
+        let (din, dout) = (self.dims[last], self.dims[last + 1]);
+        match out {
+            Some(o) => {
+                ins.step.apply_row32(&a[..din], o);
+                &[]
+            }
+            None => {
+                ins.step.apply_row32(&a[..din], &mut b[..dout]);
+                &b[..dout]
+            }
+        }
+    }
+
+    /// [`Self::apply_row_f32_at`] with the last step writing into `out` (one row of a
+    /// batch's feature block), saving a copy. Returns false (and writes nothing) when the
+    /// program has a step without an f32 form.
+    ///
+    /// # Panics
+    /// As [`Self::apply_row_f32_at`], and if `out` does not have the output width.
+    #[track_caller]
+    pub(crate) fn apply_row_f32_into_at(
+        &self,
+        level: crate::simd::Level,
+        x: &[f64],
+        input: Option<InputMap>,
+        scratch: &mut [f32],
+        out: &mut [f32],
+    ) -> bool {
+        self.check_row_f32(x, &input, scratch);
+        assert_eq!(
+            out.len(),
+            self.output_dim(),
+            "feature program: output width"
+        );
+        if !self.runs_in_f32() {
+            return false;
+        }
+        run_f32_at(level, self, Some((x, input)), scratch, Some(out));
+        true
+    }
+
+    #[track_caller]
+    fn check_row_f32(&self, x: &[f64], input: &Option<InputMap>, scratch: &[f32]) {
+        let d = self.input_dim;
+        assert_eq!(
+            x.len(),
+            d,
+            "feature program: wrong number of input features"
+        );
+        if let Some(m) = input {
+            assert!(
+                m.shift.len() == d && m.factor.len() == d,
+                "feature program: input map of another width"
+            );
+        }
+        assert!(
+            scratch.len() >= self.f32_scratch_len(),
+            "feature program: scratch of {} values, needs {}",
+            scratch.len(),
+            self.f32_scratch_len()
+        );
     }
 
     /// Features of a batch (`n × D`), in parallel over fixed row chunks (deterministic).
@@ -586,6 +711,62 @@ impl Program {
             .filter(|u| *u <= steps.len())
             .ok_or_else(|| bad("'output' missing or not a value of the program".into()))?;
         Ok(b.finish(ValueId(out)))
+    }
+}
+
+/// How a raw row enters an f32 program: `(x_j − shift_j)·factor_j` per column (a model's
+/// standardisation, with the reciprocal scales as factors).
+#[derive(Debug, Clone, Copy)]
+pub struct InputMap<'a> {
+    /// Subtracted first (the means).
+    pub shift: &'a [f64],
+    /// Then multiplied (the reciprocal scales).
+    pub factor: &'a [f64],
+}
+
+type RowIn<'x, 'm> = Option<(&'x [f64], Option<InputMap<'m>>)>;
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn run_f32_avx2<'a>(
+    p: &Program,
+    x: RowIn,
+    s: &'a mut [f32],
+    out: Option<&mut [f32]>,
+) -> &'a [f32] {
+    p.run_f32(x, s, out)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,fma")]
+unsafe fn run_f32_avx512<'a>(
+    p: &Program,
+    x: RowIn,
+    s: &'a mut [f32],
+    out: Option<&mut [f32]>,
+) -> &'a [f32] {
+    p.run_f32(x, s, out)
+}
+
+fn run_f32_at<'a>(
+    level: crate::simd::Level,
+    p: &Program,
+    x: RowIn,
+    s: &'a mut [f32],
+    out: Option<&mut [f32]>,
+) -> &'a [f32] {
+    assert!(
+        level <= crate::simd::detected(),
+        "this CPU cannot run the {} path",
+        level.name()
+    );
+    match level {
+        // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
+        #[cfg(target_arch = "x86_64")]
+        crate::simd::Level::Avx512 => unsafe { run_f32_avx512(p, x, s, out) },
+        #[cfg(target_arch = "x86_64")]
+        crate::simd::Level::Avx2 => unsafe { run_f32_avx2(p, x, s, out) },
+        _ => p.run_f32(x, s, out),
     }
 }
 

@@ -50,6 +50,15 @@ pub struct Timing {
     /// Both in f32: exact f32 single-row median ÷ compiled f32-head single-row median.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub speedup_single_f32: Option<f64>,
+    /// Exact model, batched in f32 ([`ExactModel::decision_f32`]) (rows/s).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub throughput_rows_per_s_exact_f32: Option<f64>,
+    /// Compiled model, batched in f32 ([`CompiledModel::decision_f32`]) (rows/s).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub throughput_rows_per_s_compiled_f32: Option<f64>,
+    /// Both batched in f32: compiled f32 throughput ÷ exact f32 throughput.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub speedup_batch_f32: Option<f64>,
     /// Guarded models: mean single-row latency of the exact model (µs).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub latency_us_exact_mean: Option<f64>,
@@ -147,6 +156,14 @@ pub struct Report {
     /// (classifiers; measured with the timings).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub agreement_exact_f32: Option<f64>,
+    /// Label agreement with the exact model (f64) of the compiled model's f32 batches
+    /// (classifiers; measured with the timings).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub agreement_f32_batch: Option<f64>,
+    /// Label agreement of the exact model's f32 batches with its f64 path (classifiers;
+    /// measured with the timings).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub agreement_exact_f32_batch: Option<f64>,
     /// Guarded models: share of rows answered by each stage (compiled, exact, partial:
     /// the compiled model with some decision values recomputed exactly).
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -253,6 +270,7 @@ pub fn build_guarded(
             latency_us_exact_mean: Some(e_mean.mean_us),
             latency_us_compiled_mean: Some(c1.mean_us),
             speedup_mean: Some(e_mean.mean_us / c1.mean_us),
+            ..Timing::default()
         };
         let sp = e_mean.mean_us / c1.mean_us;
         if sp < 1.0 {
@@ -292,6 +310,8 @@ pub struct ExactTiming {
     pub single_f32: LatencyStats,
     /// Batched throughput (rows/s).
     pub rows_per_s: f64,
+    /// Batched throughput of the f32 path ([`ExactModel::decision_f32`], rows/s).
+    pub rows_per_s_f32: f64,
 }
 
 /// Measures the exact model as [`build`] does.
@@ -305,6 +325,7 @@ pub fn measure_exact(exact: &ExactModel, x: ArrayView2<f64>, opts: &ReportOption
             exact.decision_one_f32(row)
         }),
         rows_per_s: measure_batch(x, |b| exact.decision(b)),
+        rows_per_s_f32: measure_batch(x, |b| exact.decision_f32(b)),
     }
 }
 
@@ -464,6 +485,8 @@ pub fn build(
         head_cancellation: cancellation,
         agreement_f32: None,
         agreement_exact_f32: None,
+        agreement_f32_batch: None,
+        agreement_exact_f32_batch: None,
         f32_max_abs_difference: None,
         stage_shares: None,
         exact_work_share: None,
@@ -512,6 +535,7 @@ pub fn build(
             out.clone()
         });
         let cb = measure_batch(x, |b| compiled.decision(b));
+        let cb32 = measure_batch(x, |b| compiled.decision_f32(b));
         r.timing = Timing {
             latency_us_exact_p50: Some(e1.p50_us),
             latency_us_exact_p99: Some(e1.p99_us),
@@ -525,6 +549,9 @@ pub fn build(
             latency_us_compiled_f32_p50: Some(c32.p50_us),
             latency_us_exact_f32_p50: Some(et.single_f32.p50_us),
             speedup_single_f32: Some(et.single_f32.p50_us / c32.p50_us),
+            throughput_rows_per_s_exact_f32: Some(et.rows_per_s_f32),
+            throughput_rows_per_s_compiled_f32: Some(cb32),
+            speedup_batch_f32: Some(cb32 / et.rows_per_s_f32),
             ..Timing::default()
         };
         if exact.task().is_classifier() {
@@ -539,6 +566,13 @@ pub fn build(
             let l32 = label_indices(exact.task(), k, e32.view());
             r.agreement_exact_f32 =
                 Some(le.iter().zip(&l32).filter(|(a, b)| a == b).count() as f64 / n.max(1) as f64);
+            // Both f32 batch paths against the exact f64 labels.
+            let agree = |s: Array2<f64>| {
+                let l = label_indices(exact.task(), k, s.view());
+                le.iter().zip(&l).filter(|(a, b)| a == b).count() as f64 / n.max(1) as f64
+            };
+            r.agreement_f32_batch = Some(agree(compiled.decision_f32(x)));
+            r.agreement_exact_f32_batch = Some(agree(exact.decision_f32(x)));
         }
     }
     Ok(r)

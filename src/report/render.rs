@@ -214,6 +214,22 @@ pub fn render_text(r: &Report) -> String {
             &speed,
         );
     }
+    if let (Some(e), Some(c)) = (
+        t.throughput_rows_per_s_exact_f32,
+        t.throughput_rows_per_s_compiled_f32,
+    ) {
+        let agree = match (r.agreement_f32_batch, r.agreement_exact_f32_batch) {
+            (Some(a), Some(b)) => format!(", agreement {a:.4} (exact f32: {b:.4})"),
+            _ => String::new(),
+        };
+        row(
+            &mut s,
+            "  both in f32",
+            &format!("{} rows/s", count(e)),
+            &format!("{} rows/s", count(c)),
+            &format!("{}× faster{agree}", sig3(c / e)),
+        );
+    }
     if t.latency_us_exact_p50.is_none() {
         s.push_str("  (latency not measured: --no-timing)\n");
     }

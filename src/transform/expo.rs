@@ -5,6 +5,12 @@
 //! result on that interval), and `2^k` built in the exponent bits. Arguments below −708
 //! give 0 (the true value is below the smallest normal double), above 709 give +∞.
 //! The tests check the result against the standard library to a few ulp.
+//!
+//! The f32 twin ([`exp_f32`], [`gaussian_row_f32`], for the exact model's f32 batches)
+//! reduces the same way with `ln 2` split as 0.693359375 + (−2.12194440e-4) (the split the
+//! Cephes library uses, from memory: the first part has 9 bits, so `k·ln2_hi` is exact for
+//! every `k` in range) and sums the Taylor polynomial of degree 7 (truncation below
+//! 0.3466⁸/8! ≈ 5.3e-9, under f32's 2⁻²⁴ ≈ 6e-8).
 #![allow(clippy::excessive_precision)]
 
 const LN2_HI: f64 = 6.931_471_803_691_238_2e-1; // ln 2 to 32 bits
@@ -110,6 +116,117 @@ pub fn gaussian_row_at(level: crate::simd::Level, v: &mut [f64], qa: f64, qb: &[
     }
 }
 
+/// ln of the smallest normal f32: below it the f32 result is 0.
+const LOWEST_F32: f32 = -87.336_55;
+/// ln of the largest f32 (rounded down): above it the f32 result is +∞.
+const HIGHEST_F32: f32 = 88.722_83;
+/// 1.5·2^23: adding it rounds an f32 to an integer kept in the low mantissa bits.
+const MAGIC_F32: f32 = 12_582_912.0;
+const LN2_HI_F32: f32 = 0.693_359_375;
+const LN2_LO_F32: f32 = -2.121_944_4e-4;
+/// 1/n! for n = 2 … 7.
+const INV_FACT_F32: [f32; 6] = [
+    0.5,
+    1.666_666_7e-1,
+    4.166_666_8e-2,
+    8.333_333e-3,
+    1.388_888_9e-3,
+    1.984_127e-4,
+];
+
+/// `exp(x)` in f32, without branches on the normal range (the loops over it vectorise):
+/// within a few f32 ulp of the true value; 0 below ln of the smallest normal f32, +∞ above
+/// ln of the largest.
+#[inline(always)]
+pub fn exp_f32(x: f32) -> f32 {
+    let xc = x.clamp(LOWEST_F32, HIGHEST_F32);
+    let k = ((xc * std::f32::consts::LOG2_E + MAGIC_F32) - MAGIC_F32).max(-126.0);
+    let kf = k + MAGIC_F32;
+    let r = (xc - k * LN2_HI_F32) - k * LN2_LO_F32;
+    let mut p = INV_FACT_F32[5];
+    for c in INV_FACT_F32[..5].iter().rev() {
+        p = p * r + c;
+    }
+    let e = 1.0 + r + r * r * p;
+    let ki = kf.to_bits().wrapping_sub(MAGIC_F32.to_bits()) as i32;
+    // 2^k as two normal factors 2^(k − k/2)·2^(k/2), so that k = 128 (just below the
+    // overflow limit) and k = −126 both stay exact.
+    let k1 = ki >> 1;
+    let s1 = f32::from_bits(((k1 + 127) as u32) << 23);
+    let s2 = f32::from_bits(((ki - k1 + 127) as u32) << 23);
+    let y = e * s1 * s2;
+    if x < LOWEST_F32 {
+        0.0
+    } else if x > HIGHEST_F32 || x.is_nan() {
+        if x.is_nan() {
+            f32::NAN
+        } else {
+            f32::INFINITY
+        }
+    } else {
+        y
+    }
+}
+
+#[inline(always)]
+fn gauss32_body(v: &mut [f32], qa: f32, qb: &[f32], half: f32) {
+    for (g, q) in v.iter_mut().zip(qb) {
+        let r2 = (qa + q - 2.0 * *g).max(0.0);
+        *g = exp_f32(-half * r2);
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn gauss32_avx2(v: &mut [f32], qa: f32, qb: &[f32], half: f32) {
+    gauss32_body(v, qa, qb, half)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,fma")]
+unsafe fn gauss32_avx512(v: &mut [f32], qa: f32, qb: &[f32], half: f32) {
+    gauss32_body(v, qa, qb, half)
+}
+
+/// [`gaussian_row`] in f32 (the exact model's f32 batches): `v[j] ← exp(−half·max(qa +
+/// qb[j] − 2·v[j], 0))`.
+///
+/// # Panics
+/// If the slices have different lengths.
+///
+/// ```
+/// let mut v = [1.0f32, 0.0];
+/// kernelpress::transform::expo::gaussian_row_f32(&mut v, 1.0, &[1.0, 4.0], 0.5);
+/// assert!((v[0] - 1.0).abs() < 1e-7 && (v[1] - (-2.5f32).exp()).abs() < 1e-7);
+/// ```
+pub fn gaussian_row_f32(v: &mut [f32], qa: f32, qb: &[f32], half: f32) {
+    gaussian_row_f32_at(crate::simd::level(), v, qa, qb, half)
+}
+
+/// [`gaussian_row_f32`] with the instruction-set level forced (tests compare the levels).
+pub fn gaussian_row_f32_at(
+    level: crate::simd::Level,
+    v: &mut [f32],
+    qa: f32,
+    qb: &[f32],
+    half: f32,
+) {
+    assert_eq!(v.len(), qb.len(), "gaussian_row_f32: lengths differ");
+    assert!(
+        level <= crate::simd::detected(),
+        "this CPU cannot run the {} path",
+        level.name()
+    );
+    match level {
+        // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
+        #[cfg(target_arch = "x86_64")]
+        crate::simd::Level::Avx512 => unsafe { gauss32_avx512(v, qa, qb, half) },
+        #[cfg(target_arch = "x86_64")]
+        crate::simd::Level::Avx2 => unsafe { gauss32_avx2(v, qa, qb, half) },
+        _ => gauss32_body(v, qa, qb, half),
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -170,6 +287,59 @@ mod tests {
                     (a - b).abs() <= 4e-16 * b.abs().max(1e-300),
                     "{}: entry {j}: {a} vs {b}",
                     level.name()
+                );
+            }
+        }
+    }
+
+    /// The f32 exponential against the standard library's f64 one over the whole f32
+    /// range: a few f32 ulp (2⁻²³ ≈ 1.2e-7 each).
+    #[test]
+    fn f32_matches_the_standard_library() {
+        let mut worst: f64 = 0.0;
+        let mut state = 0x05ee_df32_u64;
+        for _ in 0..400_000 {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            let u = (state >> 11) as f64 / (1u64 << 53) as f64;
+            let x = (-87.3 * u + 88.7 * (1.0 - u)) as f32;
+            let (a, b) = (exp_f32(x) as f64, (x as f64).exp());
+            worst = worst.max(((a - b) / b).abs());
+        }
+        assert!(worst < 3e-7, "worst relative error {worst:e}");
+        for (x, want) in [
+            (0.0f32, 1.0f32),
+            (-0.0, 1.0),
+            (-100.0, 0.0),
+            (100.0, f32::INFINITY),
+        ] {
+            assert_eq!(exp_f32(x), want, "{x}");
+        }
+        assert!(exp_f32(88.7).is_finite() && exp_f32(f32::NAN).is_nan());
+    }
+
+    /// Every level of the f32 Gaussian row against an f64 reference written with the
+    /// standard library's `exp`, from the same f32 inputs.
+    #[test]
+    fn f32_rows_at_every_level_match_the_reference() {
+        let n = 301;
+        let qb: Vec<f32> = (0..n)
+            .map(|j| (j as f32 * 0.37).sin().abs() * 40.0)
+            .collect();
+        let dots: Vec<f32> = (0..n).map(|j| (j as f32 * 0.11).cos() * 9.0).collect();
+        let qa = 23.5f32;
+        for level in crate::simd::available() {
+            let mut v = dots.clone();
+            gaussian_row_f32_at(level, &mut v, qa, &qb, 0.5);
+            for j in 0..n {
+                let r2 = (qa + qb[j] - 2.0 * dots[j]).max(0.0) as f64;
+                let want = (-0.5 * r2).exp();
+                assert!(
+                    (v[j] as f64 - want).abs() <= 3e-7 * want.max(1e-30),
+                    "{}: entry {j}: {} vs {want}",
+                    level.name(),
+                    v[j]
                 );
             }
         }

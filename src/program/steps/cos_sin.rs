@@ -39,6 +39,7 @@ impl Op for CosSin {
         })
     }
     const F32: bool = true;
+    #[inline(always)]
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         let (co, so) = y.split_at_mut(x.len());
         scaled_sin_cos_f32(x, self.c as f32, co, so);

@@ -8,6 +8,8 @@ use ndarray::Array2;
 #[derive(Debug, Clone)]
 pub struct Gather {
     idx: Vec<u32>,
+    /// The largest index.
+    top: usize,
 }
 
 impl Gather {
@@ -16,7 +18,8 @@ impl Gather {
         if idx.is_empty() {
             return Err(Error::input("gather step: no indices"));
         }
-        Ok(Gather { idx })
+        let top = idx.iter().copied().max().unwrap_or(0) as usize;
+        Ok(Gather { idx, top })
     }
     /// The first `n` entries (a truncation).
     pub fn first(n: usize) -> Result<Gather> {
@@ -50,10 +53,20 @@ impl Op for Gather {
         })
     }
     const F32: bool = true;
+    #[inline(always)]
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
-        y.iter_mut()
-            .zip(&self.idx)
-            .for_each(|(o, i)| *o = x[*i as usize]);
+        // One check for the whole row instead of one per index, so that the loop has no
+        // branch (it vectorises into gathers where the level has them).
+        let top = self.top;
+        assert!(
+            top < x.len(),
+            "gather: index {top} beyond width {}",
+            x.len()
+        );
+        y.iter_mut().zip(&self.idx).for_each(|(o, i)| {
+            // SAFETY: every index is at most `top`, which is below `x.len()` (checked).
+            *o = unsafe { *x.get_unchecked(*i as usize) }
+        });
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -42,6 +42,7 @@ impl Op for Pad {
         rows_map(&x, self.to, |a, b| b[..n].copy_from_slice(a))
     }
     const F32: bool = true;
+    #[inline(always)]
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         let n = x.len();
         y[..n].copy_from_slice(x);

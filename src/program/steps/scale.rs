@@ -9,13 +9,16 @@ use ndarray::Array2;
 #[derive(Debug, Clone)]
 pub struct Scale {
     s: Vec<f64>,
+    /// The factors rounded to f32 (the f32 form reads these).
+    s32: Vec<f32>,
 }
 
 impl Scale {
     /// A scale vector (every entry finite).
     pub fn new(s: Vec<f64>) -> Result<Scale> {
         check_finite(&s, "scale step", false)?;
-        Ok(Scale { s })
+        let s32 = s.iter().map(|&v| v as f32).collect();
+        Ok(Scale { s, s32 })
     }
     /// The factors.
     pub fn factors(&self) -> &[f64] {
@@ -33,9 +36,10 @@ impl Op for Scale {
         rows_in_place(x, |r| r.iter_mut().zip(&self.s).for_each(|(v, s)| *v *= s))
     }
     const F32: bool = true;
+    #[inline(always)]
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
-        for ((o, a), s) in y.iter_mut().zip(x).zip(&self.s) {
-            *o = a * *s as f32;
+        for ((o, a), s) in y.iter_mut().zip(x).zip(&self.s32) {
+            *o = a * s;
         }
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {

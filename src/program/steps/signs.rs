@@ -39,6 +39,7 @@ impl Op for Signs {
         rows_in_place(x, |r| r.iter_mut().zip(&self.f).for_each(|(v, s)| *v *= s))
     }
     const F32: bool = true;
+    #[inline(always)]
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         for ((o, a), s) in y.iter_mut().zip(x).zip(&self.s) {
             *o = a * *s as f32;

@@ -45,6 +45,7 @@ impl Op for Wht {
         rows_in_place(x, |r| r.chunks_exact_mut(b).for_each(wht_in_place))
     }
     const F32: bool = true;
+    #[inline(always)]
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         y.copy_from_slice(x);
         y.chunks_exact_mut(self.block).for_each(wht_in_place);
