@@ -423,7 +423,7 @@ fn block32(k: &Kernel, a: &Node32, b: &Node32, m: usize, n: usize) -> Vec<f32> {
             }
             for (i, row) in g.chunks_exact_mut(n).enumerate() {
                 if matches!(k, Kernel::Gaussian { .. }) {
-                    crate::transform::expo::gaussian_row_f32(row, qa[i] as f32, sq32, 0.5);
+                    crate::transform::expo::gaussian_row(row, qa[i] as f32, sq32, 0.5);
                     continue;
                 }
                 for (v, q) in row.iter_mut().zip(qb) {

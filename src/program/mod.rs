@@ -449,20 +449,6 @@ impl Program {
     /// If `scratch` is shorter than [`Self::f32_scratch_len`].
     #[track_caller]
     pub fn apply_one_f32_with<'a>(&self, scratch: &'a mut [f32]) -> Option<&'a [f32]> {
-        self.apply_one_f32_with_at(crate::simd::level(), scratch)
-    }
-
-    /// [`Self::apply_one_f32_with`] with the instruction-set level forced (tests run every
-    /// level).
-    ///
-    /// # Panics
-    /// If `scratch` is too short or this CPU cannot run `level`.
-    #[track_caller]
-    pub fn apply_one_f32_with_at<'a>(
-        &self,
-        level: crate::simd::Level,
-        scratch: &'a mut [f32],
-    ) -> Option<&'a [f32]> {
         let half = self.f32_scratch_len() / 2;
         assert!(
             scratch.len() >= 2 * half,
@@ -473,7 +459,7 @@ impl Program {
         if !self.runs_in_f32() {
             return None;
         }
-        Some(run_f32_at(level, self, None, scratch, None))
+        Some(run_f32_at(crate::simd::level(), self, None, scratch, None))
     }
 
     /// Features of one raw f64 row in f32, allocating nothing: the row enters as

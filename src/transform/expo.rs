@@ -6,7 +6,7 @@
 //! give 0 (the true value is below the smallest normal double), above 709 give +∞.
 //! The tests check the result against the standard library to a few ulp.
 //!
-//! The f32 twin ([`exp_f32`], [`gaussian_row_f32`], for the exact model's f32 batches)
+//! The f32 twin ([`exp_f32`], and [`gaussian_row`] on f32 for the exact model's f32 batches)
 //! reduces the same way with `ln 2` split as 0.693359375 + (−2.12194440e-4) (the split the
 //! Cephes library uses, from memory: the first part has 9 bits, so `k·ln2_hi` is exact for
 //! every `k` in range) and sums the Taylor polynomial of degree 7 (truncation below
@@ -68,54 +68,6 @@ pub fn exp(x: f64) -> f64 {
     }
 }
 
-#[inline(always)]
-fn gauss_body(v: &mut [f64], qa: f64, qb: &[f64], half: f64) {
-    for (g, q) in v.iter_mut().zip(qb) {
-        let r2 = (qa + q - 2.0 * *g).max(0.0);
-        *g = exp(-half * r2);
-    }
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
-unsafe fn gauss_avx2(v: &mut [f64], qa: f64, qb: &[f64], half: f64) {
-    gauss_body(v, qa, qb, half)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx512f,avx2,fma")]
-unsafe fn gauss_avx512(v: &mut [f64], qa: f64, qb: &[f64], half: f64) {
-    gauss_body(v, qa, qb, half)
-}
-
-/// One row of a Gaussian Gram block from its inner products: `v[j] ← exp(−half·max(qa +
-/// qb[j] − 2·v[j], 0))`, vectorised for the CPU's level (as the sine/cosine is).
-///
-/// # Panics
-/// If the slices have different lengths.
-pub fn gaussian_row(v: &mut [f64], qa: f64, qb: &[f64], half: f64) {
-    assert_eq!(v.len(), qb.len(), "gaussian_row: lengths differ");
-    gaussian_row_at(crate::simd::level(), v, qa, qb, half)
-}
-
-/// [`gaussian_row`] with the instruction-set level forced (tests compare the levels).
-pub fn gaussian_row_at(level: crate::simd::Level, v: &mut [f64], qa: f64, qb: &[f64], half: f64) {
-    assert_eq!(v.len(), qb.len(), "gaussian_row: lengths differ");
-    assert!(
-        level <= crate::simd::detected(),
-        "this CPU cannot run the {} path",
-        level.name()
-    );
-    match level {
-        // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
-        #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx512 => unsafe { gauss_avx512(v, qa, qb, half) },
-        #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx2 => unsafe { gauss_avx2(v, qa, qb, half) },
-        _ => gauss_body(v, qa, qb, half),
-    }
-}
-
 /// ln of the smallest normal f32: below it the f32 result is 0.
 const LOWEST_F32: f32 = -87.336_55;
 /// ln of the largest f32 (rounded down): above it the f32 result is +∞.
@@ -168,50 +120,71 @@ pub fn exp_f32(x: f32) -> f32 {
     }
 }
 
+/// An element type of Gaussian Gram rows: f64 (the reference paths) or f32 (the f32
+/// batches), each with its own exponential.
+pub trait GaussFloat: Copy + std::ops::Add<Output = Self> + std::ops::Sub<Output = Self> {
+    /// `exp(−half·max(qa + qb − 2·dot, 0))`.
+    fn gauss(dot: Self, qa: Self, qb: Self, half: Self) -> Self;
+}
+
+impl GaussFloat for f64 {
+    #[inline(always)]
+    fn gauss(dot: f64, qa: f64, qb: f64, half: f64) -> f64 {
+        exp(-half * (qa + qb - 2.0 * dot).max(0.0))
+    }
+}
+
+impl GaussFloat for f32 {
+    #[inline(always)]
+    fn gauss(dot: f32, qa: f32, qb: f32, half: f32) -> f32 {
+        exp_f32(-half * (qa + qb - 2.0 * dot).max(0.0))
+    }
+}
+
 #[inline(always)]
-fn gauss32_body(v: &mut [f32], qa: f32, qb: &[f32], half: f32) {
+fn gauss_body<T: GaussFloat>(v: &mut [T], qa: T, qb: &[T], half: T) {
     for (g, q) in v.iter_mut().zip(qb) {
-        let r2 = (qa + q - 2.0 * *g).max(0.0);
-        *g = exp_f32(-half * r2);
+        *g = T::gauss(*g, qa, *q, half);
     }
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
-unsafe fn gauss32_avx2(v: &mut [f32], qa: f32, qb: &[f32], half: f32) {
-    gauss32_body(v, qa, qb, half)
+unsafe fn gauss_avx2<T: GaussFloat>(v: &mut [T], qa: T, qb: &[T], half: T) {
+    gauss_body(v, qa, qb, half)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx512f,avx2,fma")]
-unsafe fn gauss32_avx512(v: &mut [f32], qa: f32, qb: &[f32], half: f32) {
-    gauss32_body(v, qa, qb, half)
+unsafe fn gauss_avx512<T: GaussFloat>(v: &mut [T], qa: T, qb: &[T], half: T) {
+    gauss_body(v, qa, qb, half)
 }
 
-/// [`gaussian_row`] in f32 (the exact model's f32 batches): `v[j] ← exp(−half·max(qa +
-/// qb[j] − 2·v[j], 0))`.
+/// One row of a Gaussian Gram block from its inner products: `v[j] ← exp(−half·max(qa +
+/// qb[j] − 2·v[j], 0))`, in f64 or in f32 (the exact model's f32 batches), vectorised for
+/// the CPU's level (as the sine/cosine is).
 ///
 /// # Panics
 /// If the slices have different lengths.
 ///
 /// ```
 /// let mut v = [1.0f32, 0.0];
-/// kernelpress::transform::expo::gaussian_row_f32(&mut v, 1.0, &[1.0, 4.0], 0.5);
+/// kernelpress::transform::expo::gaussian_row(&mut v, 1.0, &[1.0, 4.0], 0.5);
 /// assert!((v[0] - 1.0).abs() < 1e-7 && (v[1] - (-2.5f32).exp()).abs() < 1e-7);
 /// ```
-pub fn gaussian_row_f32(v: &mut [f32], qa: f32, qb: &[f32], half: f32) {
-    gaussian_row_f32_at(crate::simd::level(), v, qa, qb, half)
+pub fn gaussian_row<T: GaussFloat>(v: &mut [T], qa: T, qb: &[T], half: T) {
+    gaussian_row_at(crate::simd::level(), v, qa, qb, half)
 }
 
-/// [`gaussian_row_f32`] with the instruction-set level forced (tests compare the levels).
-pub fn gaussian_row_f32_at(
+/// [`gaussian_row`] with the instruction-set level forced (tests compare the levels).
+pub fn gaussian_row_at<T: GaussFloat>(
     level: crate::simd::Level,
-    v: &mut [f32],
-    qa: f32,
-    qb: &[f32],
-    half: f32,
+    v: &mut [T],
+    qa: T,
+    qb: &[T],
+    half: T,
 ) {
-    assert_eq!(v.len(), qb.len(), "gaussian_row_f32: lengths differ");
+    assert_eq!(v.len(), qb.len(), "gaussian_row: lengths differ");
     assert!(
         level <= crate::simd::detected(),
         "this CPU cannot run the {} path",
@@ -220,10 +193,10 @@ pub fn gaussian_row_f32_at(
     match level {
         // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
         #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx512 => unsafe { gauss32_avx512(v, qa, qb, half) },
+        crate::simd::Level::Avx512 => unsafe { gauss_avx512(v, qa, qb, half) },
         #[cfg(target_arch = "x86_64")]
-        crate::simd::Level::Avx2 => unsafe { gauss32_avx2(v, qa, qb, half) },
-        _ => gauss32_body(v, qa, qb, half),
+        crate::simd::Level::Avx2 => unsafe { gauss_avx2(v, qa, qb, half) },
+        _ => gauss_body(v, qa, qb, half),
     }
 }
 
@@ -331,7 +304,7 @@ mod tests {
         let qa = 23.5f32;
         for level in crate::simd::available() {
             let mut v = dots.clone();
-            gaussian_row_f32_at(level, &mut v, qa, &qb, 0.5);
+            gaussian_row_at(level, &mut v, qa, &qb, 0.5);
             for j in 0..n {
                 let r2 = (qa + qb[j] - 2.0 * dots[j]).max(0.0) as f64;
                 let want = (-0.5 * r2).exp();
