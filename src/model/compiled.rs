@@ -36,6 +36,8 @@ pub struct CompiledModel {
     /// The head in f32, transposed (`outputs × features`, row-major; converted once at
     /// construction) for the f32 scoring path: one dot product per output.
     head32: Vec<f32>,
+    /// The head in f32 packed for the batch products.
+    head_narrow: linalg::NarrowF32,
     /// The reciprocals of the scaling's scales (the f32 paths multiply).
     inv_scale: Vec<f64>,
     intercept: Vec<f64>,
@@ -128,7 +130,8 @@ impl CompiledModel {
             )));
         }
         check_scaling(scaling.as_ref(), d)?;
-        let head32 = head.t().iter().map(|v| *v as f32).collect();
+        let head32: Vec<f32> = head.t().iter().map(|v| *v as f32).collect();
+        let head_narrow = linalg::NarrowF32::from_n_by_k(&head32, head.ncols(), head.nrows());
         let inv_scale = scaling
             .as_ref()
             .map(|s| s.scale.iter().map(|v| 1.0 / v).collect())
@@ -139,6 +142,7 @@ impl CompiledModel {
             program,
             head,
             head32,
+            head_narrow,
             inv_scale,
             intercept,
             rule,
@@ -416,7 +420,7 @@ impl CompiledModel {
                         .for_each(|(o, v)| *o = *v as f32);
                 }
                 let sb = &mut s[..mb * k];
-                linalg::abt_f32(zb, &self.head32, dz, sb);
+                self.head_narrow.product(zb, sb);
                 for (i, srow) in sb.chunks_exact(k).enumerate() {
                     for (j, v) in srow.iter().enumerate() {
                         out[[b * BLOCK + i, j]] = *v as f64 + self.intercept[j];

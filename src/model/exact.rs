@@ -27,7 +27,7 @@ pub struct ExactModel {
     pub training: serde_json::Value,
     prepared: OnceLock<Prepared>,
     prepared32: OnceLock<crate::kernel::Prepared32>,
-    coef32: OnceLock<Vec<f32>>,
+    coef32: OnceLock<linalg::NarrowF32>,
     parts: OnceLock<super::parts::Parts>,
 }
 
@@ -210,14 +210,15 @@ impl ExactModel {
         );
         let xs = self.scale_inputs(x);
         let p32 = self.prepared32();
-        let coef32 = self
-            .coef32
-            .get_or_init(|| self.coef.iter().map(|&v| v as f32).collect());
-        let (n_sv, k) = self.coef.dim();
+        let coef32 = self.coef32.get_or_init(|| {
+            let c: Vec<f32> = self.coef.iter().map(|&v| v as f32).collect();
+            linalg::NarrowF32::from_k_by_n(&c, self.coef.nrows(), self.coef.ncols())
+        });
+        let k = self.coef.ncols();
         linalg::map_row_chunks(xs.view(), k, |chunk| {
             let g = self.kernel.gram_block_f32(chunk, p32);
             let mut s = vec![0f32; chunk.nrows() * k];
-            linalg::ab_f32(&g, coef32, n_sv, &mut s);
+            coef32.product(&g, &mut s);
             Array2::from_shape_fn((chunk.nrows(), k), |(i, j)| {
                 s[i * k + j] as f64 + self.intercept[j]
             })

@@ -140,42 +140,75 @@ const FC1: f32 = 4.166_664_6e-2;
 const FC2: f32 = -1.388_731_6e-3;
 const FC3: f32 = 2.443_315_7e-5;
 
+/// `a·b + c`, fused (one rounding) in the copies whose instruction set has fused
+/// multiply-adds, plain in the portable copy (where `mul_add` would be a library call).
 #[inline(always)]
-fn kernel32(x: f32) -> (f32, f32) {
-    const MAGIC: f32 = 12_582_912.0; // 1.5 · 2^23
-    let k = (x * std::f32::consts::FRAC_2_PI + MAGIC) - MAGIC;
-    let r = ((x - k * F_PIO2_1) - k * F_PIO2_2) - k * F_PIO2_3;
-    let z = r * r;
-    let s = r + r * z * (FS1 + z * (FS2 + z * FS3));
-    let c = 1.0 - 0.5 * z + z * z * (FC1 + z * (FC2 + z * FC3));
-    let q = k - 4.0 * (k * 0.25).floor();
-    let odd = q == 1.0 || q == 3.0;
-    let sin = if odd { c } else { s };
-    let cos = if odd { s } else { c };
-    let sin = if q >= 2.0 { -sin } else { sin };
-    let cos = if q == 1.0 || q == 2.0 { -cos } else { cos };
-    (sin, cos)
+fn madd<const FMA: bool>(a: f32, b: f32, c: f32) -> f32 {
+    if FMA {
+        a.mul_add(b, c)
+    } else {
+        a * b + c
+    }
 }
 
 #[inline(always)]
-fn scaled_body32(p: &[f32], f: f32, cos_out: &mut [f32], sin_out: &mut [f32]) {
+fn kernel32<const FMA: bool>(x: f32) -> (f32, f32) {
+    const MAGIC: f32 = 12_582_912.0; // 1.5 · 2^23
+                                     // t = 1.5·2^23 + k exactly (|k| < 2^22), so the low bits of t's significand are k
+                                     // modulo 4: the quadrant.
+    let t = madd::<FMA>(x, std::f32::consts::FRAC_2_PI, MAGIC);
+    let q = t.to_bits();
+    let k = t - MAGIC;
+    let r = madd::<FMA>(
+        -k,
+        F_PIO2_3,
+        madd::<FMA>(-k, F_PIO2_2, madd::<FMA>(-k, F_PIO2_1, x)),
+    );
+    let z = r * r;
+    let s = madd::<FMA>(r * z, madd::<FMA>(z, madd::<FMA>(z, FS3, FS2), FS1), r);
+    let c = madd::<FMA>(
+        z * z,
+        madd::<FMA>(z, madd::<FMA>(z, FC3, FC2), FC1),
+        madd::<FMA>(-0.5, z, 1.0),
+    );
+    // Quadrant q: sin = (s, c, −s, −c)[q], cos = (c, −s, −c, s)[q].
+    let odd = q & 1 == 1;
+    let (sv, cv) = if odd { (c, s) } else { (s, c) };
+    let sin = f32::from_bits(sv.to_bits() ^ ((q & 2) << 30));
+    let cos = f32::from_bits(cv.to_bits() ^ ((q.wrapping_add(1) & 2) << 30));
+    (sin, cos)
+}
+
+/// The f32 slice loop; returns false (results to be discarded) when an argument is beyond
+/// [`F_LIMIT`] or not a number, checked in the same pass without early exit so the loop
+/// vectorises.
+#[inline(always)]
+fn scaled_body32<const FMA: bool>(
+    p: &[f32],
+    f: f32,
+    cos_out: &mut [f32],
+    sin_out: &mut [f32],
+) -> bool {
+    let mut ok = true;
     for ((x, c), s) in p.iter().zip(cos_out.iter_mut()).zip(sin_out.iter_mut()) {
-        let (sv, cv) = kernel32(*x);
+        ok &= x.abs() <= F_LIMIT;
+        let (sv, cv) = kernel32::<FMA>(*x);
         *c = f * cv;
         *s = f * sv;
     }
+    ok
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
-unsafe fn scaled32_avx2(p: &[f32], f: f32, cos_out: &mut [f32], sin_out: &mut [f32]) {
-    scaled_body32(p, f, cos_out, sin_out)
+unsafe fn scaled32_avx2(p: &[f32], f: f32, cos_out: &mut [f32], sin_out: &mut [f32]) -> bool {
+    scaled_body32::<true>(p, f, cos_out, sin_out)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx512f,avx2,fma")]
-unsafe fn scaled32_avx512(p: &[f32], f: f32, cos_out: &mut [f32], sin_out: &mut [f32]) {
-    scaled_body32(p, f, cos_out, sin_out)
+unsafe fn scaled32_avx512(p: &[f32], f: f32, cos_out: &mut [f32], sin_out: &mut [f32]) -> bool {
+    scaled_body32::<true>(p, f, cos_out, sin_out)
 }
 
 /// [`scaled_sin_cos`] in f32 (within about 2e-7 of the exact values for |x| ≤ 6,433;
@@ -208,22 +241,20 @@ pub fn scaled_sin_cos_f32_at(
         "this CPU cannot run the {} path",
         level.name()
     );
-    // Without early exit, so the check vectorises (NaN fails it).
-    if !p.iter().fold(true, |ok, x| ok & (x.abs() <= F_LIMIT)) {
-        for ((x, c), s) in p.iter().zip(cos_out.iter_mut()).zip(sin_out.iter_mut()) {
-            let (sv, cv) = sin_cos(*x as f64);
-            *c = (f as f64 * cv) as f32;
-            *s = (f as f64 * sv) as f32;
-        }
-        return;
-    }
-    match level {
+    let ok = match level {
         // SAFETY: the level is supported by this CPU (checked above; AVX2 implies FMA).
         #[cfg(target_arch = "x86_64")]
         crate::simd::Level::Avx512 => unsafe { scaled32_avx512(p, f, cos_out, sin_out) },
         #[cfg(target_arch = "x86_64")]
         crate::simd::Level::Avx2 => unsafe { scaled32_avx2(p, f, cos_out, sin_out) },
-        _ => scaled_body32(p, f, cos_out, sin_out),
+        _ => scaled_body32::<false>(p, f, cos_out, sin_out),
+    };
+    if !ok {
+        for ((x, c), s) in p.iter().zip(cos_out.iter_mut()).zip(sin_out.iter_mut()) {
+            let (sv, cv) = sin_cos(*x as f64);
+            *c = (f as f64 * cv) as f32;
+            *s = (f as f64 * sv) as f32;
+        }
     }
 }
 

@@ -179,18 +179,74 @@ mod x86 {
         }
     }
 
+    /// The first six levels (span 1 … 32) of an f32 transform of length ≥ 64 with 16-float
+    /// registers: the levels of span 1, 2, 4 and 8 inside each register (a lane
+    /// permutation and one `±v + permuted`, as in [`radix8_f32`]), then the radix-4
+    /// levels of span 16 and 32 across four registers (the operations of the scalar
+    /// [`super::radix4`], so the results are bit-identical), one load and one store per
+    /// float.
+    ///
+    /// # Safety
+    /// The CPU must support AVX-512F.
+    #[target_feature(enable = "avx512f")]
+    unsafe fn first6_f32(x: &mut [f32]) {
+        let alt = |a: f32, b: f32, w: usize| {
+            let mut s = [a; 16];
+            s.iter_mut()
+                .enumerate()
+                .for_each(|(i, v)| *v = if (i / w).is_multiple_of(2) { a } else { b });
+            // SAFETY: 16 floats, unaligned load.
+            unsafe { _mm512_loadu_ps(s.as_ptr()) }
+        };
+        let (s1, s2, s4, s8) = (
+            alt(1., -1., 1),
+            alt(1., -1., 2),
+            alt(1., -1., 4),
+            alt(1., -1., 8),
+        );
+        let r16 = |mut v: __m512| {
+            v = _mm512_fmadd_ps(v, s1, _mm512_permute_ps(v, 0b10_11_00_01));
+            v = _mm512_fmadd_ps(v, s2, _mm512_permute_ps(v, 0b01_00_11_10));
+            v = _mm512_fmadd_ps(v, s4, _mm512_shuffle_f32x4(v, v, 0b10_11_00_01));
+            _mm512_fmadd_ps(v, s8, _mm512_shuffle_f32x4(v, v, 0b01_00_11_10))
+        };
+        for c in x.chunks_exact_mut(64) {
+            let p = c.as_mut_ptr();
+            // SAFETY: `c` holds 64 floats; unaligned loads and stores.
+            let (a, b, cc, d) = unsafe {
+                (
+                    r16(_mm512_loadu_ps(p)),
+                    r16(_mm512_loadu_ps(p.add(16))),
+                    r16(_mm512_loadu_ps(p.add(32))),
+                    r16(_mm512_loadu_ps(p.add(48))),
+                )
+            };
+            let (t0, t1) = (_mm512_add_ps(a, b), _mm512_sub_ps(a, b));
+            let (t2, t3) = (_mm512_add_ps(cc, d), _mm512_sub_ps(cc, d));
+            unsafe {
+                _mm512_storeu_ps(p, _mm512_add_ps(t0, t2));
+                _mm512_storeu_ps(p.add(16), _mm512_add_ps(t1, t3));
+                _mm512_storeu_ps(p.add(32), _mm512_sub_ps(t0, t2));
+                _mm512_storeu_ps(p.add(48), _mm512_sub_ps(t1, t3));
+            }
+        }
+    }
+
     /// The transform with the register passes for f32 (other types: the generic body);
     /// inlined into each instruction-set entry point below.
     ///
     /// # Safety
-    /// The CPU must support AVX2 and FMA.
+    /// The CPU must support AVX2 and FMA, and AVX-512F when `wide`.
     #[inline(always)]
-    unsafe fn wht_f32_or<T: WhtFloat>(x: &mut [T]) {
+    unsafe fn wht_f32_or<T: WhtFloat>(x: &mut [T], wide: bool) {
         if TypeId::of::<T>() == TypeId::of::<f32>() && x.len() >= 8 {
             // SAFETY: T is f32 (the same type, so the same layout).
             let xf = unsafe { std::slice::from_raw_parts_mut(x.as_mut_ptr() as *mut f32, x.len()) };
-            // SAFETY: the caller's CPU supports AVX2 and FMA.
-            if xf.len() >= 32 {
+            // SAFETY: the caller's CPU supports AVX2 and FMA (and AVX-512F when `wide`).
+            if wide && xf.len() >= 64 {
+                unsafe { first6_f32(xf) };
+                levels_from(x, 64)
+            } else if xf.len() >= 32 {
                 unsafe { first5_f32(xf) };
                 levels_from(x, 32)
             } else {
@@ -206,14 +262,14 @@ mod x86 {
     /// The CPU must support AVX2 and FMA (checked by the caller).
     #[target_feature(enable = "avx2,fma")]
     pub(super) unsafe fn wht_avx2<T: WhtFloat>(x: &mut [T]) {
-        unsafe { wht_f32_or(x) }
+        unsafe { wht_f32_or(x, false) }
     }
 
     /// # Safety
     /// The CPU must support AVX-512F, AVX2 and FMA (checked by the caller).
     #[target_feature(enable = "avx512f,avx2,fma")]
     pub(super) unsafe fn wht_avx512<T: WhtFloat>(x: &mut [T]) {
-        unsafe { wht_f32_or(x) }
+        unsafe { wht_f32_or(x, true) }
     }
 }
 
@@ -343,7 +399,7 @@ mod tests {
     fn simd_path_equals_scalar_path() {
         // Which path ran is reported; both must give the same numbers.
         assert!(["scalar", "avx2", "avx512"].contains(&wht_isa()));
-        for k in [3, 4, 5, 9, 12, 15] {
+        for k in [3, 4, 5, 6, 9, 12, 15] {
             let n = 1usize << k;
             let x: Vec<f32> = (0..n).map(|i| ((i * 5 + 1) as f32 * 0.3).sin()).collect();
             let mut a = x.clone();
@@ -359,7 +415,7 @@ mod tests {
     #[test]
     fn every_level_matches_the_definition() {
         for level in crate::simd::available() {
-            for k in [0, 1, 3, 5, 8, 10] {
+            for k in [0, 1, 3, 5, 6, 8, 10] {
                 let n = 1usize << k;
                 let x: Vec<f64> = (0..n).map(|i| ((i * 11 + 2) as f64 * 0.43).cos()).collect();
                 let want = wht_reference(&x);

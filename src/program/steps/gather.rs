@@ -19,6 +19,11 @@ impl Gather {
             return Err(Error::input("gather step: no indices"));
         }
         let top = idx.iter().copied().max().unwrap_or(0) as usize;
+        if top > i32::MAX as usize {
+            return Err(Error::input(format!(
+                "gather step: index {top} is beyond the int32 range"
+            )));
+        }
         Ok(Gather { idx, top })
     }
     /// The first `n` entries (a truncation).
@@ -63,9 +68,12 @@ impl Op for Gather {
             "gather: index {top} beyond width {}",
             x.len()
         );
+        // Indices as sign-extended 32-bit offsets (all are at most `i32::MAX`, checked in
+        // `new`), which the 16-lane gathers take directly.
+        let base = x.as_ptr();
         y.iter_mut().zip(&self.idx).for_each(|(o, i)| {
             // SAFETY: every index is at most `top`, which is below `x.len()` (checked).
-            *o = unsafe { *x.get_unchecked(*i as usize) }
+            *o = unsafe { *base.offset(*i as i32 as isize) }
         });
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {

@@ -12,6 +12,9 @@ use rayon::prelude::*;
 
 use crate::{Error, Result};
 
+mod narrow;
+pub use narrow::NarrowF32;
+
 /// Rows per parallel chunk of a product. Fixed so results never depend on the thread count.
 pub const CHUNK_ROWS: usize = 256;
 

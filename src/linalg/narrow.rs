@@ -1,0 +1,310 @@
+//! Products with a narrow right-hand side in f32: `out = a · w` where `w` is `k × n` with
+//! few columns (a linear head's 45 one-vs-one outputs, a kernel model's coefficients).
+//!
+//! General matrix-product kernels pack both operands into tiles and suit wide products;
+//! with `n` of a few dozen the packing of `a` is paid for a small amount of arithmetic. Here
+//! `w` is packed once ([`NarrowF32`], panels of 48 zero-padded columns, `k`-major), and
+//! `a` is read in place: each group of 8 rows of `a` keeps an 8 × 48 block of `out` in
+//! AVX-512 registers while `k` runs (every `a` value broadcast into three fused
+//! multiply-adds), the common practice of register-blocked product kernels. Other levels
+//! use faer's product on the unpacked matrix. Sums run over `k` in order in each column, so
+//! results do not depend on how rows are grouped.
+//!
+//! ```
+//! use kernelpress::linalg::NarrowF32;
+//! // w is 3 × 2 (k = 3 rows, n = 2 columns), row-major.
+//! let w = NarrowF32::from_k_by_n(&[1.0, 0.0, 0.0, 1.0, 1.0, 1.0], 3, 2);
+//! let a = [1.0f32, 2.0, 3.0]; // one row of k = 3
+//! let mut out = [0.0f32; 2];
+//! w.product(&a, &mut out);
+//! assert_eq!(out, [4.0, 5.0]);
+//! ```
+
+use crate::simd::Level;
+
+/// Columns per panel: three 16-lane registers.
+const PANEL: usize = 48;
+/// Rows of `a` per register block.
+const ROWS: usize = 8;
+
+/// A `k × n` f32 matrix packed for [`NarrowF32::product`].
+#[derive(Debug, Clone, Default)]
+pub struct NarrowF32 {
+    k: usize,
+    n: usize,
+    /// `k × n`, row-major (the faer path and the reference).
+    plain: Vec<f32>,
+    /// Panels of [`PANEL`] columns (the last one narrower, rounded up to 16), each `k ×`
+    /// its width, row-major, zero-padded.
+    packed: Vec<f32>,
+}
+
+impl NarrowF32 {
+    /// From a row-major `k × n` matrix.
+    ///
+    /// # Panics
+    /// If `w.len() != k · n`.
+    #[track_caller]
+    pub fn from_k_by_n(w: &[f32], k: usize, n: usize) -> NarrowF32 {
+        assert_eq!(w.len(), k * n, "NarrowF32: shapes differ");
+        let mut packed = Vec::with_capacity(k * n.div_ceil(16) * 16);
+        for p0 in (0..n).step_by(PANEL) {
+            let cols = (n - p0).min(PANEL);
+            let width = cols.div_ceil(16) * 16;
+            for r in 0..k {
+                let row = &w[r * n + p0..r * n + p0 + cols];
+                packed.extend_from_slice(row);
+                packed.extend(std::iter::repeat_n(0.0, width - cols));
+            }
+        }
+        NarrowF32 {
+            k,
+            n,
+            plain: w.to_vec(),
+            packed,
+        }
+    }
+
+    /// From a row-major `n × k` matrix (the transpose of `w`).
+    ///
+    /// # Panics
+    /// If `wt.len() != k · n`.
+    #[track_caller]
+    pub fn from_n_by_k(wt: &[f32], n: usize, k: usize) -> NarrowF32 {
+        assert_eq!(wt.len(), k * n, "NarrowF32: shapes differ");
+        let mut w = vec![0f32; k * n];
+        for (j, col) in wt.chunks_exact(k.max(1)).enumerate() {
+            for (r, v) in col.iter().enumerate() {
+                w[r * n + j] = *v;
+            }
+        }
+        NarrowF32::from_k_by_n(&w, k, n)
+    }
+
+    /// Rows (`k`).
+    pub fn rows(&self) -> usize {
+        self.k
+    }
+
+    /// Columns (`n`).
+    pub fn cols(&self) -> usize {
+        self.n
+    }
+
+    /// `out = a · w` for a row-major `m × k` matrix `a`; `out` is `m × n`, row-major.
+    ///
+    /// # Panics
+    /// If the lengths do not fit the shapes.
+    #[track_caller]
+    pub fn product(&self, a: &[f32], out: &mut [f32]) {
+        self.product_at(crate::simd::level(), a, out)
+    }
+
+    /// [`Self::product`] with the instruction-set level forced (tests run every level).
+    ///
+    /// # Panics
+    /// If the shapes differ or this CPU cannot run `level`.
+    #[track_caller]
+    pub fn product_at(&self, level: Level, a: &[f32], out: &mut [f32]) {
+        let (k, n) = (self.k, self.n);
+        let m = a.len().checked_div(k).unwrap_or(out.len() / n.max(1));
+        assert!(
+            a.len() == m * k && out.len() == m * n,
+            "narrow product: shapes differ"
+        );
+        assert!(
+            level <= crate::simd::detected(),
+            "this CPU cannot run the {} path",
+            level.name()
+        );
+        if k == 0 {
+            out.iter_mut().for_each(|o| *o = 0.0);
+            return;
+        }
+        match level {
+            // SAFETY: AVX-512F is supported (checked above); every length was checked.
+            #[cfg(target_arch = "x86_64")]
+            Level::Avx512 => unsafe { x86::product(self, a, m, out) },
+            _ => super::ab_f32(a, &self.plain, k, out),
+        }
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+mod x86 {
+    use super::{NarrowF32, PANEL, ROWS};
+    use std::arch::x86_64::*;
+
+    /// One `R × 16V` block of `out`: `R` rows of `a` (stride `lda`) times one panel of
+    /// `w` (`k × 16V`, contiguous), the sums kept in registers over all of `k`, then the
+    /// first `cols` columns stored (stride `ldo`).
+    #[target_feature(enable = "avx512f")]
+    #[inline]
+    unsafe fn block<const R: usize, const V: usize>(
+        a: *const f32,
+        lda: usize,
+        w: *const f32,
+        k: usize,
+        out: *mut f32,
+        ldo: usize,
+        cols: usize,
+    ) {
+        let mut acc = [[_mm512_setzero_ps(); V]; R];
+        for p in 0..k {
+            // SAFETY (whole body): the caller passes pointers with `R` rows of `k` values
+            // of `a`, `k` rows of `16V` values of `w`, and `R` rows of `cols` of `out`.
+            let wp = unsafe { w.add(p * 16 * V) };
+            let mut wv = [_mm512_setzero_ps(); V];
+            for (v, x) in wv.iter_mut().enumerate() {
+                *x = unsafe { _mm512_loadu_ps(wp.add(16 * v)) };
+            }
+            for (r, row) in acc.iter_mut().enumerate() {
+                let s = _mm512_set1_ps(unsafe { *a.add(r * lda + p) });
+                for (c, x) in row.iter_mut().zip(&wv) {
+                    *c = _mm512_fmadd_ps(s, *x, *c);
+                }
+            }
+        }
+        for (r, row) in acc.iter().enumerate() {
+            let o = unsafe { out.add(r * ldo) };
+            for (v, c) in row.iter().enumerate() {
+                let left = cols.saturating_sub(16 * v).min(16);
+                let mask: __mmask16 = if left == 16 { !0 } else { (1u16 << left) - 1 };
+                unsafe { _mm512_mask_storeu_ps(o.add(16 * v), mask, *c) };
+            }
+        }
+    }
+
+    /// A block with `r` rows (1 to [`ROWS`]) and `v` registers (1 to 3) of columns.
+    #[target_feature(enable = "avx512f")]
+    #[allow(clippy::too_many_arguments)]
+    unsafe fn block_dyn(
+        r: usize,
+        v: usize,
+        a: *const f32,
+        lda: usize,
+        w: *const f32,
+        k: usize,
+        out: *mut f32,
+        ldo: usize,
+        cols: usize,
+    ) {
+        macro_rules! go {
+            ($($r:literal),*) => {
+                match (r, v) {
+                    $(
+                        ($r, 1) => unsafe { block::<$r, 1>(a, lda, w, k, out, ldo, cols) },
+                        ($r, 2) => unsafe { block::<$r, 2>(a, lda, w, k, out, ldo, cols) },
+                        ($r, _) => unsafe { block::<$r, 3>(a, lda, w, k, out, ldo, cols) },
+                    )*
+                    _ => unreachable!("row blocks have 1 to 8 rows"),
+                }
+            };
+        }
+        go!(1, 2, 3, 4, 5, 6, 7, 8)
+    }
+
+    /// `out = a · w` (`a` is `m × k` with `k > 0`, shapes checked by the caller).
+    #[target_feature(enable = "avx512f")]
+    pub(super) unsafe fn product(w: &NarrowF32, a: &[f32], m: usize, out: &mut [f32]) {
+        let (k, n) = (w.k, w.n);
+        let mut off = 0;
+        for p0 in (0..n).step_by(PANEL) {
+            let cols = (n - p0).min(PANEL);
+            let v = cols.div_ceil(16);
+            let panel = &w.packed[off..off + k * 16 * v];
+            off += k * 16 * v;
+            for r0 in (0..m).step_by(ROWS) {
+                let r = (m - r0).min(ROWS);
+                // SAFETY: rows r0..r0+r of `a` (m × k) and `out` (m × n), columns
+                // p0..p0+cols of `out`, and the whole panel are in bounds.
+                unsafe {
+                    block_dyn(
+                        r,
+                        v,
+                        a.as_ptr().add(r0 * k),
+                        k,
+                        panel.as_ptr(),
+                        k,
+                        out.as_mut_ptr().add(r0 * n + p0),
+                        n,
+                        cols,
+                    )
+                }
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Every level this CPU runs against the sum of products in f64, for widths that fill
+    /// one, two and three registers of a panel, more than one panel, and row counts that
+    /// leave every remainder of the 8-row blocks.
+    #[test]
+    fn every_level_matches_the_definition() {
+        for (m, k, n) in [
+            (19, 37, 45),
+            (8, 64, 5),
+            (13, 1, 16),
+            (3, 300, 100),
+            (9, 7, 48),
+        ] {
+            let a: Vec<f32> = (0..m * k).map(|i| ((i * 7) as f32 * 0.173).sin()).collect();
+            let w: Vec<f32> = (0..k * n).map(|i| ((i * 3) as f32 * 0.071).cos()).collect();
+            let packed = NarrowF32::from_k_by_n(&w, k, n);
+            for level in crate::simd::available() {
+                let mut got = vec![f32::NAN; m * n];
+                packed.product_at(level, &a, &mut got);
+                for i in 0..m {
+                    for j in 0..n {
+                        let (mut want, mut mass) = (0f64, 0f64);
+                        for p in 0..k {
+                            let t = a[i * k + p] as f64 * w[p * n + j] as f64;
+                            want += t;
+                            mass += t.abs();
+                        }
+                        let g = got[i * n + j] as f64;
+                        assert!(
+                            (g - want).abs() <= 1e-6 * mass,
+                            "{} m{m} k{k} n{n} [{i},{j}]: {g} vs {want}",
+                            level.name()
+                        );
+                    }
+                }
+            }
+        }
+    }
+
+    /// The transposed constructor packs the same matrix.
+    #[test]
+    fn both_layouts_agree() {
+        let (k, n) = (11, 50);
+        let w: Vec<f32> = (0..k * n).map(|i| i as f32 * 0.5 - 3.0).collect();
+        let mut wt = vec![0f32; k * n];
+        for r in 0..k {
+            for j in 0..n {
+                wt[j * k + r] = w[r * n + j];
+            }
+        }
+        let (p, q) = (
+            NarrowF32::from_k_by_n(&w, k, n),
+            NarrowF32::from_n_by_k(&wt, n, k),
+        );
+        assert_eq!(p.plain, q.plain);
+        assert_eq!(p.packed, q.packed);
+    }
+
+    /// `k = 0` gives zeros at every level.
+    #[test]
+    fn empty_inner_dimension_gives_zeros() {
+        let p = NarrowF32::from_k_by_n(&[], 0, 3);
+        for level in crate::simd::available() {
+            let mut out = vec![1f32; 6];
+            p.product_at(level, &[], &mut out);
+            assert_eq!(out, vec![0.0; 6]);
+        }
+    }
+}
