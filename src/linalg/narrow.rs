@@ -26,6 +26,8 @@ use crate::simd::Level;
 const PANEL: usize = 48;
 /// Rows of `a` per register block.
 const ROWS: usize = 8;
+/// Rows of `w` per pass over the row blocks (a 48-column slice is 96 KiB).
+const KC: usize = 512;
 
 /// A `k × n` f32 matrix packed for [`NarrowF32::product`].
 #[derive(Debug, Clone, Default)]
@@ -132,14 +134,16 @@ impl NarrowF32 {
 
 #[cfg(target_arch = "x86_64")]
 mod x86 {
-    use super::{NarrowF32, PANEL, ROWS};
+    use super::{NarrowF32, KC, PANEL, ROWS};
     use std::arch::x86_64::*;
 
-    /// One `R × 16V` block of `out`: `R` rows of `a` (stride `lda`) times one panel of
-    /// `w` (`k × 16V`, contiguous), the sums kept in registers over all of `k`, then the
+    /// One `R × 16V` block of `out`: `R` rows of `a` (stride `lda`) times `k` rows of one
+    /// panel of `w` (`16V` wide, contiguous), the sums kept in registers over all of `k`
+    /// (starting from zero when `first`, else from the block's values in `out`), then the
     /// first `cols` columns stored (stride `ldo`).
     #[target_feature(enable = "avx512f")]
     #[inline]
+    #[allow(clippy::too_many_arguments)]
     unsafe fn block<const R: usize, const V: usize>(
         a: *const f32,
         lda: usize,
@@ -148,8 +152,25 @@ mod x86 {
         out: *mut f32,
         ldo: usize,
         cols: usize,
+        first: bool,
     ) {
+        let mask = |v: usize| -> __mmask16 {
+            let left = cols.saturating_sub(16 * v).min(16);
+            if left == 16 {
+                !0
+            } else {
+                (1u16 << left) - 1
+            }
+        };
         let mut acc = [[_mm512_setzero_ps(); V]; R];
+        if !first {
+            for (r, row) in acc.iter_mut().enumerate() {
+                for (v, c) in row.iter_mut().enumerate() {
+                    // SAFETY: as the stores below.
+                    *c = unsafe { _mm512_maskz_loadu_ps(mask(v), out.add(r * ldo + 16 * v)) };
+                }
+            }
+        }
         for p in 0..k {
             // SAFETY (whole body): the caller passes pointers with `R` rows of `k` values
             // of `a`, `k` rows of `16V` values of `w`, and `R` rows of `cols` of `out`.
@@ -168,9 +189,7 @@ mod x86 {
         for (r, row) in acc.iter().enumerate() {
             let o = unsafe { out.add(r * ldo) };
             for (v, c) in row.iter().enumerate() {
-                let left = cols.saturating_sub(16 * v).min(16);
-                let mask: __mmask16 = if left == 16 { !0 } else { (1u16 << left) - 1 };
-                unsafe { _mm512_mask_storeu_ps(o.add(16 * v), mask, *c) };
+                unsafe { _mm512_mask_storeu_ps(o.add(16 * v), mask(v), *c) };
             }
         }
     }
@@ -188,14 +207,15 @@ mod x86 {
         out: *mut f32,
         ldo: usize,
         cols: usize,
+        first: bool,
     ) {
         macro_rules! go {
             ($($r:literal),*) => {
                 match (r, v) {
                     $(
-                        ($r, 1) => unsafe { block::<$r, 1>(a, lda, w, k, out, ldo, cols) },
-                        ($r, 2) => unsafe { block::<$r, 2>(a, lda, w, k, out, ldo, cols) },
-                        ($r, _) => unsafe { block::<$r, 3>(a, lda, w, k, out, ldo, cols) },
+                        ($r, 1) => unsafe { block::<$r, 1>(a, lda, w, k, out, ldo, cols, first) },
+                        ($r, 2) => unsafe { block::<$r, 2>(a, lda, w, k, out, ldo, cols, first) },
+                        ($r, _) => unsafe { block::<$r, 3>(a, lda, w, k, out, ldo, cols, first) },
                     )*
                     _ => unreachable!("row blocks have 1 to 8 rows"),
                 }
@@ -214,22 +234,29 @@ mod x86 {
             let v = cols.div_ceil(16);
             let panel = &w.packed[off..off + k * 16 * v];
             off += k * 16 * v;
-            for r0 in (0..m).step_by(ROWS) {
-                let r = (m - r0).min(ROWS);
-                // SAFETY: rows r0..r0+r of `a` (m × k) and `out` (m × n), columns
-                // p0..p0+cols of `out`, and the whole panel are in bounds.
-                unsafe {
-                    block_dyn(
-                        r,
-                        v,
-                        a.as_ptr().add(r0 * k),
-                        k,
-                        panel.as_ptr(),
-                        k,
-                        out.as_mut_ptr().add(r0 * n + p0),
-                        n,
-                        cols,
-                    )
+            // `k` in slices, so that a slice of the panel stays in cache while every row
+            // block passes over it; each column's sum still runs over `k` in order.
+            for k0 in (0..k).step_by(KC) {
+                let kc = (k - k0).min(KC);
+                for r0 in (0..m).step_by(ROWS) {
+                    let r = (m - r0).min(ROWS);
+                    // SAFETY: rows r0..r0+r of `a` (m × k) from column k0 on, rows k0..k0+kc
+                    // of the panel, rows r0..r0+r and columns p0..p0+cols of `out` (m × n)
+                    // are in bounds.
+                    unsafe {
+                        block_dyn(
+                            r,
+                            v,
+                            a.as_ptr().add(r0 * k + k0),
+                            k,
+                            panel.as_ptr().add(k0 * 16 * v),
+                            kc,
+                            out.as_mut_ptr().add(r0 * n + p0),
+                            n,
+                            cols,
+                            k0 == 0,
+                        )
+                    }
                 }
             }
         }
@@ -251,6 +278,7 @@ mod tests {
             (13, 1, 16),
             (3, 300, 100),
             (9, 7, 48),
+            (17, 1100, 45),
         ] {
             let a: Vec<f32> = (0..m * k).map(|i| ((i * 7) as f32 * 0.173).sin()).collect();
             let w: Vec<f32> = (0..k * n).map(|i| ((i * 3) as f32 * 0.071).cos()).collect();

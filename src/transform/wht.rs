@@ -232,6 +232,43 @@ mod x86 {
         }
     }
 
+    /// Four levels (span `h`, `2h`, `4h`, `8h`; `h` a multiple of 16) of an f32 transform
+    /// in one pass over memory: sixteen registers, one from each of the sixteen strided
+    /// segments of a block of `16h`, take the four levels of butterflies among
+    /// themselves (the operations, in the same order, of the scalar passes, so the
+    /// results are bit-identical).
+    ///
+    /// # Safety
+    /// The CPU must support AVX-512F; `x.len()` is a multiple of `16h`.
+    #[target_feature(enable = "avx512f")]
+    unsafe fn radix16_f32(x: &mut [f32], h: usize) {
+        for block in x.chunks_exact_mut(16 * h) {
+            let p = block.as_mut_ptr();
+            for c in (0..h).step_by(16) {
+                // SAFETY: segment i starts at i·h < 16h and c + 16 ≤ h, so every load and
+                // store is inside `block`; unaligned.
+                let mut v = [_mm512_setzero_ps(); 16];
+                for (i, r) in v.iter_mut().enumerate() {
+                    *r = unsafe { _mm512_loadu_ps(p.add(i * h + c)) };
+                }
+                let mut span = 1;
+                while span < 16 {
+                    for i in 0..16 {
+                        if i & span == 0 {
+                            let (a, b) = (v[i], v[i + span]);
+                            v[i] = _mm512_add_ps(a, b);
+                            v[i + span] = _mm512_sub_ps(a, b);
+                        }
+                    }
+                    span *= 2;
+                }
+                for (i, r) in v.iter().enumerate() {
+                    unsafe { _mm512_storeu_ps(p.add(i * h + c), *r) };
+                }
+            }
+        }
+    }
+
     /// The transform with the register passes for f32 (other types: the generic body);
     /// inlined into each instruction-set entry point below.
     ///
@@ -245,7 +282,12 @@ mod x86 {
             // SAFETY: the caller's CPU supports AVX2 and FMA (and AVX-512F when `wide`).
             if wide && xf.len() >= 64 {
                 unsafe { first6_f32(xf) };
-                levels_from(x, 64)
+                let mut h = 64;
+                while 16 * h <= xf.len() {
+                    unsafe { radix16_f32(xf, h) };
+                    h *= 16;
+                }
+                levels_from(x, h)
             } else if xf.len() >= 32 {
                 unsafe { first5_f32(xf) };
                 levels_from(x, 32)

@@ -60,21 +60,12 @@ impl Op for Gather {
     const F32: bool = true;
     #[inline(always)]
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
-        // One check for the whole row instead of one per index, so that the loop has no
-        // branch (it vectorises into gathers where the level has them).
-        let top = self.top;
-        assert!(
-            top < x.len(),
-            "gather: index {top} beyond width {}",
-            x.len()
-        );
-        // Indices as sign-extended 32-bit offsets (all are at most `i32::MAX`, checked in
-        // `new`), which the 16-lane gathers take directly.
-        let base = x.as_ptr();
-        y.iter_mut().zip(&self.idx).for_each(|(o, i)| {
-            // SAFETY: every index is at most `top`, which is below `x.len()` (checked).
-            *o = unsafe { *base.offset(*i as i32 as isize) }
-        });
+        // One check for the whole row (the largest index is known), then the gather for
+        // the CPU's level.
+        let level = crate::simd::level();
+        crate::transform::gather::check(level, x.len(), self.idx.len(), y.len(), self.top);
+        // SAFETY: checked just above.
+        unsafe { crate::transform::gather::gather_unchecked(level, x, &self.idx, y) }
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {
