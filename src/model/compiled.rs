@@ -352,7 +352,8 @@ impl CompiledModel {
     /// Decision values for raw inputs, batched in f32: per fixed row chunk (chunks in
     /// parallel) each row's features come from the f32 program with one scratch for the
     /// chunk (the f64 program rounded to f32 for maps without an f32 form), then one f32
-    /// matrix product with the f32 head; intercepts in f64. Agrees with
+    /// product with the f32 head per block of rows ([`linalg::NarrowF32`]); intercepts in
+    /// f64. Agrees with
     /// [`Self::decision_one_f32`] to the f32 rounding of the head's sums (a different
     /// summation order); the f64 [`Self::decision`] stays the reference.
     ///
@@ -366,10 +367,10 @@ impl CompiledModel {
             "decision: wrong number of features"
         );
         let (dz, k) = (self.program.output_dim(), self.n_outputs());
-        // Rows per head product (128 × 4,096 f32 = 2 MB of features at D = 4,096), chosen
-        // by measurement on the Fashion-MNIST model: at 32 rows the product's packing is
-        // paid too often, 256 rows were no faster. Fixed, so results never depend on the
-        // thread count.
+        // Rows per head product (128 × 4,096 f32 = 2 MB of features at D = 4,096). With
+        // the narrow product (which reads the block in place, a 512-row slice of the
+        // packed head at a time) 32, 64 and 128 rows ran alike on the Fashion-MNIST
+        // model. Fixed, so results never depend on the thread count.
         const BLOCK: usize = 128;
         linalg::map_row_chunks(x, k, |c| {
             let m = c.nrows();

@@ -183,7 +183,9 @@ impl ExactModel {
     /// Decision values (`n × n_outputs`) for raw inputs, batched in f32: fixed row chunks
     /// in parallel, each one f32 matrix product with the support vectors (converted to f32
     /// on first use), the kernel profile in f32 (a vectorised exponential for the
-    /// Gaussian), and one f32 product with the coefficients; intercepts added in f64. What
+    /// Gaussian), and one f32 product with the coefficients (packed once for the narrow
+    /// product, [`linalg::NarrowF32`], like the compiled model's head); intercepts added
+    /// in f64. What
     /// a batch server in single precision runs: the report measures its throughput and its
     /// agreement with the f64 path ([`Self::decision`]), which stays the reference.
     ///
