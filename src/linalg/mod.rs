@@ -435,9 +435,23 @@ fn dot_rows_body<T: RowFloat, const L: usize>(rows: &[T], x: &[T], out: &mut [f6
         for (a, b) in r[head..].iter().zip(&x[head..]) {
             t += *a * *b;
         }
-        let s: T = acc.iter().copied().sum();
-        *o = s.into() + t.into();
+        *o = reduce(&mut acc).into() + t.into();
     }
+}
+
+/// The partial sums added in halves (`L` a power of two): vector additions down to the
+/// last register instead of `L` dependent scalar additions.
+#[inline(always)]
+fn reduce<T: RowFloat, const L: usize>(acc: &mut [T; L]) -> T {
+    let mut w = L;
+    while w > 1 {
+        w /= 2;
+        for l in 0..w {
+            let v = acc[l + w];
+            acc[l] += v;
+        }
+    }
+    acc[0]
 }
 
 /// The body at `T`'s lane count (a `const` generic needs the number itself).
@@ -464,7 +478,7 @@ unsafe fn dot_rows_avx512<T: RowFloat>(rows: &[T], x: &[T], out: &mut [f64]) {
 /// `out[j] = rows[j] · x` for a row-major `out.len() × x.len()` matrix of f32 or f64
 /// (sums in [`RowFloat::LANES`] partial sums of the element type, returned as f64),
 /// vectorised for the CPU's level: the exact model's single-row paths stream their support
-/// vectors through this, and the compiled model's f32 head its transposed columns.
+/// vectors through this (and [`NarrowF32`] its columns for a single row below AVX-512).
 ///
 /// # Panics
 /// If `rows.len() != out.len() · x.len()`.

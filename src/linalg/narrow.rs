@@ -34,8 +34,9 @@ const KC: usize = 512;
 pub struct NarrowF32 {
     k: usize,
     n: usize,
-    /// `k × n`, row-major (the faer path and the reference).
-    plain: Vec<f32>,
+    /// `wᵀ` (`n × k`, row-major): the other levels' paths (faer's product, or one dot
+    /// product per column for a single row).
+    plain_t: Vec<f32>,
     /// Panels of [`PANEL`] columns (the last one narrower, rounded up to 16), each `k ×`
     /// its width, row-major, zero-padded.
     packed: Vec<f32>,
@@ -59,10 +60,16 @@ impl NarrowF32 {
                 packed.extend(std::iter::repeat_n(0.0, width - cols));
             }
         }
+        let mut plain_t = vec![0f32; k * n];
+        for (r, row) in w.chunks_exact(n.max(1)).enumerate() {
+            for (j, v) in row.iter().enumerate() {
+                plain_t[j * k + r] = *v;
+            }
+        }
         NarrowF32 {
             k,
             n,
-            plain: w.to_vec(),
+            plain_t,
             packed,
         }
     }
@@ -126,8 +133,18 @@ impl NarrowF32 {
         match level {
             // SAFETY: AVX-512F is supported (checked above); every length was checked.
             #[cfg(target_arch = "x86_64")]
+            Level::Avx512 if m == 1 => unsafe { x86::row(self, a, out) },
+            // SAFETY: as above.
+            #[cfg(target_arch = "x86_64")]
             Level::Avx512 => unsafe { x86::product(self, a, m, out) },
-            _ => super::ab_f32(a, &self.plain, k, out),
+            _ if m == 1 => {
+                for (o, col) in out.iter_mut().zip(self.plain_t.chunks_exact(k)) {
+                    let mut s = [0f64];
+                    super::dot_rows_at(level, col, a, &mut s);
+                    *o = s[0] as f32;
+                }
+            }
+            _ => super::abt_f32(a, &self.plain_t, k, out),
         }
     }
 }
@@ -224,6 +241,70 @@ mod x86 {
         go!(1, 2, 3, 4, 5, 6, 7, 8)
     }
 
+    /// One row (`a` of length `k > 0`, `out` of length `n`, checked by the caller): a
+    /// single row has no rows to share the loads of `w` with, so each panel row is loaded
+    /// once and the sums run in four interleaved chains over `k` (`k ≡ u mod 4` in chain
+    /// `u`, added at the end), enough independent fused multiply-adds to keep up with the
+    /// stream of `w` from the cache.
+    #[target_feature(enable = "avx512f")]
+    pub(super) unsafe fn row(w: &NarrowF32, a: &[f32], out: &mut [f32]) {
+        let (k, n) = (w.k, w.n);
+        let mut off = 0;
+        for p0 in (0..n).step_by(PANEL) {
+            let cols = (n - p0).min(PANEL);
+            let v = cols.div_ceil(16);
+            let panel = &w.packed[off..off + k * 16 * v];
+            off += k * 16 * v;
+            // SAFETY: the panel has k rows of 16v floats, `a` has k values and `out` has
+            // columns p0..p0+cols.
+            unsafe {
+                match v {
+                    1 => row_panel::<1>(a, panel.as_ptr(), k, out.as_mut_ptr().add(p0), cols),
+                    2 => row_panel::<2>(a, panel.as_ptr(), k, out.as_mut_ptr().add(p0), cols),
+                    _ => row_panel::<3>(a, panel.as_ptr(), k, out.as_mut_ptr().add(p0), cols),
+                }
+            }
+        }
+    }
+
+    /// One panel of [`row`].
+    #[target_feature(enable = "avx512f")]
+    #[inline]
+    unsafe fn row_panel<const V: usize>(
+        a: &[f32],
+        w: *const f32,
+        k: usize,
+        out: *mut f32,
+        cols: usize,
+    ) {
+        let mut acc = [[_mm512_setzero_ps(); V]; 4];
+        let body = k - k % 4;
+        let step = |acc: &mut [__m512; V], p: usize| {
+            let s = _mm512_set1_ps(a[p]);
+            for (c, x) in acc.iter_mut().enumerate() {
+                // SAFETY: row p < k of the panel, register c < V.
+                let wv = unsafe { _mm512_loadu_ps(w.add(p * 16 * V + 16 * c)) };
+                *x = _mm512_fmadd_ps(s, wv, *x);
+            }
+        };
+        for p in (0..body).step_by(4) {
+            for (u, chain) in acc.iter_mut().enumerate() {
+                step(chain, p + u);
+            }
+        }
+        for p in body..k {
+            step(&mut acc[p - body], p);
+        }
+        let [a0, a1, a2, a3] = acc;
+        for (c, (((x0, x1), x2), x3)) in a0.iter().zip(&a1).zip(&a2).zip(&a3).enumerate() {
+            let s = _mm512_add_ps(_mm512_add_ps(*x0, *x1), _mm512_add_ps(*x2, *x3));
+            let left = cols.saturating_sub(16 * c).min(16);
+            let mask: __mmask16 = if left == 16 { !0 } else { (1u16 << left) - 1 };
+            // SAFETY: the first `cols` values from `out` are the caller's.
+            unsafe { _mm512_mask_storeu_ps(out.add(16 * c), mask, s) };
+        }
+    }
+
     /// `out = a · w` (`a` is `m × k` with `k > 0`, shapes checked by the caller).
     #[target_feature(enable = "avx512f")]
     pub(super) unsafe fn product(w: &NarrowF32, a: &[f32], m: usize, out: &mut [f32]) {
@@ -279,6 +360,9 @@ mod tests {
             (3, 300, 100),
             (9, 7, 48),
             (17, 1100, 45),
+            (1, 1100, 45),
+            (1, 37, 100),
+            (1, 2, 7),
         ] {
             let a: Vec<f32> = (0..m * k).map(|i| ((i * 7) as f32 * 0.173).sin()).collect();
             let w: Vec<f32> = (0..k * n).map(|i| ((i * 3) as f32 * 0.071).cos()).collect();
@@ -321,7 +405,7 @@ mod tests {
             NarrowF32::from_k_by_n(&w, k, n),
             NarrowF32::from_n_by_k(&wt, n, k),
         );
-        assert_eq!(p.plain, q.plain);
+        assert_eq!(p.plain_t, q.plain_t);
         assert_eq!(p.packed, q.packed);
     }
 

@@ -33,10 +33,8 @@ pub struct CompiledModel {
     features: usize,
     program: Program,
     head: Array2<f64>,
-    /// The head in f32, transposed (`outputs × features`, row-major; converted once at
-    /// construction) for the f32 scoring path: one dot product per output.
-    head32: Vec<f32>,
-    /// The head in f32 packed for the batch products.
+    /// The head in f32 (converted once at construction), packed for the f32 products of
+    /// single rows and batches.
     head_narrow: linalg::NarrowF32,
     /// The reciprocals of the scaling's scales (the f32 paths multiply).
     inv_scale: Vec<f64>,
@@ -141,7 +139,6 @@ impl CompiledModel {
             features,
             program,
             head,
-            head32,
             head_narrow,
             inv_scale,
             intercept,
@@ -263,8 +260,8 @@ impl CompiledModel {
 
     /// Decision values for one raw row in f32: the program runs in f32 when every step has
     /// an f32 form ([`Program::runs_in_f32`]: the structured maps), otherwise in f64 with
-    /// its features rounded to f32; each output is one f32 dot product with its column of
-    /// the head (half the head's bytes). The f64 path stays the reference; the report
+    /// its features rounded to f32; the head product in f32 (half the head's bytes;
+    /// [`linalg::NarrowF32`]). The f64 path stays the reference; the report
     /// measures this path's latency and its agreement with the exact model.
     pub fn decision_one_f32(&self, x: &[f64]) -> Vec<f64> {
         let mut scratch = vec![0f32; self.scratch_len()];
@@ -273,9 +270,10 @@ impl CompiledModel {
         out
     }
 
-    /// Scratch (f32 values) for [`Self::decision_one_f32_with`].
+    /// Scratch (f32 values) for [`Self::decision_one_f32_with`]: the f32 program's, then
+    /// one value per output.
     pub fn scratch_len(&self) -> usize {
-        self.program.f32_scratch_len()
+        self.program.f32_scratch_len() + self.n_outputs()
     }
 
     /// [`Self::decision_one_f32`] into `out` (one value per output) with the caller's
@@ -321,11 +319,13 @@ impl CompiledModel {
             scratch.len(),
             self.scratch_len()
         );
+        let (ps, s32) = scratch.split_at_mut(self.program.f32_scratch_len());
+        let s32 = &mut s32[..self.intercept.len()];
         match self
             .program
-            .apply_row_f32_at(crate::simd::level(), x, self.input_map(), scratch)
+            .apply_row_f32_at(crate::simd::level(), x, self.input_map(), ps)
         {
-            Some(z) => linalg::dot_rows(&self.head32, z, out),
+            Some(z) => self.head_narrow.product(z, s32),
             None => {
                 let z: Vec<f32> = self
                     .program
@@ -333,12 +333,12 @@ impl CompiledModel {
                     .iter()
                     .map(|v| *v as f32)
                     .collect();
-                linalg::dot_rows(&self.head32, &z, out);
+                self.head_narrow.product(&z, s32);
             }
         }
-        out.iter_mut()
-            .zip(&self.intercept)
-            .for_each(|(o, b)| *o += b);
+        for ((o, s), b) in out.iter_mut().zip(s32.iter()).zip(&self.intercept) {
+            *o = *s as f64 + b;
+        }
     }
 
     /// The standardisation as the f32 program's input map.
