@@ -38,9 +38,10 @@ const KC: usize = 512;
 pub struct NarrowF32 {
     k: usize,
     n: usize,
-    /// `wᵀ` (`n × k`, row-major): the other levels' paths (faer's product, or one dot
-    /// product per column for a single row).
-    plain_t: Vec<f32>,
+    /// `wᵀ` (`n × k`, row-major), unpacked from `packed` on first use by the other
+    /// levels' paths (faer's product, or one dot product per column for a single row), so
+    /// that the AVX-512 path holds one copy of the matrix.
+    plain_t: std::sync::OnceLock<Vec<f32>>,
     /// Panels of [`PANEL`] columns (the last one narrower, rounded up to 16), each `k ×`
     /// its width, row-major, zero-padded.
     packed: Vec<f32>,
@@ -64,18 +65,32 @@ impl NarrowF32 {
                 packed.extend(std::iter::repeat_n(0.0, width - cols));
             }
         }
-        let mut plain_t = vec![0f32; k * n];
-        for (r, row) in w.chunks_exact(n.max(1)).enumerate() {
-            for (j, v) in row.iter().enumerate() {
-                plain_t[j * k + r] = *v;
-            }
-        }
         NarrowF32 {
             k,
             n,
-            plain_t,
+            plain_t: std::sync::OnceLock::new(),
             packed,
         }
+    }
+
+    /// `wᵀ` (`n × k`, row-major), unpacked from the panels on first use.
+    fn plain_t(&self) -> &[f32] {
+        self.plain_t.get_or_init(|| {
+            let (k, n) = (self.k, self.n);
+            let mut t = vec![0f32; k * n];
+            let mut off = 0;
+            for p0 in (0..n).step_by(PANEL) {
+                let cols = (n - p0).min(PANEL);
+                let width = cols.div_ceil(16) * 16;
+                for r in 0..k {
+                    for j in 0..cols {
+                        t[(p0 + j) * k + r] = self.packed[off + r * width + j];
+                    }
+                }
+                off += k * width;
+            }
+            t
+        })
     }
 
     /// From a row-major `n × k` matrix (the transpose of `w`).
@@ -142,13 +157,13 @@ impl NarrowF32 {
             #[cfg(target_arch = "x86_64")]
             Level::Avx512 => unsafe { x86::product(self, a, m, out) },
             _ if m == 1 => {
-                for (o, col) in out.iter_mut().zip(self.plain_t.chunks_exact(k)) {
+                for (o, col) in out.iter_mut().zip(self.plain_t().chunks_exact(k)) {
                     let mut s = [0f64];
                     super::dot_rows_at(level, col, a, &mut s);
                     *o = s[0] as f32;
                 }
             }
-            _ => super::abt_f32(a, &self.plain_t, k, out),
+            _ => super::abt_f32(a, self.plain_t(), k, out),
         }
     }
 }
@@ -409,7 +424,8 @@ mod tests {
             NarrowF32::from_k_by_n(&w, k, n),
             NarrowF32::from_n_by_k(&wt, n, k),
         );
-        assert_eq!(p.plain_t, q.plain_t);
+        assert_eq!(p.plain_t(), q.plain_t());
+        assert_eq!(p.plain_t(), &wt[..]);
         assert_eq!(p.packed, q.packed);
     }
 
