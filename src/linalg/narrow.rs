@@ -73,40 +73,33 @@ impl NarrowF32 {
         }
     }
 
-    /// `wᵀ` (`n × k`, row-major), unpacked from the panels on first use.
-    fn plain_t(&self) -> &[f32] {
-        self.plain_t.get_or_init(|| {
-            let (k, n) = (self.k, self.n);
-            let mut t = vec![0f32; k * n];
-            let mut off = 0;
-            for p0 in (0..n).step_by(PANEL) {
-                let cols = (n - p0).min(PANEL);
-                let width = cols.div_ceil(16) * 16;
-                for r in 0..k {
-                    for j in 0..cols {
-                        t[(p0 + j) * k + r] = self.packed[off + r * width + j];
-                    }
-                }
-                off += k * width;
-            }
-            t
+    /// The panels in order: first column, columns, 16-lane registers `v`, and the panel's
+    /// `k × 16v` packed values.
+    fn panels(&self) -> impl Iterator<Item = (usize, usize, usize, &[f32])> {
+        let (k, n) = (self.k, self.n);
+        (0..n).step_by(PANEL).scan(0, move |off, p0| {
+            let cols = (n - p0).min(PANEL);
+            let v = cols.div_ceil(16);
+            let panel = &self.packed[*off..*off + k * 16 * v];
+            *off += k * 16 * v;
+            Some((p0, cols, v, panel))
         })
     }
 
-    /// From a row-major `n × k` matrix (the transpose of `w`).
-    ///
-    /// # Panics
-    /// If `wt.len() != k · n`.
-    #[track_caller]
-    pub fn from_n_by_k(wt: &[f32], n: usize, k: usize) -> NarrowF32 {
-        assert_eq!(wt.len(), k * n, "NarrowF32: shapes differ");
-        let mut w = vec![0f32; k * n];
-        for (j, col) in wt.chunks_exact(k.max(1)).enumerate() {
-            for (r, v) in col.iter().enumerate() {
-                w[r * n + j] = *v;
+    /// `wᵀ` (`n × k`, row-major), unpacked from the panels on first use.
+    fn plain_t(&self) -> &[f32] {
+        self.plain_t.get_or_init(|| {
+            let k = self.k;
+            let mut t = vec![0f32; k * self.n];
+            for (p0, cols, v, panel) in self.panels() {
+                for (r, row) in panel.chunks_exact(16 * v).enumerate() {
+                    for (j, x) in row[..cols].iter().enumerate() {
+                        t[(p0 + j) * k + r] = *x;
+                    }
+                }
             }
-        }
-        NarrowF32::from_k_by_n(&w, k, n)
+            t
+        })
     }
 
     /// Rows (`k`).
@@ -170,8 +163,19 @@ impl NarrowF32 {
 
 #[cfg(target_arch = "x86_64")]
 mod x86 {
-    use super::{NarrowF32, KC, PANEL, ROWS};
+    use super::{NarrowF32, KC, ROWS};
     use std::arch::x86_64::*;
+
+    /// The lanes of register `v` that hold one of `cols` columns.
+    #[inline(always)]
+    fn lanes(cols: usize, v: usize) -> __mmask16 {
+        let left = cols.saturating_sub(16 * v).min(16);
+        if left == 16 {
+            !0
+        } else {
+            (1u16 << left) - 1
+        }
+    }
 
     /// One `R × 16V` block of `out`: `R` rows of `a` (stride `lda`) times `k` rows of one
     /// panel of `w` (`16V` wide, contiguous), the sums kept in registers over all of `k`
@@ -190,14 +194,7 @@ mod x86 {
         cols: usize,
         first: bool,
     ) {
-        let mask = |v: usize| -> __mmask16 {
-            let left = cols.saturating_sub(16 * v).min(16);
-            if left == 16 {
-                !0
-            } else {
-                (1u16 << left) - 1
-            }
-        };
+        let mask = |v: usize| lanes(cols, v);
         let mut acc = [[_mm512_setzero_ps(); V]; R];
         if !first {
             for (r, row) in acc.iter_mut().enumerate() {
@@ -267,13 +264,8 @@ mod x86 {
     /// stream of `w` from the cache.
     #[target_feature(enable = "avx512f")]
     pub(super) unsafe fn row(w: &NarrowF32, a: &[f32], out: &mut [f32]) {
-        let (k, n) = (w.k, w.n);
-        let mut off = 0;
-        for p0 in (0..n).step_by(PANEL) {
-            let cols = (n - p0).min(PANEL);
-            let v = cols.div_ceil(16);
-            let panel = &w.packed[off..off + k * 16 * v];
-            off += k * 16 * v;
+        let k = w.k;
+        for (p0, cols, v, panel) in w.panels() {
             // SAFETY: the panel has k rows of 16v floats, `a` has k values and `out` has
             // columns p0..p0+cols.
             unsafe {
@@ -317,10 +309,8 @@ mod x86 {
         let [a0, a1, a2, a3] = acc;
         for (c, (((x0, x1), x2), x3)) in a0.iter().zip(&a1).zip(&a2).zip(&a3).enumerate() {
             let s = _mm512_add_ps(_mm512_add_ps(*x0, *x1), _mm512_add_ps(*x2, *x3));
-            let left = cols.saturating_sub(16 * c).min(16);
-            let mask: __mmask16 = if left == 16 { !0 } else { (1u16 << left) - 1 };
             // SAFETY: the first `cols` values from `out` are the caller's.
-            unsafe { _mm512_mask_storeu_ps(out.add(16 * c), mask, s) };
+            unsafe { _mm512_mask_storeu_ps(out.add(16 * c), lanes(cols, c), s) };
         }
     }
 
@@ -328,12 +318,7 @@ mod x86 {
     #[target_feature(enable = "avx512f")]
     pub(super) unsafe fn product(w: &NarrowF32, a: &[f32], m: usize, out: &mut [f32]) {
         let (k, n) = (w.k, w.n);
-        let mut off = 0;
-        for p0 in (0..n).step_by(PANEL) {
-            let cols = (n - p0).min(PANEL);
-            let v = cols.div_ceil(16);
-            let panel = &w.packed[off..off + k * 16 * v];
-            off += k * 16 * v;
+        for (p0, cols, v, panel) in w.panels() {
             // `k` in slices, so that a slice of the panel stays in cache while every row
             // block passes over it; each column's sum still runs over `k` in order.
             for k0 in (0..k).step_by(KC) {
@@ -409,9 +394,10 @@ mod tests {
         }
     }
 
-    /// The transposed constructor packs the same matrix.
+    /// The transpose the other levels use, unpacked from the panels (two of them here),
+    /// is the transpose of the matrix.
     #[test]
-    fn both_layouts_agree() {
+    fn unpacked_transpose_is_the_transpose() {
         let (k, n) = (11, 50);
         let w: Vec<f32> = (0..k * n).map(|i| i as f32 * 0.5 - 3.0).collect();
         let mut wt = vec![0f32; k * n];
@@ -420,13 +406,7 @@ mod tests {
                 wt[j * k + r] = w[r * n + j];
             }
         }
-        let (p, q) = (
-            NarrowF32::from_k_by_n(&w, k, n),
-            NarrowF32::from_n_by_k(&wt, n, k),
-        );
-        assert_eq!(p.plain_t(), q.plain_t());
-        assert_eq!(p.plain_t(), &wt[..]);
-        assert_eq!(p.packed, q.packed);
+        assert_eq!(NarrowF32::from_k_by_n(&w, k, n).plain_t(), &wt[..]);
     }
 
     /// `k = 0` gives zeros at every level.

@@ -128,8 +128,8 @@ impl CompiledModel {
             )));
         }
         check_scaling(scaling.as_ref(), d)?;
-        let head32: Vec<f32> = head.t().iter().map(|v| *v as f32).collect();
-        let head_narrow = linalg::NarrowF32::from_n_by_k(&head32, head.ncols(), head.nrows());
+        let head32: Vec<f32> = head.iter().map(|v| *v as f32).collect();
+        let head_narrow = linalg::NarrowF32::from_k_by_n(&head32, head.nrows(), head.ncols());
         let inv_scale = scaling
             .as_ref()
             .map(|s| s.scale.iter().map(|v| 1.0 / v).collect())
