@@ -6,7 +6,7 @@
 //! one side (the support vectors) so that scoring does not redo them per batch.
 
 use super::Kernel;
-use crate::linalg;
+use crate::linalg::{self, AlignedF32};
 use ndarray::{Array2, ArrayView2, Axis, Zip};
 
 /// One side of a Gram block with what every kernel in the expression needs precomputed.
@@ -228,23 +228,25 @@ enum Node32 {
     /// Scaled rows (row-major) and the squared norms of their f32 values (in f64 for
     /// the single-row path, rounded to f32 for the batches).
     Euclid {
-        scaled: Vec<f32>,
+        scaled: AlignedF32,
         sq: Vec<f64>,
         sq32: Vec<f32>,
     },
     L1 {
-        scaled: Vec<f32>,
+        scaled: AlignedF32,
     },
     Dot {
-        data: Vec<f32>,
+        data: AlignedF32,
         norms: Vec<f64>,
     },
     Many(Vec<Node32>),
     One(Box<Node32>),
 }
 
-fn to32(a: &Array2<f64>) -> Vec<f32> {
-    a.iter().map(|&v| v as f32).collect()
+/// The rows in f32 from a 64-byte boundary (rows of a multiple of 16 values, such as
+/// 784-pixel images, then all start on a cache line).
+fn to32(a: &Array2<f64>) -> AlignedF32 {
+    AlignedF32::from_iter_exact(a.len(), a.iter().map(|&v| v as f32))
 }
 
 fn sq_norms32(v: &[f32], d: usize) -> Vec<f64> {

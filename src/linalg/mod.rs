@@ -12,7 +12,9 @@ use rayon::prelude::*;
 
 use crate::{Error, Result};
 
+mod aligned;
 mod narrow;
+pub use aligned::AlignedF32;
 pub use narrow::NarrowF32;
 
 /// Rows per parallel chunk of a product. Fixed so results never depend on the thread count.

@@ -24,6 +24,7 @@
 //! assert_eq!(out, [4.0, 5.0]);
 //! ```
 
+use super::AlignedF32;
 use crate::simd::Level;
 
 /// Columns per panel: three 16-lane registers.
@@ -44,7 +45,7 @@ pub struct NarrowF32 {
     plain_t: std::sync::OnceLock<Vec<f32>>,
     /// Panels of [`PANEL`] columns (the last one narrower, rounded up to 16), each `k ×`
     /// its width, row-major, zero-padded.
-    packed: Vec<f32>,
+    packed: AlignedF32,
 }
 
 impl NarrowF32 {
@@ -55,14 +56,16 @@ impl NarrowF32 {
     #[track_caller]
     pub fn from_k_by_n(w: &[f32], k: usize, n: usize) -> NarrowF32 {
         assert_eq!(w.len(), k * n, "NarrowF32: shapes differ");
-        let mut packed = Vec::with_capacity(k * n.div_ceil(16) * 16);
+        // Every panel row is a whole number of 64-byte lines (16 floats), so from an
+        // aligned start every row is aligned.
+        let mut packed = AlignedF32::from_iter_exact(k * n.div_ceil(16) * 16, []);
+        let mut at = 0;
         for p0 in (0..n).step_by(PANEL) {
             let cols = (n - p0).min(PANEL);
             let width = cols.div_ceil(16) * 16;
             for r in 0..k {
-                let row = &w[r * n + p0..r * n + p0 + cols];
-                packed.extend_from_slice(row);
-                packed.extend(std::iter::repeat_n(0.0, width - cols));
+                packed[at..at + cols].copy_from_slice(&w[r * n + p0..r * n + p0 + cols]);
+                at += width;
             }
         }
         NarrowF32 {

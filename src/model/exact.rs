@@ -212,10 +212,7 @@ impl ExactModel {
         );
         let xs = self.scale_inputs(x);
         let p32 = self.prepared32();
-        let coef32 = self.coef32.get_or_init(|| {
-            let c: Vec<f32> = self.coef.iter().map(|&v| v as f32).collect();
-            linalg::NarrowF32::from_k_by_n(&c, self.coef.nrows(), self.coef.ncols())
-        });
+        let coef32 = self.coef32();
         let k = self.coef.ncols();
         linalg::map_row_chunks(xs.view(), k, |chunk| {
             let g = self.kernel.gram_block_f32(chunk, p32);
@@ -240,10 +237,21 @@ impl ExactModel {
             .collect()
     }
 
-    /// Decision values for one row with the support vectors read in f32 (half the bytes of
-    /// [`Self::decision_one`]; the f32 copy is made on first use): products in f32, kernel
-    /// profiles, coefficient sums and intercepts in f64. Decisions differ from the f64
-    /// path by about the f32 rounding of the products (the report measures the agreement).
+    /// The coefficients in f32, packed for the narrow product on first use.
+    fn coef32(&self) -> &linalg::NarrowF32 {
+        self.coef32.get_or_init(|| {
+            let c: Vec<f32> = self.coef.iter().map(|&v| v as f32).collect();
+            linalg::NarrowF32::from_k_by_n(&c, self.coef.nrows(), self.coef.ncols())
+        })
+    }
+
+    /// Decision values for one row in f32, as a single-precision server runs it: the
+    /// support vectors read in f32 (half the bytes of [`Self::decision_one`]; the f32 copy
+    /// is made on first use), the kernel profile from f32 products, and the coefficient
+    /// sums in f32 with the same narrow product as the compiled model's head
+    /// ([`linalg::NarrowF32`]); intercepts added in f64. Decisions differ from the f64
+    /// path by about the f32 rounding of the products and sums (the report measures the
+    /// agreement).
     pub fn decision_one_f32(&self, x: &[f64]) -> Vec<f64> {
         let p32 = self.prepared32();
         let row = ndarray::ArrayView2::from_shape((1, x.len()), x).expect("one row");
@@ -251,9 +259,13 @@ impl ExactModel {
         let mut g = vec![0.0; p32.rows()];
         self.kernel
             .row_f32(xs.as_slice().expect("a fresh row"), p32, &mut g);
-        let mut out = self.intercept.clone();
-        linalg::add_weighted_rows(&g, self.coef.as_slice().expect("standard layout"), &mut out);
-        out
+        let g32: Vec<f32> = g.iter().map(|&v| v as f32).collect();
+        let mut s = vec![0f32; self.intercept.len()];
+        self.coef32().product(&g32, &mut s);
+        s.iter()
+            .zip(&self.intercept)
+            .map(|(v, b)| *v as f64 + b)
+            .collect()
     }
 
     fn parts(&self) -> &super::parts::Parts {
