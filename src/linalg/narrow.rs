@@ -58,7 +58,7 @@ impl NarrowF32 {
         assert_eq!(w.len(), k * n, "NarrowF32: shapes differ");
         // Every panel row is a whole number of 64-byte lines (16 floats), so from an
         // aligned start every row is aligned.
-        let mut packed = AlignedF32::from_iter_exact(k * n.div_ceil(16) * 16, []);
+        let mut packed = AlignedF32::zeros(k * n.div_ceil(16) * 16);
         let mut at = 0;
         for p0 in (0..n).step_by(PANEL) {
             let cols = (n - p0).min(PANEL);
