@@ -270,8 +270,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     res.insert("fmnist_speedup_batch".into(), json!(batch));
     res.insert("fmnist_speedup_batch_f64".into(), json!(batch_f64));
     res.insert("fmnist_agreement".into(), json!(agree));
-    // The exact model's f32 single-row path reads its support vectors in f32 and its
-    // coefficients in f64.
+    // The exact model's f32 single-row path reads its support vectors and its (packed)
+    // coefficients in f32.
     let bytes = exact.bytes_per_prediction(true) as f64;
     res.insert(
         "exact_single_bandwidth_fraction".into(),

@@ -322,11 +322,16 @@ impl ExactModel {
         self.parts().share(needed)
     }
 
-    /// Bytes one single-row prediction reads: the support vectors (f64, or f32 with
-    /// `f32`) and the coefficients (f64).
+    /// Bytes one single-row prediction reads: the support vectors and the coefficients,
+    /// in f64, or with `f32` both in f32 (the coefficients as the narrow product packs
+    /// them, outputs padded to a multiple of 16).
     pub fn bytes_per_prediction(&self, f32: bool) -> usize {
-        let sv = self.support_vectors.len() * if f32 { 4 } else { 8 };
-        sv + 8 * self.coef.len()
+        if f32 {
+            let padded = self.coef.ncols().div_ceil(16) * 16;
+            4 * (self.support_vectors.len() + self.coef.nrows() * padded)
+        } else {
+            8 * (self.support_vectors.len() + self.coef.len())
+        }
     }
 
     /// Labels for decision values (empty strings for regression).
