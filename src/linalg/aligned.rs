@@ -9,7 +9,7 @@
 //! µs from a 16-byte start; a one-row product over a 0.79 MB matrix read from L2 alone ran
 //! about 20% faster (3.4–4.4 against 4.8–5.7 µs).
 //!
-//! Large buffers ([`HUGE_MIN_BYTES`] and more) are also asked for in 2 MiB pages
+//! Large buffers (512 KiB and more) are also asked for in 2 MiB pages
 //! (`madvise(MADV_HUGEPAGE)` on Linux, before the memory is first written; where the
 //! system declines, they stay in 4 KiB pages). Physically contiguous pages spread a matrix
 //! evenly over the sets of a physically indexed cache, so one that fits in the L2 cache
@@ -21,12 +21,12 @@ use std::alloc::Layout;
 use std::ptr::NonNull;
 
 /// Buffers of at least this many bytes are placed in 2 MiB pages where the system allows.
-pub const HUGE_MIN_BYTES: usize = 512 << 10;
+pub(crate) const HUGE_MIN_BYTES: usize = 512 << 10;
 
 const HUGE: usize = 2 << 20;
 
 /// A fixed-length run of f32 values whose first value is 64-byte aligned (2 MiB aligned,
-/// in huge pages where the system allows, from [`HUGE_MIN_BYTES`] on); it reads as a
+/// in huge pages where the system allows, from 512 KiB on); it reads as a
 /// slice.
 ///
 /// ```
