@@ -102,6 +102,14 @@ macro_rules! step_enum {
             fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
                 match self { $(Step::$variant(s) => s.apply_row32(x, y)),* }
             }
+            #[inline(always)]
+            fn in_place32(&self) -> bool {
+                match self { $(Step::$variant(_) => <$ty as Op>::IN_PLACE32),* }
+            }
+            #[inline(always)]
+            fn apply_row32_in_place(&self, x: &mut [f32]) {
+                match self { $(Step::$variant(s) => s.apply_row32_in_place(x)),* }
+            }
             /// Cost per row for the given input and output widths.
             pub fn cost(&self, ins: &[usize], out: usize) -> Cost {
                 match self { $(Step::$variant(s) => s.cost(ins, out)),* }
@@ -506,8 +514,12 @@ impl Program {
         let last = self.instrs.len().saturating_sub(1);
         for (i, ins) in self.instrs[..last].iter().enumerate() {
             let (din, dout) = (self.dims[i], self.dims[i + 1]);
-            ins.step.apply_row32(&a[..din], &mut b[..dout]);
-            std::mem::swap(&mut a, &mut b);
+            if ins.step.in_place32() {
+                ins.step.apply_row32_in_place(&mut a[..din]);
+            } else {
+                ins.step.apply_row32(&a[..din], &mut b[..dout]);
+                std::mem::swap(&mut a, &mut b);
+            }
         }
         let Some(ins) = self.instrs.last() else {
             if let Some(o) = out {

@@ -81,6 +81,15 @@ pub(crate) trait Op: Sized {
         unreachable!("{} has no f32 form", Self::NAME)
     }
 
+    /// Whether [`Op::apply_row32_in_place`] exists (output as wide as the input).
+    const IN_PLACE32: bool = false;
+
+    /// [`Op::apply_row32`] over its own input (steps with [`Op::IN_PLACE32`]): the row
+    /// runner uses it between steps, saving a copy into the other scratch half.
+    fn apply_row32_in_place(&self, _x: &mut [f32]) {
+        unreachable!("{} has no in-place f32 form", Self::NAME)
+    }
+
     /// Steps with several inputs.
     fn apply_many(&self, _xs: &[ArrayView2<f64>]) -> Array2<f64> {
         unreachable!("{} takes one input", Self::NAME)

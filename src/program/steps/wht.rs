@@ -48,7 +48,12 @@ impl Op for Wht {
     #[inline(always)]
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         y.copy_from_slice(x);
-        y.chunks_exact_mut(self.block).for_each(wht_in_place);
+        self.apply_row32_in_place(y);
+    }
+    const IN_PLACE32: bool = true;
+    #[inline(always)]
+    fn apply_row32_in_place(&self, x: &mut [f32]) {
+        x.chunks_exact_mut(self.block).for_each(wht_in_place);
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {
