@@ -18,6 +18,10 @@
 //!   the vectorised f32 exponential; the f64 batch ratio is kept as
 //!   `fmnist_speedup_batch_f64`), and the label agreement with the f64 exact model of the
 //!   compiled model's f32 paths (the lower of the single-row and the batched figure).
+//! - `compiled_single_head_us`, `compiled_single_vs_head`, `fmnist_speedup_single_head_bound`:
+//!   the best model's f32 head product alone on one row (its weights read from the cache),
+//!   the whole f32 single row ÷ that (1 would be a row that costs only its head), and the
+//!   exact f32 single row ÷ that (the single-row speedup if the features cost nothing).
 //! - `compile_rows_ratio`: compile time at 60,000 calibration rows ÷ at 20,000 (linear
 //!   growth gives 3).
 //! - `compile_vs_gemm_floor`: the 60,000-row compile's wall time ÷ the time its `ZᵀZ`
@@ -222,7 +226,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         timing: true,
         ..ReportOptions::default()
     };
-    let mut best: Option<(String, f64, f64, f64)> = None;
+    let mut best: Option<(String, f64, f64, f64, f64, f64)> = None;
     let mut exact_p50 = (f64::NAN, f64::NAN);
     let mut batch_f64 = f64::NAN;
     for (name, m) in [("hadamard", &had), ("fastfood", &ff)] {
@@ -260,11 +264,27 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                    "latency_us_compiled_p50": t.latency_us_compiled_p50}),
         );
         if best.as_ref().is_none_or(|b| single > b.1) {
-            best = Some((name.to_string(), single, batch, agree));
+            let c32 = t.latency_us_compiled_f32_p50.unwrap_or(nan);
+            best = Some((name.to_string(), single, batch, agree, c32, exact_p50.1));
             batch_f64 = t.speedup_batch.unwrap_or(nan);
         }
     }
-    let (name, single, batch, agree) = best.expect("two candidates");
+    let (name, single, batch, agree, c32, e32) = best.expect("two candidates");
+    // The best model's f32 head product alone, on one row of its features: the part of
+    // the single row that reads its 4,096 × 45 weights from the cache, the floor under
+    // the whole row (features, head, intercepts).
+    let head_us = head_alone_p50_us(if name == "hadamard" { &had } else { &ff }, xte.view());
+    res.insert("compiled_single_head_us".into(), json!(head_us));
+    res.insert("compiled_single_vs_head".into(), json!(c32 / head_us));
+    res.insert(
+        "fmnist_speedup_single_head_bound".into(),
+        json!(e32 / head_us),
+    );
+    say(&format!(
+        "{name} single row {c32:.2} µs, its head alone {head_us:.2} µs ({:.2}×): speedup bound with free features {:.1}×",
+        c32 / head_us,
+        e32 / head_us
+    ));
     res.insert("fmnist_best".into(), json!(name));
     res.insert("fmnist_speedup_single".into(), json!(single));
     res.insert("fmnist_speedup_batch".into(), json!(batch));
@@ -290,4 +310,30 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     std::fs::write(&out, format!("{text}\n"))?;
     say(&format!("wrote {out}"));
     Ok(())
+}
+
+/// Median time (µs) of the compiled model's f32 head product on one row of its f32
+/// features (a test image's), timed call by call like the single-row latencies.
+fn head_alone_p50_us(m: &kernelpress::model::CompiledModel, x: ndarray::ArrayView2<f64>) -> f64 {
+    let h = m.head();
+    let w: Vec<f32> = h.iter().map(|v| *v as f32).collect();
+    let head = kernelpress::linalg::NarrowF32::from_k_by_n(&w, h.nrows(), h.ncols());
+    let row = x.row(0).to_vec();
+    let z = m
+        .program()
+        .apply_one_f32(&row)
+        .unwrap_or_else(|| vec![0.5; h.nrows()]);
+    let mut out = vec![0f32; h.ncols()];
+    for _ in 0..200 {
+        head.product(std::hint::black_box(&z), &mut out);
+    }
+    let mut t = Vec::with_capacity(20_000);
+    for _ in 0..20_000 {
+        let t0 = Instant::now();
+        head.product(std::hint::black_box(&z), &mut out);
+        std::hint::black_box(&out);
+        t.push(t0.elapsed().as_secs_f64() * 1e6);
+    }
+    t.sort_by(|a, b| a.total_cmp(b));
+    t[t.len() / 2]
 }
