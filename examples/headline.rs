@@ -313,12 +313,17 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
 }
 
 /// Median time (µs) of the compiled model's f32 head product on one row of its f32
-/// features (a test image's), timed call by call like the single-row latencies.
+/// features (the first test image's, standardised as the model does), timed call by call
+/// like the single-row latencies.
 fn head_alone_p50_us(m: &kernelpress::model::CompiledModel, x: ndarray::ArrayView2<f64>) -> f64 {
     let h = m.head();
     let w: Vec<f32> = h.iter().map(|v| *v as f32).collect();
     let head = kernelpress::linalg::NarrowF32::from_k_by_n(&w, h.nrows(), h.ncols());
-    let row = x.row(0).to_vec();
+    let first = x.slice(s![..1, ..]);
+    let row = match m.scaling() {
+        Some(sc) => sc.apply(first).row(0).to_vec(),
+        None => first.row(0).to_vec(),
+    };
     let z = m
         .program()
         .apply_one_f32(&row)
