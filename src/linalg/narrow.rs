@@ -58,7 +58,7 @@ impl NarrowF32 {
         assert_eq!(w.len(), k * n, "NarrowF32: shapes differ");
         // Every panel row is a whole number of 64-byte lines (16 floats), so from an
         // aligned start every row is aligned.
-        let mut packed = AlignedF32::zeros(k * n.div_ceil(16) * 16);
+        let mut packed = AlignedF32::zeros(Self::packed_len(k, n));
         let mut at = 0;
         for p0 in (0..n).step_by(PANEL) {
             let cols = (n - p0).min(PANEL);
@@ -74,6 +74,12 @@ impl NarrowF32 {
             plain_t: std::sync::OnceLock::new(),
             packed,
         }
+    }
+
+    /// Values the packed form of a `k × n` matrix holds (every panel row padded to whole
+    /// 16-lane registers): what a one-row product reads.
+    pub(crate) fn packed_len(k: usize, n: usize) -> usize {
+        k * n.div_ceil(16) * 16
     }
 
     /// The panels in order: first column, columns, 16-lane registers `v`, and the panel's

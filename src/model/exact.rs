@@ -327,8 +327,8 @@ impl ExactModel {
     /// them, outputs padded to a multiple of 16).
     pub fn bytes_per_prediction(&self, f32: bool) -> usize {
         if f32 {
-            let padded = self.coef.ncols().div_ceil(16) * 16;
-            4 * (self.support_vectors.len() + self.coef.nrows() * padded)
+            let coef = linalg::NarrowF32::packed_len(self.coef.nrows(), self.coef.ncols());
+            4 * (self.support_vectors.len() + coef)
         } else {
             8 * (self.support_vectors.len() + self.coef.len())
         }
