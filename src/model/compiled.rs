@@ -172,6 +172,11 @@ impl CompiledModel {
     pub fn head(&self) -> ArrayView2<'_, f64> {
         self.head.view()
     }
+    /// The head in f32, packed as the f32 single-row and batch paths read it (converted
+    /// once when the model was built).
+    pub fn head_f32(&self) -> &linalg::NarrowF32 {
+        &self.head_narrow
+    }
     /// Intercepts.
     pub fn intercept(&self) -> &[f64] {
         &self.intercept
