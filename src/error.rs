@@ -147,3 +147,57 @@ pub(crate) fn io_error(path: &std::path::Path, what: &str, e: std::io::Error) ->
         _ => Error::io(msg),
     }
 }
+
+/// Levenshtein distance (for suggestions).
+fn distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut cur = vec![i + 1];
+        for (j, cb) in b.iter().enumerate() {
+            let sub = prev[j] + usize::from(ca != *cb);
+            cur.push(sub.min(prev[j + 1] + 1).min(cur[j] + 1));
+        }
+        prev = cur;
+    }
+    prev[b.len()]
+}
+
+/// The candidate within two edits of `name` (or a third of its length, for long names),
+/// if any: the nearest, first on ties. Used by every "did you mean" in error messages.
+pub(crate) fn closest<'a>(name: &str, candidates: &[&'a str]) -> Option<&'a str> {
+    let limit = 2.max(name.chars().count() / 3);
+    candidates
+        .iter()
+        .map(|c| (distance(name, c), *c))
+        .filter(|(d, _)| *d <= limit)
+        .min_by_key(|(d, _)| *d)
+        .map(|(_, c)| c)
+}
+
+/// `" — did you mean 'X'?"` for the closest candidate, or nothing.
+pub(crate) fn did_you_mean(name: &str, candidates: &[&str]) -> String {
+    closest(name, candidates)
+        .map(|c| format!(" — did you mean '{c}'?"))
+        .unwrap_or_default()
+}
+
+#[cfg(test)]
+mod suggestion_tests {
+    use super::*;
+
+    #[test]
+    fn nearest_name_within_reach() {
+        assert_eq!(closest("tayler", &["fourier", "taylor"]), Some("taylor"));
+        assert_eq!(
+            closest("conditon", &["vib_rms", "condition"]),
+            Some("condition")
+        );
+        assert_eq!(closest("zzz", &["fourier", "taylor"]), None);
+        assert_eq!(
+            did_you_mean("hadamrd", &["hadamard"]),
+            " — did you mean 'hadamard'?"
+        );
+        assert_eq!(did_you_mean("x", &["hadamard"]), "");
+    }
+}

@@ -12,10 +12,17 @@ fn demo_model() -> String {
 fn missing_and_empty_files() {
     let dir = tmpdir("missing_and_empty_files");
     let out = dir.join("out.csv");
-    let e = bad(&["score", "nope.safetensors", "--data", "x.csv"]);
+    let e = bad(&[
+        "score",
+        "--decisions",
+        "nope.safetensors",
+        "--data",
+        "x.csv",
+    ]);
     assert!(e.contains("nope.safetensors"), "{e}");
     let e = bad(&[
         "score",
+        "--decisions",
         &demo_model(),
         "--data",
         s(&dir.join("missing.csv")),
@@ -27,6 +34,7 @@ fn missing_and_empty_files() {
     std::fs::write(&empty, "").unwrap();
     let e = bad(&[
         "score",
+        "--decisions",
         &demo_model(),
         "--data",
         s(&empty),
@@ -34,7 +42,7 @@ fn missing_and_empty_files() {
         s(&out),
     ]);
     assert!(e.contains("empty"), "{e}");
-    let e = bad(&["score", s(&empty), "--data", s(&empty)]);
+    let e = bad(&["score", "--decisions", s(&empty), "--data", s(&empty)]);
     assert!(e.contains("empty"), "{e}");
     assert!(!out.exists());
 }
@@ -126,10 +134,19 @@ fn wrong_feature_count() {
     let p = dir.join("d.csv");
     std::fs::write(&p, "a,b\n1,2\n").unwrap();
     let out = dir.join("o.csv");
-    let e = bad(&["score", &demo_model(), "--data", s(&p), "--out", s(&out)]);
+    let e = bad(&[
+        "score",
+        "--decisions",
+        &demo_model(),
+        "--data",
+        s(&p),
+        "--out",
+        s(&out),
+    ]);
     assert!(e.contains("'vib_rms'") && e.contains("are missing"), "{e}");
     let e = bad(&[
         "score",
+        "--decisions",
         &demo_model(),
         "--data",
         s(&p),
@@ -183,7 +200,7 @@ fn truncated_corrupted_and_absurd_model_files() {
     for (name, bytes, needle) in cases {
         let p = dir.join(name);
         std::fs::write(&p, bytes).unwrap();
-        let e = bad(&["score", s(&p), "--data", &data]);
+        let e = bad(&["score", "--decisions", s(&p), "--data", &data]);
         assert!(e.contains(name) && e.contains(needle), "{name}: {e}");
         let e = bad(&["inspect", s(&p)]);
         assert!(e.contains(name), "{e}");
@@ -197,7 +214,7 @@ fn truncated_corrupted_and_absurd_model_files() {
     f.manifest["input"]["dim"] = serde_json::json!(7);
     let p = dir.join("liar.safetensors");
     f.write(&p).unwrap();
-    let e = bad(&["score", s(&p), "--data", &data]);
+    let e = bad(&["score", "--decisions", s(&p), "--data", &data]);
     assert!(e.contains("liar.safetensors") && e.contains("names"), "{e}");
     let mut f = m.to_file();
     f.manifest["input"]["scaling"] = serde_json::json!("none");
@@ -212,7 +229,7 @@ fn truncated_corrupted_and_absurd_model_files() {
     f.manifest["program"]["steps"][0]["inputs"] = serde_json::json!([1]);
     let p = dir.join("forward.safetensors");
     f.write(&p).unwrap();
-    let e = bad(&["score", s(&p), "--data", &data]);
+    let e = bad(&["score", "--decisions", s(&p), "--data", &data]);
     assert!(e.contains("not an earlier value"), "{e}");
 }
 

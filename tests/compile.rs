@@ -61,6 +61,7 @@ fn compile_report_score_agree_and_match_numpy() {
         let se = dir.join("se.csv");
         ok(&[
             "score",
+            "--decisions",
             s(&out),
             "--data",
             s(&test),
@@ -71,6 +72,7 @@ fn compile_report_score_agree_and_match_numpy() {
         ]);
         ok(&[
             "score",
+            "--decisions",
             s(&exact),
             "--data",
             s(&test),
@@ -178,6 +180,13 @@ fn report_measures_latency_and_warns_below_tolerance() {
     assert!(o.status.success());
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(err.contains("warning: label agreement"), "{err}");
+    // Each warning once, on stderr only, in lower case (no shouting, no second copy).
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert!(!stdout.to_lowercase().contains("warning"), "{stdout}");
+    assert_eq!(err.matches("warning: label agreement").count(), 1, "{err}");
+    for line in err.lines().filter(|l| l.starts_with("warning: ")) {
+        assert_eq!(err.matches(line).count(), 1, "repeated: {line}\n{err}");
+    }
     let r: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
     assert_eq!(r["agreement_below_min"], true);
@@ -202,7 +211,8 @@ fn report_measures_latency_and_warns_below_tolerance() {
         "0.5",
     ]);
     assert!(
-        text.contains("× faster") && !text.contains("WARNING"),
+        (text.contains("× faster") || text.contains("× slower") || text.contains("as fast"))
+            && !text.to_lowercase().contains("warning"),
         "{text}"
     );
 }
@@ -316,6 +326,7 @@ fn labels_mode_fits_without_a_teacher() {
     assert!(acc > 0.7, "{text}");
     let sc = ok(&[
         "score",
+        "--decisions",
         s(&out),
         "--data",
         s(&root().join("models/pump_test.csv")),
@@ -324,7 +335,7 @@ fn labels_mode_fits_without_a_teacher() {
     ]);
     assert!(
         sc.starts_with(
-            "decision_bearing_wear,decision_healthy,decision_imbalance,decision_misalignment,label"
+            "label,margin,score_bearing_wear,score_healthy,score_imbalance,score_misalignment,decision_bearing_wear,decision_healthy,decision_imbalance,decision_misalignment\n"
         ),
         "{}",
         &sc[..80]

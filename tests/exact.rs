@@ -80,6 +80,7 @@ fn ridge_regression_matches_numpy_solve() {
     let score = dir.join("score.csv");
     ok(&[
         "score",
+        "--decisions",
         s(&model),
         "--data",
         s(&test),
@@ -120,6 +121,7 @@ fn ridge_classification_matches_numpy_solve() {
     let score = dir.join("score.csv");
     ok(&[
         "score",
+        "--decisions",
         s(&model),
         "--data",
         s(&train),
@@ -218,6 +220,7 @@ fn svm_matches_independent_scipy_qp() {
     let score = dir.join("score.csv");
     ok(&[
         "score",
+        "--decisions",
         s(&model),
         "--data",
         s(&test),
@@ -281,6 +284,7 @@ fn multiclass_svm_file_is_read_by_python_and_deterministic() {
     let score = dir.join("score.csv");
     ok(&[
         "score",
+        "--decisions",
         s(&m1),
         "--data",
         s(&root().join("models/pump_test.csv")),
@@ -328,14 +332,22 @@ fn import_from_arrays_scores_like_the_formula() {
     ]);
     let data = dir.join("d.csv");
     std::fs::write(&data, "p,q\n0,0\n1,1\n").unwrap();
-    let out = ok(&["score", s(&model), "--data", s(&data)]);
+    let out = ok(&["score", "--decisions", s(&model), "--data", s(&data)]);
     let lines: Vec<&str> = out.lines().collect();
-    assert_eq!(lines[0], "decision_worn_vs_ok,label");
+    assert_eq!(
+        lines[0],
+        "label,margin,score_ok,score_worn,decision_worn_vs_ok"
+    );
     // By hand: f(0,0) = 1 − 2e^{−½} + 0.5e^{−2} − 0.25.
     let f0: f64 = 1.0 - 2.0 * (-0.5f64).exp() + 0.5 * (-2.0f64).exp() - 0.25;
-    let got: f64 = lines[1].split(',').next().unwrap().parse().unwrap();
+    let cells: Vec<&str> = lines[1].split(',').collect();
+    let got: f64 = cells[4].parse().unwrap();
     assert!((got - f0).abs() < 1e-12);
-    assert!(lines[1].ends_with(if f0 > 0.0 { "worn" } else { "ok" }));
+    assert_eq!(cells[0], if f0 > 0.0 { "worn" } else { "ok" });
+    // The class scores: ±half the decision, the margin its size.
+    assert_eq!(cells[1].parse::<f64>().unwrap(), got.abs());
+    assert_eq!(cells[3].parse::<f64>().unwrap(), 0.5 * got);
+    assert_eq!(cells[2].parse::<f64>().unwrap(), -0.5 * got);
     py(
         "score_file.py",
         &[

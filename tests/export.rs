@@ -168,6 +168,7 @@ fn score(d: &Data, model: &Path, name: &str) -> PathBuf {
     let sc = d.dir.join(format!("score_{name}.csv"));
     ok(&[
         "score",
+        "--decisions",
         s(model),
         "--data",
         s(&d.test),
@@ -230,7 +231,7 @@ fn compare(model: &Path, sc: &Path, printed: &str, test: &Path) {
     let score_labels: Vec<String> = labels
         .lines()
         .skip(1)
-        .map(|l| l.rsplit(',').next().unwrap().to_string())
+        .map(|l| l.split(',').next().unwrap().to_string())
         .collect();
     let k = m.n_outputs();
     let mut worst = 0.0f64;
@@ -516,6 +517,7 @@ fn onnx_svms_import_and_score_like_onnxruntime() {
         ok(&["import", "--onnx", s(&p), "--out", s(&model)]);
         ok(&[
             "score",
+            "--decisions",
             s(&model),
             "--data",
             s(&dir.join(format!("{name}_x.csv"))),

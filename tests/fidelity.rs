@@ -175,6 +175,7 @@ fn the_bandwidth_search_is_recorded_and_can_be_switched_off() {
     head_lines(&root().join("models/pump_test.csv"), &test, 200);
     let sc = ok(&[
         "score",
+        "--decisions",
         s(&d.join("tuned.safetensors")),
         "--data",
         s(&test),

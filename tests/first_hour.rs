@@ -32,6 +32,7 @@ fn columns_are_matched_by_name() {
     let sw = swapped(&dir, 3000);
     let a = ok(&[
         "score",
+        "--decisions",
         s(&demo()),
         "--data",
         s(&test),
@@ -40,6 +41,7 @@ fn columns_are_matched_by_name() {
     ]);
     let b = ok(&[
         "score",
+        "--decisions",
         s(&demo()),
         "--data",
         s(&sw),
@@ -49,6 +51,7 @@ fn columns_are_matched_by_name() {
     assert_eq!(a, b, "swapping two columns must not change any score");
     let c = ok(&[
         "score",
+        "--decisions",
         s(&demo()),
         "--data",
         s(&sw),
@@ -59,14 +62,14 @@ fn columns_are_matched_by_name() {
     let changed = a
         .lines()
         .zip(c.lines())
-        .filter(|(x, y)| x.rsplit(',').next() != y.rsplit(',').next())
+        .filter(|(x, y)| x.split(',').next() != y.split(',').next())
         .count();
     assert!(
         changed > 500,
         "by position the swap changes labels ({changed})"
     );
     // Extra columns are ignored with a note; a missing one is an error naming it.
-    let o = run(&["score", s(&demo()), "--data", s(&test)]);
+    let o = run(&["score", "--decisions", s(&demo()), "--data", s(&test)]);
     assert!(o.status.success());
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(err.contains("ignored column 'condition'"), "{err}");
@@ -80,6 +83,7 @@ fn columns_are_matched_by_name() {
     std::fs::write(&p, cut).unwrap();
     let e = bad(&[
         "score",
+        "--decisions",
         s(&demo()),
         "--data",
         s(&p),
@@ -93,7 +97,7 @@ fn columns_are_matched_by_name() {
     ] {
         let p = dir.join(name);
         std::fs::write(&p, head).unwrap();
-        let e = bad(&["score", s(&demo()), "--data", s(&p)]);
+        let e = bad(&["score", "--decisions", s(&demo()), "--data", s(&p)]);
         assert!(
             e.contains("appears twice") || e.contains("has no name"),
             "{e}"
@@ -105,7 +109,14 @@ fn columns_are_matched_by_name() {
 fn errors_point_at_the_fix() {
     let dir = tmpdir("errors_point_at_the_fix");
     let test = root().join("models/pump_test.csv");
-    let e = bad(&["score", s(&demo()), "--data", s(&test), "--by-position"]);
+    let e = bad(&[
+        "score",
+        "--decisions",
+        s(&demo()),
+        "--data",
+        s(&test),
+        "--by-position",
+    ]);
     assert!(
         e.contains("'condition' is not one of the model's features")
             && e.contains("--target condition"),
@@ -314,13 +325,25 @@ fn the_report_reads_like_a_report() {
     for needle in [
         "0.9950 (95% interval 0.9918–0.9970)",
         "share of rows given the same label",
-        " KB",
+        " KiB",
         " µs",
         "rows/s",
-        "× faster",
         "decisions that change",
     ] {
         assert!(text.contains(needle), "missing '{needle}' in\n{text}");
+    }
+    // Speed ratios in words that mean what they say: never "0.9× faster".
+    assert!(
+        text.contains("× faster") || text.contains("× slower"),
+        "{text}"
+    );
+    for w in text.split_whitespace().filter(|w| w.ends_with('×')) {
+        if let Ok(v) = w.trim_end_matches('×').parse::<f64>() {
+            assert!(
+                v >= 1.0 || text.contains("the kernel's bandwidth"),
+                "ratio {w} in\n{text}"
+            );
+        }
     }
     assert!(!text.contains("—"));
     let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&j).unwrap()).unwrap();
@@ -400,6 +423,7 @@ fn score_columns_say_which_class_a_positive_value_favours() {
     let test = root().join("models/pump_test.csv");
     let o = ok(&[
         "score",
+        "--decisions",
         s(&demo()),
         "--data",
         s(&test),
@@ -407,21 +431,21 @@ fn score_columns_say_which_class_a_positive_value_favours() {
         "condition",
     ]);
     let head: Vec<&str> = o.lines().next().unwrap().split(',').collect();
-    assert_eq!(head[0], "decision_bearing_wear_vs_healthy");
-    assert_eq!(head[5], "decision_imbalance_vs_misalignment");
-    assert_eq!(*head.last().unwrap(), "label");
+    assert_eq!(head[0], "label");
+    assert_eq!(head[6], "decision_bearing_wear_vs_healthy");
+    assert_eq!(head[11], "decision_imbalance_vs_misalignment");
     // The rule: a positive decision_A_vs_B is a vote for A; the label has the most votes.
     for line in o.lines().skip(1).take(200) {
         let v: Vec<&str> = line.split(',').collect();
         let mut votes = std::collections::HashMap::new();
-        for (c, name) in head.iter().enumerate().take(6) {
+        for (c, name) in head.iter().enumerate().skip(6) {
             let pair = name.trim_start_matches("decision_");
             let (a, b) = pair.split_once("_vs_").unwrap();
             let x: f64 = v[c].parse().unwrap();
             *votes.entry(if x > 0.0 { a } else { b }).or_insert(0) += 1;
         }
         let most = votes.values().max().unwrap();
-        assert_eq!(votes[v[6]], *most, "{line}");
+        assert_eq!(votes[v[0]], *most, "{line}");
     }
 }
 
@@ -456,6 +480,25 @@ fn train_chooses_c_when_asked_and_prints_the_grid() {
             .count(),
         15
     );
+    // Each grid line's words match its kernel: γ ×2 is a larger γ, a narrower kernel.
+    for l in o.lines().filter(|l| l.trim_start().starts_with("C = ")) {
+        let gamma: f64 = l
+            .split("gamma=")
+            .nth(1)
+            .unwrap()
+            .trim_end_matches(')')
+            .parse()
+            .unwrap();
+        let word = if gamma > 0.25 {
+            "γ ×2 (narrower"
+        } else if gamma < 0.25 {
+            "γ ×0.5 (wider"
+        } else {
+            "γ ×1 (as given"
+        };
+        assert!(l.contains(word), "{l}");
+        assert!(!l.contains("width"), "{l}");
+    }
     let j: serde_json::Value = serde_json::from_str(&ok(&["inspect", s(&out), "--json"])).unwrap();
     assert_eq!(
         j["manifest"]["training"]["grid"].as_array().unwrap().len(),
@@ -480,4 +523,141 @@ fn kernel_check_columns_line_up() {
             "misaligned: {l}"
         );
     }
+}
+
+/// Parses `score` CSV output (no quoted fields) into a header and rows.
+fn parse_csv(text: &str) -> (Vec<String>, Vec<Vec<String>>) {
+    let mut lines = text.lines();
+    let head = lines.next().unwrap().split(',').map(String::from).collect();
+    let rows = lines
+        .map(|l| l.split(',').map(String::from).collect())
+        .collect();
+    (head, rows)
+}
+
+#[test]
+fn score_shows_the_label_then_one_column_per_class() {
+    let dir = tmpdir("score_shows_the_label_then_one_column_per_class");
+    let test = dir.join("test.csv");
+    head_lines(&root().join("models/pump_test.csv"), &test, 400);
+    let plain = ok(&[
+        "score",
+        s(&demo()),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+    ]);
+    let (h, rows) = parse_csv(&plain);
+    let classes = ["bearing_wear", "healthy", "imbalance", "misalignment"];
+    let mut want = vec!["label".to_string(), "margin".to_string()];
+    want.extend(classes.iter().map(|c| format!("wins_{c}")));
+    assert_eq!(h, want, "no pairwise columns by default");
+    // The raw decisions behind --decisions, in the documented pair order.
+    let full = ok(&[
+        "score",
+        s(&demo()),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+        "--decisions",
+    ]);
+    let (hf, full_rows) = parse_csv(&full);
+    assert_eq!(&hf[..6], &want[..]);
+    assert_eq!(hf[6], "decision_bearing_wear_vs_healthy");
+    assert_eq!(hf[11], "decision_imbalance_vs_misalignment");
+    assert_eq!(rows.len(), 400);
+    let mut lost_a_contest = 0;
+    for (r, f) in rows.iter().zip(&full_rows) {
+        assert_eq!(r[..], f[..6]);
+        // Recompute the class columns from the pairwise decisions by the rule the help
+        // states: positive favours the first class of the pair; most wins, ties to the
+        // earlier label; margin = the winner's closest contest, signed for the winner.
+        let d: Vec<f64> = f[6..12].iter().map(|v| v.parse().unwrap()).collect();
+        let mut wins = [0usize; 4];
+        let pairs = [(0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3)];
+        for (p, &(i, j)) in pairs.iter().enumerate() {
+            wins[if d[p] > 0.0 { i } else { j }] += 1;
+        }
+        let win = (0..4).fold(0, |b, c| if wins[c] > wins[b] { c } else { b });
+        assert_eq!(r[0], classes[win]);
+        for c in 0..4 {
+            assert_eq!(r[2 + c].parse::<f64>().unwrap(), wins[c] as f64);
+        }
+        let margin = pairs
+            .iter()
+            .enumerate()
+            .filter(|(_, &(i, j))| i == win || j == win)
+            .map(|(p, &(i, _))| if i == win { d[p] } else { -d[p] })
+            .fold(f64::INFINITY, f64::min);
+        assert_eq!(r[1].parse::<f64>().unwrap(), margin);
+        lost_a_contest += usize::from(margin < 0.0);
+        assert_eq!(wins.iter().sum::<usize>(), 6);
+    }
+    // Noisy demo rows: some winners lose a contest and still win (the margin says so).
+    assert!(lost_a_contest < 400);
+}
+
+#[test]
+fn a_misspelt_target_is_an_error_naming_the_closest_column() {
+    let e = bad(&[
+        "score",
+        s(&demo()),
+        "--data",
+        s(&root().join("models/pump_test.csv")),
+        "--target",
+        "conditon",
+    ]);
+    assert!(
+        e.contains("target column 'conditon' not found") && e.contains("did you mean 'condition'?"),
+        "{e}"
+    );
+    let e = bad(&[
+        "report",
+        s(&root().join("models/pump_compiled.safetensors")),
+        "--exact",
+        s(&demo()),
+        "--data",
+        s(&root().join("models/pump_test.csv")),
+        "--target",
+        "conditon",
+        "--min-accuracy",
+        "0.5",
+        "--no-timing",
+    ]);
+    assert!(e.contains("did you mean 'condition'?"), "{e}");
+}
+
+#[test]
+fn every_method_is_in_the_help_and_a_misspelt_one_gets_a_suggestion() {
+    let help = ok(&["compile", "--help"]);
+    for m in kernelpress::features::Method::all() {
+        assert!(help.contains(m.name()), "compile --help omits {}", m.name());
+    }
+    let e = bad(&[
+        "featurize",
+        "--kernel",
+        "gaussian(gamma=1)",
+        "--method",
+        "tayler",
+        "--features",
+        "10",
+        "--data",
+        s(&root().join("models/pump_test.csv")),
+        "--target",
+        "condition",
+        "--out",
+        "/tmp/never-written.npy",
+    ]);
+    assert!(e.contains("did you mean 'taylor'?"), "{e}");
+    let e = bad(&[
+        "export",
+        s(&root().join("models/pump_compiled.safetensors")),
+        "--format",
+        "onxx",
+        "--out",
+        "/tmp/never-written.onnx",
+    ]);
+    assert!(e.contains("did you mean 'onnx'?"), "{e}");
 }

@@ -193,6 +193,7 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
     // score: a stage column, and the rows the exact model answered score as the exact model.
     let g = ok(&[
         "score",
+        "--decisions",
         s(&out),
         "--data",
         s(&test),
@@ -201,6 +202,7 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
     ]);
     let e = ok(&[
         "score",
+        "--decisions",
         s(&model),
         "--data",
         s(&test),
@@ -209,7 +211,11 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
     ]);
     let gl: Vec<&str> = g.lines().collect();
     let el: Vec<&str> = e.lines().collect();
-    assert!(gl[0].ends_with(",label,stage"), "{}", gl[0]);
+    assert!(
+        gl[0].starts_with("label,margin,") && gl[0].ends_with(",stage"),
+        "{}",
+        gl[0]
+    );
     let mut exact_rows = 0;
     for (a, b) in gl[1..].iter().zip(&el[1..]) {
         if let Some(row) = a.strip_suffix(",exact") {
@@ -225,6 +231,7 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
     // (1e-4 of the scale on this model, where the coefficient sums cancel); a guarded model refuses (its threshold was set on f64 decisions).
     let e32 = ok(&[
         "score",
+        "--decisions",
         s(&model),
         "--data",
         s(&test),
@@ -237,17 +244,18 @@ fn command_line_writes_scores_reports_and_refuses_to_export_a_guarded_model() {
     let mut same_label = 0;
     for (a, b) in e32l[1..].iter().zip(&el[1..]) {
         let (ca, cb): (Vec<&str>, Vec<&str>) = (a.split(',').collect(), b.split(',').collect());
-        let k = ca.len() - 1;
-        for (u, v) in ca[..k].iter().zip(&cb[..k]) {
+        // label, margin, four class columns, then the six pairwise decisions.
+        for (u, v) in ca[6..].iter().zip(&cb[6..]) {
             let (u, v): (f64, f64) = (u.parse().unwrap(), v.parse().unwrap());
             assert!((u - v).abs() <= 1e-3 * v.abs().max(1.0), "{a} vs {b}");
         }
-        same_label += usize::from(ca[k] == cb[k]);
+        same_label += usize::from(ca[0] == cb[0]);
     }
     assert!(same_label as f64 >= 0.99 * (el.len() - 1) as f64);
     assert_ne!(e32, e, "f32 decisions round somewhere");
     let err = bad(&[
         "score",
+        "--decisions",
         s(&out),
         "--data",
         s(&test),
@@ -653,6 +661,7 @@ fn command_line_pairs_guard_scores_partial_rows() {
     assert!(ok(&["inspect", s(&out)]).contains("class pairs"));
     let g = ok(&[
         "score",
+        "--decisions",
         s(&out),
         "--data",
         s(&test),

@@ -151,7 +151,7 @@ fn overflow_and_absurd_values_are_bad_input() {
         s(&out),
     ]);
     assert!(e.contains("--ridge-rel"), "{e}");
-    let e = bad(&["score", s(&demo()), "--data", "/dev/zero"]);
+    let e = bad(&["score", "--decisions", s(&demo()), "--data", "/dev/zero"]);
     assert!(e.contains("not a regular file"), "{e}");
     assert!(!out.exists());
 }
@@ -208,6 +208,7 @@ fn outputs_never_overwrite_inputs() {
     let before = std::fs::read(&data).unwrap();
     let e = bad(&[
         "score",
+        "--decisions",
         s(&demo()),
         "--data",
         s(&data),
@@ -422,7 +423,15 @@ fn degenerate_data_never_puts_nan_in_a_file() {
         assert!(!err.contains("panicked"), "{kernel} {method}: {err}");
         match o.status.code() {
             Some(0) => {
-                let sc = ok(&["score", s(&out), "--data", s(&p), "--target", "y"]);
+                let sc = ok(&[
+                    "score",
+                    "--decisions",
+                    s(&out),
+                    "--data",
+                    s(&p),
+                    "--target",
+                    "y",
+                ]);
                 assert!(
                     !sc.contains("NaN") && !sc.contains("inf"),
                     "{kernel} {method}: non-finite score"

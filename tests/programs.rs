@@ -19,6 +19,7 @@ fn check_with_readme_scorer(
     ));
     ok(&[
         "score",
+        "--decisions",
         s(model),
         "--data",
         s(test),

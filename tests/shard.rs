@@ -31,6 +31,7 @@ fn decisions(model: &Path, data: &Path, dir: &Path, name: &str) -> Vec<Vec<f64>>
     let out = dir.join(name);
     ok(&[
         "score",
+        "--decisions",
         s(model),
         "--data",
         s(data),
@@ -184,6 +185,7 @@ fn one_shards_statistics_match_numpy() {
     let y = dir.join("y.csv");
     ok(&[
         "score",
+        "--decisions",
         s(&model),
         "--data",
         s(shard),

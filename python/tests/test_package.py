@@ -45,7 +45,7 @@ def test_exact_decision_matches_numpy_and_score(root, exact, test_rows, cli, tmp
     ref = np.exp(-0.25 * d2) @ coef + b
     got = exact.decision(x)
     assert np.abs(got - ref).max() < 1e-9
-    cli("score", root / "models" / "pump_svm.safetensors", "--data", root / "models" / "pump_test.csv",
+    cli("score", "--decisions", root / "models" / "pump_svm.safetensors", "--data", root / "models" / "pump_test.csv",
         "--target", "condition", "--out", tmp_path / "s.csv")
     s, labels = read_score(tmp_path / "s.csv")
     assert np.abs(got - s).max() < 1e-9 * max(1.0, np.abs(s).max())
@@ -83,7 +83,7 @@ def test_decision_equals_cli_score_for_every_method(root, cli, tmp_path, kernel,
     path = tmp_path / "c.safetensors"
     compiled.save(path)
     x, _, _ = kp.read_data(root / "models" / "pump_test.csv", target="condition")
-    cli("score", path, "--data", root / "models" / "pump_test.csv", "--target", "condition", "--out", tmp_path / "s.csv")
+    cli("score", "--decisions", path, "--data", root / "models" / "pump_test.csv", "--target", "condition", "--out", tmp_path / "s.csv")
     s, labels = read_score(tmp_path / "s.csv")
     got = compiled.decision(x)
     assert np.abs(got - s).max() <= 1e-9 * max(1.0, np.abs(s).max())

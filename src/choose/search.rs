@@ -37,7 +37,9 @@ impl Budget {
             && self.max_bytes.is_none_or(|b| p.param_bytes <= b)
     }
 
-    fn fits(&self, latency_us: f64, bytes: u64) -> bool {
+    /// True when a measured latency and a size fit the latency and size bounds (the
+    /// fidelity bound is judged apart).
+    pub fn fits(&self, latency_us: f64, bytes: u64) -> bool {
         self.latency_us.is_none_or(|b| latency_us <= b) && self.max_bytes.is_none_or(|b| bytes <= b)
     }
 }

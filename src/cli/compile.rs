@@ -364,6 +364,12 @@ pub(crate) fn run(a: Args) -> Result<()> {
         super::progress::warn(n);
     }
     warn_fit_notes(&model);
+    let mut model = model;
+    if let Some(Some(y)) = calib.as_ref().map(|c| c.target.as_ref()) {
+        if model.task().is_classifier() {
+            kernelpress::fit::fit_probabilities(&mut model, calib.as_ref().unwrap().x.view(), y)?;
+        }
+    }
     if a.guard_agreement.is_some() || a.guard_rate.is_some() {
         return run_guard(&a, &exact, calib.as_ref(), model);
     }
@@ -652,12 +658,16 @@ fn run_budget(
             exact: e,
             best_compiled,
         } => {
+            let why = match best_compiled {
+                Some(b) => format!(
+                    "; the compiled models that meet it are slower (best: {} with {} features, {:.2} µs)",
+                    b.method, b.features, b.latency_us
+                ),
+                None => compiled_shortfall(&budget, &res.tried),
+            };
             text.push_str(&format!(
-                "the exact model itself meets {want} ({:.2} µs per row, agrees with itself){}: keep it; nothing was written\n",
+                "the exact model itself meets {want} ({:.2} µs per row, agrees with itself){why}: keep it; nothing was written\n",
                 e.latency_us,
-                best_compiled
-                    .map(|b| format!(", and no compiled model that meets it is faster (best: {} with {} features, {:.2} µs)", b.method, b.features, b.latency_us))
-                    .unwrap_or_else(|| ", and no compiled model meets it".into())
             ));
             super::print_stdout(&text)?;
             Err(Error::new(
@@ -683,13 +693,52 @@ fn run_budget(
             super::print_stdout(&text)?;
             Err(Error::new(
                 ErrorKind::Budget,
-                format!("no model meets {want}; no file written"),
+                format!("{}; no file written", budget_parts(&budget)),
             ))
         }
     }
 }
 
+/// Why no compiled candidate was chosen, by bound: which ones met the latency and size but
+/// not the fidelity, or none was built within them.
+fn compiled_shortfall(b: &Budget, tried: &[kernelpress::choose::Record]) -> String {
+    let built: Vec<&kernelpress::choose::Record> = tried.iter().filter(|r| !r.exact).collect();
+    if built.is_empty() {
+        return "; no compiled candidate was predicted to be faster, so none was built".into();
+    }
+    let quick: Vec<&&kernelpress::choose::Record> = built
+        .iter()
+        .filter(|r| b.fits(r.latency_us, r.bytes as u64))
+        .collect();
+    match (b.max_loss, quick.is_empty()) {
+        (Some(p), false) => {
+            let best = quick.iter().map(|r| r.loss).fold(f64::INFINITY, f64::min);
+            format!(
+                "; {} of the {} compiled candidates built meet the {} but none the disagreement bound of {p} (best: {best:.4})",
+                quick.len(),
+                built.len(),
+                if b.latency_us.is_some() && b.max_bytes.is_some() {
+                    "latency and size"
+                } else if b.latency_us.is_some() {
+                    "latency"
+                } else {
+                    "size"
+                }
+            )
+        }
+        _ => format!(
+            "; none of the {} compiled candidates built meets it",
+            built.len()
+        ),
+    }
+}
+
 fn describe_budget(b: &Budget) -> String {
+    format!("the budget ({})", budget_parts(b))
+}
+
+/// The bounds of a budget in words ("a latency of 2 µs, a disagreement of 0.01").
+fn budget_parts(b: &Budget) -> String {
     let mut parts = Vec::new();
     if let Some(t) = b.latency_us {
         parts.push(format!("a latency of {t} µs"));
@@ -700,7 +749,7 @@ fn describe_budget(b: &Budget) -> String {
     if let Some(p) = b.max_loss {
         parts.push(format!("a disagreement of {p}"));
     }
-    format!("the budget ({})", parts.join(", "))
+    parts.join(", ")
 }
 
 fn finish(

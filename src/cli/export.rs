@@ -132,11 +132,5 @@ pub(crate) fn run(a: Args) -> Result<()> {
 }
 
 fn human_bytes(n: u64) -> String {
-    if n >= 1 << 20 {
-        format!("{:.2} MB", n as f64 / (1u64 << 20) as f64)
-    } else if n >= 1 << 10 {
-        format!("{:.1} KB", n as f64 / 1024.0)
-    } else {
-        format!("{n} B")
-    }
+    kernelpress::report::format_bytes(n as usize)
 }

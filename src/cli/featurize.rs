@@ -20,7 +20,7 @@ pub(crate) enum Variant {
 #[derive(Debug, Clone, clap::Args)]
 pub(crate) struct MapArgs {
     /// Method: fourier, orthogonal, hadamard, fastfood, quasi, nystrom, maclaurin,
-    /// tensorsketch, relu, identity.
+    /// tensorsketch, relu, identity, taylor.
     #[arg(long)]
     pub method: Option<String>,
     /// Number of features D.

@@ -181,9 +181,10 @@ pub(crate) fn run(a: Args) -> Result<()> {
         AnyModel::Exact(_) => None,
     };
     if let Some(m) = program {
+        let n = m.program().len();
         s.push_str(&format!(
-            "program         {} steps (x = the scaled input row; bytes and flops per row)\n",
-            m.program().len()
+            "program         {n} step{} (x = the scaled input row; parameter bytes and flops per row)\n",
+            if n == 1 { "" } else { "s" }
         ));
         for line in m.program().describe() {
             s.push_str(&format!("  {line}\n"));

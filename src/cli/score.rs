@@ -4,17 +4,17 @@ use kernelpress::model::AnyModel;
 use kernelpress::Result;
 use std::path::PathBuf;
 
-/// Score a model on data: CSV of decision values (and labels for classifiers).
+/// Score a model on data: one CSV row per input row, in input order.
 ///
-/// Columns name what a positive value favours, with one rule: in `decision_A_vs_B` a
-/// positive value favours class A (binary models: A is the second label; one-vs-one: the
-/// first class of the pair, and the pairs come in the order (0,1), (0,2), …, (1,2), …);
-/// `decision_A` is class A's one-vs-rest score (the largest wins); regression outputs are
-/// `decision` or `decision_0 …`. Then `label` for classifiers, and for a guarded model
-/// `stage` (`compiled`, `exact`, or `partial` when the exact model recomputed some class
-/// pairs: which model answered the row); rows in input order. Data
-/// columns are matched to the model's by name (extra columns are ignored with a note);
-/// --by-position takes them in file order. --f32 computes in single precision.
+/// Classifiers: `label` (the predicted class), `margin` (how decided the row is, in
+/// decision units; 0 is on the boundary), then one column per class in the label order
+/// `inspect` lists: `wins_<class>` for one-vs-one models (pairwise contests the class won),
+/// `score_<class>` for binary and one-vs-rest models (the larger wins). Regression models:
+/// `decision` (or `decision_0 …`). A guarded model adds `stage` (`compiled`, `exact`, or
+/// `partial` when the exact model recomputed some class pairs: which model answered).
+/// --decisions also writes the raw decision values (see its help for their order and
+/// signs). Data columns are matched to the model's by name (extra columns are ignored with
+/// a note); --by-position takes them in file order. --f32 computes in single precision.
 ///
 /// Example:
 ///   kernelpress score models/pump_svm.safetensors --data models/pump_test.csv --target condition
@@ -40,6 +40,20 @@ pub(crate) struct Args {
     /// (`agreement_f32_batch`, `agreement_exact_f32_batch`).
     #[arg(long)]
     f32: bool,
+    /// Also write the raw decision values, after the class columns, one per output, named
+    /// so that a positive value favours the class named first: `decision_A_vs_B`. Binary
+    /// models: one column, A the second label. One-vs-one models: one per class pair in
+    /// the order (0,1), (0,2), …, (0,k−1), (1,2), … of the label order; a row's label is
+    /// the class with most wins, ties to the earlier label. One-vs-rest: `decision_A` per
+    /// class.
+    #[arg(long)]
+    decisions: bool,
+    /// Also write class probabilities, `prob_<class>` per class (each row sums to 1), after
+    /// the class columns: Platt sigmoids fitted when the model was compiled from labelled
+    /// calibration rows (or imported from an ONNX SVM with `prob_a`/`prob_b`), coupled
+    /// pairwise for more than two classes (Wu, Lin & Weng 2004, method 2).
+    #[arg(long)]
+    probabilities: bool,
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
@@ -71,12 +85,33 @@ pub(crate) fn run(a: Args) -> Result<()> {
             i / s.ncols().max(1) + 1
         )));
     }
-    let k = s.ncols();
+    let rule = model.rule();
     let classifier = model.task().is_classifier();
-    let mut header = model.rule().decision_names();
-    debug_assert_eq!(header.len(), k);
+    let probs = if a.probabilities {
+        let Some((p, _)) = model.probabilities() else {
+            return Err(kernelpress::Error::input(format!(
+                "{}: the model carries no probability calibration; compile it with labelled calibration rows (--calib with --target) to fit one",
+                a.model.display()
+            )));
+        };
+        Some(p.class_probabilities(rule, s.view()))
+    } else {
+        None
+    };
+    let mut header: Vec<String> = Vec::new();
     if classifier {
         header.push("label".into());
+        header.extend(rule.class_column_names());
+    }
+    if probs.is_some() {
+        header.extend(
+            rule.labels()
+                .iter()
+                .map(|l| format!("prob_{}", l.replace([',', '"', '\n', '\r'], "_"))),
+        );
+    }
+    if a.decisions || !classifier {
+        header.extend(rule.decision_names());
     }
     if stages.is_some() {
         header.push("stage".into());
@@ -88,9 +123,16 @@ pub(crate) fn run(a: Args) -> Result<()> {
         .zip(labels)
         .enumerate()
         .map(|(i, (r, l))| {
-            let mut v: Vec<String> = r.iter().map(|x| format!("{x:?}")).collect();
+            let mut v: Vec<String> = Vec::with_capacity(header.len());
             if classifier {
                 v.push(l);
+                v.extend(rule.class_row(r).iter().map(|x| format!("{x:?}")));
+            }
+            if let Some(p) = &probs {
+                v.extend(p.row(i).iter().map(|x| format!("{x:?}")));
+            }
+            if a.decisions || !classifier {
+                v.extend(r.iter().map(|x| format!("{x:?}")));
             }
             if let Some(st) = &stages {
                 v.push(kernelpress::model::guarded::STAGES[st[i] as usize].to_string());

@@ -113,9 +113,17 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 )?;
                 let mut t = String::from("held-out accuracy (every fifth row):\n");
                 for c in &grid {
+                    let shape = if c.gamma_factor > 1.0 {
+                        "narrower"
+                    } else if c.gamma_factor < 1.0 {
+                        "wider"
+                    } else {
+                        "as given"
+                    };
+                    let g = format!("γ ×{} ({shape})", c.gamma_factor);
                     t.push_str(&format!(
-                        "  C = {:<6} width ×{:<4} {:.4}  {}\n",
-                        c.c, c.width, c.accuracy, c.kernel
+                        "  C = {:<6} {g:<18} {:.4}  {}\n",
+                        c.c, c.accuracy, c.kernel
                     ));
                 }
                 let best = &grid[0];

@@ -33,9 +33,11 @@ pub fn read_csv(path: &Path, target: Option<&str>, require_target: bool) -> Resu
         if let Some(t) = target {
             let names = header(&text, &src)?;
             if !names.iter().any(|n| n == t) {
+                let cols: Vec<&str> = names.iter().map(|x| x.as_str()).collect();
                 return Err(Error::input(format!(
-                    "{src}: target column '{t}' not found; columns are {}",
-                    super::list_names(names.iter().map(|x| x.as_str()))
+                    "{src}: target column '{t}' not found{}; columns are {}",
+                    crate::error::did_you_mean(t, &cols),
+                    super::list_names(cols.iter().copied())
                 )));
             }
         }

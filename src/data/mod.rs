@@ -84,11 +84,13 @@ pub fn read_table(path: &Path, target: Option<&str>, require_target: bool) -> Re
     }
     let t = read_csv(path, target, require_target)?;
     if require_target && t.target.is_none() {
+        let t_name = target.unwrap_or("");
+        let cols: Vec<&str> = t.columns.iter().map(|x| x.as_str()).collect();
         return Err(Error::input(format!(
-            "{}: target column '{}' not found; columns are {}",
+            "{}: target column '{t_name}' not found{}; columns are {}",
             path.display(),
-            target.unwrap_or(""),
-            list_names(t.columns.iter().map(|x| x.as_str()))
+            crate::error::did_you_mean(t_name, &cols),
+            list_names(cols.iter().copied())
         )));
     }
     Ok(t)
@@ -171,6 +173,16 @@ pub(crate) fn plan_columns(
     src: &str,
     notes: &mut Vec<String>,
 ) -> Result<Option<Vec<String>>> {
+    if let Some(t) = target {
+        if !header.iter().any(|h| h == t) {
+            let cols: Vec<&str> = header.iter().map(|h| h.as_str()).collect();
+            return Err(Error::input(format!(
+                "{src}: target column '{t}' not found{}; the columns are {} (leave out --target when the file has no target column)",
+                crate::error::did_you_mean(t, &cols),
+                list_names(cols.iter().copied()),
+            )));
+        }
+    }
     let others: Vec<&String> = header
         .iter()
         .filter(|h| Some(h.as_str()) != target)

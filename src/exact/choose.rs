@@ -20,8 +20,9 @@ pub const WIDTH_GRID: [f64; 3] = [0.5, 1.0, 2.0];
 pub struct Candidate {
     /// Cost C.
     pub c: f64,
-    /// Width multiplier (1 when the kernel's width is not searched).
-    pub width: f64,
+    /// The factor γ was multiplied by (1 when the kernel's width is not searched): above 1
+    /// the kernel is narrower (γ larger, lengthscales shorter), below 1 wider.
+    pub gamma_factor: f64,
     /// The kernel tried.
     pub kernel: String,
     /// Accuracy on the held-out rows.
@@ -86,7 +87,7 @@ pub fn choose_svm(
                 pred.iter().zip(&yh).filter(|(p, t)| p == *t).count() as f64 / yh.len() as f64;
             out.push(Candidate {
                 c,
-                width: m,
+                gamma_factor: m,
                 kernel: k.to_string(),
                 accuracy: acc,
             });
@@ -98,7 +99,7 @@ pub fn choose_svm(
         b.accuracy
             .total_cmp(&a.accuracy)
             .then(a.c.total_cmp(&b.c))
-            .then((a.width.ln().abs()).total_cmp(&b.width.ln().abs()))
+            .then((a.gamma_factor.ln().abs()).total_cmp(&b.gamma_factor.ln().abs()))
     });
     Ok(out)
 }

@@ -53,7 +53,8 @@ impl Format {
             "safetensors" => Format::Safetensors,
             o => {
                 return Err(Error::input(format!(
-                    "export format '{o}' is unknown; expected onnx, c, rust, npy or safetensors"
+                    "export format '{o}' is unknown{}; expected onnx, c, rust, npy or safetensors",
+                    crate::error::did_you_mean(o, &["onnx", "c", "rust", "npy", "safetensors"])
                 )))
             }
         })
@@ -91,7 +92,8 @@ impl Precision {
             "int8" => Precision::Int8,
             o => {
                 return Err(Error::input(format!(
-                    "precision '{o}' is unknown; expected f32, f16 or int8"
+                    "precision '{o}' is unknown{}; expected f32, f16 or int8",
+                    crate::error::did_you_mean(o, &["f32", "f16", "int8"])
                 )))
             }
         })

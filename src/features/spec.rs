@@ -54,13 +54,11 @@ impl Method {
         super::methods::lookup(s)
             .map(|m| Method(m.name()))
             .ok_or_else(|| {
+                let names: Vec<&str> = Method::all().iter().map(|m| m.name()).collect();
                 Error::input(format!(
-                    "method '{s}' is unknown; expected one of {}",
-                    Method::all()
-                        .iter()
-                        .map(|m| m.name())
-                        .collect::<Vec<_>>()
-                        .join(", ")
+                    "method '{s}' is unknown{}; expected one of {}",
+                    crate::error::did_you_mean(s, &names),
+                    names.join(", ")
                 ))
             })
     }
@@ -357,7 +355,8 @@ pub fn parse_sequence(s: &str) -> Result<Sequence> {
         "halton" => Ok(Sequence::Halton),
         "sobol" => Ok(Sequence::Sobol),
         o => Err(Error::input(format!(
-            "sequence '{o}' unknown; expected halton or sobol"
+            "sequence '{o}' unknown{}; expected halton or sobol",
+            crate::error::did_you_mean(o, &["halton", "sobol"])
         ))),
     }
 }
@@ -370,7 +369,8 @@ pub fn parse_landmarks(s: &str) -> Result<Landmarks> {
         "leverage" => Ok(Landmarks::Leverage),
         "support" => Ok(Landmarks::Support),
         o => Err(Error::input(format!(
-            "landmark rule '{o}' unknown; expected uniform, kmeans++, leverage or support"
+            "landmark rule '{o}' unknown{}; expected uniform, kmeans++, leverage or support",
+            crate::error::did_you_mean(o, &["uniform", "kmeans++", "leverage", "support"])
         ))),
     }
 }

@@ -462,3 +462,39 @@ pub fn compile_labels(
     m.fit = j;
     Ok((m, info))
 }
+
+/// Fits the compiled model's class probabilities (Platt sigmoids, [`Probabilities`]) on
+/// the calibration rows that are not audit rows, against their true labels `y`: its own
+/// decision values there were fitted to the teacher's decisions, never to these labels, so
+/// they are held out for the sigmoids (Platt 1999 asks for decisions not fitted on the
+/// sigmoid's targets). Rows whose label is not one of the model's are left out. Returns
+/// the number of rows used. Audit rows stay untouched, so the report can judge the
+/// probabilities on them.
+///
+/// [`Probabilities`]: crate::model::Probabilities
+pub fn fit_probabilities(
+    model: &mut CompiledModel,
+    calib: ArrayView2<f64>,
+    y: &[String],
+) -> Result<usize> {
+    let labels = model.labels().to_vec();
+    let (rows, idx): (Vec<usize>, Vec<usize>) = (0..calib.nrows())
+        .filter(|&i| !audit_row(i))
+        .filter_map(|i| labels.iter().position(|l| *l == y[i]).map(|c| (i, c)))
+        .unzip();
+    if rows.is_empty() {
+        return Err(Error::input(
+            "probabilities: no calibration row outside the audit rows has one of the model's labels",
+        ));
+    }
+    let s = model.decision(calib.select(Axis(0), &rows).view());
+    let p = crate::model::Probabilities::fit(model.rule(), s.view(), &idx)?;
+    model.probabilities = Some((
+        p,
+        format!(
+            "{} labelled calibration rows (the audit rows, every tenth, left out)",
+            rows.len()
+        ),
+    ));
+    Ok(rows.len())
+}

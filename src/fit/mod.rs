@@ -28,7 +28,7 @@ pub mod shard;
 
 pub use compile::{
     audit_row, audit_rows, check_statistics_memory, compile_exact, compile_exact_tuned,
-    compile_labels, row_part, HeadKind, Teacher, BANDWIDTH_MULTIPLES, FIT_CHUNK,
+    compile_labels, fit_probabilities, row_part, HeadKind, Teacher, BANDWIDTH_MULTIPLES, FIT_CHUNK,
 };
 
 use crate::features::FeatureMap;

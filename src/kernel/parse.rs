@@ -440,29 +440,9 @@ impl Params {
     }
 }
 
-/// Levenshtein distance (for suggestions).
-fn distance(a: &str, b: &str) -> usize {
-    let b: Vec<char> = b.chars().collect();
-    let mut prev: Vec<usize> = (0..=b.len()).collect();
-    for (i, ca) in a.chars().enumerate() {
-        let mut cur = vec![i + 1];
-        for (j, cb) in b.iter().enumerate() {
-            let sub = prev[j] + usize::from(ca != *cb);
-            cur.push(sub.min(prev[j + 1] + 1).min(cur[j] + 1));
-        }
-        prev = cur;
-    }
-    prev[b.len()]
-}
-
 /// The candidate within two edits of `name`, if any (the nearest).
 pub(crate) fn closest<'a>(name: &str, candidates: &[&'a str]) -> Option<&'a str> {
-    candidates
-        .iter()
-        .map(|c| (distance(name, c), *c))
-        .filter(|(d, _)| *d <= 2)
-        .min_by_key(|(d, _)| *d)
-        .map(|(_, c)| c)
+    crate::error::closest(name, candidates)
 }
 
 fn build(name: &str, items: Vec<(String, Value, usize)>, at: usize) -> Result<Kernel> {

@@ -51,6 +51,9 @@ pub struct CompiledModel {
     /// Fingerprint of the exact model this one was compiled from
     /// ([`crate::model::ExactModel::fingerprint`]), if any.
     pub exact_fingerprint: Option<String>,
+    /// Platt sigmoids for class probabilities, with what they were fitted on, if any
+    /// (`compile` fits them when the calibration rows carry labels).
+    pub probabilities: Option<(super::Probabilities, String)>,
 }
 
 impl CompiledModel {
@@ -149,6 +152,7 @@ impl CompiledModel {
             report: json!({}),
             feature_names: crate::data::placeholder_names(d),
             exact_fingerprint: None,
+            probabilities: None,
         })
     }
 
@@ -497,6 +501,9 @@ impl CompiledModel {
             "report": self.report,
         });
         f.manifest = m.as_object().expect("object").clone();
+        if let Some(p) = super::io::write_probabilities(&mut f, self.probabilities.as_ref()) {
+            f.manifest.insert("probabilities".into(), p);
+        }
         f
     }
 
@@ -590,6 +597,7 @@ impl CompiledModel {
         m.exact_fingerprint = v.fingerprint;
         m.fit = f.manifest.get("fit").cloned().unwrap_or(json!({}));
         m.report = f.manifest.get("report").cloned().unwrap_or(json!({}));
+        m.probabilities = super::io::read_probabilities(f, m.rule(), src)?;
         Ok(m)
     }
 

@@ -25,6 +25,9 @@ pub struct ExactModel {
     pub feature_names: Vec<String>,
     /// Fit settings and notes recorded in the manifest (`training`).
     pub training: serde_json::Value,
+    /// Platt sigmoids for class probabilities, with what they were fitted on (imported
+    /// from an ONNX SVM's `prob_a`/`prob_b`), if any.
+    pub probabilities: Option<(super::Probabilities, String)>,
     prepared: OnceLock<Prepared>,
     prepared32: OnceLock<crate::kernel::Prepared32>,
     coef32: OnceLock<linalg::NarrowF32>,
@@ -82,6 +85,7 @@ impl ExactModel {
             scaling,
             feature_names: crate::data::placeholder_names(d),
             training: json!({}),
+            probabilities: None,
             prepared: OnceLock::new(),
             prepared32: OnceLock::new(),
             coef32: OnceLock::new(),
@@ -402,6 +406,7 @@ impl ExactModel {
         );
         f.put_f64("exact.intercepts", vec![k], self.intercept.clone());
         let input = write_input(&mut f, d, &self.feature_names, self.scaling.as_ref());
+        let probs = super::io::write_probabilities(&mut f, self.probabilities.as_ref());
         let m = json!({
             "format_version": FORMAT_VERSION,
             "kind": "exact",
@@ -412,6 +417,9 @@ impl ExactModel {
             "training": self.training,
         });
         f.manifest = m.as_object().expect("object").clone();
+        if let Some(p) = probs {
+            f.manifest.insert("probabilities".into(), p);
+        }
         f
     }
 
@@ -453,6 +461,7 @@ impl ExactModel {
         .map_err(|e| Error::file(format!("{src}: {}", e.message())))?;
         m.feature_names = names;
         m.training = f.manifest.get("training").cloned().unwrap_or(json!({}));
+        m.probabilities = super::io::read_probabilities(f, m.rule(), src)?;
         Ok(m)
     }
 

@@ -413,6 +413,8 @@ impl GuardedModel {
         }
         c.manifest.insert("kind".into(), json!("compiled"));
         e.manifest.insert("kind".into(), json!("exact"));
+        // The probability calibration belongs to the compiled stage (its tensors go there).
+        e.manifest.remove("probabilities");
         let training = f
             .manifest
             .get("exact_training")

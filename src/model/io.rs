@@ -147,3 +147,42 @@ pub(crate) fn read_output(f: &TensorFile, src: &str) -> Result<OutputRule> {
         .ok_or_else(|| bad("'outputs' must be a whole number from 1 to 1048576".into()))?;
     OutputRule::new(task, labels, k).map_err(|e| bad(e.message().to_string()))
 }
+
+/// Writes a model's probability calibration, if any: tensors `output.platt_a` and
+/// `output.platt_b` (one value per decision output) and the manifest section
+/// `probabilities` (`{"method": "platt", "fitted_on": …}`) returned for the caller to store.
+pub(crate) fn write_probabilities(
+    f: &mut TensorFile,
+    p: Option<&(super::Probabilities, String)>,
+) -> Option<Value> {
+    let (p, on) = p?;
+    f.put_f64("output.platt_a", vec![p.a().len()], p.a().to_vec());
+    f.put_f64("output.platt_b", vec![p.b().len()], p.b().to_vec());
+    Some(json!({"method": "platt", "fitted_on": on}))
+}
+
+/// Reads the probability calibration written by [`write_probabilities`], if the file has
+/// one.
+pub(crate) fn read_probabilities(
+    f: &TensorFile,
+    rule: &OutputRule,
+    src: &str,
+) -> Result<Option<(super::Probabilities, String)>> {
+    let Some(sec) = f.manifest.get("probabilities") else {
+        return Ok(None);
+    };
+    let bad = |m: String| Error::file(format!("{src}: manifest 'probabilities': {m}"));
+    if sec.get("method").and_then(|v| v.as_str()) != Some("platt") {
+        return Err(bad("'method' must be \"platt\"".into()));
+    }
+    let on = sec
+        .get("fitted_on")
+        .and_then(|v| v.as_str())
+        .unwrap_or("")
+        .to_string();
+    let k = rule.outputs();
+    let a = f.f64("output.platt_a", &[Some(k)], src)?;
+    let b = f.f64("output.platt_b", &[Some(k)], src)?;
+    let p = super::Probabilities::new(rule, a, b).map_err(|e| bad(e.message().to_string()))?;
+    Ok(Some((p, on)))
+}

@@ -31,6 +31,7 @@ pub mod guarded;
 mod io;
 pub mod output;
 mod parts;
+mod probability;
 mod v1;
 
 pub use crate::format::{TensorFile, FORMAT_VERSION, MANIFEST_KEY, MAX_FILE_BYTES};
@@ -38,6 +39,7 @@ pub use compiled::CompiledModel;
 pub use exact::ExactModel;
 pub use guarded::GuardedModel;
 pub use output::{label_indices, OutputRule, Task};
+pub use probability::{couple, platt_fit, sigmoid, Probabilities};
 
 /// The `generator` string model files record: `kernelpress <version>`.
 pub fn generator_name() -> String {
@@ -149,6 +151,16 @@ impl AnyModel {
             AnyModel::Exact(m) => &m.feature_names,
             AnyModel::Compiled(m) => &m.feature_names,
             AnyModel::Guarded(m) => &m.exact().feature_names,
+        }
+    }
+
+    /// The probability calibration the file carries, with what it was fitted on (a
+    /// guarded model: its compiled stage's, applied to the guarded decisions).
+    pub fn probabilities(&self) -> Option<&(Probabilities, String)> {
+        match self {
+            AnyModel::Exact(m) => m.probabilities.as_ref(),
+            AnyModel::Compiled(m) => m.probabilities.as_ref(),
+            AnyModel::Guarded(m) => m.compact().probabilities.as_ref(),
         }
     }
 

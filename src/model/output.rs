@@ -47,7 +47,8 @@ impl Task {
             "ovo" => Task::Ovo,
             other => {
                 return Err(Error::input(format!(
-                    "task '{other}' is unknown; expected regression, binary, ovr or ovo"
+                    "task '{other}' is unknown{}; expected regression, binary, ovr or ovo",
+                    crate::error::did_you_mean(other, &["regression", "binary", "ovr", "ovo"])
                 )))
             }
         })
@@ -221,6 +222,95 @@ impl OutputRule {
                 }
                 v
             }
+        }
+    }
+
+    /// Names of the per-class columns `score` writes by default (classifiers): `margin`,
+    /// then one column per class in label order — `wins_<label>` for one-vs-one models
+    /// (pairwise contests won, 0 to classes − 1), `score_<label>` for binary and
+    /// one-vs-rest models (a larger score wins). Empty for regression. Commas, quotes and
+    /// line breaks in labels become `_`.
+    ///
+    /// ```
+    /// use kernelpress::model::{OutputRule, Task};
+    /// let r = OutputRule::new(Task::Binary, vec!["ok".into(), "worn".into()], 1).unwrap();
+    /// assert_eq!(r.class_column_names(), vec!["margin", "score_ok", "score_worn"]);
+    /// ```
+    pub fn class_column_names(&self) -> Vec<String> {
+        if !self.task.is_classifier() {
+            return Vec::new();
+        }
+        let prefix = if self.task == Task::Ovo {
+            "wins_"
+        } else {
+            "score_"
+        };
+        let mut v = vec!["margin".to_string()];
+        v.extend(
+            self.labels
+                .iter()
+                .map(|l| format!("{prefix}{}", l.replace([',', '"', '\n', '\r'], "_"))),
+        );
+        v
+    }
+
+    /// The values of [`Self::class_column_names`] for one row of decision values: the
+    /// margin, then one value per class.
+    ///
+    /// - binary (decision `s`, positive favours the second label): scores `−s/2`, `s/2`
+    ///   (so that the difference of the two is the decision), margin `|s|`;
+    /// - one-vs-rest: each class's own score; margin: the winner's score minus the
+    ///   runner-up's;
+    /// - one-vs-one: pairwise contests won by each class; margin: the closest of the
+    ///   winner's own contests, signed so that a positive value favours the winner (how far
+    ///   a decision of the winner would have to move to lose it; negative when the winner
+    ///   lost a contest but still had the most wins).
+    ///
+    /// The margin is in decision units: 0 means a decision on the boundary.
+    ///
+    /// # Panics
+    /// If the row does not have [`Self::outputs`] values (classifiers).
+    #[track_caller]
+    pub fn class_row(&self, r: ndarray::ArrayView1<f64>) -> Vec<f64> {
+        if !self.task.is_classifier() {
+            return Vec::new();
+        }
+        assert_eq!(r.len(), self.outputs, "one decision value per output");
+        let k = self.labels.len();
+        match self.task {
+            Task::Binary => vec![r[0].abs(), -0.5 * r[0], 0.5 * r[0]],
+            Task::Ovr => {
+                let mut order: Vec<usize> = (0..k).collect();
+                order.sort_by(|&a, &b| r[b].total_cmp(&r[a]).then(a.cmp(&b)));
+                let mut v = vec![r[order[0]] - r[order[1]]];
+                v.extend(r.iter().copied());
+                v
+            }
+            Task::Ovo => {
+                let win = label_indices(Task::Ovo, k, r.insert_axis(ndarray::Axis(0)))[0];
+                let mut wins = vec![0.0; k];
+                let mut margin = f64::INFINITY;
+                let mut p = 0;
+                for i in 0..k {
+                    for j in i + 1..k {
+                        if r[p] > 0.0 {
+                            wins[i] += 1.0;
+                        } else {
+                            wins[j] += 1.0;
+                        }
+                        if i == win {
+                            margin = margin.min(r[p]);
+                        } else if j == win {
+                            margin = margin.min(-r[p]);
+                        }
+                        p += 1;
+                    }
+                }
+                let mut v = vec![margin];
+                v.extend(wins);
+                v
+            }
+            Task::Regression => unreachable!("classifiers only"),
         }
     }
 

@@ -30,10 +30,14 @@ impl Cost {
         self.param_bytes + self.activation_bytes
     }
 
-    /// True when the step does less than one flop per byte it touches: its speed is set by
-    /// memory traffic rather than arithmetic (the roofline rule of thumb, common practice).
+    /// True when the step reads parameters and does at most two flops per parameter byte:
+    /// its speed is then set by streaming its parameters rather than by arithmetic (the
+    /// roofline model, Williams, Waterman & Patterson 2009; a CPU core's ridge point is
+    /// several flops per byte, common practice). A single row's activations stay in the
+    /// nearest cache, so they do not count; a step without parameters (a pad, a
+    /// transform, a sine/cosine) is never memory-bound by this rule.
     pub fn memory_bound(&self) -> bool {
-        self.flops < self.touched_bytes()
+        self.param_bytes > 0 && self.flops <= 2 * self.param_bytes
     }
 
     /// Sum of two costs.

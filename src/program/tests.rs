@@ -210,3 +210,22 @@ fn costs_use_exact_log2() {
     let v = b.push(c, &[Builder::INPUT]).unwrap();
     assert_eq!(b.finish(v).cost().flops, 2048 * 10);
 }
+
+#[test]
+fn only_steps_that_stream_parameters_are_called_memory_bound() {
+    // A pad moves no parameters; a transform has none; a dense projection reads 8 bytes
+    // per multiply-add (0.25 flops per byte, far below a CPU's ridge point).
+    let mut b = Builder::new(3);
+    let v = b
+        .push(steps::Pad::new(4).unwrap(), &[Builder::INPUT])
+        .unwrap();
+    let v = b.push(steps::Wht::new(4).unwrap(), &[v]).unwrap();
+    let w = Array2::from_shape_fn((8, 4), |(i, j)| (i + j) as f64);
+    let v = b.push(steps::Dense::new(w).unwrap(), &[v]).unwrap();
+    let p = b.finish(v);
+    let bound: Vec<bool> = p.step_costs().iter().map(|c| c.memory_bound()).collect();
+    assert_eq!(bound, vec![false, false, true]);
+    let lines = p.describe();
+    assert!(!lines[0].contains("memory-bound"), "{}", lines[0]);
+    assert!(lines[2].contains("memory-bound"), "{}", lines[2]);
+}

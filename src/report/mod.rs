@@ -12,7 +12,7 @@ mod render;
 
 pub use latency::{measure_batch, measure_single, LatencyStats};
 pub use metrics::{decision_errors, gram_errors, kernel_errors, kernel_features, wilson95};
-pub use render::render_text;
+pub use render::{bytes as format_bytes, render_text, speed_ratio};
 
 use crate::model::{label_indices, CompiledModel, ExactModel, GuardedModel};
 use crate::Result;
@@ -175,11 +175,61 @@ pub struct Report {
     /// (none for a stage that answered no row).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub stage_agreement: Option<Vec<Option<f64>>>,
+    /// Class probabilities (a model with a probability calibration, on rows with true
+    /// labels): how well they are calibrated on the evaluation rows.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub probabilities: Option<ProbabilityQuality>,
     /// Warnings for the user.
     pub warnings: Vec<String>,
     /// Which rows the figures were computed on.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub evaluated_on: Option<String>,
+}
+
+/// How good class probabilities are on labelled rows: the mean negative log-likelihood of
+/// the true class (log loss, natural log; lower is better; ln k for a uniform guess over k
+/// classes) and the Brier score (the mean squared distance between the probability vector
+/// and the true class's indicator, Brier 1950; 0 is perfect).
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct ProbabilityQuality {
+    /// Mean −ln p(true class), with p clamped at 1e-15.
+    pub log_loss: f64,
+    /// Mean Σ_c (p_c − [c = true class])².
+    pub brier: f64,
+    /// Rows judged (rows whose true label is one of the model's).
+    pub n_rows: usize,
+    /// What the sigmoids were fitted on.
+    pub fitted_on: String,
+}
+
+/// Log loss and Brier score of class probabilities `p` (rows × classes, label order)
+/// against true labels `truth`; rows with a label the model does not know are skipped.
+/// `None` when no row is left.
+pub fn probability_quality(
+    p: ndarray::ArrayView2<f64>,
+    labels: &[String],
+    truth: &[String],
+    fitted_on: &str,
+) -> Option<ProbabilityQuality> {
+    let (mut ll, mut br, mut n) = (0.0, 0.0, 0usize);
+    for (row, t) in p.rows().into_iter().zip(truth) {
+        let Some(c) = labels.iter().position(|l| l == t) else {
+            continue;
+        };
+        ll -= row[c].max(1e-15).ln();
+        br += row
+            .iter()
+            .enumerate()
+            .map(|(j, v)| (v - f64::from(u8::from(j == c))).powi(2))
+            .sum::<f64>();
+        n += 1;
+    }
+    (n > 0).then(|| ProbabilityQuality {
+        log_loss: ll / n as f64,
+        brier: br / n as f64,
+        n_rows: n,
+        fitted_on: fitted_on.to_string(),
+    })
 }
 
 impl Report {
@@ -491,9 +541,14 @@ pub fn build(
         stage_shares: None,
         exact_work_share: None,
         stage_agreement: None,
+        probabilities: None,
         warnings: Vec::new(),
         evaluated_on: None,
     };
+    if let (Some((p, on)), Some(t)) = (&compiled.probabilities, truth) {
+        let probs = p.class_probabilities(compiled.rule(), sc.view());
+        r.probabilities = probability_quality(probs.view(), compiled.labels(), t, on);
+    }
     // About one f32 rounding (2⁻²⁴) of the sum's absolute mass: on the demo's Nyström model
     // (cancellation 3,469) this predicts 2.1e-4 of the decision scale; the f32 ONNX export
     // measured 1.8e-4.

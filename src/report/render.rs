@@ -19,15 +19,42 @@ pub fn sig3(x: f64) -> String {
     format!("{x:.digits$}")
 }
 
-/// Bytes as B, KB or MB (1 KB = 1024 B).
+/// Bytes in binary units: B, KiB (1,024 B), MiB or GiB — the one unit system every size
+/// the tool prints uses (and the one `--max-memory` and the other size flags read).
 pub fn bytes(n: usize) -> String {
     let x = n as f64;
-    if x >= 1024.0 * 1024.0 {
-        format!("{} MB", sig3(x / 1048576.0))
+    if x >= 1024.0 * 1024.0 * 1024.0 {
+        format!("{} GiB", sig3(x / 1073741824.0))
+    } else if x >= 1024.0 * 1024.0 {
+        format!("{} MiB", sig3(x / 1048576.0))
     } else if x >= 1024.0 {
-        format!("{} KB", sig3(x / 1024.0))
+        format!("{} KiB", sig3(x / 1024.0))
     } else {
         format!("{n} B")
+    }
+}
+
+/// A speed ratio (baseline time ÷ new time) in words that mean what they say: "2.50×
+/// faster" above 1, "1.16× slower" below 1 (the inverse ratio), "as fast" at 1 to three
+/// significant digits.
+///
+/// ```
+/// use kernelpress::report::speed_ratio;
+/// assert_eq!(speed_ratio(2.5), "2.50× faster");
+/// assert_eq!(speed_ratio(0.864), "1.16× slower");
+/// assert_eq!(speed_ratio(1.0004), "as fast");
+/// ```
+pub fn speed_ratio(r: f64) -> String {
+    if !(r > 0.0) || !r.is_finite() {
+        return format!("speed ratio {r}");
+    }
+    let q = if r >= 1.0 { r } else { 1.0 / r };
+    if sig3(q) == "1.00" {
+        "as fast".into()
+    } else if r > 1.0 {
+        format!("{}× faster", sig3(q))
+    } else {
+        format!("{}× slower", sig3(q))
     }
 }
 
@@ -111,6 +138,12 @@ pub fn render_text(r: &Report) -> String {
             100.0 * (c - e)
         ));
     }
+    if let Some(p) = &r.probabilities {
+        s.push_str(&format!(
+            "  class probabilities             log loss {:.4}, Brier score {:.4} on {} labelled rows\n      Platt sigmoids fitted on {}; lower is better on both (log loss of a uniform guess: ln classes)\n",
+            p.log_loss, p.brier, p.n_rows, p.fitted_on
+        ));
+    }
     s.push_str(&format!(
         "  decision values                 RMSE {}, R² {}, max |error| {}\n      how far the compiled scores are from the exact ones (same units as the scores)\n",
         sig3(r.decision_rmse),
@@ -142,10 +175,7 @@ pub fn render_text(r: &Report) -> String {
     );
     let t = &r.timing;
     if let (Some(e), Some(c)) = (t.latency_us_exact_p50, t.latency_us_compiled_p50) {
-        let speed = t
-            .speedup_single
-            .map(|v| format!("{}× faster", sig3(v)))
-            .unwrap_or_default();
+        let speed = t.speedup_single.map(speed_ratio).unwrap_or_default();
         row(
             &mut s,
             "single-row latency, median",
@@ -160,7 +190,7 @@ pub fn render_text(r: &Report) -> String {
             "  with the head in f32",
             "",
             &format!("{} µs", sig3(c)),
-            &format!("{}× faster", sig3(e / c)),
+            &speed_ratio(e / c),
         );
     }
     if let (Some(e), Some(c)) = (t.latency_us_exact_f32_p50, t.latency_us_compiled_f32_p50) {
@@ -173,14 +203,11 @@ pub fn render_text(r: &Report) -> String {
             "  both in f32",
             &format!("{} µs", sig3(e)),
             &format!("{} µs", sig3(c)),
-            &format!("{}× faster{agree}", sig3(e / c)),
+            &format!("{}{agree}", speed_ratio(e / c)),
         );
     }
     if let (Some(e), Some(c)) = (t.latency_us_exact_mean, t.latency_us_compiled_mean) {
-        let speed = t
-            .speedup_mean
-            .map(|v| format!("{}× faster", sig3(v)))
-            .unwrap_or_default();
+        let speed = t.speedup_mean.map(speed_ratio).unwrap_or_default();
         row(
             &mut s,
             "single-row latency, mean",
@@ -202,10 +229,7 @@ pub fn render_text(r: &Report) -> String {
         t.throughput_rows_per_s_exact,
         t.throughput_rows_per_s_compiled,
     ) {
-        let speed = t
-            .speedup_batch
-            .map(|v| format!("{}× faster", sig3(v)))
-            .unwrap_or_default();
+        let speed = t.speedup_batch.map(speed_ratio).unwrap_or_default();
         row(
             &mut s,
             "batched throughput",
@@ -227,7 +251,7 @@ pub fn render_text(r: &Report) -> String {
             "  both in f32",
             &format!("{} rows/s", count(e)),
             &format!("{} rows/s", count(c)),
-            &format!("{}× faster{agree}", sig3(c / e)),
+            &format!("{}{agree}", speed_ratio(c / e)),
         );
     }
     if t.latency_us_exact_p50.is_none() {
@@ -239,9 +263,7 @@ pub fn render_text(r: &Report) -> String {
             s.push_str(&format!("    {} → {}: {}\n", c.exact, c.compiled, c.rows));
         }
     }
-    for w in &r.warnings {
-        s.push_str(&format!("\nWARNING: {w}\n"));
-    }
+    // Warnings are not part of the text: the caller shows each once (the CLI on stderr).
     s
 }
 
@@ -256,9 +278,22 @@ mod tests {
         assert_eq!(sig3(0.0407), "0.0407");
         assert_eq!(sig3(1.5), "1.50");
         assert_eq!(sig3(123456789.0), "1.23e8");
-        assert_eq!(bytes(284768), "278 KB");
+        assert_eq!(bytes(284768), "278 KiB");
         assert_eq!(bytes(900), "900 B");
-        assert_eq!(bytes(3 << 20), "3.00 MB");
+        assert_eq!(bytes(3 << 20), "3.00 MiB");
+        assert_eq!(bytes(5 << 30), "5.00 GiB");
         assert_eq!(count(91476.0), "91.5 k");
+    }
+
+    #[test]
+    fn ratios_below_one_are_slower() {
+        assert_eq!(speed_ratio(0.864), "1.16× slower");
+        assert_eq!(speed_ratio(0.5), "2.00× slower");
+        assert_eq!(speed_ratio(3.0), "3.00× faster");
+        assert_eq!(speed_ratio(0.9996), "as fast");
+        for r in [0.1, 0.7, 0.99, 1.01, 2.0, 40.0] {
+            let t = speed_ratio(r);
+            assert_eq!(t.ends_with("faster"), r > 1.0, "{r}: {t}");
+        }
     }
 }
