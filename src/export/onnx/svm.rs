@@ -116,12 +116,13 @@ fn check_common(a: &Attrs) -> Result<()> {
             )));
         }
     }
-    for name in ["prob_a", "prob_b"] {
-        if !a.floats(name).is_empty() {
-            return Err(a.bad(format!(
-                "'{name}' (probability calibration) is not supported; export the SVM without probabilities"
-            )));
-        }
+    let (pa, pb) = (a.floats("prob_a"), a.floats("prob_b"));
+    if pa.len() != pb.len() {
+        return Err(a.bad(format!(
+            "'prob_a' has {} values and 'prob_b' {}; expected one of each per class pair",
+            pa.len(),
+            pb.len()
+        )));
     }
     for at in &a.node.attribute {
         if matches!(
@@ -248,6 +249,28 @@ pub fn import_svm_bytes(bytes: &[u8], src: &str) -> Result<ExactModel> {
     let mut m = ExactModel::new(kernel, sv, coef, b, task, labels, scaling)
         .map_err(|e| Error::file(format!("{src}: {}", e.message())))?;
     m.training = serde_json::json!({"model": "imported", "from": "onnx", "operator": a.op()});
+    // Pairwise Platt sigmoids (ONNX-ML: P(first class of the pair) = 1/(1 + exp(A·s + B))
+    // with s the pair's decision; a binary model's pair is (classlabels[0],
+    // classlabels[1]), which is our (second label, first label)): the same sigmoid and
+    // sign as ours, so the coefficients carry over unchanged.
+    let (pa, pb) = (a.floats("prob_a"), a.floats("prob_b"));
+    if !pa.is_empty() {
+        if a.op() != "SVMClassifier" {
+            return Err(a.bad("'prob_a'/'prob_b' are for classifiers"));
+        }
+        let want = m.n_outputs();
+        if pa.len() != want {
+            return Err(a.bad(format!(
+                "'prob_a' has {} values; expected one per class pair, {want}",
+                pa.len()
+            )));
+        }
+        let pa = finite(&pa, "prob_a", &a)?;
+        let pb = finite(&pb, "prob_b", &a)?;
+        let p =
+            crate::model::Probabilities::new(m.rule(), pa, pb).map_err(|e| a.bad(e.message()))?;
+        m.probabilities = Some((p, "the ONNX SVM's prob_a and prob_b (imported)".into()));
+    }
     Ok(m)
 }
 
