@@ -109,7 +109,7 @@ fn ridge_classification_matches_numpy_solve() {
         "--target",
         "kind",
         "--kernel",
-        "polynomial(degree=3, gamma=0.5, coef0=1)",
+        "polynomial(degree=3, gamma=0.5, offset=1)",
         "--model",
         "ridge",
         "--ridge",
@@ -319,9 +319,9 @@ fn import_from_arrays_scores_like_the_formula() {
         "import",
         "--support-vectors",
         s(&dir.join("sv.npy")),
-        "--coef",
+        "--weights",
         s(&dir.join("coef.npy")),
-        "--intercept",
+        "--bias",
         "-0.25",
         "--kernel",
         "gaussian(gamma=0.5)",
@@ -392,8 +392,8 @@ fn f32_single_row_path_matches_numpy_for_every_block_kind() {
         "gaussian(gamma=0.05)",
         "matern(nu=1.5, lengthscale=3)",
         "laplacian(gamma=0.1)",
-        "polynomial(degree=3, gamma=0.2, coef0=1)",
-        "gaussian(gamma=0.02) + 0.5 * polynomial(degree=2, gamma=0.1, coef0=1)",
+        "polynomial(degree=3, gamma=0.2, offset=1)",
+        "gaussian(gamma=0.02) + 0.5 * polynomial(degree=2, gamma=0.1, offset=1)",
         "gaussian(gamma=0.03) * laplacian(gamma=0.05)",
     ] {
         let m = ExactModel::new(
@@ -421,8 +421,8 @@ K = {
  "gaussian(gamma=0.05)": lambda: gauss(0.05),
  "matern(nu=1.5, lengthscale=3)": lambda: matern15(3.0),
  "laplacian(gamma=0.1)": lambda: lap(0.1),
- "polynomial(degree=3, gamma=0.2, coef0=1)": lambda: poly(3, 0.2, 1),
- "gaussian(gamma=0.02) + 0.5 * polynomial(degree=2, gamma=0.1, coef0=1)": lambda: gauss(0.02) + 0.5 * poly(2, 0.1, 1),
+ "polynomial(degree=3, gamma=0.2, offset=1)": lambda: poly(3, 0.2, 1),
+ "gaussian(gamma=0.02) + 0.5 * polynomial(degree=2, gamma=0.1, offset=1)": lambda: gauss(0.02) + 0.5 * poly(2, 0.1, 1),
  "gaussian(gamma=0.03) * laplacian(gamma=0.05)": lambda: gauss(0.03) * lap(0.05),
 }[kind]()
 s = K @ coef
@@ -459,4 +459,77 @@ np.savetxt(sys.stdout, s, fmt="%.17g")
             "{kernel}: f32 batch vs numpy {worst_b:e} (scale {scale:.3})"
         );
     }
+}
+
+#[test]
+fn import_from_arrays_attaches_input_scaling_and_hints_at_a_transposed_array() {
+    let dir = tmpdir("import_from_arrays_scaling");
+    let sv = [0.0, 0.0, 1.0, 0.0, 0.0, 2.0];
+    kernelpress::data::write_npy_f64(&dir.join("sv.npy"), &[3, 2], &sv).unwrap();
+    kernelpress::data::write_npy_f64(&dir.join("w.npy"), &[3], &[1.0, -2.0, 0.5]).unwrap();
+    kernelpress::data::write_npy_f64(
+        &dir.join("wt.npy"),
+        &[2, 3],
+        &[1.0, -2.0, 0.5, 0.1, 0.2, 0.3],
+    )
+    .unwrap();
+    kernelpress::data::write_npy_f64(&dir.join("div.npy"), &[2], &[2.0, 4.0]).unwrap();
+    let model = dir.join("m.safetensors");
+    ok(&[
+        "import",
+        "--support-vectors",
+        s(&dir.join("sv.npy")),
+        "--weights",
+        s(&dir.join("w.npy")),
+        "--bias",
+        "-0.25",
+        "--kernel",
+        "gaussian(gamma=0.5)",
+        "--subtract",
+        "1,-1",
+        "--divide-by",
+        s(&dir.join("div.npy")),
+        "--out",
+        s(&model),
+    ]);
+    let data = dir.join("d.csv");
+    std::fs::write(&data, "p,q\n3,3\n").unwrap();
+    let out = ok(&["score", s(&model), "--data", s(&data)]);
+    // By hand: s(3, 3) = ((3 − 1)/2, (3 + 1)/4) = (1, 1); f = Σ w_i e^{−½‖(1,1) − sv_i‖²} − 0.25
+    //        = e^{−1} − 2e^{−½} + 0.5e^{−1} − 0.25.
+    let want = (-1f64).exp() - 2.0 * (-0.5f64).exp() + 0.5 * (-1f64).exp() - 0.25;
+    let got: f64 = out.lines().nth(1).unwrap().parse().unwrap();
+    assert!((got - want).abs() < 1e-12, "{got} vs {want}");
+    let e = bad(&[
+        "import",
+        "--support-vectors",
+        s(&dir.join("sv.npy")),
+        "--weights",
+        s(&dir.join("wt.npy")),
+        "--bias",
+        "0,0",
+        "--kernel",
+        "gaussian(gamma=0.5)",
+        "--out",
+        s(&dir.join("t.safetensors")),
+    ]);
+    assert!(e.contains("looks transposed"), "{e}");
+    let e = bad(&[
+        "import",
+        "--support-vectors",
+        s(&dir.join("sv.npy")),
+        "--weights",
+        s(&dir.join("w.npy")),
+        "--bias",
+        "0",
+        "--kernel",
+        "gaussian(gamma=0.5)",
+        "--subtract",
+        "1,2,3",
+        "--divide-by",
+        "1,1",
+        "--out",
+        s(&dir.join("u.safetensors")),
+    ]);
+    assert!(e.contains("--subtract: 3 values; expected 2"), "{e}");
 }

@@ -59,8 +59,8 @@ fn models(d: &Data) -> Vec<(String, PathBuf)> {
         out.push((method.to_string(), p));
     }
     for (name, kernel, method) in [
-        ("maclaurin", "polynomial(degree=2, gamma=0.2, coef0=1)", "maclaurin"),
-        ("tensorsketch", "polynomial(degree=2, gamma=0.3, coef0=1)", "tensorsketch"),
+        ("maclaurin", "polynomial(degree=2, gamma=0.2, offset=1)", "maclaurin"),
+        ("tensorsketch", "polynomial(degree=2, gamma=0.3, offset=1)", "tensorsketch"),
         ("relu", "arccos(order=1)", "relu"),
         ("step", "arccos(order=0)", "relu"),
         ("identity", "linear()", "identity"),
@@ -68,10 +68,10 @@ fn models(d: &Data) -> Vec<(String, PathBuf)> {
         ("product", "gaussian(gamma=0.2) * linear()", "fourier"),
         (
             "landmarks",
-            "matern(nu=1.5, lengthscale=2) + sigmoid(gamma=0.05, coef0=0) * rational_quadratic(alpha=2, lengthscale=3)",
+            "matern(nu=1.5, lengthscale=2) + sigmoid(gamma=0.05, offset=0) * rational_quadratic(alpha=2, lengthscale=3)",
             "nystrom",
         ),
-        ("arccos_landmarks", "2 * arccos(order=1) + polynomial(degree=2, gamma=0.1, coef0=1)", "nystrom"),
+        ("arccos_landmarks", "2 * arccos(order=1) + polynomial(degree=2, gamma=0.1, offset=1)", "nystrom"),
     ] {
         let p = d.dir.join(format!("{name}.safetensors"));
         ok(&[

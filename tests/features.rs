@@ -93,12 +93,12 @@ fn unbiased_for_every_pair_that_claims_it() {
             FourierVariant::Paired,
         ),
         (
-            "polynomial(degree=3, gamma=0.5, coef0=1)",
+            "polynomial(degree=3, gamma=0.5, offset=1)",
             Method::Maclaurin,
             FourierVariant::Paired,
         ),
         (
-            "polynomial(degree=2, gamma=1, coef0=0.5)",
+            "polynomial(degree=2, gamma=1, offset=0.5)",
             Method::TensorSketch,
             FourierVariant::Paired,
         ),
@@ -311,7 +311,7 @@ fn featurize_gram_matches_scipy() {
             "quasi",
         ),
         (
-            "polynomial(degree=2, gamma=1, coef0=1)",
+            "polynomial(degree=2, gamma=1, offset=1)",
             r#"{"name":"polynomial","degree":2,"gamma":1.0,"coef0":1.0}"#,
             "tensorsketch",
         ),

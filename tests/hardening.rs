@@ -400,7 +400,7 @@ fn degenerate_data_never_puts_nan_in_a_file() {
         ("gaussian(gamma=1e6)", "orthogonal"),
         ("gaussian(gamma=0.5)", "nystrom"),
         ("gaussian(gamma=0.5)", "taylor"),
-        ("polynomial(degree=3, gamma=1, coef0=1)", "maclaurin"),
+        ("polynomial(degree=3, gamma=1, offset=1)", "maclaurin"),
     ] {
         let out = dir.join(format!("{method}.safetensors"));
         let o = run(&[

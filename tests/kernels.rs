@@ -50,11 +50,11 @@ fn gram_blocks_match_scipy() {
             json!({"name": "rational_quadratic", "alpha": 0.7, "lengthscale": 1.5}),
         ),
         (
-            "polynomial(degree=3, gamma=0.5, coef0=1)",
+            "polynomial(degree=3, gamma=0.5, offset=1)",
             json!({"name": "polynomial", "degree": 3, "gamma": 0.5, "coef0": 1.0}),
         ),
         (
-            "sigmoid(gamma=0.2, coef0=-0.3)",
+            "sigmoid(gamma=0.2, offset=-0.3)",
             json!({"name": "sigmoid", "gamma": 0.2, "coef0": -0.3}),
         ),
         ("arccos(order=0)", json!({"name": "arccos", "order": 0})),
@@ -109,7 +109,7 @@ fn kernel_check_matches_numpy_eigvalsh() {
         // tanh(γ x·y + c) with c < 0 is not positive semidefinite (common practice; the
         // ONNX-ML SIGMOID kernel is the same function).
         (
-            "sigmoid(gamma=1, coef0=-1)",
+            "sigmoid(gamma=1, offset=-1)",
             json!({"name": "sigmoid", "gamma": 1.0, "coef0": -1.0}),
             false,
         ),
@@ -188,7 +188,7 @@ fn kernel_check_draws_points_deterministically() {
     let text = ok(&[
         "kernel-check",
         "--kernel",
-        "sigmoid(gamma=2, coef0=-1)",
+        "sigmoid(gamma=2, offset=-1)",
         "--dim",
         "3",
     ]);

@@ -82,8 +82,8 @@ fn every_method_scores_the_same_from_the_readme_description() {
     }
     // Labels mode: the methods of the other kernels, and composite kernels.
     for (kernel, method) in [
-        ("polynomial(degree=3, gamma=0.2, coef0=1)", "maclaurin"),
-        ("polynomial(degree=2, gamma=0.3, coef0=1)", "tensorsketch"),
+        ("polynomial(degree=3, gamma=0.2, offset=1)", "maclaurin"),
+        ("polynomial(degree=2, gamma=0.3, offset=1)", "tensorsketch"),
         ("arccos(order=0)", "relu"),
         ("arccos(order=1)", "relu"),
         ("linear()", "identity"),
@@ -95,7 +95,7 @@ fn every_method_scores_the_same_from_the_readme_description() {
             "orthogonal",
         ),
         (
-            "sigmoid(gamma=0.05, coef0=0) + gaussian(gamma=0.1)",
+            "sigmoid(gamma=0.05, offset=0) + gaussian(gamma=0.1)",
             "nystrom",
         ),
         ("gaussian(lengthscale=[1, 2, 1, 2, 1, 2, 1, 2])", "taylor"),

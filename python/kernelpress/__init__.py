@@ -1,13 +1,13 @@
 """kernelpress: compile kernel machines into compact random-feature models.
 
 A kernel SVM or kernel ridge model (an :class:`ExactModel`) compares every input with every
-support vector. :func:`compile` turns it into a :class:`CompiledModel` — a fixed-size
+support vector. :func:`compact` turns it into a :class:`CompiledModel` — a fixed-size
 feature program plus a linear head — whose cost does not depend on the number of support
 vectors, and measures how far it is from the exact model::
 
     import kernelpress as kp
     exact = kp.ExactModel.load("models/pump_svm.safetensors")
-    compiled = kp.compile(exact, "models/pump_calib.csv", method="nystrom", features=1024)
+    compiled = kp.compact(exact, "models/pump_calib.csv", method="nystrom", features=1024)
 
 ``compiled.report`` holds the agreement with the exact model on calibration rows that
 were never fitted on. An approximated model changes some decisions: validate it on your
@@ -24,7 +24,7 @@ from ._kernelpress import (  # noqa: F401
     ExactModel,
     Statistics,
     __version__,
-    compile,
+    compact,
     compile_from_statistics,
     export,
     featurize,
@@ -39,7 +39,7 @@ __all__ = [
     "Error",
     "ExactModel",
     "Statistics",
-    "compile",
+    "compact",
     "compile_from_statistics",
     "export",
     "featurize",

@@ -33,15 +33,15 @@ class ExactModel:
     @staticmethod
     def from_bytes(data: bytes) -> "ExactModel": ...
     @staticmethod
-    def from_arrays(
+    def from_expansion(
         support_vectors: npt.ArrayLike,
-        coef: npt.ArrayLike,
-        intercept: Sequence[float],
+        weights: npt.ArrayLike,
+        bias: Sequence[float],
         kernel: str,
         labels: Optional[Sequence[str]] = None,
         task: Optional[str] = None,
     ) -> "ExactModel":
-        """>>> m = ExactModel.from_arrays(sv, coef, [0.1], "gaussian(gamma=0.5)", labels=["no", "yes"])"""
+        """>>> m = ExactModel.from_expansion(sv, w, [0.1], "gaussian(gamma=0.5)", labels=["no", "yes"])"""
     def to_bytes(self) -> bytes: ...
     def save(self, path: Union[str, PathLike]) -> None: ...
     def decision(self, x: npt.ArrayLike) -> npt.NDArray[np.float64]: ...
@@ -58,7 +58,7 @@ class ExactModel:
 class CompiledModel:
     """A compiled model: scaling → feature program → linear head → label rule.
 
-    >>> compiled = compile(exact, "models/pump_calib.csv", method="nystrom", features=1024)
+    >>> compiled = compact(exact, "models/pump_calib.csv", method="nystrom", features=1024)
     >>> compiled.report["agreement"]
     """
 
@@ -98,7 +98,7 @@ class Statistics:
     ranges: List[Tuple[int, int]]
     parts: Tuple[int, int, int]
 
-def compile(
+def compact(
     exact: ExactModel,
     calib: Rows,
     method: str,
@@ -111,7 +111,7 @@ def compile(
     eval_labels: Optional[Sequence[str]] = None,
     min_agreement: float = 0.99,
 ) -> CompiledModel:
-    """>>> compiled = compile(exact, "models/pump_calib.csv", "hadamard", 2048, seed=1)"""
+    """>>> compiled = compact(exact, "models/pump_calib.csv", "hadamard", 2048, seed=1)"""
 
 def report(
     compiled: CompiledModel,

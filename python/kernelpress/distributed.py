@@ -87,7 +87,7 @@ def distill(
     """Distils ``exact`` over ``shards`` — ``(rows, first_row)`` pairs, where ``first_row``
     is the global index of the shard's first row in the whole calibration set — on the
     workers of ``client`` (a ``dask.distributed.Client``) and fits the head here. Equals
-    ``kp.compile(exact, all_rows, method, features, seed=seed, bandwidth_search=False)``
+    ``kp.compact(exact, all_rows, method, features, seed=seed, bandwidth_search=False)``
     up to the rounding of the sums (1e-9 in decision values, tested). With ``eval`` the
     compiled model's report is computed on those rows."""
     stats = shard_futures(

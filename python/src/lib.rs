@@ -307,19 +307,19 @@ struct PyExact {
 }
 
 model_class!(PyExact, ExactModel, {
-    /// An exact model from arrays: `support_vectors` (n × d), `coef` (n × k, one column per
-    /// decision function), `intercept` (k values), a kernel expression such as
-    /// `"gaussian(gamma=0.5)"`, class `labels` (none for regression) and the `task`
-    /// (`regression`, `binary`, `ovr`, `ovo`; inferred from the labels and columns when
-    /// omitted). Decision values follow the library's conventions: a binary model's value
-    /// is positive for the second label.
+    /// An exact model from its kernel expansion: `support_vectors` (n × d), `weights`
+    /// (n × k, one column per decision function), `bias` (k values), a kernel expression
+    /// such as `"gaussian(gamma=0.5)"`, class `labels` (none for regression) and the
+    /// `task` (`regression`, `binary`, `ovr`, `ovo`; inferred from the labels and columns
+    /// when omitted). Decision values follow the library's conventions: a binary model's
+    /// value is positive for the second label.
     #[staticmethod]
-    #[pyo3(signature = (support_vectors, coef, intercept, kernel, labels=None, task=None))]
-    fn from_arrays(
+    #[pyo3(signature = (support_vectors, weights, bias, kernel, labels=None, task=None))]
+    fn from_expansion(
         py: Python<'_>,
         support_vectors: &Bound<'_, PyAny>,
-        coef: &Bound<'_, PyAny>,
-        intercept: Vec<f64>,
+        weights: &Bound<'_, PyAny>,
+        bias: Vec<f64>,
         kernel: &str,
         labels: Option<Vec<String>>,
         task: Option<&str>,
@@ -328,12 +328,17 @@ model_class!(PyExact, ExactModel, {
         let sv = rows(py, support_vectors, "support_vectors")?;
         let svv = sv.view();
         lib(data::check_batch(svv, svv.ncols(), "support_vectors"))?;
-        let c = rows(py, coef, "coef")?;
+        let c = rows(py, weights, "weights")?;
         let cv = c.view();
-        lib(data::check_batch(cv, cv.ncols(), "coef"))?;
+        lib(data::check_batch(cv, cv.ncols(), "weights"))?;
         if cv.nrows() != svv.nrows() {
+            let hint = if cv.ncols() == svv.nrows() {
+                " — it looks transposed (one column per support vector); pass its transpose"
+            } else {
+                ""
+            };
             return Err(err(kernelpress::Error::input(format!(
-                "coef: has {} rows but support_vectors has {} support vectors",
+                "weights: has {} rows but support_vectors has {} support vectors; expected one row per support vector{hint}",
                 cv.nrows(),
                 svv.nrows()
             ))));
@@ -347,7 +352,7 @@ model_class!(PyExact, ExactModel, {
             k,
             svv.to_owned(),
             cv.to_owned(),
-            intercept,
+            bias,
             task,
             labels,
             None,
@@ -396,7 +401,7 @@ model_class!(PyExact, ExactModel, {
 /// A compiled model: input scaling → feature program → linear head → the teacher's label
 /// rule. Its cost does not depend on the number of support vectors.
 ///
-/// >>> compiled = kp.compile(exact, "models/pump_calib.csv", method="nystrom", features=1024)
+/// >>> compiled = kp.compact(exact, "models/pump_calib.csv", method="nystrom", features=1024)
 /// >>> compiled.report["agreement"]     # on the calibration audit rows
 /// >>> compiled.predict(x)
 #[pyclass(name = "CompiledModel", module = "kernelpress", frozen)]
@@ -588,9 +593,9 @@ fn eval_report(
 /// --method M --features D` does, including the map bandwidth search unless
 /// `bandwidth_search=False`.
 ///
-/// >>> compiled = kp.compile(exact, "models/pump_calib.csv", method="nystrom", features=1024)
+/// >>> compiled = kp.compact(exact, "models/pump_calib.csv", method="nystrom", features=1024)
 #[pyfunction]
-#[pyo3(signature = (exact, calib, method, features, *, seed=0, landmark_rule="uniform", bandwidth_search=true, eval=None, eval_labels=None, min_agreement=0.99))]
+#[pyo3(name = "compact", signature = (exact, calib, method, features, *, seed=0, landmark_rule="uniform", bandwidth_search=true, eval=None, eval_labels=None, min_agreement=0.99))]
 #[allow(clippy::too_many_arguments)]
 fn compile(
     py: Python<'_>,

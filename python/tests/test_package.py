@@ -20,7 +20,7 @@ def read_score(path):
 
 def test_three_line_compile_of_the_demo(root):
     exact = kp.ExactModel.load(root / "models" / "pump_svm.safetensors")
-    compiled = kp.compile(exact, str(root / "models" / "pump_calib.csv"), method="nystrom", features=1024)
+    compiled = kp.compact(exact, str(root / "models" / "pump_calib.csv"), method="nystrom", features=1024)
     assert compiled.features == 1024
     assert compiled.report["agreement"] > 0.98
     assert "audit rows" in compiled.report["evaluated_on"]
@@ -61,8 +61,8 @@ METHODS = [
     ("gaussian(gamma=0.25)", "nystrom"),
     ("gaussian(gamma=0.25)", "taylor"),
     ("laplacian(gamma=0.2)", "fourier"),
-    ("polynomial(degree=2, gamma=0.5, coef0=1)", "maclaurin"),
-    ("polynomial(degree=2, gamma=0.5, coef0=1)", "tensorsketch"),
+    ("polynomial(degree=2, gamma=0.5, offset=1)", "maclaurin"),
+    ("polynomial(degree=2, gamma=0.5, offset=1)", "tensorsketch"),
     ("arccos(order=1)", "relu"),
 ]
 
@@ -79,7 +79,7 @@ def test_decision_equals_cli_score_for_every_method(root, cli, tmp_path, kernel,
     exact = kp.ExactModel.load(teacher)
     calib = str(root / "models" / "pump_calib.csv")
     features = 165 if method == "taylor" else 256
-    compiled = kp.compile(exact, calib, method, features, seed=3, bandwidth_search=False)
+    compiled = kp.compact(exact, calib, method, features, seed=3, bandwidth_search=False)
     path = tmp_path / "c.safetensors"
     compiled.save(path)
     x, _, _ = kp.read_data(root / "models" / "pump_test.csv", target="condition")
@@ -97,7 +97,7 @@ def test_decision_equals_cli_score_for_every_method(root, cli, tmp_path, kernel,
 
 def test_round_trips(tmp_path, exact, test_rows):
     x = test_rows[0][:50]
-    c = kp.compile(exact, test_rows[0], "hadamard", 256, seed=2, bandwidth_search=False)
+    c = kp.compact(exact, test_rows[0], "hadamard", 256, seed=2, bandwidth_search=False)
     for m, cls in [(exact, kp.ExactModel), (c, kp.CompiledModel)]:
         p = tmp_path / "m.safetensors"
         m.save(p)
@@ -116,7 +116,7 @@ def test_from_arrays_matches_a_numpy_expansion():
     sv = rng.normal(size=(40, 3))
     coef = rng.normal(size=(40, 3))
     b = [0.1, -0.2, 0.3]
-    m = kp.ExactModel.from_arrays(sv, coef, b, "laplacian(gamma=0.7)", labels=["a", "b", "c"])
+    m = kp.ExactModel.from_expansion(sv, coef, b, "laplacian(gamma=0.7)", labels=["a", "b", "c"])
     assert m.task == "ovr"
     x = rng.normal(size=(25, 3))
     ref = np.exp(-0.7 * np.abs(x[:, None, :] - sv[None]).sum(-1)) @ coef + b
@@ -140,7 +140,7 @@ def test_featurize_matches_cli_and_the_kernel(root, cli, tmp_path):
 
 def test_report_matches_cli_report(root, cli, tmp_path, exact, test_rows):
     x, _, y = test_rows
-    c = kp.compile(exact, str(root / "models" / "pump_calib.csv"), "fastfood", 512, seed=4, bandwidth_search=False)
+    c = kp.compact(exact, str(root / "models" / "pump_calib.csv"), "fastfood", 512, seed=4, bandwidth_search=False)
     c.save(tmp_path / "c.safetensors")
     r = kp.report(c, exact, x, labels=y)
     cli("report", tmp_path / "c.safetensors", "--exact", root / "models" / "pump_svm.safetensors", "--data",
@@ -156,7 +156,7 @@ def test_report_matches_cli_report(root, cli, tmp_path, exact, test_rows):
 def test_onnx_export_runs_in_onnxruntime(tmp_path, exact, test_rows):
     ort = pytest.importorskip("onnxruntime")
     x = test_rows[0]
-    c = kp.compile(exact, x, "hadamard", 512, seed=1, bandwidth_search=False)
+    c = kp.compact(exact, x, "hadamard", 512, seed=1, bandwidth_search=False)
     s = kp.export(c, "onnx", tmp_path / "m.onnx")
     assert s["format"] == "onnx"
     sess = ort.InferenceSession(str(tmp_path / "m.onnx"))
@@ -222,10 +222,17 @@ def test_the_lock_is_released_during_long_work(exact, test_rows):
     t = threading.Thread(target=tick)
     t.start()
     t0 = time.perf_counter()
-    kp.compile(exact, x, "fourier", 1024, bandwidth_search=False)
+    kp.compact(exact, x, "fourier", 1024, bandwidth_search=False)
     t1 = time.perf_counter()
     stop.set()
     t.join()
     during = [v for v in ticks if t0 < v < t1]
     # With the lock held for the whole call the other thread could not run at all.
     assert len(during) >= 10, (len(during), t1 - t0)
+
+
+def test_names_of_our_own_and_no_builtin_shadowed():
+    # The compile entry point does not shadow Python's built-in compile().
+    assert not hasattr(kp, "compile")
+    assert callable(kp.compact) and callable(kp.ExactModel.from_expansion)
+    assert not hasattr(kp.ExactModel, "from_arrays")

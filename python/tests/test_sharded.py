@@ -15,7 +15,7 @@ def shards_of(x, cuts):
 
 def test_in_process_shards_equal_the_single_compile(root, exact, test_rows):
     x, _, _ = kp.read_data(root / "models" / "pump_calib.csv", target="condition")
-    single = kp.compile(exact, x, "hadamard", 512, seed=5, bandwidth_search=False)
+    single = kp.compact(exact, x, "hadamard", 512, seed=5, bandwidth_search=False)
     parts = [kp.shard_statistics(exact, rows, "hadamard", 512, first_row=f, seed=5)
              for rows, f in shards_of(x, [999, 1000, 4321])]
     # Through pickle (as a cluster would ship them), merged in scrambled order.
@@ -34,7 +34,7 @@ def test_dask_local_cluster_equals_the_single_compile(root, exact, test_rows, tm
     from kernelpress.distributed import distill
 
     x, _, _ = kp.read_data(root / "models" / "pump_calib.csv", target="condition")
-    single = kp.compile(exact, x, "fourier", 400, seed=8, bandwidth_search=False)
+    single = kp.compact(exact, x, "fourier", 400, seed=8, bandwidth_search=False)
     # Two shards as arrays, one as a file the workers read.
     np.save(tmp_path / "last.npy", x[6000:])
     shards = [(x[:2500], 0), (x[2500:6000], 2500), (str(tmp_path / "last.npy"), 6000)]

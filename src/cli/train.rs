@@ -56,12 +56,13 @@ pub(crate) struct Args {
     /// 0.8636 / 0.8637 / 0.8637 in 15–17 s each (kernel evaluations dominate).
     #[arg(long, default_value_t = 1e-3, allow_negative_numbers = true)]
     kkt_gap: f64,
-    /// SVM: memory for kernel values per binary sub-problem, in MiB. Default 256: the whole
-    /// Gram matrix of every class pair of the demo (about 2,500 rows, 50 MB) and of 10,000
-    /// Fashion-MNIST images (about 2,000 rows, 32 MB) fits, so no kernel row is computed
-    /// twice; a larger binary problem falls back to a row cache of this size.
-    #[arg(long, default_value_t = 256)]
-    gram_cache_mb: usize,
+    /// SVM: memory for kernel values per binary sub-problem, as a size like --max-memory's
+    /// (512K, 256M, 2G; a plain number is bytes). Default 256M: the whole Gram matrix of
+    /// every class pair of the demo (about 2,500 rows, 48 MiB) and of 10,000 Fashion-MNIST
+    /// images (about 2,000 rows, 31 MiB) fits, so no kernel row is computed twice; a larger
+    /// binary problem falls back to a row cache of this size.
+    #[arg(long, default_value = "256M")]
+    kernel_cache: String,
     /// Kernel ridge: treat the target as class labels (one-vs-rest least squares).
     #[arg(long)]
     classify: bool,
@@ -99,7 +100,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
             let mut opts = SmoOptions {
                 c: a.c.unwrap_or(1.0),
                 tol: a.kkt_gap,
-                cache_bytes: a.gram_cache_mb.max(1) << 20,
+                cache_bytes: kernelpress::limits::parse_size(&a.kernel_cache)
+                    .map_err(|e| {
+                        kernelpress::Error::input(format!("--kernel-cache {}: {e}", a.kernel_cache))
+                    })?
+                    .max(1 << 20) as usize,
                 max_iter: 0,
             };
             let mut kernel = kernel.clone();

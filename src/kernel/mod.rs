@@ -11,8 +11,9 @@
 //!   `k = exp(−γ‖x−y‖²)`); for `gamma` on the Laplacian `s = γ` (so `k = exp(−γ‖x−y‖₁)`);
 //!   for `lengthscale = ℓ` (scalar or per dimension) `s = 1/ℓ`, with the Gaussian
 //!   `exp(−‖u‖²/2)`.
-//! - Dot-product kernels use `gamma`, `coef0`, `degree` as the ONNX-ML standard does:
-//!   `(γ x·y + coef0)^degree`, `tanh(γ x·y + coef0)`.
+//! - Dot-product kernels take `gamma`, `offset` and `degree`: `(γ x·y + offset)^degree`,
+//!   `tanh(γ x·y + offset)` (ONNX-ML's `kernel_params` are `[γ, offset, degree]`). The
+//!   older spelling `coef0` of the offset is still read, so earlier model files load.
 //!
 //! ```
 //! use kernelpress::kernel::Kernel;

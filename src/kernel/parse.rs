@@ -364,6 +364,22 @@ impl Params {
         }
         Ok(v)
     }
+    /// Reads a parameter written under an older name (`old`) as `new`, so that files written
+    /// before the rename still load; both at once is an error.
+    fn alias(&mut self, old: &str, new: &str) -> Result<()> {
+        if self.items.iter().any(|p| p.0 == old) {
+            if self.items.iter().any(|p| p.0 == new) {
+                return Err(Error::input(format!(
+                    "kernel {}: give '{new}' once ('{old}' is its older spelling)",
+                    self.kernel
+                )));
+            }
+            for p in self.items.iter_mut().filter(|p| p.0 == old) {
+                p.0 = new.to_string();
+            }
+        }
+        Ok(())
+    }
     fn finite(&mut self, key: &str, default: Option<f64>) -> Result<f64> {
         let v = self.num(key, default)?;
         if !v.is_finite() {
@@ -493,13 +509,14 @@ fn build(name: &str, items: Vec<(String, Value, usize)>, at: usize) -> Result<Ke
                 )));
             }
             let gamma = p.positive("gamma", Some(1.0))?;
-            let coef0 = p.finite("coef0", Some(1.0))?;
+            p.alias("coef0", "offset")?;
+            let coef0 = p.finite("offset", Some(1.0))?;
             if coef0 < 0.0 {
                 return Err(Error::input(format!(
-                    "kernel polynomial: coef0 = {coef0} is invalid; expected coef0 ≥ 0 (a negative coef0 is not positive definite)"
+                    "kernel polynomial: offset = {coef0} is invalid; expected offset ≥ 0 (a negative offset is not positive definite)"
                 )));
             }
-            p.finish("degree, gamma and coef0")?;
+            p.finish("degree, gamma and offset")?;
             Kernel::Polynomial {
                 degree: dv as u32,
                 gamma,
@@ -522,8 +539,9 @@ fn build(name: &str, items: Vec<(String, Value, usize)>, at: usize) -> Result<Ke
         }
         "sigmoid" => {
             let gamma = p.positive("gamma", Some(1.0))?;
-            let coef0 = p.finite("coef0", Some(0.0))?;
-            p.finish("gamma and coef0")?;
+            p.alias("coef0", "offset")?;
+            let coef0 = p.finite("offset", Some(0.0))?;
+            p.finish("gamma and offset")?;
             Kernel::Sigmoid { gamma, coef0 }
         }
         other => {
@@ -584,11 +602,11 @@ pub(crate) fn print(k: &Kernel, f: &mut fmt::Formatter<'_>) -> fmt::Result {
             coef0,
         } => write!(
             f,
-            "polynomial(degree={degree}, gamma={gamma:?}, coef0={coef0:?})"
+            "polynomial(degree={degree}, gamma={gamma:?}, offset={coef0:?})"
         ),
         Kernel::ArcCos { order } => write!(f, "arccos(order={order})"),
         Kernel::Linear => write!(f, "linear()"),
-        Kernel::Sigmoid { gamma, coef0 } => write!(f, "sigmoid(gamma={gamma:?}, coef0={coef0:?})"),
+        Kernel::Sigmoid { gamma, coef0 } => write!(f, "sigmoid(gamma={gamma:?}, offset={coef0:?})"),
         Kernel::Sum(v) => {
             for (i, t) in v.iter().enumerate() {
                 if i > 0 {

@@ -33,7 +33,7 @@ fn reference_values_dot_kernels() {
     assert!((k("arccos(order=0)").eval(&x, &y) - 0.75).abs() < 1e-12);
     assert!((k("arccos(order=1)").eval(&x, &y) - 1.0683099).abs() < 5e-8);
     // (x·y)² with x=(1,2), y=(3,4) is 11² = 121 (direct evaluation).
-    let p = k("polynomial(degree=2, gamma=1, coef0=0)");
+    let p = k("polynomial(degree=2, gamma=1, offset=0)");
     assert_eq!(p.eval(&[1.0, 2.0], &[3.0, 4.0]), 121.0);
 }
 
@@ -47,10 +47,10 @@ fn gram_blocks_match_pairwise() {
         "laplacian(gamma=0.3)",
         "matern(nu=1.5, lengthscale=0.8)",
         "rational_quadratic(alpha=2, lengthscale=1.5)",
-        "polynomial(degree=3, gamma=0.5, coef0=1)",
+        "polynomial(degree=3, gamma=0.5, offset=1)",
         "arccos(order=1)",
         "arccos(order=0)",
-        "sigmoid(gamma=0.1, coef0=0.5)",
+        "sigmoid(gamma=0.1, offset=0.5)",
         "2 * gaussian(gamma=1) + linear() * matern(nu=0.5, lengthscale=2)",
     ] {
         let kk = k(e);
@@ -105,7 +105,7 @@ fn printing_round_trips() {
         "gaussian(gamma=1) + 0.1 * (linear() + polynomial(degree=2))",
         "(gaussian(gamma=1) + linear()) * matern(nu=2.5)",
         "3 * (2 * linear())",
-        "(2 * linear()) * sigmoid(gamma=0.01, coef0=-1)",
+        "(2 * linear()) * sigmoid(gamma=0.01, offset=-1)",
     ] {
         let a = k(e);
         let b = k(&a.to_string());
@@ -165,4 +165,25 @@ mod prop {
             prop_assert_eq!(back, k);
         }
     }
+}
+
+#[test]
+fn the_older_offset_spelling_still_reads() {
+    // Model files written before the rename carry `coef0`; they read as `offset`.
+    let old: Kernel = "polynomial(degree=2, gamma=0.5, coef0=1.5)"
+        .parse()
+        .unwrap();
+    let new: Kernel = "polynomial(degree=2, gamma=0.5, offset=1.5)"
+        .parse()
+        .unwrap();
+    assert_eq!(old, new);
+    assert_eq!(
+        old.to_string(),
+        "polynomial(degree=2, gamma=0.5, offset=1.5)"
+    );
+    let s: Kernel = "sigmoid(gamma=0.1, coef0=-1)".parse().unwrap();
+    assert_eq!(s.to_string(), "sigmoid(gamma=0.1, offset=-1.0)");
+    assert!("polynomial(degree=2, coef0=1, offset=1)"
+        .parse::<Kernel>()
+        .is_err());
 }

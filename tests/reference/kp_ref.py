@@ -76,7 +76,7 @@ def spec_from_expression(expr):
     m = re.fullmatch(r"laplacian\(gamma=" + _NUM + r"\)", expr)
     if m:
         return {"name": "laplacian", "gamma": float(m.group(1))}
-    m = re.fullmatch(r"polynomial\(degree=(\d+), gamma=" + _NUM + ", coef0=" + _NUM + r"\)", expr)
+    m = re.fullmatch(r"polynomial\(degree=(\d+), gamma=" + _NUM + ", offset=" + _NUM + r"\)", expr)
     if m:
         return {"name": "polynomial", "degree": int(m.group(1)), "gamma": float(m.group(2)),
                 "coef0": float(m.group(3))}

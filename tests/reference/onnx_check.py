@@ -25,7 +25,7 @@ cols = [j for j in range(len(head)) if head[j] != target]
 x = np.array([[float(r[j]) for j in cols] for r in rows[1:]])
 sess = ort.InferenceSession(onnx_path, providers=["CPUExecutionProvider"])
 names = [o.name for o in sess.get_outputs()]
-out = dict(zip(names, sess.run(None, {"X": x.astype(np.float32)})))
+out = dict(zip(names, sess.run(None, {"input_rows": x.astype(np.float32)})))
 with open(score) as f:
     got = list(csv.DictReader(f))
 dec = np.array([[float(r[c]) for c in got[0] if c.startswith("decision")] for r in got])
@@ -45,7 +45,7 @@ err = np.abs(out["decision"] - dec).max()
 ok = err <= tol and out["decision"].shape == dec.shape
 msg = f"{man['source']['method']}: onnx vs score max |Δ| {err:.3e} (tol {tol:.3e})"
 if "label" in got[0]:
-    labs = [v.decode() if isinstance(v, bytes) else str(v) for v in out["label"]]
+    labs = [v.decode() if isinstance(v, bytes) else str(v) for v in out["predicted_class"]]
     same = np.mean([a == r["label"] for a, r in zip(labs, got)])
     idx = out["label_index"]
     names_ok = all(man["output"]["labels"][i] == l for i, l in zip(idx, labs))

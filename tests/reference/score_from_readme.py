@@ -127,11 +127,11 @@ def kernel_matrix(k, a, b):
         al = p.get("alpha", 1.0)
         return (1 + r * r / (2 * al)) ** (-al)
     if name == "polynomial":
-        return (p.get("gamma", 1.0) * a @ b.T + p.get("coef0", 1.0)) ** int(p["degree"])
+        return (p.get("gamma", 1.0) * a @ b.T + p.get("offset", p.get("coef0", 1.0))) ** int(p["degree"])
     if name == "linear":
         return a @ b.T
     if name == "sigmoid":
-        return np.tanh(p.get("gamma", 1.0) * a @ b.T + p.get("coef0", 0.0))
+        return np.tanh(p.get("gamma", 1.0) * a @ b.T + p.get("offset", p.get("coef0", 0.0)))
     if name == "arccos":
         na = np.linalg.norm(a, axis=1)[:, None]
         nb = np.linalg.norm(b, axis=1)[None, :]

@@ -601,13 +601,22 @@ fn value_info(name: &str, elem: i32, dims: &[Option<i64>]) -> ValueInfoProto {
     }
 }
 
+/// The exported graph's input: the raw rows, `[N, d]` float.
+pub const INPUT_NAME: &str = "input_rows";
+/// The exported graph's class output (classifiers): the predicted class, `[N]` string.
+pub const CLASS_NAME: &str = "predicted_class";
+
 /// Builds the ONNX model of `model` at the precision of `q`; returns it with one line per
 /// step saying how it was lowered.
+///
+/// The graph reads one float input [`INPUT_NAME`] (`[N, d]`, the raw input columns in the
+/// model's order) and writes `decision` (`[N, outputs]`) and, for classifiers,
+/// `label_index` and [`CLASS_NAME`] (the predicted class as a string).
 pub fn build(model: &CompiledModel, q: &Quantized) -> Result<(ModelProto, Vec<String>)> {
     let mut g = G::new();
     let p = model.program();
     let d = model.input_dim();
-    let mut x = "X".to_string();
+    let mut x = INPUT_NAME.to_string();
     if model.scaling().is_some() {
         let m = g.f32s("input_mean", &[d], &q.f32s("input.mean"));
         let s = g.f32s("input_scale", &[d], &q.f32s("input.scale"));
@@ -696,15 +705,19 @@ pub fn build(model: &CompiledModel, q: &Quantized) -> Result<(ModelProto, Vec<St
             &["class_labels", "label_index"],
             vec![attr_i("axis", 0)],
         );
-        g.nodes.last_mut().expect("node").output = vec!["label".into()];
+        g.nodes.last_mut().expect("node").output = vec![CLASS_NAME.into()];
         outputs.push(value_info("label_index", data_type::INT64, &[None]));
-        outputs.push(value_info("label", data_type::STRING, &[None]));
+        outputs.push(value_info(CLASS_NAME, data_type::STRING, &[None]));
     }
     let graph = GraphProto {
         node: g.nodes,
         name: Some("kernelpress".into()),
         initializer: g.inits,
-        input: vec![value_info("X", data_type::FLOAT, &[None, Some(d as i64)])],
+        input: vec![value_info(
+            INPUT_NAME,
+            data_type::FLOAT,
+            &[None, Some(d as i64)],
+        )],
         output: outputs,
         doc_string: Some(format!(
             "compiled {} model ({} features of {}) exported by kernelpress",

@@ -95,9 +95,9 @@ fn kernel(a: &Attrs) -> Result<Kernel> {
                     "kernel_params degree = {degree}; expected a whole number from 1 to 32"
                 )));
             }
-            format!("polynomial(degree={degree}, gamma={gamma:?}, coef0={coef0:?})")
+            format!("polynomial(degree={degree}, gamma={gamma:?}, offset={coef0:?})")
         }
-        "SIGMOID" => format!("sigmoid(gamma={gamma:?}, coef0={coef0:?})"),
+        "SIGMOID" => format!("sigmoid(gamma={gamma:?}, offset={coef0:?})"),
         other => {
             return Err(a.bad(format!(
                 "kernel_type '{other}' is not supported; expected LINEAR, POLY, RBF or SIGMOID"
