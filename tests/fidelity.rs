@@ -185,7 +185,7 @@ fn the_bandwidth_search_is_recorded_and_can_be_switched_off() {
     let pred = d.join("pred.csv");
     std::fs::write(&pred, sc).unwrap();
     py(
-        "score_from_readme.py",
+        "score_from_format_page.py",
         &[
             s(&d.join("tuned.safetensors")),
             s(&test),

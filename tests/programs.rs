@@ -29,7 +29,7 @@ fn check_with_readme_scorer(
         s(&sc),
     ]);
     let out = py(
-        "score_from_readme.py",
+        "score_from_format_page.py",
         &[s(model), s(test), "condition", s(&sc)],
     );
     eprint!("{out}");

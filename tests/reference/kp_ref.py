@@ -110,7 +110,7 @@ def labels_from_decision(task, labels, s):
     """The label rules of the README's "Label rules" (binary: positive = second label; ovr:
     argmax; ovo: pairs (0,1),(0,2),..., positive votes for the first, ties to the lowest);
     the one implementation is the README scorer's."""
-    from score_from_readme import labels as rule
+    from score_from_format_page import labels as rule
 
     return rule({"output": {"task": task, "labels": labels}}, s)
 
@@ -142,7 +142,7 @@ def read_score(path):
 
 def compiled_decision(path, x):
     """Decision values of a compiled model, recomputed from its file by the scorer written
-    from the README's description of the format (score_from_readme.py)."""
-    from score_from_readme import decision
+    from the README's description of the format (score_from_format_page.py)."""
+    from score_from_format_page import decision
 
     return decision(path, x)

@@ -11,7 +11,7 @@ import numpy as np
 import onnx
 import onnxruntime as ort
 
-from score_from_readme import decision, load
+from score_from_format_page import decision, load
 
 onnx_path, compiled, data, target, score = sys.argv[1:6]
 m = onnx.load(onnx_path)
@@ -34,7 +34,7 @@ t, man = load(compiled)
 s_ref, _ = decision(compiled, x)
 inp = man["input"]
 xs = (x - t["input.mean"]) / t["input.scale"] if inp["scaling"] == "standardize" else x
-import score_from_readme as sr
+import score_from_format_page as sr
 vals = [xs]
 for i, st in enumerate(man["program"]["steps"]):
     vals.append(sr.run_step(st, [vals[j] for j in st["inputs"]], t, i))

@@ -13,7 +13,7 @@ import numpy as np
 from safetensors import safe_open
 from safetensors.numpy import load_file
 
-import score_from_readme as sr
+import score_from_format_page as sr
 
 npy_dir, st_path, data, target, score, summary = sys.argv[1:7]
 desc = json.load(open(os.path.join(npy_dir, "program.json")))

@@ -1,8 +1,8 @@
 """Scores a kernelpress model file with numpy and the safetensors package alone, written from
-the README's sections "Model files (format version 2)" and "Kernel expressions" and from
+the format page docs/format.md ("Model files (format version 2)") and the kernel table of docs/methods-and-kernels.md ("Kernel expressions") and from
 nothing else (no kernelpress code, no scipy).
 
-Usage: score_from_readme.py MODEL DATA.csv TARGET SCORE.csv
+Usage: score_from_format_page.py MODEL DATA.csv TARGET SCORE.csv
 Compares the decision values and labels with `kernelpress score` output (relative 1e-10)."""
 import json
 import re
@@ -13,7 +13,7 @@ from safetensors import safe_open
 from safetensors.numpy import load_file
 
 
-# --- Kernel expressions (README "Kernel expressions") -----------------------------------
+# --- Kernel expressions (docs/methods-and-kernels.md, "Kernel expressions") -----------------------------------
 
 def _tokens(text):
     return re.findall(r"\d+\.?\d*(?:[eE][-+]?\d+)?|\.\d+(?:[eE][-+]?\d+)?|[A-Za-z_][A-Za-z_0-9]*|[()\[\]=,*+]", text)
@@ -93,7 +93,7 @@ def _sqdist(a, b):
 
 
 def kernel_matrix(k, a, b):
-    """K(a, b) from the README's table of kernels."""
+    """K(a, b) from the kernel table of docs/methods-and-kernels.md."""
     if k[0] == "sum":
         return sum(kernel_matrix(p, a, b) for p in k[1])
     if k[0] == "product":
@@ -139,14 +139,14 @@ def kernel_matrix(k, a, b):
         if p.get("order", 1.0) == 0:
             return (np.pi - th) / np.pi
         return na * nb / np.pi * (np.sin(th) + (np.pi - th) * np.cos(th))
-    raise ValueError(f"kernel {name} not in the README table")
+    raise ValueError(f"kernel {name} not in the kernel table")
 
 
 def parse_kernel(text):
     return _Parser(text).expr()
 
 
-# --- Model files (README "Model files (format version 2)") ------------------------------
+# --- Model files (docs/format.md, "Model files (format version 2)") ------------------------------
 
 def load(path):
     t = load_file(path)
@@ -220,7 +220,7 @@ def run_step(st, ins, t, i):
             out.append(np.prod(u[:, at:at + n], axis=1))
             at += n
         return np.stack(out, axis=1)
-    raise ValueError(f"op {op} not in the README table")
+    raise ValueError(f"op {op} not in the kernel table")
 
 
 def decision(path, x):
