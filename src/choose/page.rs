@@ -80,19 +80,25 @@ pub fn render_page(s: &Sweep, svg: &str, title: &str, max_loss: f64, context: &[
     }
     h.push_str("</p>\n<h2>Fidelity against latency</h2>\n");
     h.push_str(svg);
-    h.push_str("\n<p>Lower is better on both axes. Ringed points joined by the dashed line are the Pareto front: no other candidate is both faster and more faithful. The grey dashed line is the exact model. Lines named <code>+guard</code> are the same candidates guarded by the exact model, placed at their mean single-row latency.</p>\n");
+    h.push_str("\n<p>Lower is better on both axes. Ringed points joined by the black dashed line are the Pareto front: no other candidate is both faster and more faithful. The dark grey vertical line of short dashes is the exact model.");
+    if s.records.iter().any(|r| r.method.ends_with("+guard")) {
+        h.push_str(" Lines named <code>+guard</code> are the same candidates guarded by the exact model, placed at their mean single-row latency.");
+    }
+    h.push_str("</p>\n");
     h.push_str("<h2>Candidates</h2>\n<table>\n<tr><th>method</th><th>features</th>");
     h.push_str(&format!(
         "<th>{}</th><th>agreement 95% CI</th><th>latency p50 (µs; +guard: mean)</th><th>predicted (µs)</th><th>prediction error</th><th>throughput (rows/s)</th><th>parameters (KiB)</th><th>accuracy</th><th>compile (s)</th></tr>\n",
         esc(&s.loss_name)
     ));
     let mut order: Vec<usize> = (0..s.records.len()).collect();
+    // The exact model first, then the candidates from the most faithful down (ties: faster
+    // first): the order a reader choosing by fidelity scans.
     order.sort_by(|&a, &b| {
         let (x, y) = (&s.records[a], &s.records[b]);
-        x.exact
-            .cmp(&y.exact)
-            .then(x.method.cmp(&y.method))
-            .then(x.features.cmp(&y.features))
+        y.exact
+            .cmp(&x.exact)
+            .then(x.loss.total_cmp(&y.loss))
+            .then(x.latency_us.total_cmp(&y.latency_us))
     });
     for i in order {
         let r = &s.records[i];
@@ -118,15 +124,23 @@ pub fn render_page(s: &Sweep, svg: &str, title: &str, max_loss: f64, context: &[
         .unwrap_or_default();
         h.push_str(&format!(
             "<tr{class}><td class=\"l\">{}{}</td><td>{}</td><td>{:.4}</td><td>{}</td><td>{}</td><td>{}</td><td>{:+.0}%</td><td>{}</td><td>{:.1}</td><td>{}</td><td>{}</td></tr>\n",
-            esc(&r.method),
+            esc(&if r.exact {
+                format!("exact model ({} support vectors)", r.features)
+            } else {
+                r.method.clone()
+            }),
             if r.pareto { " (front)" } else { "" },
-            r.features,
+            if r.exact { "—".to_string() } else { r.features.to_string() },
             r.loss,
             ci,
             num(r.latency_us, 2),
             num(r.predicted.latency_us, 2),
             100.0 * r.latency_prediction_error(),
-            num(r.rows_per_s, 0),
+            if r.rows_per_s.is_finite() {
+                crate::report::format_count(r.rows_per_s)
+            } else {
+                String::new()
+            },
             r.bytes as f64 / 1024.0,
             acc,
             if r.exact { String::new() } else { format!("{:.2}", r.compile_s) },

@@ -7,7 +7,10 @@ use super::Sweep;
 use crate::{Error, Result};
 use plotters::prelude::*;
 
-/// Dark, distinguishable line colours (print- and colour-blind-friendly order).
+/// Line colours: six colours of the colour-blind-safe palette of Okabe & Ito (2008), "Color
+/// Universal Design (CUD): how to make figures and presentations that are friendly to
+/// colorblind people" (their yellow is too light on white and black marks the Pareto
+/// front, so both are left out), then a brown and a dark purple of our own.
 const PALETTE: [RGBColor; 8] = [
     RGBColor(0, 114, 178),
     RGBColor(213, 94, 0),

@@ -12,7 +12,7 @@ mod render;
 
 pub use latency::{measure_batch, measure_single, LatencyStats};
 pub use metrics::{decision_errors, gram_errors, kernel_errors, kernel_features, wilson95};
-pub use render::{bytes as format_bytes, render_text, speed_ratio};
+pub use render::{bytes as format_bytes, count as format_count, render_text, speed_ratio};
 
 use crate::model::{label_indices, CompiledModel, ExactModel, GuardedModel};
 use crate::Result;
