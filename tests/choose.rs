@@ -196,6 +196,12 @@ fn budgets_nothing_meets_write_nothing() {
     let err = String::from_utf8_lossy(&o.stderr);
     assert_eq!(o.status.code(), Some(4), "{err}");
     assert!(err.contains("no model meets"), "{err}");
+    // Said once: "no model meets the budget: a latency of 0.001 µs; no file written".
+    assert_eq!(err.matches("no model meets").count(), 1, "{err}");
+    assert!(
+        err.contains("a latency of 0.001 µs; no file written"),
+        "{err}"
+    );
     assert!(String::from_utf8_lossy(&o.stdout).contains("predicted at"));
     assert!(!out.exists());
     // A size no model reaches.
@@ -229,6 +235,36 @@ fn budgets_nothing_meets_write_nothing() {
     let text = String::from_utf8_lossy(&o.stdout);
     assert_eq!(o.status.code(), Some(5), "{text}");
     assert!(text.contains("the exact model itself meets"), "{text}");
+    assert!(
+        text.contains("without a fidelity bound nothing compiled can be more faithful"),
+        "{text}"
+    );
+    assert!(!out.exists());
+    // Compiled candidates that meet the latency and size but not the fidelity bound are
+    // named as such, not as "no compiled model meets it".
+    let small = cut(&d, "models/pump_calib.csv", 600);
+    let o = run(&[
+        "compile",
+        s(&model),
+        "--calib",
+        &small,
+        "--budget-us",
+        "1000000",
+        "--max-bytes",
+        "300K",
+        "--max-disagreement",
+        "0.0001",
+        "--methods",
+        "fourier",
+        "--out",
+        s(&out),
+    ]);
+    let text = String::from_utf8_lossy(&o.stdout);
+    assert_eq!(o.status.code(), Some(5), "{text}");
+    assert!(
+        text.contains("compiled candidates built meet the latency and size but none the disagreement bound of 0.0001"),
+        "{text}"
+    );
     assert!(!out.exists());
     // No temporary files left behind.
     let left: Vec<_> = std::fs::read_dir(&d)

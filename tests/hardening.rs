@@ -469,6 +469,15 @@ fn the_report_says_where_f32_loses_precision() {
         "{}",
         r["warnings"]
     );
+    // One figure, not two: the warning quotes the f32 movement the report measured.
+    let moved = r["f32_max_abs_difference"].as_f64().unwrap();
+    assert!(
+        r["warnings"]
+            .to_string()
+            .contains(&format!("up to {moved:.1e}")),
+        "{} vs {moved:.1e}",
+        r["warnings"]
+    );
     // A random-feature head does not.
     let calib = dir.join("c.csv");
     head_lines(&root().join("models/pump_calib.csv"), &calib, 1000);

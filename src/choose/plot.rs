@@ -22,6 +22,58 @@ const PALETTE: [RGBColor; 8] = [
     RGBColor(90, 0, 140),
 ];
 
+/// A label's box in pixels: left, top, right, bottom.
+type LabelBox = (i32, i32, i32, i32);
+
+/// The box of `text` drawn at 11 px with its top-left corner at (x, y) (7 px a digit).
+fn label_box(x: i32, y: i32, text: &str) -> LabelBox {
+    (x, y, x + 7 * text.chars().count() as i32, y + 12)
+}
+
+fn overlaps(a: LabelBox, b: LabelBox) -> bool {
+    a.0 < b.2 && b.0 < a.2 && a.1 < b.3 && b.1 < a.3
+}
+
+/// The offset from its point (px, py) at which a label covers no point (a 4 px disc) and
+/// no box in `taken`: the first free of fourteen spots in two rings around the point, else
+/// the first.
+fn place_label(
+    px: i32,
+    py: i32,
+    text: &str,
+    points: &[(i32, i32)],
+    taken: &[LabelBox],
+) -> (i32, i32) {
+    let w = 7 * text.chars().count() as i32;
+    let spots = [
+        (6, -14),
+        (6, 3),
+        (-w - 6, -14),
+        (-w - 6, 3),
+        (-w / 2, -20),
+        (-w / 2, 8),
+        (10, -6),
+        (-w - 10, -6),
+        (14, -28),
+        (14, 17),
+        (-w - 14, -28),
+        (-w - 14, 17),
+        (-w / 2, -34),
+        (-w / 2, 22),
+    ];
+    spots
+        .iter()
+        .copied()
+        .find(|&(dx, dy)| {
+            let b = label_box(px + dx, py + dy, text);
+            !taken.iter().any(|t| overlaps(*t, b))
+                && !points
+                    .iter()
+                    .any(|&(x, y)| overlaps((x - 4, y - 4, x + 4, y + 4), b))
+        })
+        .unwrap_or(spots[0])
+}
+
 fn err<E: std::fmt::Display>(e: E) -> Error {
     Error::internal(format!("drawing the sweep picture: {e}"))
 }
@@ -98,6 +150,7 @@ pub fn render_svg(s: &Sweep, width: u32, height: u32) -> Result<String> {
             .y_label_formatter(&|v| format!("{v:.1e}"))
             .draw()
             .map_err(err)?;
+        let mut labels: Vec<(f64, f64, usize)> = Vec::new();
         let mut methods: Vec<&str> = Vec::new();
         for r in s.records.iter().filter(|r| !r.exact) {
             if !methods.contains(&r.method.as_str()) {
@@ -129,11 +182,26 @@ pub fn render_svg(s: &Sweep, width: u32, height: u32) -> Result<String> {
                         .map(|p| Circle::new((p.0, p.1), 4, color.filled())),
                 )
                 .map_err(err)?;
+            labels.extend(line.iter().map(|p| (p.0, p.1, p.2)));
+        }
+        // Size labels placed one by one where they cover no point and no label placed
+        // before (tried around the point in a fixed order; the first free spot wins, else
+        // the default spot): crowded points of several methods stay readable.
+        let points: Vec<(i32, i32)> = labels
+            .iter()
+            .map(|p| chart.backend_coord(&(p.0, p.1)))
+            .collect();
+        let mut taken: Vec<LabelBox> = Vec::new();
+        for p in &labels {
+            let (px, py) = chart.backend_coord(&(p.0, p.1));
+            let text = format!("{}", p.2);
+            let (dx, dy) = place_label(px, py, &text, &points, &taken);
+            taken.push(label_box(px + dx, py + dy, &text));
             chart
-                .draw_series(line.iter().map(|p| {
+                .draw_series(std::iter::once(
                     EmptyElement::at((p.0, p.1))
-                        + Text::new(format!("{}", p.2), (6, -14), ("sans-serif", 11).into_font())
-                }))
+                        + Text::new(text, (dx, dy), ("sans-serif", 11).into_font()),
+                ))
                 .map_err(err)?;
         }
         // The Pareto front among compiled candidates, joined in latency order and ringed.
@@ -186,4 +254,32 @@ pub fn render_svg(s: &Sweep, width: u32, height: u32) -> Result<String> {
         root.present().map_err(err)?;
     }
     Ok(svg)
+}
+
+#[cfg(test)]
+mod label_tests {
+    use super::*;
+
+    #[test]
+    fn crowded_labels_find_free_spots() {
+        // Four points of four methods within a few pixels of each other, as at one feature
+        // count of a sweep: every label gets a box no other label or point covers.
+        let points = [(100, 100), (104, 102), (98, 105), (103, 97)];
+        let mut taken: Vec<LabelBox> = Vec::new();
+        for &(x, y) in &points {
+            let (dx, dy) = place_label(x, y, "1024", &points, &taken);
+            let b = label_box(x + dx, y + dy, "1024");
+            assert!(
+                !taken.iter().any(|t| overlaps(*t, b)),
+                "{b:?} overlaps {taken:?}"
+            );
+            taken.push(b);
+        }
+        // With the old fixed offset all four would have overlapped.
+        let fixed: Vec<LabelBox> = points
+            .iter()
+            .map(|&(x, y)| label_box(x + 6, y - 14, "1024"))
+            .collect();
+        assert!(overlaps(fixed[0], fixed[1]));
+    }
 }

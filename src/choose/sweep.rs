@@ -128,12 +128,18 @@ pub fn run_sweep(
         .iter()
         .flat_map(|m| opts.features.iter().map(move |f| (*m, *f)))
         .collect();
-    obs.stage("sweep", pairs.len() as u64);
+    // Progress in units of work, not pairs: a pair's distillation costs about n·(D² + d·D)
+    // multiply-adds for the statistics plus D³ for the solve, so the last, largest pairs
+    // dominate and a count of pairs would promise far too early an end.
+    let n = teacher.raw().nrows();
+    let total: u64 = pairs.iter().map(|&(_, f)| pair_work(n, d, f)).sum();
+    obs.stage("sweep (work in millions of multiply-adds)", total);
     for (m, f) in pairs {
+        let w = pair_work(n, d, f);
         let spec = FeatureSpec::new(kernel.clone(), m, d, f, opts.seed);
         if let Err(e) = spec.validate() {
             skipped.push((m.name().to_string(), f, e.message().to_string()));
-            obs.advance(1);
+            obs.advance(w);
             continue;
         }
         let t0 = Instant::now();
@@ -141,7 +147,7 @@ pub fn run_sweep(
             Ok(x) => x,
             Err(e) => {
                 skipped.push((m.name().to_string(), f, e.message().to_string()));
-                obs.advance(1);
+                obs.advance(w);
                 continue;
             }
         };
@@ -191,7 +197,7 @@ pub fn run_sweep(
                 )),
             }
         }
-        obs.advance(1);
+        obs.advance(w);
     }
     obs.finish();
     let et = ropts.exact_timing;
@@ -223,4 +229,26 @@ pub fn run_sweep(
         },
         n_rows: eval.nrows(),
     })
+}
+
+/// The work of distilling one candidate with `f` features from `n` calibration rows of `d`
+/// columns, in millions of multiply-adds (at least 1): `n·(f² + d·f) + f³`.
+fn pair_work(n: usize, d: usize, f: usize) -> u64 {
+    let (n, d, f) = (n as f64, d as f64, f as f64);
+    ((n * (f * f + d * f) + f * f * f) / 1e6).max(1.0) as u64
+}
+
+#[cfg(test)]
+mod work_tests {
+    #[test]
+    fn larger_candidates_weigh_more() {
+        // 8,000 rows of 8 columns: 4,096 features weigh about 21× 1,024 (16× from the D²
+        // term, more from the D³ solve).
+        let (a, b) = (
+            super::pair_work(8000, 8, 1024),
+            super::pair_work(8000, 8, 4096),
+        );
+        assert!(b > 16 * a && b < 24 * a, "{a} {b}");
+        assert_eq!(super::pair_work(10, 2, 4), 1);
+    }
 }

@@ -704,7 +704,12 @@ fn run_budget(
 fn compiled_shortfall(b: &Budget, tried: &[kernelpress::choose::Record]) -> String {
     let built: Vec<&kernelpress::choose::Record> = tried.iter().filter(|r| !r.exact).collect();
     if built.is_empty() {
-        return "; no compiled candidate was predicted to be faster, so none was built".into();
+        return if b.max_loss.is_none() {
+            "; without a fidelity bound nothing compiled can be more faithful, so none was built"
+                .into()
+        } else {
+            "; no compiled candidate was predicted to be faster, so none was built".into()
+        };
     }
     let quick: Vec<&&kernelpress::choose::Record> = built
         .iter()
