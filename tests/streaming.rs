@@ -103,3 +103,33 @@ fn a_bad_cell_deep_in_a_streamed_file_is_named_by_row_and_line() {
     );
     assert!(!out.exists());
 }
+
+#[test]
+fn every_npy_header_spelling_numpy_reads_is_read_the_same_whole_and_streamed() {
+    // One header parser for both readers, checked against numpy.load on each file.
+    let dir = tmpdir("npy_spellings");
+    let n: usize = py("npy_spellings.py", &[s(&dir)]).trim().parse().unwrap();
+    assert_eq!(n, 20);
+    let want: Vec<f64> = std::fs::read_to_string(dir.join("want.csv"))
+        .unwrap()
+        .lines()
+        .flat_map(|l| {
+            l.split(',')
+                .map(|v| v.parse::<f64>().unwrap())
+                .collect::<Vec<_>>()
+        })
+        .collect();
+    let names: Vec<String> = (0..4).map(|j| format!("x{j}")).collect();
+    for i in 0..n {
+        let p = dir.join(format!("v{i:02}.npy"));
+        let whole = kernelpress::data::read_npy(&p).unwrap();
+        assert_eq!(whole.shape, vec![3, 4], "{}", p.display());
+        assert_eq!(whole.data, want, "whole read of {}", p.display());
+        let mut f = kernelpress::data::RowFile::open_for_model(&p, None, &names, true).unwrap();
+        let mut got = Vec::new();
+        while let Some(c) = f.next_chunk(2).unwrap() {
+            got.extend(c.x.iter().copied());
+        }
+        assert_eq!(got, want, "streamed read of {}", p.display());
+    }
+}

@@ -81,27 +81,9 @@ pub fn parse_npy(b: &[u8], source: &str) -> Result<NpyArray> {
     }
     let header = std::str::from_utf8(&b[start..start + hlen])
         .map_err(|_| bad(source, "header is not text"))?;
-    let descr = dict_value(header, "descr").ok_or_else(|| bad(source, "no 'descr' in header"))?;
-    let descr = descr.trim_matches(|c| c == '\'' || c == '"');
-    let (size, kind) = match descr {
-        "<f8" | "f8" => (8, 'f'),
-        "<f4" | "f4" => (4, 'f'),
-        "<i8" | "i8" => (8, 'i'),
-        "<i4" | "i4" => (4, 'i'),
-        other => return Err(Error::input(dtype_message(source, other))),
-    };
-    let fortran = dict_value(header, "fortran_order")
-        .map(|v| v.trim() == "True")
-        .unwrap_or(false);
-    let shape_s = dict_value(header, "shape").ok_or_else(|| bad(source, "no 'shape' in header"))?;
-    let shape: Vec<usize> = shape_s
-        .trim_matches(|c| c == '(' || c == ')')
-        .split(',')
-        .map(|s| s.trim())
-        .filter(|s| !s.is_empty())
-        .map(|s| s.parse::<usize>())
-        .collect::<std::result::Result<_, _>>()
-        .map_err(|_| bad(source, format!("shape {shape_s} is not a list of sizes")))?;
+    let h = parse_header(header, source)?;
+    let (size, kind) = h.element(source)?;
+    let (fortran, shape) = (h.fortran_order, h.shape);
     if shape.is_empty() || shape.len() > 2 {
         return Err(Error::input(shape_message(source, &shape)));
     }
@@ -172,16 +154,168 @@ pub fn not_finite_message(source: &str, row: usize, col: usize, v: f64) -> Strin
     )
 }
 
-fn dict_value<'a>(header: &'a str, key: &str) -> Option<&'a str> {
-    let k1 = format!("'{key}'");
-    let at = header.find(&k1)? + k1.len();
-    let rest = header[at..].trim_start().strip_prefix(':')?.trim_start();
-    if rest.starts_with('(') {
-        let end = rest.find(')')?;
-        Some(&rest[..=end])
-    } else {
-        let end = rest.find(',').or_else(|| rest.find('}'))?;
-        Some(rest[..end].trim())
+/// A `.npy` header: the three keys of the format's dictionary.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct Header {
+    /// The dtype string (`<f8`, …).
+    pub descr: String,
+    /// Column-major data.
+    pub fortran_order: bool,
+    /// The shape.
+    pub shape: Vec<usize>,
+}
+
+impl Header {
+    /// Bytes per value and kind (`'f'` float, `'i'` integer) of the dtypes read.
+    pub fn element(&self, source: &str) -> Result<(usize, char)> {
+        Ok(match self.descr.as_str() {
+            "<f8" | "f8" | "|f8" | "=f8" => (8, 'f'),
+            "<f4" | "f4" | "=f4" => (4, 'f'),
+            "<i8" | "i8" | "=i8" => (8, 'i'),
+            "<i4" | "i4" | "=i4" => (4, 'i'),
+            other => return Err(Error::input(dtype_message(source, other))),
+        })
+    }
+}
+
+/// One token of the header's Python literal.
+#[derive(Debug, Clone, PartialEq)]
+enum Lit {
+    Str(String),
+    Bool(bool),
+    Tuple(Vec<usize>),
+}
+
+/// Parses a `.npy` header as the format defines it (numpy's format documentation,
+/// "NEP 1"): a Python dictionary literal with exactly the keys `'descr'`, `'fortran_order'`
+/// and `'shape'` in any order, either quote style, any spacing, an optional trailing comma,
+/// then padding spaces and a newline. Integers may carry Python 2's `L` suffix (files
+/// written by old numpy). A repeated key keeps its last value, as Python's literal does.
+pub(crate) fn parse_header(text: &str, source: &str) -> Result<Header> {
+    let fail = |what: String| bad(source, format!("header {what}"));
+    let c: Vec<char> = text.chars().collect();
+    let mut i = 0;
+    let ws = |i: &mut usize| {
+        while *i < c.len() && c[*i].is_whitespace() {
+            *i += 1;
+        }
+    };
+    let string = |i: &mut usize| -> Option<String> {
+        let q = *c.get(*i)?;
+        if q != '\'' && q != '"' {
+            return None;
+        }
+        let mut out = String::new();
+        *i += 1;
+        while *i < c.len() && c[*i] != q {
+            if c[*i] == '\\' {
+                return None;
+            }
+            out.push(c[*i]);
+            *i += 1;
+        }
+        if *i >= c.len() {
+            return None;
+        }
+        *i += 1;
+        Some(out)
+    };
+    ws(&mut i);
+    if c.get(i) != Some(&'{') {
+        return Err(fail("is not a dictionary ('{' expected)".into()));
+    }
+    i += 1;
+    let mut items: Vec<(String, Lit)> = Vec::new();
+    loop {
+        ws(&mut i);
+        if c.get(i) == Some(&'}') {
+            i += 1;
+            break;
+        }
+        let key =
+            string(&mut i).ok_or_else(|| fail(format!("has no quoted key at character {i}")))?;
+        ws(&mut i);
+        if c.get(i) != Some(&':') {
+            return Err(fail(format!("has no ':' after '{key}'")));
+        }
+        i += 1;
+        ws(&mut i);
+        let value = if let Some(v) = string(&mut i) {
+            Lit::Str(v)
+        } else if c[i..].starts_with(&['T', 'r', 'u', 'e']) {
+            i += 4;
+            Lit::Bool(true)
+        } else if c[i..].starts_with(&['F', 'a', 'l', 's', 'e']) {
+            i += 5;
+            Lit::Bool(false)
+        } else if c.get(i) == Some(&'(') {
+            i += 1;
+            let mut v = Vec::new();
+            loop {
+                ws(&mut i);
+                if c.get(i) == Some(&')') {
+                    i += 1;
+                    break;
+                }
+                let st = i;
+                while i < c.len() && c[i].is_ascii_digit() {
+                    i += 1;
+                }
+                let n: usize = c[st..i]
+                    .iter()
+                    .collect::<String>()
+                    .parse()
+                    .map_err(|_| fail(format!("'{key}' is not a tuple of sizes")))?;
+                if matches!(c.get(i), Some('L') | Some('l')) {
+                    i += 1;
+                }
+                v.push(n);
+                ws(&mut i);
+                match c.get(i) {
+                    Some(',') => i += 1,
+                    Some(')') => {}
+                    _ => return Err(fail(format!("'{key}' is not a tuple of sizes"))),
+                }
+            }
+            Lit::Tuple(v)
+        } else {
+            return Err(fail(format!("has an unreadable value for '{key}'")));
+        };
+        items.retain(|(k, _)| *k != key);
+        items.push((key, value));
+        ws(&mut i);
+        match c.get(i) {
+            Some(',') => i += 1,
+            Some('}') => {}
+            _ => return Err(fail("entries are not separated by ','".into())),
+        }
+    }
+    if c[i..].iter().any(|ch| !ch.is_whitespace()) {
+        return Err(fail("has text after the dictionary".into()));
+    }
+    let mut descr = None;
+    let mut fortran = None;
+    let mut shape = None;
+    for (k, v) in items {
+        match (k.as_str(), v) {
+            ("descr", Lit::Str(s)) => descr = Some(s),
+            ("fortran_order", Lit::Bool(b)) => fortran = Some(b),
+            ("shape", Lit::Tuple(t)) => shape = Some(t),
+            ("descr" | "fortran_order" | "shape", _) => {
+                return Err(fail(format!("'{k}' has the wrong type")))
+            }
+            (other, _) => return Err(fail(format!("has the unexpected key '{other}'"))),
+        }
+    }
+    match (descr, fortran, shape) {
+        (Some(descr), Some(fortran_order), Some(shape)) => Ok(Header {
+            descr,
+            fortran_order,
+            shape,
+        }),
+        _ => Err(fail(
+            "lacks one of 'descr', 'fortran_order' and 'shape'".into(),
+        )),
     }
 }
 
@@ -243,5 +377,42 @@ mod tests {
         let huge = npy_bytes(&[1 << 40, 1 << 30], "<f8", vec![]);
         assert!(parse_npy(&huge, "t.npy").is_err());
         assert!(parse_npy(b"hello", "t.npy").is_err());
+    }
+
+    #[test]
+    fn header_spellings_numpy_accepts() {
+        // Every spelling a Python dict literal allows (the format documentation).
+        let want = Header {
+            descr: "<f8".into(),
+            fortran_order: true,
+            shape: vec![2, 3],
+        };
+        for h in [
+            "{'descr': '<f8', 'fortran_order': True, 'shape': (2, 3), }",
+            "{'descr':'<f8','fortran_order':True,'shape':(2,3)}",
+            "{\"descr\": \"<f8\", \"fortran_order\": True, \"shape\": (2, 3)}",
+            "{'shape': (2L, 3L), 'fortran_order': True, 'descr': '<f8'}   \n",
+            "{ 'fortran_order' : True , 'descr' : '<f8' , 'shape' : ( 2 , 3 , ) , }",
+        ] {
+            assert_eq!(parse_header(h, "t").unwrap(), want, "{h}");
+        }
+        assert_eq!(
+            parse_header(
+                "{'descr': '<f4', 'fortran_order': False, 'shape': (5,)}",
+                "t"
+            )
+            .unwrap()
+            .shape,
+            vec![5]
+        );
+        for bad in [
+            "{'descr': '<f8', 'shape': (2, 3)}",
+            "{'descr': '<f8', 'fortran_order': 1, 'shape': (2, 3)}",
+            "{'descr': '<f8', 'fortran_order': True, 'shape': (2, 3), 'x': 1}",
+            "{'descr': '<f8', 'fortran_order': True, 'shape': (2, -3)}",
+            "{'descr': '<f8', 'fortran_order': True, 'shape': (2, 3)} x",
+        ] {
+            assert!(parse_header(bad, "t").is_err(), "{bad}");
+        }
     }
 }

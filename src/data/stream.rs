@@ -5,7 +5,7 @@
 //! Fortran-ordered array is read whole, its layout allowing nothing else).
 
 use super::csv::{header, RowParser};
-use super::npy::{dtype_message, not_finite_message, parse_npy, shape_message};
+use super::npy::{not_finite_message, shape_message};
 use super::{check_batch, is_npy, plan_columns};
 use crate::error::io_error;
 use crate::{Error, Result};
@@ -347,44 +347,15 @@ fn open_npy(
             "{source}: not a valid .npy file: header claims {hlen} bytes but the file ends first"
         )));
     }
-    // Parse the header alone (an empty body of the declared shape is checked below).
-    let mut probe = pre[..start].to_vec();
-    probe.extend_from_slice(&head);
-    let text = String::from_utf8_lossy(&head).to_string();
-    let fortran = text.contains("'fortran_order': True");
-    let descr = ["<f8", "<f4", "<i8", "<i4", "|f8"]
-        .into_iter()
-        .find(|d| text.contains(&format!("'descr': '{d}'")));
-    let Some(descr) = descr else {
-        // Let the whole-array parser produce its message for anything else.
-        let e = parse_npy(&probe, source)
-            .err()
-            .unwrap_or_else(|| Error::input(dtype_message(source, "?")));
-        return Err(e);
-    };
-    let (size, kind) = match descr {
-        "<f8" | "|f8" => (8, 'f'),
-        "<f4" => (4, 'f'),
-        "<i8" => (8, 'i'),
-        _ => (4, 'i'),
-    };
-    let shape_s = text
-        .split("'shape':")
-        .nth(1)
-        .and_then(|s| s.split(')').next())
-        .map(|s| s.trim().trim_start_matches('('))
-        .unwrap_or("");
-    let shape: Vec<usize> = shape_s
-        .split(',')
-        .map(|s| s.trim())
-        .filter(|s| !s.is_empty())
-        .map(|s| s.parse::<usize>())
-        .collect::<std::result::Result<_, _>>()
-        .map_err(|_| {
-            Error::input(format!(
-                "{source}: not a valid .npy file: shape ({shape_s}) is not a list of sizes"
-            ))
-        })?;
+    // The one header parser of the format (also used for whole files).
+    let text = std::str::from_utf8(&head).map_err(|_| {
+        Error::input(format!(
+            "{source}: not a valid .npy file: header is not text"
+        ))
+    })?;
+    let h = super::npy::parse_header(text, source)?;
+    let (size, kind) = h.element(source)?;
+    let (fortran, shape) = (h.fortran_order, h.shape);
     let (rows, d) = match shape.as_slice() {
         [n] => (*n, 1),
         [n, d] => (*n, *d),
