@@ -133,3 +133,123 @@ fn every_npy_header_spelling_numpy_reads_is_read_the_same_whole_and_streamed() {
         assert_eq!(got, want, "streamed read of {}", p.display());
     }
 }
+
+#[test]
+fn csv_follows_rfc_4180_both_ways() {
+    // Quoted fields with commas, quotes and line breaks, as Python's csv module writes
+    // them, read whole and streamed as csv.reader reads them; labels written back by
+    // `score` quoted so that csv.reader reads them unchanged and `a,b` and `a_b` stay apart.
+    let dir = tmpdir("csv_rfc_4180");
+    let n: usize = py("csv_quoting.py", &["write", s(&dir)])
+        .trim()
+        .parse()
+        .unwrap();
+    let want: Vec<Vec<String>> =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("want.json")).unwrap()).unwrap();
+    assert_eq!(want.len(), n + 1);
+    for file in ["minimal.csv", "all.csv"] {
+        let p = dir.join(file);
+        let t = kernelpress::data::read_table(&p, Some("label"), true).unwrap();
+        let labels = t.target.clone().unwrap();
+        let names = vec!["x1".to_string(), "x2".to_string()];
+        let mut f =
+            kernelpress::data::RowFile::open_for_model(&p, Some("label"), &names, false).unwrap();
+        let mut streamed = Vec::new();
+        let mut slabels = Vec::new();
+        while let Some(c) = f.next_chunk(7).unwrap() {
+            streamed.extend(c.x.iter().copied());
+            slabels.extend(c.target.unwrap());
+        }
+        for (i, row) in want[1..].iter().enumerate() {
+            let x1: f64 = row[0].parse().unwrap();
+            let x2: f64 = row[2].parse().unwrap();
+            assert_eq!((t.x[[i, 0]], t.x[[i, 1]]), (x1, x2), "{file} row {i}");
+            assert_eq!(labels[i], row[1], "{file} row {i}");
+            assert_eq!(
+                (streamed[2 * i], streamed[2 * i + 1]),
+                (x1, x2),
+                "{file} streamed row {i}"
+            );
+            assert_eq!(slabels[i], row[1], "{file} streamed row {i}");
+        }
+    }
+    // A classifier over those labels: score's CSV, read by csv.reader.
+    let model = dir.join("m.safetensors");
+    ok(&[
+        "train",
+        "--data",
+        s(&dir.join("minimal.csv")),
+        "--target",
+        "label",
+        "--kernel",
+        "gaussian(gamma=0.5)",
+        "--model",
+        "ridge",
+        "--classify",
+        "--out",
+        s(&model),
+    ]);
+    let out = dir.join("scores.csv");
+    ok(&[
+        "score",
+        s(&model),
+        "--data",
+        s(&dir.join("minimal.csv")),
+        "--target",
+        "label",
+        "--decisions",
+        "--out",
+        s(&out),
+    ]);
+    let back: serde_json::Value =
+        serde_json::from_str(&py("csv_quoting.py", &["read", s(&out)])).unwrap();
+    let header: Vec<&str> = back["header"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_str().unwrap())
+        .collect();
+    for l in ["a,b", "a_b", "say \"hi\"", "two\nlines"] {
+        assert!(
+            header.contains(&format!("score_{l}").as_str()),
+            "{header:?}"
+        );
+        assert!(
+            header.contains(&format!("decision_{l}").as_str()),
+            "{header:?}"
+        );
+    }
+    let rows = back["rows"].as_array().unwrap();
+    assert_eq!(rows.len(), n);
+    for r in rows {
+        let label = r[0].as_str().unwrap();
+        assert!(
+            ["a,b", "a_b", "say \"hi\"", "two\nlines"].contains(&label),
+            "{label:?}"
+        );
+        assert_eq!(r.as_array().unwrap().len(), header.len());
+    }
+    // The same text on stdout.
+    let text = ok(&[
+        "score",
+        s(&model),
+        "--data",
+        s(&dir.join("minimal.csv")),
+        "--target",
+        "label",
+        "--decisions",
+    ]);
+    assert_eq!(text, std::fs::read_to_string(&out).unwrap());
+    // An unclosed quote is an error naming the row.
+    let bad_csv = dir.join("open.csv");
+    std::fs::write(&bad_csv, "x1,label,x2\n1,\"ok,2\n3,b,4\n").unwrap();
+    let e = bad(&[
+        "score",
+        s(&model),
+        "--data",
+        s(&bad_csv),
+        "--target",
+        "label",
+    ]);
+    assert!(e.contains("never closed") && e.contains("row 1"), "{e}");
+}

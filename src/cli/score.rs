@@ -104,11 +104,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         header.extend(rule.class_column_names());
     }
     if probs.is_some() {
-        header.extend(
-            rule.labels()
-                .iter()
-                .map(|l| format!("prob_{}", l.replace([',', '"', '\n', '\r'], "_"))),
-        );
+        header.extend(rule.labels().iter().map(|l| format!("prob_{l}")));
     }
     if a.decisions || !classifier {
         header.extend(rule.decision_names());
@@ -142,14 +138,6 @@ pub(crate) fn run(a: Args) -> Result<()> {
         .collect();
     match a.out {
         Some(p) => kernelpress::data::write_csv(&p, &header, &rows),
-        None => {
-            let mut text = header.join(",");
-            text.push('\n');
-            for r in rows {
-                text.push_str(&r.join(","));
-                text.push('\n');
-            }
-            super::print_stdout(&text)
-        }
+        None => super::print_stdout(&kernelpress::data::csv_text(&header, &rows)),
     }
 }

@@ -1,21 +1,106 @@
-//! CSV with a header row. Fields are separated by commas; surrounding whitespace and
-//! double quotes are stripped. Every feature cell must be a finite number.
+//! CSV with a header row, read and written by RFC 4180: fields separated by commas, a field
+//! in double quotes may hold commas, line breaks and doubled quotes; surrounding
+//! whitespace is not part of a field. Every feature cell must be a finite number.
 
 use super::Table;
 use crate::{Error, Result};
 use ndarray::Array2;
 use std::path::Path;
 
+/// Splits one record into fields by RFC 4180: fields separated by commas, a field may be
+/// enclosed in double quotes, inside which commas, line breaks and doubled quotes (`""`
+/// for one `"`) are data. Whitespace around a field is not part of it (a leniency: data
+/// files often pad). `None` when a quoted field is still open at the end: the record
+/// continues on the next line.
+pub(crate) fn split_record(rec: &str) -> Option<Vec<String>> {
+    let mut out = Vec::new();
+    let mut chars = rec.chars().peekable();
+    loop {
+        while chars.peek().is_some_and(|c| *c == ' ' || *c == '\t') {
+            chars.next();
+        }
+        let mut f = String::new();
+        if chars.peek() == Some(&'"') {
+            chars.next();
+            loop {
+                match chars.next() {
+                    None => return None,
+                    Some('"') if chars.peek() == Some(&'"') => {
+                        chars.next();
+                        f.push('"');
+                    }
+                    Some('"') => break,
+                    Some(c) => f.push(c),
+                }
+            }
+            // Anything between the closing quote and the comma is kept, as text.
+            let mut rest = String::new();
+            while let Some(&c) = chars.peek() {
+                if c == ',' {
+                    break;
+                }
+                rest.push(c);
+                chars.next();
+            }
+            f.push_str(rest.trim());
+        } else {
+            while let Some(&c) = chars.peek() {
+                if c == ',' {
+                    break;
+                }
+                f.push(c);
+                chars.next();
+            }
+            f = f.trim().to_string();
+        }
+        out.push(f);
+        match chars.next() {
+            Some(',') => continue,
+            _ => return Some(out),
+        }
+    }
+}
+
+/// Splits a record that is known to be complete (a header line falls back to a plain
+/// split when a quote is left open, so that the error names the columns).
 fn split(line: &str) -> Vec<String> {
-    line.split(',')
-        .map(|f| {
-            let f = f.trim();
-            f.strip_prefix('"')
-                .and_then(|g| g.strip_suffix('"'))
-                .unwrap_or(f)
-                .to_string()
-        })
-        .collect()
+    split_record(line).unwrap_or_else(|| line.split(',').map(|f| f.trim().to_string()).collect())
+}
+
+/// One CSV field as RFC 4180 writes it: enclosed in double quotes (and inner quotes
+/// doubled) when it holds a comma, a quote, a line break or surrounding spaces.
+///
+/// ```
+/// use kernelpress::data::csv_field;
+/// assert_eq!(csv_field("ok"), "ok");
+/// assert_eq!(csv_field("a,b"), "\"a,b\"");
+/// assert_eq!(csv_field("say \"hi\""), "\"say \"\"hi\"\"\"");
+/// ```
+pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
+    if s.contains([',', '"', '\n', '\r']) || s.starts_with(' ') || s.ends_with(' ') {
+        std::borrow::Cow::Owned(format!("\"{}\"", s.replace('"', "\"\"")))
+    } else {
+        std::borrow::Cow::Borrowed(s)
+    }
+}
+
+/// CSV text of a header and rows, each field written by [`csv_field`].
+pub fn csv_text(header: &[String], rows: &[Vec<String>]) -> String {
+    let mut s = String::with_capacity(rows.len() * 16 * header.len().max(1));
+    let line = |s: &mut String, r: &[String]| {
+        for (j, f) in r.iter().enumerate() {
+            if j > 0 {
+                s.push(',');
+            }
+            s.push_str(&csv_field(f));
+        }
+        s.push('\n');
+    };
+    line(&mut s, header);
+    for r in rows {
+        line(&mut s, r);
+    }
+    s
 }
 
 /// Reads a CSV file; see [`read_csv_str`].
@@ -118,18 +203,37 @@ pub(crate) fn read_csv_select(
 ) -> Result<Table> {
     let text = &normalise_newlines(text_in);
     let names = header(text, source)?;
-    let mut lines = text
-        .lines()
-        .enumerate()
-        .filter(|(_, l)| !l.trim().is_empty());
-    lines.next();
+    let mut lines = text.lines().enumerate();
+    // Skip to the header line (the first non-blank one).
+    for (_, l) in lines.by_ref() {
+        if !l.trim().is_empty() {
+            break;
+        }
+    }
     let p = RowParser::new(names, source, target, select, model_names)?;
     let mut vals = Vec::new();
     let mut tvals = Vec::new();
     let mut n = 0usize;
+    let mut pending: Option<(usize, String)> = None;
     for (li, line) in lines {
-        p.parse(line, n, li, &mut vals, &mut tvals)?;
+        let (start, rec) = match pending.take() {
+            Some((st, mut r)) => {
+                r.push('\n');
+                r.push_str(line);
+                (st, r)
+            }
+            None if line.trim().is_empty() => continue,
+            None => (li, line.to_string()),
+        };
+        if split_record(&rec).is_none() {
+            pending = Some((start, rec));
+            continue;
+        }
+        p.parse(&rec, n, start, &mut vals, &mut tvals)?;
         n += 1;
+    }
+    if let Some((start, _)) = pending {
+        return Err(p.open_quote(n, start));
     }
     if n == 0 {
         return Err(p.no_rows());
@@ -212,6 +316,16 @@ impl RowParser {
         self.cols.iter().map(|j| self.names[*j].clone()).collect()
     }
 
+    /// The error for a record whose quoted field is never closed.
+    pub(crate) fn open_quote(&self, n: usize, li: usize) -> Error {
+        Error::input(format!(
+            "{}: row {} (line {}): a quoted field is never closed (a '\"' is missing)",
+            self.source,
+            n + 1,
+            li + 1
+        ))
+    }
+
     /// The error for a file without data rows.
     pub(crate) fn no_rows(&self) -> Error {
         Error::input(format!("{}: has a header but no data rows", self.source))
@@ -229,7 +343,7 @@ impl RowParser {
     ) -> Result<()> {
         let source = &self.source;
         let names = &self.names;
-        let fields = split(line);
+        let fields = split_record(line).ok_or_else(|| self.open_quote(n, li))?;
         if fields.len() != names.len() {
             return Err(Error::input(format!(
                 "{source}: row {} (line {}) has {} fields; the header has {}",
@@ -283,16 +397,10 @@ impl RowParser {
     }
 }
 
-/// Writes a CSV (header + rows of already formatted fields) atomically.
+/// Writes a CSV (header + rows of already formatted fields) atomically, fields quoted as
+/// RFC 4180 requires ([`csv_field`]).
 pub fn write_csv(path: &Path, header: &[String], rows: &[Vec<String>]) -> Result<()> {
-    let mut s = String::with_capacity(rows.len() * 16 * header.len().max(1));
-    s.push_str(&header.join(","));
-    s.push('\n');
-    for r in rows {
-        s.push_str(&r.join(","));
-        s.push('\n');
-    }
-    super::write_atomic(path, s.as_bytes())
+    super::write_atomic(path, csv_text(header, rows).as_bytes())
 }
 
 #[cfg(test)]

@@ -15,7 +15,7 @@ mod npy;
 mod stream;
 
 pub use crate::fsio::{read_bytes, temp_path, write_all_atomic, write_atomic};
-pub use csv::{read_csv, read_csv_str, write_csv};
+pub use csv::{csv_field, csv_text, read_csv, read_csv_str, write_csv};
 pub use idx::{read_idx_images, read_idx_labels};
 pub use npy::{
     dtype_message, not_finite_message, parse_npy, read_npy, shape_message, write_npy_f32,

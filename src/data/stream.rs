@@ -168,14 +168,24 @@ impl RowFile {
                 let mut tvals = Vec::new();
                 let mut n = 0;
                 while n < max_rows {
-                    let Some(l) = read_line(reader, &self.source, *line)? else {
+                    let Some(mut l) = read_line(reader, &self.source, *line)? else {
                         break;
                     };
                     *line += 1;
                     if l.trim().is_empty() {
                         continue;
                     }
-                    parser.parse(&l, first_row + n, *line - 1, &mut vals, &mut tvals)?;
+                    let start = *line - 1;
+                    // A quoted field may hold line breaks (RFC 4180): read on to its end.
+                    while super::csv::split_record(&l).is_none() {
+                        let Some(more) = read_line(reader, &self.source, *line)? else {
+                            return Err(parser.open_quote(first_row + n, start));
+                        };
+                        *line += 1;
+                        l.push('\n');
+                        l.push_str(&more);
+                    }
+                    parser.parse(&l, first_row + n, start, &mut vals, &mut tvals)?;
                     n += 1;
                 }
                 if n == 0 && first_row == 0 {

@@ -198,7 +198,7 @@ impl OutputRule {
     /// one rule for every task: in `decision_A_vs_B` a positive value favours `A` (binary:
     /// `A` is the second label; one-vs-one: the first class of the pair); `decision_A`
     /// (one-vs-rest) is `A`'s score; regression outputs are `decision` or `decision_0…`.
-    /// Commas and quotes in labels become `_` so that the names stay CSV fields.
+    /// Labels are kept as they are (a CSV writer quotes them, RFC 4180).
     ///
     /// ```
     /// use kernelpress::model::{OutputRule, Task};
@@ -206,8 +206,7 @@ impl OutputRule {
     /// assert_eq!(r.decision_names(), vec!["decision_worn_vs_ok"]);
     /// ```
     pub fn decision_names(&self) -> Vec<String> {
-        let clean = |s: &str| s.replace([',', '"', '\n', '\r'], "_");
-        let l: Vec<String> = self.labels.iter().map(|s| clean(s)).collect();
+        let l = &self.labels;
         match self.task {
             Task::Regression if self.outputs == 1 => vec!["decision".into()],
             Task::Regression => (0..self.outputs).map(|j| format!("decision_{j}")).collect(),
@@ -228,8 +227,8 @@ impl OutputRule {
     /// Names of the per-class columns `score` writes by default (classifiers): `margin`,
     /// then one column per class in label order — `wins_<label>` for one-vs-one models
     /// (pairwise contests won, 0 to classes − 1), `score_<label>` for binary and
-    /// one-vs-rest models (a larger score wins). Empty for regression. Commas, quotes and
-    /// line breaks in labels become `_`.
+    /// one-vs-rest models (a larger score wins). Empty for regression. Labels are kept as
+    /// they are (a CSV writer quotes them, RFC 4180).
     ///
     /// ```
     /// use kernelpress::model::{OutputRule, Task};
@@ -246,11 +245,7 @@ impl OutputRule {
             "score_"
         };
         let mut v = vec!["margin".to_string()];
-        v.extend(
-            self.labels
-                .iter()
-                .map(|l| format!("{prefix}{}", l.replace([',', '"', '\n', '\r'], "_"))),
-        );
+        v.extend(self.labels.iter().map(|l| format!("{prefix}{l}")));
         v
     }
 
