@@ -506,3 +506,148 @@ fn the_report_says_where_f32_loses_precision() {
     );
     assert!(!r["warnings"].to_string().contains("precision"));
 }
+
+#[test]
+fn outputs_never_replace_what_is_not_a_regular_file() {
+    use std::os::unix::fs::FileTypeExt;
+    let dir = tmpdir("outputs_never_replace");
+    let test = dir.join("t.csv");
+    head_lines(&root().join("models/pump_test.csv"), &test, 20);
+    let args = |out: &std::path::Path| {
+        vec![
+            "score".to_string(),
+            s(&demo()).to_string(),
+            "--data".into(),
+            s(&test).to_string(),
+            "--target".into(),
+            "condition".into(),
+            "--out".into(),
+            s(out).to_string(),
+        ]
+    };
+    let run_args = |a: Vec<String>| run(&a.iter().map(|x| x.as_str()).collect::<Vec<_>>());
+    // A symbolic link: its target is replaced, the link stays a link.
+    let real = dir.join("real.csv");
+    std::fs::write(&real, "old\n").unwrap();
+    let link = dir.join("link.csv");
+    std::os::unix::fs::symlink(&real, &link).unwrap();
+    assert!(run_args(args(&link)).status.success());
+    assert!(std::fs::symlink_metadata(&link)
+        .unwrap()
+        .file_type()
+        .is_symlink());
+    assert!(std::fs::read_to_string(&real)
+        .unwrap()
+        .starts_with("label,"));
+    // A link to nothing is refused, and nothing is created.
+    let dangling = dir.join("dangling.csv");
+    std::os::unix::fs::symlink(dir.join("nowhere.csv"), &dangling).unwrap();
+    let o = run_args(args(&dangling));
+    assert_eq!(
+        o.status.code(),
+        Some(2),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    assert!(!dir.join("nowhere.csv").exists());
+    // A character device is written as a stream, never replaced.
+    let o = run_args(args(std::path::Path::new("/dev/null")));
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(std::fs::metadata("/dev/null")
+        .unwrap()
+        .file_type()
+        .is_char_device());
+    // A FIFO: the reader gets the CSV, the FIFO stays a FIFO.
+    let fifo = dir.join("pipe");
+    assert!(Command::new("mkfifo")
+        .arg(&fifo)
+        .status()
+        .unwrap()
+        .success());
+    let f2 = fifo.clone();
+    let reader = std::thread::spawn(move || std::fs::read_to_string(&f2).unwrap());
+    assert!(run_args(args(&fifo)).status.success());
+    assert!(reader.join().unwrap().starts_with("label,"));
+    assert!(std::fs::metadata(&fifo).unwrap().file_type().is_fifo());
+    // A folder is refused.
+    let o = run_args(args(&dir));
+    assert_eq!(o.status.code(), Some(2));
+    // No temporary file is left anywhere in the folder.
+    let left: Vec<String> = std::fs::read_dir(&dir)
+        .unwrap()
+        .flatten()
+        .map(|e| e.file_name().to_string_lossy().to_string())
+        .filter(|n| n.contains(".tmp"))
+        .collect();
+    assert!(left.is_empty(), "{left:?}");
+}
+
+#[test]
+fn a_planted_link_at_the_old_temporary_name_is_not_followed() {
+    // Temporary names were `.NAME.tmpPID`: predictable, and created through a planted
+    // link. They are now created exclusively under an unpredictable name.
+    let dir = tmpdir("planted_temp_link");
+    let victim = dir.join("victim.txt");
+    std::fs::write(&victim, "precious").unwrap();
+    let out = dir.join("out.csv");
+    let planted = dir.join(format!(".out.csv.tmp{}", std::process::id()));
+    std::os::unix::fs::symlink(&victim, &planted).unwrap();
+    kernelpress::data::write_atomic(&out, b"a,b\n1,2\n").unwrap();
+    assert_eq!(std::fs::read_to_string(&victim).unwrap(), "precious");
+    assert_eq!(std::fs::read_to_string(&out).unwrap(), "a,b\n1,2\n");
+    // Two writes of the same path never share a temporary name (exclusive creation).
+    kernelpress::data::write_atomic(&out, b"x\n").unwrap();
+    assert_eq!(std::fs::read_to_string(&out).unwrap(), "x\n");
+}
+
+#[test]
+fn folder_exports_are_all_or_nothing_and_never_swallow_an_input() {
+    let dir = tmpdir("folder_exports_all_or_nothing");
+    let compiled = root().join("models/pump_compiled.safetensors");
+    let out = dir.join("c_export");
+    ok(&["export", s(&compiled), "--format", "c", "--out", s(&out)]);
+    let first = std::fs::read_to_string(out.join("kp_model.h")).unwrap();
+    // An existing folder is refused without --replace-folder, and left as it was.
+    std::fs::write(out.join("mine.txt"), "keep").unwrap();
+    let e = bad(&["export", s(&compiled), "--format", "npy", "--out", s(&out)]);
+    assert!(e.contains("--replace-folder"), "{e}");
+    assert_eq!(
+        std::fs::read_to_string(out.join("kp_model.h")).unwrap(),
+        first
+    );
+    assert!(out.join("mine.txt").exists());
+    // With it, the folder is replaced whole: the new files, nothing old beside them.
+    ok(&[
+        "export",
+        s(&compiled),
+        "--format",
+        "npy",
+        "--out",
+        s(&out),
+        "--replace-folder",
+    ]);
+    assert!(out.join("program.json").exists());
+    assert!(!out.join("kp_model.h").exists() && !out.join("mine.txt").exists());
+    // An input inside the output folder is refused before any work.
+    let inside = out.join("model.safetensors");
+    std::fs::copy(&compiled, &inside).unwrap();
+    let e = bad(&[
+        "export",
+        s(&inside),
+        "--format",
+        "c",
+        "--out",
+        s(&out),
+        "--replace-folder",
+    ]);
+    assert!(e.contains("lives inside this output folder"), "{e}");
+    assert!(inside.exists());
+    // No temporary folder is left beside it.
+    let left: Vec<String> = std::fs::read_dir(&dir)
+        .unwrap()
+        .flatten()
+        .map(|e| e.file_name().to_string_lossy().to_string())
+        .filter(|n| n.starts_with('.'))
+        .collect();
+    assert!(left.is_empty(), "{left:?}");
+}

@@ -59,6 +59,10 @@ pub(crate) struct Args {
     /// Output file or folder.
     #[arg(long)]
     out: PathBuf,
+    /// C and npy exports write a folder, all files or none; an existing folder is refused
+    /// unless this flag is given, and then replaced whole.
+    #[arg(long)]
+    replace_folder: bool,
 }
 
 pub(crate) fn run(a: Args) -> Result<()> {
@@ -77,6 +81,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
     }
     opts.precision = Precision::parse(&a.precision)?;
     opts.prefix = a.prefix.clone();
+    opts.replace_folder = a.replace_folder;
     if kernelpress::model::TensorFile::read(&a.model)?
         .get_str("kind", &a.model.display().to_string())
         .ok()

@@ -106,7 +106,9 @@ pub fn main() -> i32 {
 /// Folders where this run writes outputs (their temporary files are removed on a signal).
 static OUTPUT_DIRS: std::sync::Mutex<Vec<std::path::PathBuf>> = std::sync::Mutex::new(Vec::new());
 
-/// Removes this process's temporary output files (`.NAME.tmpPID`) from the output folders.
+/// Removes this process's temporary outputs (`.NAME.<random>.tmpPID` files and folders)
+/// from the output folders. A folder moved aside while a replacement is renamed in
+/// (`.NAME.old.tmpPID`) is left, so that nothing of the user's is deleted.
 fn remove_temporaries() {
     let suffix = format!(".tmp{}", std::process::id());
     if let Ok(dirs) = OUTPUT_DIRS.lock() {
@@ -114,8 +116,12 @@ fn remove_temporaries() {
             if let Ok(rd) = std::fs::read_dir(d) {
                 for e in rd.flatten() {
                     let n = e.file_name().to_string_lossy().to_string();
-                    if n.starts_with('.') && n.ends_with(&suffix) {
-                        let _ = std::fs::remove_file(e.path());
+                    if n.starts_with('.') && n.ends_with(&suffix) && !n.contains(".old.tmp") {
+                        if e.path().is_dir() {
+                            let _ = std::fs::remove_dir_all(e.path());
+                        } else {
+                            let _ = std::fs::remove_file(e.path());
+                        }
                     }
                 }
             }
@@ -170,6 +176,16 @@ pub(crate) fn guard_outputs(
                 out.display()
             )));
         }
+        // A folder output is written whole: no input may live inside it.
+        if *folder {
+            if let Some(i) = ins.iter().find(|i| i.starts_with(&c)) {
+                return Err(Error::input(format!(
+                    "{}: the input {} lives inside this output folder, which the export writes whole; choose another folder",
+                    out.display(),
+                    i.display()
+                )));
+            }
+        }
         if seen.contains(&c) {
             return Err(Error::input(format!(
                 "{}: given as two different outputs",
@@ -179,9 +195,6 @@ pub(crate) fn guard_outputs(
         seen.push(c);
         if let Ok(mut dirs) = OUTPUT_DIRS.lock() {
             dirs.push(parent.clone());
-            if *folder {
-                dirs.push(out.to_path_buf());
-            }
         }
     }
     Ok(())

@@ -6,9 +6,8 @@
 
 use super::precision::{Quant, Quantized};
 use crate::format::{Data, TensorFile};
-use crate::fsio::write_atomic;
 use crate::model::CompiledModel;
-use crate::{Error, Result};
+use crate::Result;
 use serde_json::{json, Map, Value};
 use std::path::{Path, PathBuf};
 
@@ -86,38 +85,28 @@ pub fn write_npy(
     model: &CompiledModel,
     q: &Quantized,
     dir: &Path,
+    replace: bool,
 ) -> Result<(Vec<PathBuf>, Vec<String>)> {
-    if dir.exists() && !dir.is_dir() {
-        return Err(Error::input(format!(
-            "{}: exists and is not a folder; --format npy writes a folder",
-            dir.display()
-        )));
-    }
-    std::fs::create_dir_all(dir)
-        .map_err(|e| Error::io(format!("{}: cannot create the folder: {e}", dir.display())))?;
     let (ts, mut desc) = entries(q);
-    let mut files = Vec::new();
+    let mut files: Vec<(String, Vec<u8>)> = Vec::new();
     for (name, shape, data) in &ts {
         let (dt, raw) = bytes_of(data);
         let file = format!("{name}.npy");
-        let p = dir.join(&file);
-        write_atomic(&p, &npy(dt, shape, &raw))?;
+        files.push((file.clone(), npy(dt, shape, &raw)));
         if let Some(Value::Object(e)) = desc.get_mut(name) {
             e.insert("file".into(), json!(file));
         } else {
             desc.insert(name.clone(), json!({"file": file}));
         }
-        files.push(p);
     }
     let d = description(model, q, desc);
-    let p = dir.join("program.json");
-    write_atomic(
-        &p,
-        format!("{}\n", serde_json::to_string_pretty(&d).expect("json")).as_bytes(),
-    )?;
-    files.push(p);
+    files.push((
+        "program.json".into(),
+        format!("{}\n", serde_json::to_string_pretty(&d).expect("json")).into_bytes(),
+    ));
+    let paths = crate::fsio::write_folder_atomic(dir, &files, replace)?;
     Ok((
-        files,
+        paths,
         vec!["weights as .npy files, steps in program.json".into()],
     ))
 }

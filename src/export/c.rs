@@ -8,7 +8,6 @@
 
 use super::code::{self, Lang};
 use super::precision::Quantized;
-use crate::fsio::write_atomic;
 use crate::model::{CompiledModel, Task};
 use crate::{Error, Result};
 use std::fmt::Write;
@@ -36,6 +35,7 @@ pub fn write(
     q: &Quantized,
     prefix: &str,
     dir: &Path,
+    replace: bool,
 ) -> Result<(Vec<PathBuf>, Vec<String>)> {
     if prefix.is_empty()
         || !prefix
@@ -144,10 +144,13 @@ pub fn write(
             names.len()
         );
     }
-    std::fs::create_dir_all(dir)
-        .map_err(|e| Error::io(format!("{}: cannot create the folder: {e}", dir.display())))?;
-    let (hp, cp) = (dir.join("kp_model.h"), dir.join("kp_model.c"));
-    write_atomic(&hp, h.as_bytes())?;
-    write_atomic(&cp, c.as_bytes())?;
-    Ok((vec![hp, cp], code.lines))
+    let paths = crate::fsio::write_folder_atomic(
+        dir,
+        &[
+            ("kp_model.h".into(), h.into_bytes()),
+            ("kp_model.c".into(), c.into_bytes()),
+        ],
+        replace,
+    )?;
+    Ok((paths, code.lines))
 }

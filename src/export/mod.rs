@@ -117,6 +117,9 @@ pub struct ExportOptions {
     pub precision: Precision,
     /// Symbol prefix of the C export (`kp` by default).
     pub prefix: String,
+    /// Replace an existing output folder whole (C and npy exports write a folder, all or
+    /// none); without it an existing folder is refused.
+    pub replace_folder: bool,
 }
 
 impl ExportOptions {
@@ -126,6 +129,7 @@ impl ExportOptions {
             format,
             precision: Precision::F32,
             prefix: "kp".into(),
+            replace_folder: false,
         }
     }
 }
@@ -151,9 +155,9 @@ pub fn export(model: &CompiledModel, opts: &ExportOptions, out: &Path) -> Result
     let q = precision::quantize(model, opts.precision);
     let (files, steps) = match opts.format {
         Format::Onnx => onnx::write(model, &q, out)?,
-        Format::C => c::write(model, &q, &opts.prefix, out)?,
+        Format::C => c::write(model, &q, &opts.prefix, out, opts.replace_folder)?,
         Format::Rust => rust::write(model, &q, out)?,
-        Format::Npy => arrays::write_npy(model, &q, out)?,
+        Format::Npy => arrays::write_npy(model, &q, out, opts.replace_folder)?,
         Format::Safetensors => arrays::write_safetensors(model, &q, out)?,
     };
     let files = files
