@@ -651,3 +651,69 @@ fn folder_exports_are_all_or_nothing_and_never_swallow_an_input() {
         .collect();
     assert!(left.is_empty(), "{left:?}");
 }
+
+#[test]
+fn a_flipped_bit_anywhere_is_refused() {
+    // Every single-bit flip of a freshly written model file (header, manifest, labels,
+    // tensor data) is refused when read; the shipped files without a checksum still load.
+    let dir = tmpdir("a_flipped_bit_anywhere_is_refused");
+    let calib = dir.join("c.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 400);
+    let out = dir.join("m.safetensors");
+    ok(&[
+        "compile",
+        s(&demo()),
+        "--calib",
+        s(&calib),
+        "--target",
+        "condition",
+        "--method",
+        "hadamard",
+        "--features",
+        "16",
+        "--no-timing",
+        "--no-bandwidth-search",
+        "--out",
+        s(&out),
+    ]);
+    let bytes = std::fs::read(&out).unwrap();
+    let clean = kernelpress::model::TensorFile::from_bytes(&bytes, "m").unwrap();
+    assert_eq!(clean.integrity, kernelpress::format::Integrity::Verified);
+    let mut refused = 0;
+    for pos in 0..bytes.len() {
+        let bit = (pos * 7) % 8;
+        let mut b = bytes.clone();
+        b[pos] ^= 1 << bit;
+        match kernelpress::model::TensorFile::from_bytes(&b, "m") {
+            Err(_) => refused += 1,
+            Ok(f) => panic!(
+                "a flip of bit {bit} at byte {pos} was read ({:?})",
+                f.integrity
+            ),
+        }
+    }
+    assert_eq!(refused, bytes.len());
+    // One flipped bit in a class label, through the CLI: exit 2 naming the checksum.
+    let text = String::from_utf8_lossy(&bytes).to_string();
+    let at = text.find("bearing_wear").unwrap();
+    let mut b = bytes.clone();
+    b[at] ^= 0x20;
+    let bad_file = dir.join("flipped.safetensors");
+    std::fs::write(&bad_file, &b).unwrap();
+    let e = bad(&[
+        "score",
+        s(&bad_file),
+        "--data",
+        s(&calib),
+        "--target",
+        "condition",
+    ]);
+    assert!(e.contains("checksum mismatch"), "{e}");
+    // A file written before checksums (a version-1 fixture) loads, with a note.
+    let old = root().join("tests/fixtures/v1/pump_svm.safetensors");
+    let o = run(&["inspect", s(&old)]);
+    assert!(o.status.success());
+    assert!(String::from_utf8_lossy(&o.stderr).contains("carries no checksum"));
+    assert!(String::from_utf8_lossy(&o.stdout).contains("checksum        none"));
+    assert!(ok(&["inspect", s(&out)]).contains("checksum        verified"));
+}

@@ -268,6 +268,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         ));
     }
     let exact = ExactModel::load(model_path)?;
+    super::note_unverified(model_path);
     if (a.guard_agreement.is_some() || a.guard_rate.is_some()) && !exact.task().is_classifier() {
         return Err(Error::input(format!(
             "{}: a guard needs a classifier: regression models have no margin to judge confidence by",

@@ -94,6 +94,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         )));
     }
     let model = CompiledModel::load(&a.model)?;
+    super::note_unverified(&a.model);
     let check = match &a.check_data {
         Some(p) => {
             let t = super::read_for(p, a.target.as_deref(), &model.feature_names, a.by_position)?;

@@ -48,6 +48,7 @@ fn shape_lines(
 
 pub(crate) fn run(a: Args) -> Result<()> {
     let (model, file) = AnyModel::load(&a.model)?;
+    super::note_unverified(&a.model);
     let bytes = std::fs::metadata(&a.model).map(|m| m.len()).unwrap_or(0);
     let params: usize = file.tensors.values().map(|t| t.data.len()).sum();
     let param_bytes = file.data_bytes();
@@ -204,6 +205,12 @@ pub(crate) fn run(a: Args) -> Result<()> {
         "parameters      {params} values, {param_bytes} bytes (format version {})\n",
         file.version()
     ));
+    s.push_str(match file.integrity {
+        kernelpress::format::Integrity::Verified => {
+            "checksum        verified (xxh3-64 of the manifest and every tensor)\n"
+        }
+        _ => "checksum        none (written by an earlier version; contents not verifiable)\n",
+    });
     s.push_str("tensors\n");
     for (k, t) in &file.tensors {
         s.push_str(&format!(

@@ -200,6 +200,17 @@ pub(crate) fn guard_outputs(
     Ok(())
 }
 
+/// A note when a model or statistics file carries no checksum (written before checksums
+/// existed): it loads, but its contents cannot be verified.
+pub(crate) fn note_unverified(path: &std::path::Path) {
+    if kernelpress::format::has_checksum(path) == Some(false) {
+        progress::note(format!(
+            "{}: carries no checksum (written by an earlier version); it loads, but its contents cannot be verified — write it again to add one",
+            path.display()
+        ));
+    }
+}
+
 /// Writes `text` to stdout, treating a closed pipe as success.
 pub(crate) fn print_stdout(text: &str) -> Result<()> {
     use std::io::Write;

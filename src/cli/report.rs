@@ -72,6 +72,8 @@ pub(crate) fn run(a: Args) -> Result<()> {
         }
     };
     let e = ExactModel::load(&a.exact)?;
+    super::note_unverified(&a.compiled);
+    super::note_unverified(&a.exact);
     if c.input_dim() != e.input_dim()
         || c.n_outputs() != e.n_outputs()
         || c.labels() != e.labels()

@@ -61,6 +61,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         super::guard_outputs(&[&a.model, &a.data], &[(o, false)])?;
     }
     let (model, _) = AnyModel::load(&a.model)?;
+    super::note_unverified(&a.model);
     let t = super::read_for(
         &a.data,
         a.target.as_deref(),

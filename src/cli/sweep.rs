@@ -102,6 +102,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         super::guard_outputs(&ins, &outs)?;
     }
     let exact = ExactModel::load(&a.model)?;
+    super::note_unverified(&a.model);
     let kernel = exact.kernel().clone();
     let methods = super::methods_arg(&a.methods, &kernel)?;
     let calib = super::read_for(

@@ -23,6 +23,22 @@ use std::path::Path;
 /// The `__metadata__` key that holds the JSON manifest.
 pub const MANIFEST_KEY: &str = "kernelpress";
 
+/// The manifest field that holds the file's checksum, `xxh3-64:<16 hex digits>`: the
+/// XXH3 64-bit hash ([`checksum`]) of the manifest text exactly as stored, with these 16
+/// digits read as zeros, and of every tensor's name, dtype, shape and data. A non-cryptographic hash: it catches corruption (a flipped bit,
+/// a truncated copy, an edited label), not a deliberate forgery. Chosen over SHA-256 for
+/// speed (see docs/format.md for the measurement): a check that reads the whole file on
+/// every load must cost little next to reading it.
+pub const CHECKSUM_KEY: &str = "checksum";
+
+/// The manifest field (`true`) saying the file must carry a checksum: a second witness, so
+/// that one flipped bit in the checksum's own name cannot pass the file off as one written
+/// before checksums (the field itself is covered by the checksum).
+pub const CHECKSUM_REQUIRED_KEY: &str = "checksum_required";
+
+/// The checksum as it is hashed: its 16 hex digits zeroed.
+const PLACEHOLDER: &str = "xxh3-64:0000000000000000";
+
 /// The manifest format version this build writes.
 pub const FORMAT_VERSION: u64 = 2;
 
@@ -100,6 +116,80 @@ pub struct TensorFile {
     pub tensors: BTreeMap<String, Tensor>,
     /// The manifest.
     pub manifest: serde_json::Map<String, serde_json::Value>,
+    /// What the checksum check found when the file was read.
+    pub integrity: Integrity,
+}
+
+/// The result of a file's checksum check.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub enum Integrity {
+    /// Built in memory, not read from a file.
+    #[default]
+    NotRead,
+    /// The stored checksum matched the contents.
+    Verified,
+    /// The file carries no checksum (written before checksums were added).
+    Absent,
+}
+
+/// The dtype names the checksum covers.
+fn dtype_name(d: Dtype) -> &'static str {
+    match d {
+        Dtype::F64 => "F64",
+        Dtype::F32 => "F32",
+        Dtype::F16 => "F16",
+        Dtype::I32 => "I32",
+        Dtype::I8 => "I8",
+        _ => "other",
+    }
+}
+
+/// The checksum of a manifest text and tensors `(name, dtype, shape, bytes)` taken in name
+/// order: XXH3-64 over the manifest's bytes, then per tensor its name, dtype, rank, each
+/// size (u64, little-endian) and data, every variable-length part preceded by its length
+/// so that no two different contents hash the same stream. Written `xxh3-64:<hex>`.
+pub fn checksum<'a>(
+    manifest: &str,
+    tensors: impl Iterator<Item = (&'a str, &'static str, &'a [usize], &'a [u8])>,
+) -> String {
+    let mut t: Vec<_> = tensors.collect();
+    t.sort_by(|a, b| a.0.cmp(b.0));
+    let mut h = xxhash_rust::xxh3::Xxh3::new();
+    let mut part = |b: &[u8]| {
+        h.update(&(b.len() as u64).to_le_bytes());
+        h.update(b);
+    };
+    part(manifest.as_bytes());
+    for (name, dt, shape, data) in t {
+        part(name.as_bytes());
+        part(dt.as_bytes());
+        let dims: Vec<u8> = shape
+            .iter()
+            .flat_map(|s| (*s as u64).to_le_bytes())
+            .collect();
+        part(&dims);
+        part(data);
+    }
+    format!("xxh3-64:{:016x}", h.digest())
+}
+
+/// Reads only a file's header and says whether it carries a checksum (`None` when it is
+/// not a readable safetensors header).
+pub fn has_checksum(path: &Path) -> Option<bool> {
+    use std::io::Read;
+    let mut f = std::fs::File::open(path).ok()?;
+    let mut n = [0u8; 8];
+    f.read_exact(&mut n).ok()?;
+    let n = u64::from_le_bytes(n);
+    if n > 100 << 20 {
+        return None;
+    }
+    let mut head = vec![0u8; n as usize];
+    f.read_exact(&mut head).ok()?;
+    let v: serde_json::Value = serde_json::from_slice(&head).ok()?;
+    let text = v.get("__metadata__")?.get(MANIFEST_KEY)?.as_str()?;
+    let m: serde_json::Value = serde_json::from_str(text).ok()?;
+    Some(m.get(CHECKSUM_KEY).is_some())
 }
 
 impl TensorFile {
@@ -156,10 +246,22 @@ impl TensorFile {
             views.push((k.clone(), v));
         }
         let mut meta = HashMap::new();
-        meta.insert(
-            MANIFEST_KEY.to_string(),
-            serde_json::Value::Object(self.manifest.clone()).to_string(),
+        let mut manifest = self.manifest.clone();
+        manifest.insert(CHECKSUM_REQUIRED_KEY.into(), serde_json::Value::Bool(true));
+        manifest.insert(
+            CHECKSUM_KEY.into(),
+            serde_json::Value::String(PLACEHOLDER.into()),
         );
+        // Hash the manifest text exactly as stored, with the checksum's digits zeroed, then
+        // write the digits in place (same length, so nothing else moves).
+        let placeholder_text = serde_json::Value::Object(manifest).to_string();
+        let sum = checksum(
+            &placeholder_text,
+            raw.iter()
+                .map(|(k, s, dt, b)| (k.as_str(), dtype_name(*dt), s.as_slice(), b.as_slice())),
+        );
+        let text = placeholder_text.replacen(PLACEHOLDER, &sum, 1);
+        meta.insert(MANIFEST_KEY.to_string(), text);
         safetensors::serialize(views, Some(meta))
             .map_err(|e| Error::internal(format!("cannot serialise model: {e}")))
     }
@@ -231,8 +333,43 @@ impl TensorFile {
             })?;
         let manifest: serde_json::Value = serde_json::from_str(text)
             .map_err(|e| Error::file(format!("{src}: manifest is not valid JSON: {e}")))?;
-        let serde_json::Value::Object(manifest) = manifest else {
+        let serde_json::Value::Object(mut manifest) = manifest else {
             return Err(Error::file(format!("{src}: manifest is not a JSON object")));
+        };
+        // The checksum covers the manifest without itself, as compact JSON with sorted keys
+        // (exact for every value: floats are parsed correctly rounded and printed shortest).
+        let required = manifest.remove(CHECKSUM_REQUIRED_KEY);
+        let integrity = match manifest.remove(CHECKSUM_KEY) {
+            None if required.is_some() => {
+                return Err(Error::file(format!(
+                    "{src}: the manifest says the file carries a checksum but none is there: the file was changed or corrupted after it was written; use an intact copy"
+                )))
+            }
+            None => Integrity::Absent,
+            Some(want) => {
+                // The stored text with the checksum's digits zeroed, exactly as it was hashed.
+                let want = want.as_str().unwrap_or("");
+                let field = format!("\"{CHECKSUM_KEY}\":\"{want}\"");
+                let got = if want.len() == PLACEHOLDER.len() && text.matches(&field).count() == 1 {
+                    checksum(
+                        &text.replacen(&field, &format!("\"{CHECKSUM_KEY}\":\"{PLACEHOLDER}\""), 1),
+                        st.tensors()
+                            .into_iter()
+                            .map(|(k, v)| (k, dtype_name(v.dtype()), v.shape().to_vec(), v.data()))
+                            .collect::<Vec<_>>()
+                            .iter()
+                            .map(|(k, d, s, b)| (k.as_str(), *d, s.as_slice(), *b)),
+                    )
+                } else {
+                    "unreadable".into()
+                };
+                if got != want {
+                    return Err(Error::file(format!(
+                        "{src}: checksum mismatch (stored {want}, computed {got}): the file was changed or corrupted after it was written; use an intact copy"
+                    )));
+                }
+                Integrity::Verified
+            }
         };
         let version = manifest
             .get("format_version")
@@ -292,7 +429,11 @@ impl TensorFile {
                 },
             );
         }
-        Ok(TensorFile { tensors, manifest })
+        Ok(TensorFile {
+            tensors,
+            manifest,
+            integrity,
+        })
     }
 
     fn get(&self, name: &str, shape: &[Option<usize>], src: &str) -> Result<&Tensor> {

@@ -396,10 +396,12 @@ impl GuardedModel {
         let mut c = TensorFile {
             tensors: Default::default(),
             manifest: f.manifest.clone(),
+            integrity: f.integrity,
         };
         let mut e = TensorFile {
             tensors: Default::default(),
             manifest: f.manifest.clone(),
+            integrity: f.integrity,
         };
         for (name, t) in &f.tensors {
             if name.starts_with("exact.") {
