@@ -530,3 +530,37 @@ fn onnx_svms_import_and_score_like_onnxruntime() {
     let out = py("onnx_svm.py", &["check", s(&dir)]);
     eprint!("{out}");
 }
+
+#[test]
+fn onnx_import_follows_the_wiring_and_the_operator_definitions() {
+    // Each case as onnx.checker and onnxruntime see it: the valid file scores as
+    // onnxruntime scores it (a Scaler not on the SVM's input is ignored, not applied); every
+    // file they refuse is refused (exit 2, one line, nothing written).
+    let dir = tmpdir("onnx_wiring");
+    let verdict: serde_json::Value =
+        serde_json::from_str(py("onnx_wiring.py", &[s(&dir)]).trim()).unwrap();
+    let obj = verdict.as_object().unwrap();
+    assert_eq!(obj["unwired"], "ok");
+    for (case, v) in obj {
+        let model = dir.join(format!("{case}.safetensors"));
+        let src = dir.join(format!("{case}.onnx"));
+        if v == "ok" {
+            ok(&["import", "--onnx", s(&src), "--out", s(&model)]);
+            let sc = ok(&["score", s(&model), "--data", s(&dir.join("x.csv"))]);
+            let want = std::fs::read_to_string(dir.join("unwired_labels.txt")).unwrap();
+            let got: Vec<&str> = sc
+                .lines()
+                .skip(1)
+                .map(|l| l.split(',').next().unwrap())
+                .collect();
+            let want: Vec<&str> = want.lines().collect();
+            assert_eq!(got.len(), 200);
+            let same = got.iter().zip(&want).filter(|(a, b)| a == b).count();
+            assert!(same >= 199, "{case}: {same} of 200 labels as onnxruntime");
+        } else {
+            let e = bad(&["import", "--onnx", s(&src), "--out", s(&model)]);
+            assert!(!model.exists(), "{case}: {e}");
+        }
+    }
+    assert!(obj.len() >= 8);
+}

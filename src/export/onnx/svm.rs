@@ -64,6 +64,76 @@ impl Attrs<'_> {
     }
 }
 
+/// Checks a node's attributes as the ONNX-ML operator definitions declare them: every
+/// attribute known to the operator, of its declared type, at most once (what onnx.checker
+/// and onnxruntime refuse is refused here, instead of being read with another meaning).
+fn check_attributes(a: &Attrs, schema: &[(&str, i32)]) -> Result<()> {
+    use attr_type::*;
+    let type_name = |t: i32| match t {
+        FLOAT => "FLOAT",
+        INT => "INT",
+        STRING => "STRING",
+        TENSOR => "TENSOR",
+        FLOATS => "FLOATS",
+        INTS => "INTS",
+        STRINGS => "STRINGS",
+        _ => "another type",
+    };
+    let mut seen = std::collections::HashSet::new();
+    for at in &a.node.attribute {
+        let name = at.name.as_deref().unwrap_or("");
+        if !seen.insert(name) {
+            return Err(a.bad(format!("attribute '{name}' is given twice")));
+        }
+        let Some((_, want)) = schema.iter().find(|(n, _)| *n == name) else {
+            return Err(a.bad(format!(
+                "attribute '{name}' is not one of the operator's ({})",
+                schema
+                    .iter()
+                    .map(|(n, _)| *n)
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            )));
+        };
+        let got = at.r#type.unwrap_or(0);
+        if got != *want {
+            return Err(a.bad(format!(
+                "attribute '{name}' is {}; the operator declares it {}",
+                type_name(got),
+                type_name(*want)
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// The ONNX-ML attribute schemas of the operators read.
+const SVM_CLASSIFIER_ATTRS: [(&str, i32); 11] = [
+    ("classlabels_ints", attr_type::INTS),
+    ("classlabels_strings", attr_type::STRINGS),
+    ("coefficients", attr_type::FLOATS),
+    ("kernel_params", attr_type::FLOATS),
+    ("kernel_type", attr_type::STRING),
+    ("post_transform", attr_type::STRING),
+    ("prob_a", attr_type::FLOATS),
+    ("prob_b", attr_type::FLOATS),
+    ("rho", attr_type::FLOATS),
+    ("support_vectors", attr_type::FLOATS),
+    ("vectors_per_class", attr_type::INTS),
+];
+const SVM_REGRESSOR_ATTRS: [(&str, i32); 8] = [
+    ("coefficients", attr_type::FLOATS),
+    ("kernel_params", attr_type::FLOATS),
+    ("kernel_type", attr_type::STRING),
+    ("n_supports", attr_type::INT),
+    ("one_class", attr_type::INT),
+    ("post_transform", attr_type::STRING),
+    ("rho", attr_type::FLOATS),
+    ("support_vectors", attr_type::FLOATS),
+];
+const SCALER_ATTRS: [(&str, i32); 2] =
+    [("offset", attr_type::FLOATS), ("scale", attr_type::FLOATS)];
+
 fn finite(v: &[f32], what: &str, a: &Attrs) -> Result<Vec<f64>> {
     match v.iter().position(|x| !x.is_finite()) {
         Some(i) => Err(a.bad(format!("'{what}' entry {i} is not finite"))),
@@ -74,6 +144,12 @@ fn finite(v: &[f32], what: &str, a: &Attrs) -> Result<Vec<f64>> {
 fn kernel(a: &Attrs) -> Result<Kernel> {
     let kt = a.string("kernel_type").unwrap_or_else(|| "LINEAR".into());
     let p = a.floats("kernel_params");
+    if a.get("kernel_params").is_some() && p.len() != 3 {
+        return Err(a.bad(format!(
+            "'kernel_params' has {} values; the operator takes exactly 3 (gamma, coef0, degree)",
+            p.len()
+        )));
+    }
     let param = |i: usize, default: f64| p.get(i).map(|v| *v as f64).unwrap_or(default);
     let (gamma, coef0, degree) = (param(0, 0.0), param(1, 0.0), param(2, 0.0));
     let text = match kt.as_str() {
@@ -209,6 +285,37 @@ pub fn import_svm_bytes(bytes: &[u8], src: &str) -> Result<ExactModel> {
         )));
     }
     let a = Attrs { node: svm, src };
+    match a.op().as_str() {
+        "SVMClassifier" => check_attributes(&a, &SVM_CLASSIFIER_ATTRS)?,
+        "SVMRegressor" => check_attributes(&a, &SVM_REGRESSOR_ATTRS)?,
+        other => return Err(a.bad(format!("operator '{other}' is not an SVM"))),
+    }
+    // Follow the wiring: which tensor each node reads. A Scaler applies only when the SVM
+    // reads its output and it reads the graph's input (as onnxruntime evaluates it); an
+    // SVM that reads the graph's input directly ignores a Scaler beside it.
+    let graph_in = g.input[0].name.clone().unwrap_or_default();
+    let svm_in = svm.input.first().cloned().unwrap_or_default();
+    let scaler = match scaler {
+        Some(s) if s.output.first() == Some(&svm_in) => {
+            if s.input.first() != Some(&graph_in) {
+                return Err(Error::file(format!(
+                    "{src}: node Scaler reads '{}', not the graph's input '{graph_in}'",
+                    s.input.first().cloned().unwrap_or_default()
+                )));
+            }
+            Some(s)
+        }
+        _ if svm_in == graph_in => None,
+        _ => {
+            return Err(Error::file(format!(
+                "{src}: node {} reads '{svm_in}', which is neither the graph's input '{graph_in}' nor a Scaler's output",
+                a.op()
+            )))
+        }
+    };
+    if let Some(s) = scaler {
+        check_attributes(&Attrs { node: s, src }, &SCALER_ATTRS)?;
+    }
     check_common(&a)?;
     let kernel = kernel(&a)?;
     let svs = finite(&a.floats("support_vectors"), "support_vectors", &a)?;
@@ -271,6 +378,17 @@ pub fn import_svm_bytes(bytes: &[u8], src: &str) -> Result<ExactModel> {
             crate::model::Probabilities::new(m.rule(), pa, pb).map_err(|e| a.bad(e.message()))?;
         m.probabilities = Some((p, "the ONNX SVM's prob_a and prob_b (imported)".into()));
     }
+    if m.n_support_vectors() == 0 {
+        return Err(a.bad("the SVM has no support vectors; there is nothing to import"));
+    }
+    // An imported model always loads: read back what would be written.
+    let f = crate::format::TensorFile::from_bytes(&m.to_file().to_bytes()?, src)?;
+    ExactModel::from_file(&f, src).map_err(|e| {
+        Error::file(format!(
+            "{src}: the imported model would not load: {}",
+            e.message()
+        ))
+    })?;
     Ok(m)
 }
 
@@ -299,6 +417,9 @@ fn support_vectors(
         )));
     }
     let d = svs.len() / n;
+    if d == 0 {
+        return Err(a.bad("'support_vectors' is empty"));
+    }
     if let Some(di) = d_in {
         if di > 0 && di as usize != d {
             return Err(a.bad(format!(
@@ -349,7 +470,10 @@ fn classifier(
             vpc.len()
         )));
     }
-    let n: usize = vpc.iter().map(|v| *v as usize).sum();
+    let n: usize = vpc
+        .iter()
+        .try_fold(0usize, |acc, v| acc.checked_add(*v as usize))
+        .ok_or_else(|| a.bad("'vectors_per_class' sums past any possible size"))?;
     let (sv, d) = support_vectors(a, svs, n, d_in)?;
     if coef.len() != (k - 1) * n {
         return Err(a.bad(format!(
