@@ -717,3 +717,92 @@ fn a_flipped_bit_anywhere_is_refused() {
     assert!(String::from_utf8_lossy(&o.stdout).contains("checksum        none"));
     assert!(ok(&["inspect", s(&out)]).contains("checksum        verified"));
 }
+
+#[test]
+fn smaller_findings_of_the_hostile_round() {
+    let dir = tmpdir("smaller_findings_of_the_hostile_round");
+    let calib = dir.join("c.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 600);
+    // --stats-out does not silently ignore flags that belong to the merge.
+    let e = bad(&[
+        "compile",
+        s(&demo()),
+        "--calib",
+        s(&calib),
+        "--method",
+        "hadamard",
+        "--features",
+        "16",
+        "--stats-out",
+        s(&dir.join("p.kpstats")),
+        "--eval",
+        s(&calib),
+        "--min-agreement",
+        "0.9",
+    ]);
+    assert!(
+        e.contains("--eval, --min-agreement belong to the merge"),
+        "{e}"
+    );
+    assert!(!dir.join("p.kpstats").exists());
+    // A 20 KB kernel expression is not echoed whole.
+    let long = format!("gaussian(gamma=1) + {}", "x".repeat(20_000));
+    let e = bad(&["kernel-check", "--kernel", &long, "--dim", "2"]);
+    assert!(e.len() < 600, "{} characters", e.len());
+    assert!(e.contains("characters)"), "{e}");
+    // Identical calibration rows: an input error that says so, not an internal error.
+    let text = std::fs::read_to_string(&calib).unwrap();
+    let mut lines = text.lines();
+    let head = lines.next().unwrap();
+    let row = lines.next().unwrap();
+    let same = dir.join("same.csv");
+    std::fs::write(&same, format!("{head}\n{}", format!("{row}\n").repeat(300))).unwrap();
+    let o = run(&[
+        "compile",
+        s(&demo()),
+        "--calib",
+        s(&same),
+        "--target",
+        "condition",
+        "--method",
+        "hadamard",
+        "--features",
+        "32",
+        "--no-timing",
+        "--out",
+        s(&dir.join("m.safetensors")),
+    ]);
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{e}");
+    assert!(
+        e.trim().lines().last().unwrap().contains("do not vary"),
+        "{e}"
+    );
+    assert!(!dir.join("m.safetensors").exists());
+    // Calibration labels of one class: the model is compiled, without probabilities.
+    let one = dir.join("one.csv");
+    let healthy: String = text
+        .lines()
+        .skip(1)
+        .filter(|l| l.ends_with(",healthy"))
+        .map(|l| format!("{l}\n"))
+        .collect();
+    std::fs::write(&one, format!("{head}\n{healthy}")).unwrap();
+    let o = run(&[
+        "compile",
+        s(&demo()),
+        "--calib",
+        s(&one),
+        "--target",
+        "condition",
+        "--method",
+        "hadamard",
+        "--features",
+        "32",
+        "--no-timing",
+        "--out",
+        s(&dir.join("one.safetensors")),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("class probabilities not fitted"));
+}

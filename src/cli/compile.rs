@@ -368,7 +368,16 @@ pub(crate) fn run(a: Args) -> Result<()> {
     let mut model = model;
     if let Some(Some(y)) = calib.as_ref().map(|c| c.target.as_ref()) {
         if model.task().is_classifier() {
-            kernelpress::fit::fit_probabilities(&mut model, calib.as_ref().unwrap().x.view(), y)?;
+            // Probabilities are an extra: when the labels cannot support them (a class
+            // pair without rows on both sides), the model is written without them.
+            if let Err(e) =
+                kernelpress::fit::fit_probabilities(&mut model, calib.as_ref().unwrap().x.view(), y)
+            {
+                super::progress::note(format!(
+                    "class probabilities not fitted ({}); the model is written without them",
+                    e.message()
+                ));
+            }
         }
     }
     if a.guard_agreement.is_some() || a.guard_rate.is_some() {
@@ -884,6 +893,26 @@ fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
         ));
     }
     if let Some(path) = &a.stats_out {
+        // A shard writes statistics only: flags about evaluating or gating a model have
+        // nothing to act on here, so they are refused rather than silently ignored.
+        let ignored: Vec<&str> = [
+            ("--eval", a.eval.is_some()),
+            ("--json", a.report.is_some()),
+            ("--min-agreement", a.gate.min_agreement.is_some()),
+            ("--min-accuracy", a.gate.min_accuracy.is_some()),
+            ("--discard-below-gate", a.discard_below_gate),
+        ]
+        .into_iter()
+        .filter_map(|(f, given)| given.then_some(f))
+        .collect();
+        if !ignored.is_empty() {
+            return Err(Error::input(format!(
+                "--stats-out writes a shard's statistics only; {} belong{} to the merge (--from-stats): give {} there",
+                ignored.join(", "),
+                if ignored.len() == 1 { "s" } else { "" },
+                if ignored.len() == 1 { "it" } else { "them" }
+            )));
+        }
         let spec = a.map.spec(exact.kernel().clone(), exact.input_dim())?;
         let calib = super::read_for(
             a.calib.as_deref().expect("clap requires --calib"),

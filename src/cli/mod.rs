@@ -299,7 +299,19 @@ pub(crate) fn read_for(
 /// Parses a kernel expression given on the command line.
 pub(crate) fn kernel_arg(s: &str) -> Result<kernelpress::kernel::Kernel> {
     s.parse()
-        .map_err(|e: Error| e.context(format!("--kernel '{s}'")))
+        .map_err(|e: Error| e.context(format!("--kernel '{}'", abridged(s, 80))))
+}
+
+/// `s` itself when short, else its start, an ellipsis and its length: an error line
+/// stays one readable line whatever the user typed.
+pub(crate) fn abridged(s: &str, max: usize) -> String {
+    let n = s.chars().count();
+    if n <= max {
+        s.to_string()
+    } else {
+        let head: String = s.chars().take(max.saturating_sub(20)).collect();
+        format!("{head}… ({n} characters)")
+    }
 }
 
 /// The methods of `--methods` (default: every method for the kernel but identity), each

@@ -332,6 +332,14 @@ impl Distiller {
         notes: &mut Vec<String>,
     ) -> Result<(Array2<f64>, f64)> {
         let p = a.nrows();
+        // Centred statistics with a zero trace: every feature is constant over the rows
+        // (identical calibration rows, say). No ridge makes that a fit; say what is wrong.
+        let trace: f64 = (0..p).map(|i| a[[i, i]]).sum();
+        if !(trace > 0.0) {
+            return Err(Error::input(
+                "the calibration rows do not vary: every feature is constant over the rows that fit the head (are the rows identical?); give calibration rows that cover the inputs the model will see",
+            ));
+        }
         let mut lam = lam;
         for attempt in 0..8 {
             let mut m = a.clone();
@@ -350,8 +358,8 @@ impl Distiller {
                 }
             }
         }
-        Err(Error::internal(
-            "distillation: ridge system stayed singular after 8 increases of λ",
+        Err(Error::numerical(
+            "distillation: the ridge system stayed singular after 8 increases of λ: the calibration rows vary too little for this many features; give more varied rows or fewer features",
         ))
     }
 

@@ -139,7 +139,7 @@ impl Parser {
     fn err(&self, what: &str) -> Error {
         let found = match self.peek() {
             None => "the end".to_string(),
-            Some(t) => format!("{t:?}"),
+            Some(t) => short(&format!("{t:?}")),
         };
         Error::input(format!(
             "kernel expression: expected {what} at position {}, found {found}",
@@ -231,7 +231,7 @@ impl Parser {
                     )));
                 }
                 self.pos += 1;
-                self.expect(Tok::LParen, &format!("'(' after '{name}'"))?;
+                self.expect(Tok::LParen, &format!("'(' after '{}'", short(&name)))?;
                 let mut params: Vec<(String, Value, usize)> = Vec::new();
                 if !self.eat(&Tok::RParen) {
                     loop {
@@ -243,7 +243,7 @@ impl Parser {
                             }
                             _ => return Err(self.err("a parameter name")),
                         };
-                        self.expect(Tok::Eq, &format!("'=' after '{key}'"))?;
+                        self.expect(Tok::Eq, &format!("'=' after '{}'", short(&key)))?;
                         let v = self.value()?;
                         if params.iter().any(|p| p.0 == key) {
                             return Err(Error::input(format!(
@@ -289,6 +289,20 @@ impl Parser {
             }
             _ => Err(self.err("a number or a [list]")),
         }
+    }
+}
+
+/// A name as error messages show it: whole up to 40 characters, else its start and its
+/// length (an error stays one readable line whatever was typed).
+fn short(s: &str) -> String {
+    let n = s.chars().count();
+    if n <= 40 {
+        s.to_string()
+    } else {
+        format!(
+            "{}… ({n} characters)",
+            s.chars().take(24).collect::<String>()
+        )
     }
 }
 
@@ -448,8 +462,9 @@ impl Params {
                 .map(|c| format!(" — did you mean '{c}'?"))
                 .unwrap_or_default();
             return Err(Error::input(format!(
-                "kernel {}: unknown parameter '{k}' (position {at}); it takes {allowed}{hint}",
-                self.kernel
+                "kernel {}: unknown parameter '{}' (position {at}); it takes {allowed}{hint}",
+                self.kernel,
+                short(k)
             )));
         }
         Ok(())
@@ -544,14 +559,13 @@ fn build(name: &str, items: Vec<(String, Value, usize)>, at: usize) -> Result<Ke
             p.finish("gamma and offset")?;
             Kernel::Sigmoid { gamma, coef0 }
         }
-        other => {
-            return Err(Error::input(format!(
-                "kernel expression: unknown kernel '{other}' at position {at}; known kernels: {KERNELS}{}",
-                closest(other, &KERNELS.split(", ").collect::<Vec<_>>())
-                    .map(|c| format!(" — did you mean '{c}'?"))
-                    .unwrap_or_default()
-            )))
-        }
+        other => return Err(Error::input(format!(
+            "kernel expression: unknown kernel '{}' at position {at}; known kernels: {KERNELS}{}",
+            short(other),
+            closest(other, &KERNELS.split(", ").collect::<Vec<_>>())
+                .map(|c| format!(" — did you mean '{c}'?"))
+                .unwrap_or_default()
+        ))),
     };
     Ok(k)
 }
