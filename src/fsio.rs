@@ -105,6 +105,34 @@ fn write_temp(path: &Path, bytes: &[u8]) -> Result<tempfile::TempPath> {
     Ok(f.into_temp_path())
 }
 
+/// Checks, before any work, that `path` can be written as an output (`folder`: as a folder
+/// written whole): what it names is acceptable (see the module notes) and its folder takes
+/// a new file (a temporary one is created and removed). An unwritable output is bad input
+/// (exit code 2) whatever the format.
+pub fn check_writable(path: &Path, folder: bool) -> Result<()> {
+    let dir = if folder {
+        folder_of(path)
+    } else {
+        match target(path)? {
+            Target::Stream(_) => return Ok(()),
+            Target::Replace(p) => folder_of(&p),
+        }
+    };
+    tempfile::Builder::new()
+        .prefix(".kernelpress-check.")
+        .suffix(&format!(".tmp{}", std::process::id()))
+        .tempfile_in(&dir)
+        .map(drop)
+        .map_err(|e| {
+            Error::input(format!(
+                "{}: cannot write in folder {} ({}); choose a writable place",
+                path.display(),
+                dir.display(),
+                e.kind()
+            ))
+        })
+}
+
 /// Writes `bytes` to `path` without destroying what `path` names (see the module notes). A
 /// failure leaves no partial file behind.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {

@@ -806,3 +806,64 @@ fn smaller_findings_of_the_hostile_round() {
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(String::from_utf8_lossy(&o.stderr).contains("class probabilities not fitted"));
 }
+
+#[test]
+fn an_unwritable_output_is_found_before_any_work_with_one_exit_code() {
+    // /sys takes no new file, even as root: every command and format says so first, exit 2.
+    let cases: [&[&str]; 4] = [
+        &[
+            "score",
+            "models/pump_svm.safetensors",
+            "--data",
+            "models/pump_test.csv",
+            "--target",
+            "condition",
+            "--out",
+            "/sys/kp.csv",
+        ],
+        &[
+            "export",
+            "models/pump_compiled.safetensors",
+            "--format",
+            "c",
+            "--out",
+            "/sys/kp_c",
+        ],
+        &[
+            "export",
+            "models/pump_compiled.safetensors",
+            "--format",
+            "onnx",
+            "--out",
+            "/sys/kp.onnx",
+        ],
+        &[
+            "compile",
+            "models/pump_svm.safetensors",
+            "--calib",
+            "models/pump_calib.csv",
+            "--target",
+            "condition",
+            "--method",
+            "hadamard",
+            "--features",
+            "64",
+            "--out",
+            "/sys/kp.safetensors",
+        ],
+    ];
+    for args in cases {
+        let o = std::process::Command::new(bin())
+            .current_dir(root())
+            .args(args)
+            .output()
+            .unwrap();
+        let e = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(2), "{args:?}: {e}");
+        assert!(e.contains("cannot write in folder /sys"), "{e}");
+        assert!(
+            !e.contains("[kernelpress]"),
+            "work started before the check: {e}"
+        );
+    }
+}

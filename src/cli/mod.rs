@@ -193,6 +193,7 @@ pub(crate) fn guard_outputs(
             )));
         }
         seen.push(c);
+        kernelpress::data::check_writable(out, *folder)?;
         if let Ok(mut dirs) = OUTPUT_DIRS.lock() {
             dirs.push(parent.clone());
         }

@@ -14,7 +14,7 @@ mod idx;
 mod npy;
 mod stream;
 
-pub use crate::fsio::{read_bytes, write_all_atomic, write_atomic};
+pub use crate::fsio::{check_writable, read_bytes, write_all_atomic, write_atomic};
 pub use csv::{csv_field, csv_text, read_csv, read_csv_str, write_csv};
 pub use idx::{read_idx_images, read_idx_labels};
 pub use npy::{

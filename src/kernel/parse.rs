@@ -559,13 +559,15 @@ fn build(name: &str, items: Vec<(String, Value, usize)>, at: usize) -> Result<Ke
             p.finish("gamma and offset")?;
             Kernel::Sigmoid { gamma, coef0 }
         }
-        other => return Err(Error::input(format!(
+        other => {
+            return Err(Error::input(format!(
             "kernel expression: unknown kernel '{}' at position {at}; known kernels: {KERNELS}{}",
             short(other),
             closest(other, &KERNELS.split(", ").collect::<Vec<_>>())
                 .map(|c| format!(" — did you mean '{c}'?"))
                 .unwrap_or_default()
-        ))),
+        )))
+        }
     };
     Ok(k)
 }
