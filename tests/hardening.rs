@@ -867,3 +867,17 @@ fn an_unwritable_output_is_found_before_any_work_with_one_exit_code() {
         );
     }
 }
+
+#[test]
+fn a_version_1_file_that_says_no_scaling_but_stores_it_is_refused() {
+    // Rewritten with the safetensors package: the manifest says 'none', the tensors remain.
+    let dir = tmpdir("v1_scaling_none");
+    let out = dir.join("v1_none.safetensors");
+    py_inline(
+        "import json, sys\nfrom safetensors.numpy import load_file, save_file\nfrom safetensors import safe_open\nf = safe_open(sys.argv[1], 'np')\nm = json.loads(f.metadata()['kernelpress'])\nm['input_scaling'] = 'none'\nsave_file(load_file(sys.argv[1]), sys.argv[2], metadata={'kernelpress': json.dumps(m)})\n",
+        &[s(&root().join("tests/fixtures/v1/pump_svm.safetensors")), s(&out)],
+    );
+    let test = root().join("models/pump_test.csv");
+    let e = bad(&["score", s(&out), "--data", s(&test), "--target", "condition"]);
+    assert!(e.contains("disagrees with itself"), "{e}");
+}

@@ -54,6 +54,14 @@ fn rule(f: &TensorFile, k: usize, src: &str) -> Result<OutputRule> {
 
 fn scaling(f: &TensorFile, d: usize, src: &str) -> Result<Option<Standardizer>> {
     match f.get_str("input_scaling", src)?.as_str() {
+        // As version 2 files: scaling tensors without the scaling that uses them mean the
+        // file disagrees with itself, and scoring it unscaled would be silently wrong.
+        "none" if f.tensors.contains_key("input_mean") || f.tensors.contains_key("input_scale") => {
+            Err(bad(
+                src,
+                "input_scaling 'none' but the file stores input_mean/input_scale; the file disagrees with itself",
+            ))
+        }
         "none" => Ok(None),
         "standardize" => Ok(Some(Standardizer {
             mean: f.f64("input_mean", &[Some(d)], src)?,
