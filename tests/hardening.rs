@@ -878,6 +878,72 @@ fn a_version_1_file_that_says_no_scaling_but_stores_it_is_refused() {
         &[s(&root().join("tests/fixtures/v1/pump_svm.safetensors")), s(&out)],
     );
     let test = root().join("models/pump_test.csv");
-    let e = bad(&["score", s(&out), "--data", s(&test), "--target", "condition"]);
+    let e = bad(&[
+        "score",
+        s(&out),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+    ]);
     assert!(e.contains("disagrees with itself"), "{e}");
+}
+
+#[test]
+fn a_crafted_step_width_is_refused_not_allocated() {
+    // A Tensor Sketch model whose sketch width is rewritten to 2^40 (safetensors package):
+    // score, inspect and export refuse it under --max-memory 4G instead of aborting.
+    let dir = tmpdir("crafted_step_width");
+    let train = dir.join("train.csv");
+    head_lines(&root().join("models/pump_train.csv"), &train, 300);
+    let model = dir.join("ts.safetensors");
+    ok(&[
+        "compile",
+        "--kernel",
+        "polynomial(degree=2, gamma=0.3, offset=1)",
+        "--data",
+        s(&train),
+        "--target",
+        "condition",
+        "--method",
+        "tensorsketch",
+        "--features",
+        "64",
+        "--out",
+        s(&model),
+    ]);
+    let crafted = dir.join("crafted.safetensors");
+    py_inline(
+        "import json, sys\nfrom safetensors.numpy import load_file, save_file\nfrom safetensors import safe_open\nf = safe_open(sys.argv[1], 'np')\nm = json.loads(f.metadata()['kernelpress'])\nn = 0\nfor st in m['program']['steps']:\n    if 'width' in st:\n        st['width'] = 2**40\n        n += 1\nassert n == 1, n\nm.pop('checksum'); m.pop('checksum_required')\nsave_file(load_file(sys.argv[1]), sys.argv[2], metadata={'kernelpress': json.dumps(m)})\n",
+        &[s(&model), s(&crafted)],
+    );
+    let test = root().join("models/pump_test.csv");
+    for args in [
+        vec![
+            "--max-memory",
+            "4G",
+            "score",
+            s(&crafted),
+            "--data",
+            s(&test),
+            "--target",
+            "condition",
+        ],
+        vec!["--max-memory", "4G", "inspect", s(&crafted)],
+        vec![
+            "--max-memory",
+            "4G",
+            "export",
+            s(&crafted),
+            "--format",
+            "onnx",
+            "--out",
+            "/tmp/never.onnx",
+        ],
+    ] {
+        let o = run(&args);
+        let e = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(2), "{args:?}: {e}");
+        assert!(e.contains("width"), "{e}");
+    }
 }

@@ -195,6 +195,7 @@ impl Builder {
 
     /// Appends a step reading `inputs`; returns its output value.
     pub fn push(&mut self, step: impl Into<Step>, inputs: &[ValueId]) -> Result<ValueId> {
+        const MAX_WIDTH: usize = 1 << 26;
         let step = step.into();
         if let Some(v) = inputs.iter().find(|v| v.0 >= self.dims.len()) {
             return Err(Error::internal(format!(
@@ -219,6 +220,20 @@ impl Builder {
         if out == 0 {
             return Err(Error::input(format!("step {}: empty output", step.name())));
         }
+        // Every value is held for a chunk of rows (and the f32 runner keeps two of the
+        // widest per row): a width from a file is checked against the memory ceiling
+        // before anything that size exists.
+        if out > MAX_WIDTH {
+            return Err(Error::input(format!(
+                "step {}: output width {out} is beyond the largest supported ({MAX_WIDTH})",
+                step.name()
+            )));
+        }
+        crate::limits::check_alloc(
+            out as u64,
+            8 * crate::linalg::CHUNK_ROWS as u64,
+            &format!("step {}'s output", step.name()),
+        )?;
         self.instrs.push(Instr {
             step,
             inputs: inputs.to_vec(),

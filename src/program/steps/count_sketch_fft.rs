@@ -36,6 +36,20 @@ impl CountSketchFft {
         if out == 0 || hash.is_empty() || hash.len() != sign.len() {
             return bad("needs out ≥ 1 and as many sign rows as hash rows (≥ 1)".into());
         }
+        // The FFT plans and buffers are `out` complex values each: checked against the
+        // memory ceiling before planning (a crafted width of 2^40 must not abort).
+        if out > 1 << 26 {
+            return bad(format!(
+                "width {out} is beyond the largest supported (2^26)"
+            ));
+        }
+        if let Err(e) = crate::limits::check_alloc(
+            out as u64,
+            16 * (hash.len() as u64 + 4),
+            "count sketch buffers",
+        ) {
+            return bad(e.message().to_string());
+        }
         let n = hash[0].len();
         for (h, s) in hash.iter().zip(&sign) {
             if h.len() != n || s.len() != n {
