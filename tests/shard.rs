@@ -321,3 +321,57 @@ fn wrong_merges_are_refused() {
     ]);
     assert!(out.exists());
 }
+
+#[test]
+fn a_gap_between_shards_is_warned_about() {
+    let dir = tmpdir("shard_gap");
+    let text = std::fs::read_to_string(root().join("models/pump_calib.csv")).unwrap();
+    let lines: Vec<&str> = text.lines().collect();
+    let part = |name: &str, from: usize, to: usize| {
+        let p = dir.join(name);
+        let mut s = format!("{}\n", lines[0]);
+        for l in &lines[1 + from..1 + to] {
+            s.push_str(l);
+            s.push('\n');
+        }
+        std::fs::write(&p, s).unwrap();
+        p
+    };
+    let (a, b) = (part("a.csv", 0, 200), part("b.csv", 400, 600));
+    let model = root().join("models/pump_svm.safetensors");
+    for (csv, first, out) in [(&a, "0", "a.kpstats"), (&b, "400", "b.kpstats")] {
+        ok(&[
+            "compile",
+            s(&model),
+            "--calib",
+            s(csv),
+            "--target",
+            "condition",
+            "--first-row",
+            first,
+            "--method",
+            "hadamard",
+            "--features",
+            "16",
+            "--seed",
+            "1",
+            "--stats-out",
+            s(&dir.join(out)),
+        ]);
+    }
+    let o = run(&[
+        "compile",
+        s(&model),
+        "--from-stats",
+        s(&dir.join("a.kpstats")),
+        s(&dir.join("b.kpstats")),
+        "--out",
+        s(&dir.join("m.safetensors")),
+    ]);
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(o.status.success(), "{e}");
+    assert!(
+        e.contains("calibration rows 201–400 are in no statistics file"),
+        "{e}"
+    );
+}

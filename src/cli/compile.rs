@@ -947,6 +947,13 @@ fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
         let other = ShardStats::load(p)?;
         st.merge(&other).map_err(|e| e.context(p.display()))?;
     }
+    for (a0, b0) in st.gaps() {
+        super::progress::warn(format!(
+            "calibration rows {}–{} are in no statistics file: the merge skips them (a shard missing, or a --first-row given wrongly?)",
+            a0 + 1,
+            b0
+        ));
+    }
     let model = st.fit(exact, grid)?;
     warn_fit_notes(&model);
     super::progress::note(format!(

@@ -243,6 +243,20 @@ impl ShardStats {
         (f, c, self.audit_rows)
     }
 
+    /// Calibration rows in no shard: the `[start, end)` holes before and between the
+    /// covered ranges (a shard missing from a merge, or first rows given wrongly).
+    pub fn gaps(&self) -> Vec<(usize, usize)> {
+        let mut out = Vec::new();
+        let mut at = 0;
+        for &(a, b) in &self.ranges {
+            if a > at {
+                out.push((at, a));
+            }
+            at = at.max(b);
+        }
+        out
+    }
+
     /// Global row ranges `[start, end)` covered, sorted.
     pub fn ranges(&self) -> &[(usize, usize)] {
         &self.ranges
