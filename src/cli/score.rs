@@ -123,7 +123,15 @@ pub(crate) fn run(a: Args) -> Result<()> {
             let mut v: Vec<String> = Vec::with_capacity(header.len());
             if classifier {
                 v.push(l);
-                v.extend(rule.class_row(r).iter().map(|x| format!("{x:?}")));
+                // Wins are counts: written as whole numbers.
+                let counts = rule.task() == kernelpress::model::Task::Ovo;
+                v.extend(rule.class_row(r).iter().enumerate().map(|(j, x)| {
+                    if counts && j > 0 {
+                        format!("{}", *x as u64)
+                    } else {
+                        format!("{x:?}")
+                    }
+                }));
             }
             if let Some(p) = &probs {
                 v.extend(p.row(i).iter().map(|x| format!("{x:?}")));
