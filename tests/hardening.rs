@@ -947,3 +947,18 @@ fn a_crafted_step_width_is_refused_not_allocated() {
         assert!(e.contains("width"), "{e}");
     }
 }
+
+#[test]
+fn a_million_column_header_is_refused_under_a_small_ceiling() {
+    // Before: split into a million names, 232 MB under --max-memory 20M. Now refused first.
+    let dir = tmpdir("million_columns");
+    let p = dir.join("wide.csv");
+    let head: Vec<String> = (0..1_000_000).map(|i| format!("c{i}")).collect();
+    std::fs::write(
+        &p,
+        format!("{}\n{}\n", head.join(","), vec!["1"; 1_000_000].join(",")),
+    )
+    .unwrap();
+    let e = bad(&["--max-memory", "20M", "score", s(&demo()), "--data", s(&p)]);
+    assert!(e.contains("the header's column names would need"), "{e}");
+}

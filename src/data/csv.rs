@@ -186,6 +186,15 @@ pub(crate) fn header(text_in: &str, source: &str) -> Result<Vec<String>> {
             "{source}: file is empty; expected a header row and data rows"
         ))
     })?;
+    // Each column name costs a string and a table slot (about 64 bytes with its text):
+    // checked against the memory ceiling before a header of a million columns is split.
+    let columns = head.matches(',').count() as u64 + 1;
+    crate::limits::check_alloc(
+        columns,
+        64 + (head.len() as u64 / columns),
+        "the header's column names",
+    )
+    .map_err(|e| e.context(source))?;
     let names = split(head.trim_start_matches('\u{feff}'));
     check_header(&names, source)?;
     Ok(names)
