@@ -573,12 +573,7 @@ fn outputs_never_replace_what_is_not_a_regular_file() {
     let o = run_args(args(&dir));
     assert_eq!(o.status.code(), Some(2));
     // No temporary file is left anywhere in the folder.
-    let left: Vec<String> = std::fs::read_dir(&dir)
-        .unwrap()
-        .flatten()
-        .map(|e| e.file_name().to_string_lossy().to_string())
-        .filter(|n| n.contains(".tmp"))
-        .collect();
+    let left = leftovers(&dir, |n| n.contains(".tmp"));
     assert!(left.is_empty(), "{left:?}");
 }
 
@@ -643,19 +638,14 @@ fn folder_exports_are_all_or_nothing_and_never_swallow_an_input() {
     assert!(e.contains("lives inside this output folder"), "{e}");
     assert!(inside.exists());
     // No temporary folder is left beside it.
-    let left: Vec<String> = std::fs::read_dir(&dir)
-        .unwrap()
-        .flatten()
-        .map(|e| e.file_name().to_string_lossy().to_string())
-        .filter(|n| n.starts_with('.'))
-        .collect();
+    let left = leftovers(&dir, |n| n.starts_with('.'));
     assert!(left.is_empty(), "{left:?}");
 }
 
 #[test]
 fn a_flipped_bit_anywhere_is_refused() {
     // Every single-bit flip of a freshly written model file (header, manifest, labels,
-    // tensor data) is refused when read; the shipped files without a checksum still load.
+    // tensor data) is refused when read; files written before checksums still load.
     let dir = tmpdir("a_flipped_bit_anywhere_is_refused");
     let calib = dir.join("c.csv");
     head_lines(&root().join("models/pump_calib.csv"), &calib, 400);
@@ -961,4 +951,36 @@ fn a_million_column_header_is_refused_under_a_small_ceiling() {
     .unwrap();
     let e = bad(&["--max-memory", "20M", "score", s(&demo()), "--data", s(&p)]);
     assert!(e.contains("the header's column names would need"), "{e}");
+    // Before: featurize --features 1048576 under 1G reached 2.5 GB or aborted; now the
+    // program's widths are checked first.
+    let test = root().join("models/pump_test.csv");
+    let e = bad(&[
+        "--max-memory",
+        "1G",
+        "featurize",
+        "--kernel",
+        "gaussian(gamma=1)",
+        "--method",
+        "fourier",
+        "--features",
+        "1048576",
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+        "--out",
+        s(&dir.join("z.npy")),
+    ]);
+    assert!(e.contains("more than the memory limit"), "{e}");
+    assert!(!dir.join("z.npy").exists());
+}
+
+/// The names in `dir` that `keep` selects (left-over temporary files and folders).
+fn leftovers(dir: &std::path::Path, keep: impl Fn(&str) -> bool) -> Vec<String> {
+    std::fs::read_dir(dir)
+        .unwrap()
+        .flatten()
+        .map(|e| e.file_name().to_string_lossy().to_string())
+        .filter(|n| keep(n))
+        .collect()
 }
