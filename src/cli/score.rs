@@ -114,6 +114,8 @@ pub(crate) fn run(a: Args) -> Result<()> {
         header.push("stage".into());
     }
     let labels = model.labels_of(s.view());
+    // One-vs-one class columns are counts of contests won: written as whole numbers.
+    let counts = rule.task() == kernelpress::model::Task::Ovo;
     let rows: Vec<Vec<String>> = s
         .rows()
         .into_iter()
@@ -123,8 +125,6 @@ pub(crate) fn run(a: Args) -> Result<()> {
             let mut v: Vec<String> = Vec::with_capacity(header.len());
             if classifier {
                 v.push(l);
-                // Wins are counts: written as whole numbers.
-                let counts = rule.task() == kernelpress::model::Task::Ovo;
                 v.extend(rule.class_row(r).iter().enumerate().map(|(j, x)| {
                     if counts && j > 0 {
                         format!("{}", *x as u64)
