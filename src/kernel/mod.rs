@@ -329,6 +329,105 @@ impl Kernel {
         })
     }
 
+    /// `df/d(r²)` of [`Kernel::euclidean_profile`] (Gaussian, Matérn, rational quadratic);
+    /// `None` for other kernels. At `r = 0` Matérn ν = ½ has no derivative; 0 is returned
+    /// (every gradient multiplies it by `x − y = 0` there).
+    pub(crate) fn euclidean_profile_deriv(&self, r2: f64) -> Option<f64> {
+        let r2 = r2.max(0.0);
+        Some(match self {
+            Kernel::Gaussian { .. } => -0.5 * (-0.5 * r2).exp(),
+            Kernel::Matern { nu, .. } => {
+                let r = r2.sqrt();
+                match nu {
+                    Nu::Half if r > 0.0 => -(-r).exp() / (2.0 * r),
+                    Nu::Half => 0.0,
+                    // f = (1 + a)e^{−a}, a = √3·r: df/dr² = −(3/2)e^{−a}.
+                    Nu::ThreeHalves => -1.5 * (-(3f64.sqrt()) * r).exp(),
+                    // f = (1 + a + a²/3)e^{−a}, a = √5·r: df/dr² = −(5/6)(1 + a)e^{−a}.
+                    Nu::FiveHalves => {
+                        let a = 5f64.sqrt() * r;
+                        -(5.0 / 6.0) * (1.0 + a) * (-a).exp()
+                    }
+                }
+            }
+            Kernel::RationalQuadratic { alpha, .. } => {
+                -0.5 * (1.0 + r2 / (2.0 * alpha)).powf(-alpha - 1.0)
+            }
+            _ => return None,
+        })
+    }
+
+    /// `dg/d(x·y)` of [`Kernel::dot_profile`] for the kernels that depend on `x·y` only
+    /// (linear, polynomial, sigmoid); `None` for others.
+    pub(crate) fn dot_profile_deriv(&self, dot: f64) -> Option<f64> {
+        Some(match self {
+            Kernel::Linear => 1.0,
+            Kernel::Polynomial {
+                degree,
+                gamma,
+                coef0,
+            } => *degree as f64 * gamma * (gamma * dot + coef0).powi(*degree as i32 - 1),
+            Kernel::Sigmoid { gamma, coef0 } => {
+                let t = (gamma * dot + coef0).tanh();
+                gamma * (1.0 - t * t)
+            }
+            _ => return None,
+        })
+    }
+
+    /// Whether [`Kernel::add_grad_second`] has this kernel's derivative (all but the
+    /// arc-cosine kernels, whose angle has no derivative at parallel inputs).
+    pub fn has_gradient(&self) -> bool {
+        match self {
+            Kernel::Sum(v) | Kernel::Product(v) => v.iter().all(|k| k.has_gradient()),
+            Kernel::Scaled(_, k) => k.has_gradient(),
+            Kernel::ArcCos { .. } => false,
+            _ => true,
+        }
+    }
+
+    /// Adds `w · ∂k(a, b)/∂b` into `out` (one pair; by symmetry `∂k(a, b)/∂a` is
+    /// `add_grad_second(b, a, …)`). Does nothing for kernels without
+    /// [`Kernel::has_gradient`].
+    pub(crate) fn add_grad_second(&self, a: &[f64], b: &[f64], w: f64, out: &mut [f64]) {
+        let d = a.len();
+        match self {
+            Kernel::Sum(v) => v.iter().for_each(|k| k.add_grad_second(a, b, w, out)),
+            Kernel::Scaled(c, k) => k.add_grad_second(a, b, w * c, out),
+            Kernel::Product(v) => {
+                let vals: Vec<f64> = v.iter().map(|k| k.eval(a, b)).collect();
+                for (i, k) in v.iter().enumerate() {
+                    let others: f64 = (0..v.len()).filter(|j| *j != i).map(|j| vals[j]).product();
+                    k.add_grad_second(a, b, w * others, out);
+                }
+            }
+            Kernel::Laplacian { .. } => {
+                let s = self.inverse_scale(d).unwrap();
+                let kv = self.eval(a, b);
+                for j in 0..d {
+                    let u = a[j] - b[j];
+                    if u != 0.0 {
+                        out[j] += w * kv * u.signum() * s[j];
+                    }
+                }
+            }
+            k if k.is_shift_invariant() => {
+                let s = k.inverse_scale(d).unwrap();
+                let r2: f64 = (0..d).map(|j| ((a[j] - b[j]) * s[j]).powi(2)).sum();
+                let f1 = k.euclidean_profile_deriv(r2).unwrap();
+                for j in 0..d {
+                    out[j] -= w * f1 * 2.0 * (a[j] - b[j]) * s[j] * s[j];
+                }
+            }
+            k => {
+                let dot: f64 = a.iter().zip(b).map(|(x, y)| x * y).sum();
+                if let Some(g1) = k.dot_profile_deriv(dot) {
+                    out.iter_mut().zip(a).for_each(|(o, x)| *o += w * g1 * x);
+                }
+            }
+        }
+    }
+
     /// `k(x, y)` for one pair. Panics if the lengths differ.
     #[track_caller]
     pub fn eval(&self, x: &[f64], y: &[f64]) -> f64 {

@@ -110,6 +110,28 @@ macro_rules! step_enum {
             fn apply_row32_in_place(&self, x: &mut [f32]) {
                 match self { $(Step::$variant(s) => s.apply_row32_in_place(x)),* }
             }
+            fn backward(
+                &self,
+                xs: &[ArrayView2<f64>],
+                y: ArrayView2<f64>,
+                gy: ArrayView2<f64>,
+                gp: Option<&mut [f64]>,
+                need_gx: bool,
+            ) -> Vec<Array2<f64>> {
+                match self { $(Step::$variant(s) => s.backward(xs, y, gy, gp, need_gx)),* }
+            }
+            /// The step's continuous parameters, flattened (empty for steps without).
+            pub fn params(&self) -> Vec<f64> {
+                match self { $(Step::$variant(s) => s.params()),* }
+            }
+            /// The step with its parameters replaced (as many as [`Step::params`] gives).
+            pub fn with_params(&self, p: &[f64]) -> Result<Step> {
+                match self { $(Step::$variant(s) => Ok(Step::$variant(s.with_params(p)?))),* }
+            }
+            /// Whether the step can be differentiated (see [`Program::backward`]).
+            pub fn differentiable(&self) -> bool {
+                match self { $(Step::$variant(s) => s.differentiable()),* }
+            }
             /// Cost per row for the given input and output widths.
             pub fn cost(&self, ins: &[usize], out: usize) -> Cost {
                 match self { $(Step::$variant(s) => s.cost(ins, out)),* }
@@ -404,6 +426,132 @@ impl Program {
             }
         }
         vals[self.output.0].take().expect("output computed")
+    }
+
+    /// Every value of the program for a chunk of rows (the input first, then each step's
+    /// output), kept for [`Self::backward`].
+    ///
+    /// # Panics
+    /// If `x` does not have [`Self::input_dim`] columns.
+    #[track_caller]
+    pub fn forward_all(&self, x: ArrayView2<f64>) -> Vec<Array2<f64>> {
+        assert_eq!(
+            x.ncols(),
+            self.input_dim,
+            "feature program: wrong number of input features"
+        );
+        let mut vals: Vec<Array2<f64>> = Vec::with_capacity(self.dims.len());
+        vals.push(x.as_standard_layout().into_owned());
+        for ins in &self.instrs {
+            let y = if ins.step.arity() == Some(1) {
+                ins.step.apply(vals[ins.inputs[0].0].clone())
+            } else {
+                let views: Vec<ArrayView2<f64>> =
+                    ins.inputs.iter().map(|v| vals[v.0].view()).collect();
+                ins.step.apply_many(&views)
+            };
+            vals.push(y);
+        }
+        vals
+    }
+
+    /// Reverse mode through the whole program for one chunk: `vals` from
+    /// [`Self::forward_all`], `g_out = ∂L/∂(output)`. Returns `∂L/∂θ` for every step whose
+    /// `train` flag is set (empty vectors for the others) and, when `need_input` is set,
+    /// `∂L/∂x` for the input. Only the values that lead to a trained step or to the
+    /// input (when asked) are differentiated.
+    ///
+    /// # Panics
+    /// If the shapes do not match the program, or a trained step is not
+    /// [`Step::differentiable`].
+    #[track_caller]
+    pub fn backward(
+        &self,
+        vals: &[Array2<f64>],
+        g_out: ArrayView2<f64>,
+        train: &[bool],
+        need_input: bool,
+    ) -> (Vec<Vec<f64>>, Option<Array2<f64>>) {
+        assert_eq!(vals.len(), self.dims.len(), "backward: one value per step");
+        assert_eq!(train.len(), self.instrs.len(), "backward: one flag per step");
+        // needs[v]: a gradient with respect to value v is wanted.
+        let mut needs = vec![false; self.dims.len()];
+        needs[0] = need_input;
+        for (i, ins) in self.instrs.iter().enumerate() {
+            needs[i + 1] = train[i] || ins.inputs.iter().any(|v| needs[v.0]);
+        }
+        let mut grads: Vec<Option<Array2<f64>>> = vec![None; self.dims.len()];
+        grads[self.output.0] = Some(g_out.to_owned());
+        let mut out: Vec<Vec<f64>> = vec![Vec::new(); self.instrs.len()];
+        for (i, ins) in self.instrs.iter().enumerate().rev() {
+            let Some(gy) = grads[i + 1].take() else {
+                continue;
+            };
+            if !needs[i + 1] {
+                continue;
+            }
+            let mut gp = if train[i] {
+                assert!(
+                    ins.step.differentiable(),
+                    "backward: step {} cannot be differentiated",
+                    ins.step.name()
+                );
+                Some(vec![0.0; ins.step.params().len()])
+            } else {
+                None
+            };
+            let need_gx = ins.inputs.iter().any(|v| needs[v.0]);
+            let xs: Vec<ArrayView2<f64>> = ins.inputs.iter().map(|v| vals[v.0].view()).collect();
+            let gxs = ins
+                .step
+                .backward(&xs, vals[i + 1].view(), gy.view(), gp.as_deref_mut(), need_gx);
+            if let Some(gp) = gp {
+                out[i] = gp;
+            }
+            for (v, gx) in ins.inputs.iter().zip(gxs) {
+                if !needs[v.0] {
+                    continue;
+                }
+                match &mut grads[v.0] {
+                    Some(acc) => *acc += &gx,
+                    slot => *slot = Some(gx),
+                }
+            }
+        }
+        let gin = if need_input {
+            Some(
+                grads[0]
+                    .take()
+                    .unwrap_or_else(|| Array2::zeros((g_out.nrows(), self.input_dim))),
+            )
+        } else {
+            None
+        };
+        (out, gin)
+    }
+
+    /// The same program with step `i` replaced by `step`, which must take the same inputs
+    /// and give the same output width (refinement turns a sign diagonal into a continuous
+    /// one, or moves a step's parameters).
+    pub fn with_step(&self, i: usize, step: Step) -> Result<Program> {
+        let ins = self
+            .instrs
+            .get(i)
+            .ok_or_else(|| Error::internal(format!("program has no step {i}")))?;
+        let dims: Vec<usize> = ins.inputs.iter().map(|v| self.dims[v.0]).collect();
+        let out = step
+            .out_dim(&dims)
+            .map_err(|e| Error::internal(format!("step {}: {e}", step.name())))?;
+        if out != self.dims[i + 1] || step.arity() != ins.step.arity() {
+            return Err(Error::internal(format!(
+                "step {} does not fit where step {} was",
+                step.name(),
+                ins.step.name()
+            )));
+        }
+        let mut p = self.clone();
+        p.instrs[i].step = step;
+        Ok(p)
     }
 
     /// Features of one row.

@@ -99,6 +99,37 @@ pub(crate) trait Op: Sized {
         unreachable!("{} takes one input", Self::NAME)
     }
 
+    /// Reverse mode for a chunk of rows (vector–Jacobian products): `xs` are the step's
+    /// inputs (`n × in` each), `y` its output and `gy = ∂L/∂y` (`n × out`). Adds `∂L/∂θ`
+    /// for the step's continuous parameters ([`Op::params`], same order) into `gp` when
+    /// given, and returns `∂L/∂x` for every input when `need_gx` (else nothing).
+    /// Written beside the forward in every step's file; checked against central finite
+    /// differences in `program::tests`.
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>>;
+
+    /// The continuous parameters refinement may move, flattened (none by default).
+    fn params(&self) -> Vec<f64> {
+        Vec::new()
+    }
+
+    /// The step with its parameters replaced by `p` (as many as [`Op::params`] gives).
+    fn with_params(&self, _p: &[f64]) -> Result<Self> {
+        Err(Error::internal(format!("step {} has no parameters", Self::NAME)))
+    }
+
+    /// Whether [`Op::backward`] can differentiate this step (a kernel block whose kernel
+    /// has no derivative in closed form cannot).
+    fn differentiable(&self) -> bool {
+        true
+    }
+
     /// Cost per row for the given input and output widths.
     fn cost(&self, ins: &[usize], out: usize) -> Cost;
 
@@ -272,4 +303,22 @@ pub(crate) fn rows_map(
         );
     }
     y
+}
+
+/// `gy ⊙ f` row by row (`f` one factor per column): the input gradient of a diagonal.
+pub(crate) fn times_columns(gy: ArrayView2<f64>, f: &[f64]) -> Array2<f64> {
+    let mut g = gy.to_owned();
+    for mut r in g.rows_mut() {
+        r.iter_mut().zip(f).for_each(|(v, s)| *v *= s);
+    }
+    g
+}
+
+/// Adds `Σ_rows a ⊙ b` (column sums of the element-wise product) into `out`.
+pub(crate) fn add_column_dots(a: ArrayView2<f64>, b: ArrayView2<f64>, out: &mut [f64]) {
+    for (ra, rb) in a.rows().into_iter().zip(b.rows()) {
+        for ((o, x), y) in out.iter_mut().zip(ra).zip(rb) {
+            *o += x * y;
+        }
+    }
 }

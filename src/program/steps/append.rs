@@ -3,7 +3,7 @@
 
 use crate::program::op::{check_finite, rows_map, Cost, Op, Reader, Writer};
 use crate::Result;
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Append a constant.
 #[derive(Debug, Clone)]
@@ -37,6 +37,19 @@ impl Op for Append {
             b[..n].copy_from_slice(a);
             b[n] = self.c;
         })
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        vec![gy.slice(ndarray::s![.., ..xs[0].ncols()]).to_owned()]
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -20,6 +20,26 @@ impl Op for Concat {
     fn apply_many(&self, xs: &[ArrayView2<f64>]) -> Array2<f64> {
         ndarray::concatenate(Axis(1), xs).expect("inputs have the same rows")
     }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        let mut at = 0;
+        xs.iter()
+            .map(|x| {
+                let w = x.ncols();
+                at += w;
+                gy.slice(ndarray::s![.., at - w..at]).to_owned()
+            })
+            .collect()
+    }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {
             activation_bytes: 16 * out as u64,

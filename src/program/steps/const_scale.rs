@@ -2,7 +2,7 @@
 
 use crate::program::op::{check_finite, Cost, Op, Reader, Writer};
 use crate::Result;
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Constant scale.
 #[derive(Debug, Clone)]
@@ -40,6 +40,20 @@ impl Op for ConstScale {
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         let c = self.c as f32;
         y.iter_mut().zip(x).for_each(|(o, a)| *o = a * c);
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        let _ = xs;
+        if !need_gx {
+            return vec![];
+        }
+        vec![gy.mapv(|v| v * self.c)]
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -3,7 +3,7 @@
 use crate::program::op::{check_finite, one_input, rows_in_place, Cost, Op, Reader, Writer};
 use crate::transform::trig::sin_cos;
 use crate::Result;
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Cosine with phase.
 #[derive(Debug, Clone)]
@@ -42,6 +42,38 @@ impl Op for CosPhase {
                 .zip(&self.phase)
                 .for_each(|(v, b)| *v = c * sin_cos(*v + b).1)
         })
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        // y = c·cos(x + b): ∂y/∂x = ∂y/∂b = −c·sin(x + b).
+        let c = self.c;
+        let mut g = Array2::<f64>::zeros(gy.dim());
+        for ((mut gr, xr), gyr) in g.rows_mut().into_iter().zip(xs[0].rows()).zip(gy.rows()) {
+            for j in 0..gr.len() {
+                gr[j] = -c * sin_cos(xr[j] + self.phase[j]).0 * gyr[j];
+            }
+        }
+        if let Some(gp) = gp {
+            for r in g.rows() {
+                gp.iter_mut().zip(r).for_each(|(o, v)| *o += v);
+            }
+        }
+        if !need_gx {
+            return vec![];
+        }
+        vec![g]
+    }
+    fn params(&self) -> Vec<f64> {
+        self.phase.clone()
+    }
+    fn with_params(&self, p: &[f64]) -> Result<Self> {
+        CosPhase::new(p.to_vec(), self.c)
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {

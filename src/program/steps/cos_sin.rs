@@ -3,7 +3,7 @@
 use crate::program::op::{check_finite, rows_map, Cost, Op, Reader, Writer};
 use crate::transform::trig::{scaled_sin_cos, scaled_sin_cos_f32};
 use crate::Result;
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Paired cosine and sine.
 #[derive(Debug, Clone)]
@@ -43,6 +43,28 @@ impl Op for CosSin {
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         let (co, so) = y.split_at_mut(x.len());
         scaled_sin_cos_f32(x, self.c as f32, co, so);
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        let _ = xs;
+        if !need_gx {
+            return vec![];
+        }
+        // y = c[cos x, sin x]: ∂cos/∂x = −sin = −y_sin/c·c, ∂sin/∂x = cos.
+        let m = y.ncols() / 2;
+        let mut g = Array2::<f64>::zeros((y.nrows(), m));
+        for ((mut gr, yr), gyr) in g.rows_mut().into_iter().zip(y.rows()).zip(gy.rows()) {
+            for j in 0..m {
+                gr[j] = gyr[m + j] * yr[j] - gyr[j] * yr[m + j];
+            }
+        }
+        vec![g]
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -5,7 +5,7 @@
 
 use crate::program::op::{log2_ceil, rows_map, Cost, Op, Reader, Writer};
 use crate::{Error, Result};
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 use rustfft::num_complex::Complex;
 use rustfft::Fft;
 use std::sync::Arc;
@@ -122,6 +122,62 @@ impl Op for CountSketchFft {
             self.inv.process_with_scratch(&mut acc, &mut scratch);
             y.iter_mut().zip(&acc).for_each(|(o, c)| *o = c.re * inv_n);
         })
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        // y = s₁ ⊛ … ⊛ s_p (circular convolution of the count sketches s_k = C_k x), so
+        // ∂L/∂s_k is the circular cross-correlation of ∂L/∂y with the convolution of the
+        // other sketches: IFFT(FFT(gy) · conj(Π_{j≠k} FFT(s_j))) / D; then ∂L/∂x_i =
+        // Σ_k σ_k(i) · (∂L/∂s_k)[h_k(i)].
+        let (out, p) = (self.out, self.hash.len());
+        let zero = Complex::new(0.0, 0.0);
+        let mut scratch = vec![
+            zero;
+            self.fwd
+                .get_inplace_scratch_len()
+                .max(self.inv.get_inplace_scratch_len())
+        ];
+        let inv_n = 1.0 / out as f64;
+        let mut spectra = vec![vec![zero; out]; p];
+        let mut gf = vec![zero; out];
+        let mut buf = vec![zero; out];
+        let mut g = Array2::<f64>::zeros(xs[0].dim());
+        for ((mut gr, xr), gyr) in g.rows_mut().into_iter().zip(xs[0].rows()).zip(gy.rows()) {
+            for ((spec, h), s) in spectra.iter_mut().zip(&self.hash).zip(&self.sign) {
+                spec.iter_mut().for_each(|c| *c = zero);
+                for ((v, b), sg) in xr.iter().zip(h).zip(s) {
+                    spec[*b as usize].re += *sg as f64 * v;
+                }
+                self.fwd.process_with_scratch(spec, &mut scratch);
+            }
+            gf.iter_mut().zip(gyr).for_each(|(c, v)| *c = Complex::new(*v, 0.0));
+            self.fwd.process_with_scratch(&mut gf, &mut scratch);
+            for k in 0..p {
+                for (f, b) in buf.iter_mut().enumerate() {
+                    let mut prod = Complex::new(1.0, 0.0);
+                    for (j, spec) in spectra.iter().enumerate() {
+                        if j != k {
+                            prod *= spec[f];
+                        }
+                    }
+                    *b = gf[f] * prod.conj();
+                }
+                self.inv.process_with_scratch(&mut buf, &mut scratch);
+                for ((o, b), sg) in gr.iter_mut().zip(&self.hash[k]).zip(&self.sign[k]) {
+                    *o += *sg as f64 * buf[*b as usize].re * inv_n;
+                }
+            }
+        }
+        vec![g]
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         let p = self.hash.len() as u64;

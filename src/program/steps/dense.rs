@@ -3,7 +3,7 @@
 use crate::linalg;
 use crate::program::op::{Cost, Op, Reader, Writer};
 use crate::{Error, Result};
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Dense projection.
 #[derive(Debug, Clone)]
@@ -44,6 +44,30 @@ impl Op for Dense {
     }
     fn apply(&self, x: Array2<f64>) -> Array2<f64> {
         linalg::abt_seq(x.view(), self.w.view())
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        // y = x Wᵀ: ∂L/∂W = gyᵀ x, ∂L/∂x = gy W.
+        if let Some(gp) = gp {
+            let gw = linalg::ab_seq(gy.t(), xs[0]);
+            gp.iter_mut().zip(gw.iter()).for_each(|(o, v)| *o += v);
+        }
+        if !need_gx {
+            return vec![];
+        }
+        vec![linalg::ab_seq(gy, self.w.view())]
+    }
+    fn params(&self) -> Vec<f64> {
+        self.w.iter().copied().collect()
+    }
+    fn with_params(&self, p: &[f64]) -> Result<Self> {
+        Dense::new(Array2::from_shape_vec(self.w.dim(), p.to_vec()).map_err(|e| Error::internal(e.to_string()))?)
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -2,7 +2,7 @@
 
 use crate::program::op::{rows_map, Cost, Op, Reader, Writer};
 use crate::{Error, Result};
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Index selection.
 #[derive(Debug, Clone)]
@@ -66,6 +66,26 @@ impl Op for Gather {
         crate::transform::gather::check(level, x.len(), self.idx.len(), y.len(), self.top);
         // SAFETY: checked just above.
         unsafe { crate::transform::gather::gather_unchecked(level, x, &self.idx, y) }
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        // Scatter-add: a repeated index collects every copy's gradient.
+        let mut g = Array2::<f64>::zeros((gy.nrows(), xs[0].ncols()));
+        for (mut gr, yr) in g.rows_mut().into_iter().zip(gy.rows()) {
+            for (v, i) in yr.iter().zip(&self.idx) {
+                gr[*i as usize] += v;
+            }
+        }
+        vec![g]
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

@@ -3,7 +3,7 @@
 
 use crate::program::op::{rows_map, Cost, Op, Reader, Writer};
 use crate::{Error, Result};
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Zero-pad.
 #[derive(Debug, Clone)]
@@ -47,6 +47,19 @@ impl Op for Pad {
         let n = x.len();
         y[..n].copy_from_slice(x);
         y[n..].iter_mut().for_each(|o| *o = 0.0);
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        vec![gy.slice(ndarray::s![.., ..xs[0].ncols()]).to_owned()]
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

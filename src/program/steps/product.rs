@@ -37,6 +37,42 @@ impl Op for Product {
         }
         acc
     }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        // ∂y/∂x_k = Π_{j≠k} x_j; a width-1 input is broadcast, so its gradient sums the row.
+        let w = gy.ncols();
+        (0..xs.len())
+            .map(|k| {
+                let mut others = gy.to_owned();
+                for (j, x) in xs.iter().enumerate() {
+                    if j == k {
+                        continue;
+                    }
+                    if x.ncols() == w {
+                        others *= x;
+                    } else {
+                        for (mut a, f) in others.rows_mut().into_iter().zip(x.column(0)) {
+                            a.mapv_inplace(|v| v * f);
+                        }
+                    }
+                }
+                if xs[k].ncols() == w {
+                    others
+                } else {
+                    others.sum_axis(ndarray::Axis(1)).insert_axis(ndarray::Axis(1))
+                }
+            })
+            .collect()
+    }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         let k = ins.len() as u64;
         Cost {

@@ -3,7 +3,7 @@
 
 use crate::program::op::{Cost, Op, Reader, Writer};
 use crate::Result;
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// `max(0, x)`.
 #[derive(Debug, Clone)]
@@ -37,6 +37,26 @@ impl Op for Relu {
         x.mapv_inplace(|v| if v > 0.0 { v } else { 0.0 });
         x
     }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        // The derivative 1[x > 0] (taken as 0 at the kink).
+        let mut g = gy.to_owned();
+        g.zip_mut_with(&xs[0], |v, x| {
+            if *x <= 0.0 {
+                *v = 0.0
+            }
+        });
+        vec![g]
+    }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         cost(out)
     }
@@ -57,6 +77,20 @@ impl Op for Heaviside {
     fn apply(&self, mut x: Array2<f64>) -> Array2<f64> {
         x.mapv_inplace(|v| if v > 0.0 { 1.0 } else { 0.0 });
         x
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        _gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        // Piecewise constant: the derivative is zero wherever it exists.
+        vec![Array2::zeros(xs[0].dim())]
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         cost(out)

@@ -1,9 +1,9 @@
 //! `scale`: per-dimension scaling `y_j = s_j · x_j` (a kernel's inverse lengthscales, a
 //! diagonal of Fastfood, a method's per-feature coefficients).
 
-use crate::program::op::{check_finite, one_input, rows_in_place, Cost, Op, Reader, Writer};
+use crate::program::op::{check_finite, one_input, rows_in_place, Cost, Op, Reader, Writer, add_column_dots, times_columns};
 use crate::Result;
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Per-dimension scale.
 #[derive(Debug, Clone)]
@@ -41,6 +41,28 @@ impl Op for Scale {
         for ((o, a), s) in y.iter_mut().zip(x).zip(&self.s32) {
             *o = a * s;
         }
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if let Some(gp) = gp {
+            add_column_dots(gy, xs[0], gp);
+        }
+        if !need_gx {
+            return vec![];
+        }
+        vec![times_columns(gy, &self.s)]
+    }
+    fn params(&self) -> Vec<f64> {
+        self.s.clone()
+    }
+    fn with_params(&self, p: &[f64]) -> Result<Self> {
+        Scale::new(p.to_vec())
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {

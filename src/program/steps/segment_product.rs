@@ -3,7 +3,7 @@
 
 use crate::program::op::{rows_map, Cost, Op, Reader, Writer};
 use crate::{Error, Result};
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Segment products.
 #[derive(Debug, Clone)]
@@ -48,6 +48,32 @@ impl Op for SegmentProduct {
                 at += l;
             }
         })
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        // ∂y_s/∂x_t = Π_{u ∈ s, u ≠ t} x_u (products without division, so zeros are exact).
+        let mut g = Array2::<f64>::zeros(xs[0].dim());
+        for ((mut gr, xr), gyr) in g.rows_mut().into_iter().zip(xs[0].rows()).zip(gy.rows()) {
+            let mut at = 0;
+            for (s, l) in self.lens.iter().enumerate() {
+                let l = *l as usize;
+                for t in at..at + l {
+                    let p: f64 = (at..at + l).filter(|u| *u != t).map(|u| xr[u]).product();
+                    gr[t] = gyr[s] * p;
+                }
+                at += l;
+            }
+        }
+        vec![g]
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

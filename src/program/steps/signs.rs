@@ -1,8 +1,8 @@
 //! `signs`: a ±1 diagonal, `y_j = s_j · x_j` (stored as int8).
 
-use crate::program::op::{one_input, rows_in_place, Cost, Op, Reader, Writer};
+use crate::program::op::{one_input, rows_in_place, Cost, Op, Reader, Writer, times_columns};
 use crate::{Error, Result};
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Sign flips.
 #[derive(Debug, Clone)]
@@ -44,6 +44,20 @@ impl Op for Signs {
         for ((o, a), s) in y.iter_mut().zip(x).zip(&self.s) {
             *o = a * *s as f32;
         }
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        let _ = xs;
+        if !need_gx {
+            return vec![];
+        }
+        vec![times_columns(gy, &self.f)]
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {

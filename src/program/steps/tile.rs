@@ -3,7 +3,7 @@
 
 use crate::program::op::{rows_map, Cost, Op, Reader, Writer};
 use crate::{Error, Result};
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Repeat the input.
 #[derive(Debug, Clone)]
@@ -49,6 +49,25 @@ impl Op for Tile {
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         y.chunks_exact_mut(x.len().max(1))
             .for_each(|c| c.copy_from_slice(x));
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        if !need_gx {
+            return vec![];
+        }
+        // Every copy of an input column receives its gradient: the sum over copies.
+        let n = xs[0].ncols();
+        let mut g = Array2::<f64>::zeros((gy.nrows(), n));
+        for c in 0..self.copies {
+            g += &gy.slice(ndarray::s![.., c * n..(c + 1) * n]);
+        }
+        vec![g]
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

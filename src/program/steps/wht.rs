@@ -4,7 +4,7 @@
 use crate::program::op::{log2_ceil, rows_in_place, Cost, Op, Reader, Writer};
 use crate::transform::wht_in_place;
 use crate::{Error, Result};
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 /// Blockwise Walsh–Hadamard transform.
 #[derive(Debug, Clone)]
@@ -54,6 +54,23 @@ impl Op for Wht {
     #[inline(always)]
     fn apply_row32_in_place(&self, x: &mut [f32]) {
         x.chunks_exact_mut(self.block).for_each(wht_in_place);
+    }
+    fn backward(
+        &self,
+        xs: &[ArrayView2<f64>],
+        _y: ArrayView2<f64>,
+        gy: ArrayView2<f64>,
+        _gp: Option<&mut [f64]>,
+        need_gx: bool,
+    ) -> Vec<Array2<f64>> {
+        let _ = xs;
+        if !need_gx {
+            return vec![];
+        }
+        // The Walsh–Hadamard matrix is symmetric: its transpose is itself.
+        let b = self.block;
+        let g = gy.as_standard_layout().into_owned();
+        vec![rows_in_place(g, |r| r.chunks_exact_mut(b).for_each(wht_in_place))]
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {
