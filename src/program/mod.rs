@@ -473,7 +473,11 @@ impl Program {
         need_input: bool,
     ) -> (Vec<Vec<f64>>, Option<Array2<f64>>) {
         assert_eq!(vals.len(), self.dims.len(), "backward: one value per step");
-        assert_eq!(train.len(), self.instrs.len(), "backward: one flag per step");
+        assert_eq!(
+            train.len(),
+            self.instrs.len(),
+            "backward: one flag per step"
+        );
         // needs[v]: a gradient with respect to value v is wanted.
         let mut needs = vec![false; self.dims.len()];
         needs[0] = need_input;
@@ -502,9 +506,13 @@ impl Program {
             };
             let need_gx = ins.inputs.iter().any(|v| needs[v.0]);
             let xs: Vec<ArrayView2<f64>> = ins.inputs.iter().map(|v| vals[v.0].view()).collect();
-            let gxs = ins
-                .step
-                .backward(&xs, vals[i + 1].view(), gy.view(), gp.as_deref_mut(), need_gx);
+            let gxs = ins.step.backward(
+                &xs,
+                vals[i + 1].view(),
+                gy.view(),
+                gp.as_deref_mut(),
+                need_gx,
+            );
             if let Some(gp) = gp {
                 out[i] = gp;
             }

@@ -121,7 +121,10 @@ pub(crate) trait Op: Sized {
 
     /// The step with its parameters replaced by `p` (as many as [`Op::params`] gives).
     fn with_params(&self, _p: &[f64]) -> Result<Self> {
-        Err(Error::internal(format!("step {} has no parameters", Self::NAME)))
+        Err(Error::internal(format!(
+            "step {} has no parameters",
+            Self::NAME
+        )))
     }
 
     /// Whether [`Op::backward`] can differentiate this step (a kernel block whose kernel

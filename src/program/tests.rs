@@ -229,3 +229,235 @@ fn only_steps_that_stream_parameters_are_called_memory_bound() {
     assert!(!lines[0].contains("memory-bound"), "{}", lines[0]);
     assert!(lines[2].contains("memory-bound"), "{}", lines[2]);
 }
+
+// ---- Reverse mode against central finite differences (f64) ----
+
+use crate::features::{FeatureSpec, Method};
+use rand::{RngExt, SeedableRng};
+
+/// `L = Σ r ⊙ program(x)`: a fixed random weighting of the outputs.
+fn loss(p: &Program, x: &Array2<f64>, r: &Array2<f64>) -> f64 {
+    (&p.apply_chunk(x.view()) * r).sum()
+}
+
+/// The largest disagreement between the reverse-mode gradient (input and every step's
+/// parameters, a spread of entries each) and central differences, relative to
+/// `1 + |gradient|`. `fault` moves one analytic entry by 1% of `1 + |entry|`, to show a wrong gradient is
+/// caught.
+fn fd_disagreement(p: &Program, x: &Array2<f64>, fault: bool) -> f64 {
+    let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(7);
+    let out = p.apply_chunk(x.view());
+    let r = Array2::from_shape_simple_fn(out.dim(), || rng.random::<f64>() - 0.5);
+    let train: Vec<bool> = p
+        .instrs()
+        .iter()
+        .map(|i| !i.step.params().is_empty())
+        .collect();
+    let vals = p.forward_all(x.view());
+    assert_eq!(
+        vals.last().unwrap(),
+        &out,
+        "forward_all computes what apply_chunk does"
+    );
+    let (mut gp, gx) = p.backward(&vals, r.view(), &train, true);
+    let mut gx = gx.unwrap();
+    if fault {
+        // The fault goes where the check will look: the input's first entry, or the first
+        // trained step's first parameter.
+        match train.iter().position(|t| *t) {
+            Some(i) => gp[i][0] += 0.01 * (1.0 + gp[i][0].abs()),
+            None => gx[[0, 0]] += 0.01 * (1.0 + gx[[0, 0]].abs()),
+        }
+    }
+    let h = 1e-6;
+    let mut worst: f64 = 0.0;
+    let mut cmp = |an: f64, fd: f64| worst = worst.max((an - fd).abs() / (1.0 + an.abs()));
+    // Input entries.
+    for (i, j) in [
+        (0, 0),
+        (x.nrows() - 1, x.ncols() - 1),
+        (1 % x.nrows(), x.ncols() / 2),
+    ] {
+        let (mut a, mut b) = (x.clone(), x.clone());
+        a[[i, j]] += h;
+        b[[i, j]] -= h;
+        cmp(gx[[i, j]], (loss(p, &a, &r) - loss(p, &b, &r)) / (2.0 * h));
+    }
+    // Parameters of every trained step: the first, the last and a few between.
+    for (s, ins) in p.instrs().iter().enumerate() {
+        if !train[s] {
+            continue;
+        }
+        let theta = ins.step.params();
+        let n = theta.len();
+        for k in [0, n / 3, n / 2, n - 1] {
+            let (mut a, mut b) = (theta.clone(), theta.clone());
+            a[k] += h;
+            b[k] -= h;
+            let pa = p.with_step(s, ins.step.with_params(&a).unwrap()).unwrap();
+            let pb = p.with_step(s, ins.step.with_params(&b).unwrap()).unwrap();
+            cmp(gp[s][k], (loss(&pa, x, &r) - loss(&pb, x, &r)) / (2.0 * h));
+        }
+    }
+    worst
+}
+
+fn check_gradients(p: &Program, x: &Array2<f64>, what: &str) {
+    let e = fd_disagreement(p, x, false);
+    assert!(
+        e < 2e-6,
+        "{what}: reverse mode differs from finite differences by {e:.2e}"
+    );
+    // The same check catches a gradient that is off by 1%.
+    let e = fd_disagreement(p, x, true);
+    assert!(
+        e > 1e-4,
+        "{what}: an injected 1% fault went unnoticed ({e:.2e})"
+    );
+}
+
+fn rows(n: usize, d: usize, seed: u64) -> Array2<f64> {
+    let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(seed);
+    Array2::from_shape_simple_fn((n, d), || rng.random::<f64>() * 2.0 - 1.0)
+}
+
+fn one_step(step: impl Into<Step>, x: &Array2<f64>) -> Program {
+    let mut b = Builder::new(x.ncols());
+    let v = b.push(step, &[Builder::INPUT]).unwrap();
+    b.finish(v)
+}
+
+#[test]
+fn every_step_backward_matches_finite_differences() {
+    let x = rows(3, 4, 1);
+    let k = |s: &str| -> crate::kernel::Kernel { s.parse().unwrap() };
+    let unary: Vec<(&str, Step)> = vec![
+        (
+            "scale",
+            steps::Scale::new(vec![0.5, -1.5, 2.0, 0.3]).unwrap().into(),
+        ),
+        ("times", steps::ConstScale::new(1.7).unwrap().into()),
+        ("pad", steps::Pad::new(6).unwrap().into()),
+        ("tile", steps::Tile::new(3).unwrap().into()),
+        (
+            "signs",
+            steps::Signs::new(vec![1, -1, -1, 1]).unwrap().into(),
+        ),
+        ("wht", steps::Wht::new(4).unwrap().into()),
+        (
+            "gather",
+            steps::Gather::new(vec![3, 0, 0, 2, 1]).unwrap().into(),
+        ),
+        ("dense", steps::Dense::new(rows(5, 4, 2)).unwrap().into()),
+        ("cos_sin", steps::CosSin::new(0.7).unwrap().into()),
+        (
+            "cos_phase",
+            steps::CosPhase::new(vec![0.1, 2.0, -1.0, 4.0], 1.3)
+                .unwrap()
+                .into(),
+        ),
+        ("relu", steps::Relu.into()),
+        ("append", steps::Append::new(0.5).unwrap().into()),
+        (
+            "segment_product",
+            steps::SegmentProduct::new(vec![1, 3]).unwrap().into(),
+        ),
+        (
+            "count_sketch_fft",
+            steps::CountSketchFft::new(
+                5,
+                vec![vec![0, 3, 1, 4], vec![2, 2, 0, 1]],
+                vec![vec![1, -1, 1, 1], vec![-1, 1, 1, -1]],
+            )
+            .unwrap()
+            .into(),
+        ),
+    ];
+    for (name, step) in unary {
+        check_gradients(&one_step(step, &x), &x, name);
+    }
+    for kern in [
+        "gaussian(gamma=0.7)",
+        "laplacian(gamma=0.4)",
+        "matern(nu=0.5, lengthscale=1.3)",
+        "matern(nu=1.5, lengthscale=0.9)",
+        "matern(nu=2.5, lengthscale=1.1)",
+        "rational_quadratic(alpha=0.8, lengthscale=1.2)",
+        "polynomial(degree=3, gamma=0.5, offset=1)",
+        "sigmoid(gamma=0.3, offset=-0.2)",
+        "linear()",
+        "gaussian(gamma=0.5) + 2 * polynomial(degree=2, gamma=1, offset=0.5)",
+        "gaussian(gamma=0.5) * laplacian(gamma=0.3)",
+    ] {
+        let l = rows(5, 4, 3);
+        check_gradients(
+            &one_step(steps::KernelBlock::new(k(kern), l).unwrap(), &x),
+            &x,
+            &format!("kernel_block {kern}"),
+        );
+    }
+    // Steps with several inputs, and a value read twice (gradients add up).
+    let mut b = Builder::new(4);
+    let a = b
+        .push(steps::Dense::new(rows(3, 4, 4)).unwrap(), &[Builder::INPUT])
+        .unwrap();
+    let c = b
+        .push(steps::Dense::new(rows(3, 4, 5)).unwrap(), &[Builder::INPUT])
+        .unwrap();
+    let one = b
+        .push(steps::Dense::new(rows(1, 4, 6)).unwrap(), &[Builder::INPUT])
+        .unwrap();
+    let pr = b.push(steps::Product, &[a, c, one]).unwrap();
+    let cat = b.push(steps::Concat, &[pr, a]).unwrap();
+    check_gradients(&b.finish(cat), &x, "product and concat");
+}
+
+#[test]
+fn heaviside_has_a_zero_gradient() {
+    let x = rows(2, 3, 9);
+    let p = one_step(steps::Heaviside, &x);
+    let vals = p.forward_all(x.view());
+    let g = Array2::ones((2, 3));
+    let (_, gx) = p.backward(&vals, g.view(), &[false], true);
+    assert!(gx.unwrap().iter().all(|v| *v == 0.0));
+}
+
+#[test]
+fn every_method_program_backward_matches_finite_differences() {
+    let cases: &[(&str, Method, usize)] = &[
+        ("gaussian(gamma=0.3)", Method::Fourier, 12),
+        ("matern(nu=2.5, lengthscale=1.5)", Method::Orthogonal, 12),
+        ("gaussian(gamma=0.3)", Method::Hadamard, 16),
+        ("gaussian(gamma=0.3)", Method::Fastfood, 10),
+        (
+            "rational_quadratic(alpha=1.5, lengthscale=1.0)",
+            Method::Quasi,
+            12,
+        ),
+        ("gaussian(gamma=0.3)", Method::Nystrom, 6),
+        (
+            "polynomial(degree=2, gamma=0.5, offset=1)",
+            Method::Maclaurin,
+            12,
+        ),
+        (
+            "polynomial(degree=2, gamma=0.5, offset=1)",
+            Method::TensorSketch,
+            8,
+        ),
+        ("gaussian(gamma=0.3)", Method::parse("taylor").unwrap(), 15),
+        ("arccos(order=1)", Method::Relu, 8),
+        (
+            "gaussian(gamma=0.3) * laplacian(gamma=0.2) + linear()",
+            Method::Fourier,
+            20,
+        ),
+    ];
+    let x = rows(4, 4, 11);
+    for (kern, method, features) in cases {
+        let spec = FeatureSpec::new(kern.parse().unwrap(), *method, 4, *features, 5);
+        let data = rows(40, 4, 12);
+        let (map, _) = spec.sample(Some(data.view())).unwrap();
+        check_gradients(&map.program, &x, &format!("{method:?} on {kern}"));
+    }
+}

@@ -159,7 +159,9 @@ impl Op for CountSketchFft {
                 }
                 self.fwd.process_with_scratch(spec, &mut scratch);
             }
-            gf.iter_mut().zip(gyr).for_each(|(c, v)| *c = Complex::new(*v, 0.0));
+            gf.iter_mut()
+                .zip(gyr)
+                .for_each(|(c, v)| *c = Complex::new(*v, 0.0));
             self.fwd.process_with_scratch(&mut gf, &mut scratch);
             for k in 0..p {
                 for (f, b) in buf.iter_mut().enumerate() {

@@ -67,7 +67,10 @@ impl Op for Dense {
         self.w.iter().copied().collect()
     }
     fn with_params(&self, p: &[f64]) -> Result<Self> {
-        Dense::new(Array2::from_shape_vec(self.w.dim(), p.to_vec()).map_err(|e| Error::internal(e.to_string()))?)
+        Dense::new(
+            Array2::from_shape_vec(self.w.dim(), p.to_vec())
+                .map_err(|e| Error::internal(e.to_string()))?,
+        )
     }
     fn cost(&self, ins: &[usize], out: usize) -> Cost {
         Cost {

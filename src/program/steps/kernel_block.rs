@@ -2,9 +2,9 @@
 //! features; `k(x, 0)` for Gaussian envelopes).
 
 use crate::kernel::{Kernel, Prepared};
+use crate::linalg;
 use crate::program::op::{Cost, Op, Reader, Writer};
 use crate::{Error, Result};
-use crate::linalg;
 use ndarray::{Array2, ArrayView2, Axis};
 
 /// Kernel block against landmarks.
@@ -106,7 +106,13 @@ impl Op for KernelBlock {
             let cl = linalg::ab_seq(c.view(), l);
             let rs = c.sum_axis(Axis(1));
             let mut g = Array2::<f64>::zeros(x.dim());
-            for (i, ((mut gr, xr), clr)) in g.rows_mut().into_iter().zip(x.rows()).zip(cl.rows()).enumerate() {
+            for (i, ((mut gr, xr), clr)) in g
+                .rows_mut()
+                .into_iter()
+                .zip(x.rows())
+                .zip(cl.rows())
+                .enumerate()
+            {
                 for j in 0..d {
                     gr[j] = 2.0 * s2[j] * (rs[i] * xr[j] - clr[j]);
                 }
@@ -115,7 +121,9 @@ impl Op for KernelBlock {
         }
         if k.dot_profile_deriv(0.0).is_some() {
             let mut c = linalg::abt_seq(x, l);
-            c.zip_mut_with(&gy, |v, g| *v = g * k.dot_profile_deriv(*v).expect("dot kernel"));
+            c.zip_mut_with(&gy, |v, g| {
+                *v = g * k.dot_profile_deriv(*v).expect("dot kernel")
+            });
             if let Some(gp) = gp {
                 let gl = linalg::ab_seq(c.t(), x);
                 gp.iter_mut().zip(gl.iter()).for_each(|(o, v)| *o += v);

@@ -68,7 +68,9 @@ impl Op for Product {
                 if xs[k].ncols() == w {
                     others
                 } else {
-                    others.sum_axis(ndarray::Axis(1)).insert_axis(ndarray::Axis(1))
+                    others
+                        .sum_axis(ndarray::Axis(1))
+                        .insert_axis(ndarray::Axis(1))
                 }
             })
             .collect()

@@ -1,7 +1,10 @@
 //! `scale`: per-dimension scaling `y_j = s_j · x_j` (a kernel's inverse lengthscales, a
 //! diagonal of Fastfood, a method's per-feature coefficients).
 
-use crate::program::op::{check_finite, one_input, rows_in_place, Cost, Op, Reader, Writer, add_column_dots, times_columns};
+use crate::program::op::{
+    add_column_dots, check_finite, one_input, rows_in_place, times_columns, Cost, Op, Reader,
+    Writer,
+};
 use crate::Result;
 use ndarray::{Array2, ArrayView2};
 

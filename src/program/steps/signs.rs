@@ -1,6 +1,6 @@
 //! `signs`: a ±1 diagonal, `y_j = s_j · x_j` (stored as int8).
 
-use crate::program::op::{one_input, rows_in_place, Cost, Op, Reader, Writer, times_columns};
+use crate::program::op::{one_input, rows_in_place, times_columns, Cost, Op, Reader, Writer};
 use crate::{Error, Result};
 use ndarray::{Array2, ArrayView2};
 

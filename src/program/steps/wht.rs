@@ -70,7 +70,9 @@ impl Op for Wht {
         // The Walsh–Hadamard matrix is symmetric: its transpose is itself.
         let b = self.block;
         let g = gy.as_standard_layout().into_owned();
-        vec![rows_in_place(g, |r| r.chunks_exact_mut(b).for_each(wht_in_place))]
+        vec![rows_in_place(g, |r| {
+            r.chunks_exact_mut(b).for_each(wht_in_place)
+        })]
     }
     fn cost(&self, _ins: &[usize], out: usize) -> Cost {
         Cost {
