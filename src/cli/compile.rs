@@ -6,8 +6,8 @@ use clap::ValueEnum;
 use kernelpress::choose::{search, Budget, Choice, SearchOptions};
 use kernelpress::data::{check_batch, read_table, write_all_atomic};
 use kernelpress::fit::{
-    audit_row, audit_rows, compile_exact, compile_exact_tuned, compile_labels, HeadKind, RidgeGrid,
-    Teacher,
+    audit_row, audit_rows, compile_exact, compile_exact_tuned, compile_labels, HeadKind,
+    RefineOptions, RidgeGrid, Teacher,
 };
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
@@ -135,6 +135,17 @@ pub(crate) struct Args {
     /// best on the ridge-choice rows (three distillations).
     #[arg(long)]
     no_bandwidth_search: bool,
+    /// Refine the map against the exact model for up to N passes over the calibration
+    /// rows: Nyström landmarks, spectral frequencies, phases and input scales, and the
+    /// diagonals of Hadamard and Fastfood maps move by gradient descent on the squared
+    /// decision error; the head is refitted after each pass and the best pass on the
+    /// ridge-choice rows is kept (the audit rows are never used). Same program shape and
+    /// cost. See docs/refining.md.
+    #[arg(long, value_name = "N")]
+    refine: Option<usize>,
+    /// Refinement step size, relative to each parameter tensor's size.
+    #[arg(long, value_name = "R", requires = "refine")]
+    refine_rate: Option<f64>,
     /// Budget search: measure this machine again instead of using the cached profile.
     #[arg(long)]
     recalibrate: bool,
@@ -313,7 +324,27 @@ pub(crate) fn run(a: Args) -> Result<()> {
         Head::Distill => HeadKind::Distill,
         Head::Project => HeadKind::Project,
     };
+    let refine = match a.refine {
+        Some(n) => {
+            let mut o = RefineOptions::new(n)
+                .map_err(|e| Error::input(format!("--refine {n}: {}", e.message())))?;
+            if let Some(r) = a.refine_rate {
+                o.rate = r;
+                o = o
+                    .checked()
+                    .map_err(|e| Error::input(format!("--refine-rate {r}: {}", e.message())))?;
+            }
+            if kind != HeadKind::Distill {
+                return Err(Error::input("--refine moves the map against the exact model's decisions: it needs --head distill and --calib"));
+            }
+            Some(o)
+        }
+        None => None,
+    };
     if a.budget_us.is_some() || a.max_bytes.is_some() || a.max_disagreement.is_some() {
+        if refine.is_some() {
+            return Err(Error::input("the budget search does not refine its candidates yet: compile the chosen method and size with --method, --features and --refine"));
+        }
         return run_budget(&a, &exact, calib, &grid);
     }
     if !a.methods.is_empty() {
@@ -364,8 +395,27 @@ pub(crate) fn run(a: Args) -> Result<()> {
     for n in &info.notes {
         super::progress::warn(n);
     }
-    warn_fit_notes(&model);
     let mut model = model;
+    if let (Some(o), Some(c)) = (&refine, &calib) {
+        let teacher = Teacher::new(&exact, c.x.view(), &bars)?;
+        let spec = model.spec().clone();
+        let (m, _, sum) =
+            teacher.distil_refined(&spec, &grid, lm.as_ref().map(|l| l.view()), o, &bars)?;
+        super::progress::note(format!(
+            "refined {} in {} pass{} (kept pass {}): agreement on the audit rows {:.4} → {:.4}, ridge-choice error {:.3e} → {:.3e}, {:.1} s",
+            sum.trained.join(", "),
+            sum.passes_run,
+            if sum.passes_run == 1 { "" } else { "es" },
+            sum.best_pass,
+            sum.audit_agreement.0,
+            sum.audit_agreement.1,
+            sum.choose_mse.0,
+            sum.choose_mse.1,
+            sum.seconds
+        ));
+        model = m;
+    }
+    warn_fit_notes(&model);
     if let Some(Some(y)) = calib.as_ref().map(|c| c.target.as_ref()) {
         if model.task().is_classifier() {
             // Probabilities are an extra: when the labels cannot support them (a class
@@ -887,6 +937,11 @@ fn discard(text: &mut String, a: &Args, why: &str) -> Result<()> {
 /// and fit).
 fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
     use kernelpress::fit::shard::ShardStats;
+    if a.refine.is_some() {
+        return Err(Error::input(
+            "a sharded distillation does not refine yet: refine in one process (compile MODEL --calib FILE --refine N)",
+        ));
+    }
     if a.budget_or_guard() || a.map.landmarks.is_some() || !matches!(a.head, Head::Distill) {
         return Err(Error::input(
             "a sharded distillation (--stats-out, --from-stats) takes --method and --features with the standard settings: drop the budget, guard, --landmarks and --head flags",
@@ -981,7 +1036,11 @@ fn try_streamed(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<Option
     let (Some(path), Head::Distill) = (&a.calib, a.head) else {
         return Ok(None);
     };
-    if a.budget_or_guard() || a.map.landmarks.is_some() || !a.methods.is_empty() {
+    if a.budget_or_guard()
+        || a.map.landmarks.is_some()
+        || !a.methods.is_empty()
+        || a.refine.is_some()
+    {
         return Ok(None);
     }
     let spec = a.map.spec(exact.kernel().clone(), exact.input_dim())?;

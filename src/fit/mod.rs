@@ -24,7 +24,10 @@
 //! ```
 
 mod compile;
+mod refine;
 pub mod shard;
+
+pub use refine::{RefineOptions, RefineSummary};
 
 pub use compile::{
     audit_row, audit_rows, check_statistics_memory, compile_exact, compile_exact_tuned,

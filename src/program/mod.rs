@@ -562,6 +562,24 @@ impl Program {
         Ok(p)
     }
 
+    /// Replaces step `i`'s parameters in place (as many as [`Step::params`] gives).
+    pub fn set_params(&mut self, i: usize, p: &[f64]) -> Result<()> {
+        let ins = self
+            .instrs
+            .get_mut(i)
+            .ok_or_else(|| Error::internal(format!("program has no step {i}")))?;
+        if ins.step.params().len() != p.len() {
+            return Err(Error::internal(format!(
+                "step {} takes {} parameters, got {}",
+                ins.step.name(),
+                ins.step.params().len(),
+                p.len()
+            )));
+        }
+        ins.step = ins.step.with_params(p)?;
+        Ok(())
+    }
+
     /// Features of one row.
     pub fn apply_one(&self, x: &[f64]) -> Vec<f64> {
         let row = ArrayView2::from_shape((1, x.len()), x).expect("one row");

@@ -179,6 +179,10 @@ pub struct Report {
     /// labels): how well they are calibrated on the evaluation rows.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub probabilities: Option<ProbabilityQuality>,
+    /// Refinement (`compile --refine`): passes run and kept, the ridge-choice error and
+    /// the audit-row agreement before and after, what moved, seconds.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub refine: Option<serde_json::Value>,
     /// Warnings for the user.
     pub warnings: Vec<String>,
     /// Which rows the figures were computed on.
@@ -542,6 +546,7 @@ pub fn build(
         exact_work_share: None,
         stage_agreement: None,
         probabilities: None,
+        refine: compiled.fit.get("refine").cloned(),
         warnings: Vec::new(),
         evaluated_on: None,
     };

@@ -1,0 +1,391 @@
+//! Refinement: after the head fit, the map's own parameters move so that the compact model
+//! reproduces the teacher more closely — reduced-set refinement (Burges 1996, "Simplified
+//! support vector decision rules"; Burges & Schölkopf 1997) for landmarks, and learned
+//! diagonals of structured transforms (Yang et al. 2015, "Deep Fried Convnets") for the
+//! Hadamard and Fastfood maps. The program's shape and cost do not change.
+//!
+//! Each pass runs minibatch Adam (Kingma & Ba 2015) on the squared error between the
+//! compact model's decision values and the teacher's over the head-fitting rows, the head
+//! held fixed; then the head is refitted by ridge (the strength chosen on the ridge-choice
+//! rows) and the pass is judged by that head's error on the ridge-choice rows. The best pass
+//! is kept; two passes without improvement stop early. The audit rows are never read by any
+//! of this (only the summary's before/after figures are measured on them).
+//!
+//! What moves: Nyström landmarks (not the projection after them: the ridge head absorbs
+//! it), the frequencies and phases of the dense spectral maps, the input scaling of the
+//! spectral maps (per-dimension inverse lengthscales), the sign diagonals of Hadamard and
+//! Fastfood maps (as continuous diagonals, stored as `scale` steps) and the constant
+//! output scale before their cosines (as one factor per frequency).
+
+use super::compile::{check_spec, finish_model, landmark_pool, row_part, with_kind};
+use super::{audit_row, Distiller, HeadFit, Part, RidgeGrid, Teacher, FIT_CHUNK};
+use crate::features::{FeatureMap, FeatureSpec, SampleInfo};
+use crate::model::CompiledModel;
+use crate::observe::Observer;
+use crate::program::{steps, Program, Step};
+use crate::{Error, Result};
+use ndarray::{s, Array2, ArrayView2, Axis};
+use rand::seq::SliceRandom;
+use rand::SeedableRng;
+use rayon::prelude::*;
+use serde_json::json;
+
+/// Rows per parallel piece of a minibatch (fixed, so sums do not depend on the threads).
+const PIECE: usize = 64;
+
+/// How to refine.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RefineOptions {
+    /// Most passes over the head-fitting rows (≥ 1).
+    pub passes: usize,
+    /// Adam step size relative to each tensor's root-mean-square value at the start.
+    pub rate: f64,
+    /// Rows per minibatch.
+    pub batch: usize,
+    /// Passes without improvement on the ridge-choice rows before stopping.
+    pub patience: usize,
+}
+
+impl RefineOptions {
+    /// `passes` (1–10,000) with the standard settings: step size 3·10⁻³ of each tensor's
+    /// size, minibatches of 500 rows, stop after two passes without improvement.
+    pub fn new(passes: usize) -> Result<RefineOptions> {
+        RefineOptions {
+            passes,
+            rate: 3e-3,
+            batch: 500,
+            patience: 2,
+        }
+        .checked()
+    }
+
+    /// The options, or what is wrong with them.
+    pub fn checked(self) -> Result<RefineOptions> {
+        if !(1..=10_000).contains(&self.passes) {
+            return Err(Error::input(format!(
+                "refinement passes {}: expected 1 to 10000",
+                self.passes
+            )));
+        }
+        if !(self.rate > 0.0 && self.rate <= 1.0) {
+            return Err(Error::input(format!(
+                "refinement rate {}: expected a number in (0, 1]",
+                self.rate
+            )));
+        }
+        if !(1..=1_000_000).contains(&self.batch) || self.patience == 0 {
+            return Err(Error::input(
+                "refinement batch must be 1 to 1000000 rows and patience at least 1",
+            ));
+        }
+        Ok(self)
+    }
+}
+
+/// What a refinement did.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RefineSummary {
+    /// Passes run (the last ones may not have improved).
+    pub passes_run: usize,
+    /// The pass whose program was kept (0: none improved on the unrefined map).
+    pub best_pass: usize,
+    /// Mean squared decision error on the ridge-choice rows, before and after.
+    pub choose_mse: (f64, f64),
+    /// Label agreement with the teacher on the calibration audit rows, before and after
+    /// (regression: minus the mean squared decision error).
+    pub audit_agreement: (f64, f64),
+    /// The tensors that moved, as `step{i}.{name}`.
+    pub trained: Vec<String>,
+    /// Wall-clock seconds.
+    pub seconds: f64,
+}
+
+impl RefineSummary {
+    /// The summary as stored in the model's fit record and report.
+    pub fn to_json(&self) -> serde_json::Value {
+        json!({
+            "passes": self.passes_run,
+            "best_pass": self.best_pass,
+            "choose_mse_before": self.choose_mse.0,
+            "choose_mse_after": self.choose_mse.1,
+            "agreement_before": self.audit_agreement.0,
+            "agreement_after": self.audit_agreement.1,
+            "judged_on": "calibration audit rows (every tenth row; never fitted on, never used to choose)",
+            "trained": self.trained,
+            "seconds": self.seconds,
+        })
+    }
+}
+
+/// The program with its discrete diagonals made continuous: sign diagonals become `scale`
+/// steps, and a constant scale that feeds a cosine becomes one factor per frequency.
+fn loosen(p: &Program) -> Result<Program> {
+    let mut out = p.clone();
+    for (i, ins) in p.instrs().iter().enumerate() {
+        let feeds_trig = p.instrs().iter().any(|j| {
+            j.inputs.iter().any(|v| v.0 == i + 1)
+                && matches!(j.step, Step::CosSin(_) | Step::CosPhase(_))
+        });
+        let new = match &ins.step {
+            Step::Signs(sg) => Some(steps::Scale::new(
+                sg.signs().iter().map(|v| *v as f64).collect(),
+            )?),
+            Step::ConstScale(c) if feeds_trig => Some(steps::Scale::new(vec![
+                c.value();
+                p.dim(
+                    crate::program::ValueId(i + 1)
+                )
+            ])?),
+            _ => None,
+        };
+        if let Some(st) = new {
+            out = out.with_step(i, st.into())?;
+        }
+    }
+    Ok(out)
+}
+
+/// Which steps move: those with parameters, except a dense projection right after a
+/// kernel block (the Nyström whitening, which the ridge head absorbs).
+fn trainable(p: &Program) -> Vec<bool> {
+    p.instrs()
+        .iter()
+        .map(|ins| {
+            let after_block = ins
+                .inputs
+                .iter()
+                .any(|v| v.0 > 0 && matches!(p.instrs()[v.0 - 1].step, Step::KernelBlock(_)));
+            !ins.step.params().is_empty() && !(matches!(ins.step, Step::Dense(_)) && after_block)
+        })
+        .collect()
+}
+
+/// Adam state of one tensor.
+struct Adam {
+    m: Vec<f64>,
+    v: Vec<f64>,
+    lr: f64,
+}
+
+impl Teacher<'_> {
+    /// Distils a head for `spec` as [`Teacher::distil`] does, then refines the map's
+    /// parameters against the teacher (see the module documentation) and refits the head.
+    pub fn distil_refined(
+        &self,
+        spec: &FeatureSpec,
+        grid: &RidgeGrid,
+        landmarks: Option<ArrayView2<f64>>,
+        opts: &RefineOptions,
+        obs: &dyn Observer,
+    ) -> Result<(CompiledModel, SampleInfo, RefineSummary)> {
+        let started = std::time::Instant::now();
+        let exact = self.exact();
+        check_spec(exact, spec)?;
+        let opts = opts.clone().checked()?;
+        let pool = landmark_pool(exact, landmarks, Some(self.scaled()), spec);
+        let (map, info) = spec.sample(Some(
+            pool.as_ref().map(|p| p.view()).unwrap_or(self.scaled()),
+        ))?;
+        super::check_statistics_memory(map.output_dim())?;
+        let mut prog = loosen(&map.program)?;
+        let train = trainable(&prog);
+        if !train.iter().any(|t| *t) {
+            return Err(Error::input(format!(
+                "method {} has no continuous parameters to refine (its map is fixed by hashes or the kernel); drop --refine",
+                spec.method
+            )));
+        }
+        if let Some(ins) = prog.instrs().iter().find(|i| !i.step.differentiable()) {
+            return Err(Error::input(format!(
+                "refinement needs the derivative of every step; step {} ({}) has none (the arc-cosine kernel's angle); drop --refine",
+                ins.step.name(),
+                ins.step.describe()
+            )));
+        }
+        let trained: Vec<String> = prog
+            .instrs()
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| train[*i])
+            .map(|(i, ins)| format!("step{i}.{}", ins.step.name()))
+            .collect();
+        let x = self.scaled();
+        let y = self.decisions();
+        let n = x.nrows();
+        let mut fit = self.fit_program(&prog, grid, obs, "fitting the head")?;
+        let audit: Vec<usize> = (0..n).filter(|&i| audit_row(i)).collect();
+        let judge = |p: &Program, f: &HeadFit| -> f64 {
+            let xa = x.select(Axis(0), &audit);
+            let ya = y.select(Axis(0), &audit);
+            agreement(self, p, f, xa.view(), ya.view())
+        };
+        let before = (choose_mse(&fit), judge(&prog, &fit));
+        let mut best = (before.0, prog.clone(), fit.clone(), 0usize);
+        let mut adam: Vec<Option<Adam>> = prog
+            .instrs()
+            .iter()
+            .zip(&train)
+            .map(|(ins, t)| {
+                t.then(|| {
+                    let p = ins.step.params();
+                    let rms = (p.iter().map(|v| v * v).sum::<f64>() / p.len() as f64).sqrt();
+                    Adam {
+                        m: vec![0.0; p.len()],
+                        v: vec![0.0; p.len()],
+                        lr: opts.rate * if rms > 0.0 { rms } else { 1.0 },
+                    }
+                })
+            })
+            .collect();
+        let fit_rows: Vec<usize> = (0..n).filter(|&i| row_part(i) == Part::Fit).collect();
+        let (k, mut t, mut bad, mut passes) = (y.ncols(), 0i32, 0usize, 0usize);
+        for pass in 1..=opts.passes {
+            passes = pass;
+            let mut order = fit_rows.clone();
+            let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(spec.seed ^ (pass as u64) << 32);
+            order.shuffle(&mut rng);
+            let batches = order.len().div_ceil(opts.batch);
+            obs.stage(
+                &format!("refining, pass {pass} of {}", opts.passes),
+                batches as u64 + 1,
+            );
+            let (head, icpt) = (fit.head.clone(), fit.intercept.clone());
+            for b in order.chunks(opts.batch) {
+                let xb = x.select(Axis(0), b);
+                let yb = y.select(Axis(0), b);
+                let scale = 2.0 / (b.len() * k) as f64;
+                let pieces: Vec<Vec<Vec<f64>>> = (0..b.len().div_ceil(PIECE))
+                    .into_par_iter()
+                    .map(|c| {
+                        let r = c * PIECE..((c + 1) * PIECE).min(b.len());
+                        let vals = prog.forward_all(xb.slice(s![r.clone(), ..]));
+                        let z = vals.last().expect("output");
+                        let mut res = crate::linalg::ab_seq(z.view(), head.view());
+                        for (mut row, yr) in res
+                            .rows_mut()
+                            .into_iter()
+                            .zip(yb.slice(s![r.clone(), ..]).rows())
+                        {
+                            for ((v, c0), yv) in row.iter_mut().zip(&icpt).zip(yr) {
+                                *v = (*v + c0 - yv) * scale;
+                            }
+                        }
+                        let gz = crate::linalg::abt_seq(res.view(), head.view());
+                        prog.backward(&vals, gz.view(), &train, false).0
+                    })
+                    .collect();
+                t += 1;
+                for (i, st) in adam.iter_mut().enumerate() {
+                    let Some(st) = st else { continue };
+                    let mut g = vec![0.0; st.m.len()];
+                    for pc in &pieces {
+                        g.iter_mut().zip(&pc[i]).for_each(|(a, v)| *a += v);
+                    }
+                    let mut theta = prog.instrs()[i].step.params();
+                    let (b1, b2, eps) = (0.9f64, 0.999f64, 1e-8);
+                    let (c1, c2) = (1.0 - b1.powi(t), 1.0 - b2.powi(t));
+                    for j in 0..theta.len() {
+                        st.m[j] = b1 * st.m[j] + (1.0 - b1) * g[j];
+                        st.v[j] = b2 * st.v[j] + (1.0 - b2) * g[j] * g[j];
+                        theta[j] -= st.lr * (st.m[j] / c1) / ((st.v[j] / c2).sqrt() + eps);
+                    }
+                    prog.set_params(i, &theta)?;
+                }
+                obs.advance(1);
+            }
+            fit = self.fit_program(&prog, grid, obs, "refitting the head")?;
+            let e = choose_mse(&fit);
+            if e < best.0 {
+                best = (e, prog.clone(), fit.clone(), pass);
+                bad = 0;
+            } else {
+                bad += 1;
+                if bad >= opts.patience {
+                    break;
+                }
+            }
+        }
+        obs.finish();
+        let (e, prog, fit, best_pass) = best;
+        let after = judge(&prog, &fit);
+        let summary = RefineSummary {
+            passes_run: passes,
+            best_pass,
+            choose_mse: (before.0, e),
+            audit_agreement: (before.1, after),
+            trained,
+            seconds: started.elapsed().as_secs_f64(),
+        };
+        let mut j = with_kind(&fit, "distill");
+        j["refine"] = summary.to_json();
+        let map = FeatureMap {
+            spec: map.spec,
+            program: prog,
+        };
+        finish_model(exact, map, fit.head, fit.intercept, j).map(|m| (m, info, summary))
+    }
+
+    /// The ridge head of `prog` over the calibration rows (fit rows; strength chosen on
+    /// the ridge-choice rows; audit rows skipped).
+    fn fit_program(
+        &self,
+        prog: &Program,
+        grid: &RidgeGrid,
+        obs: &dyn Observer,
+        what: &str,
+    ) -> Result<HeadFit> {
+        let x = self.scaled();
+        let y = self.decisions();
+        let n = x.nrows();
+        let chunks = n.div_ceil(FIT_CHUNK);
+        obs.stage(what, chunks as u64);
+        let mut dist = Distiller::new(prog.output_dim(), y.ncols());
+        for c in 0..chunks {
+            let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
+            let z = crate::linalg::map_row_chunks(
+                x.slice(s![r.clone(), ..]),
+                prog.output_dim(),
+                |xc| prog.apply_chunk(xc),
+            );
+            if let Some(i) = z.iter().position(|v| !v.is_finite()) {
+                return Err(Error::numerical(format!(
+                    "calibration row {}: a refined feature is not finite; try a smaller refinement rate",
+                    r.start + i / z.ncols().max(1) + 1
+                )));
+            }
+            dist.add(z.view(), y.slice(s![r, ..]), row_part);
+            obs.advance(1);
+        }
+        dist.solve(grid)
+    }
+}
+
+/// The ridge-choice error of a head fit (the smallest over its ridge grid).
+fn choose_mse(f: &HeadFit) -> f64 {
+    f.holdout_mse
+        .iter()
+        .map(|(_, m)| *m)
+        .fold(f64::INFINITY, f64::min)
+}
+
+/// Label agreement with the teacher (regression: minus the mean squared error) of the
+/// program and head on rows `x` (scaled) with teacher decisions `y`.
+fn agreement(t: &Teacher, p: &Program, f: &HeadFit, x: ArrayView2<f64>, y: ArrayView2<f64>) -> f64 {
+    if x.nrows() == 0 {
+        return f64::NAN;
+    }
+    let z = p.apply_chunk(x);
+    let mut d: Array2<f64> = crate::linalg::ab_seq(z.view(), f.head.view());
+    for mut r in d.rows_mut() {
+        r.iter_mut().zip(&f.intercept).for_each(|(v, c)| *v += c);
+    }
+    let task = t.exact().task();
+    if task.is_classifier() {
+        let kk = t.exact().labels().len();
+        let a = crate::model::label_indices(task, kk, d.view());
+        let b = crate::model::label_indices(task, kk, y);
+        a.iter().zip(&b).filter(|(u, v)| u == v).count() as f64 / a.len() as f64
+    } else {
+        -(&d - &y).mapv(|v| v * v).mean().unwrap_or(0.0)
+    }
+}
