@@ -155,7 +155,8 @@ fn trainable(p: &Program) -> Vec<bool> {
                 .inputs
                 .iter()
                 .any(|v| v.0 > 0 && matches!(p.instrs()[v.0 - 1].step, Step::KernelBlock(_)));
-            !ins.step.params().is_empty() && !(matches!(ins.step, Step::Dense(_)) && after_block)
+            let whitening = matches!(ins.step, Step::Dense(_)) && after_block;
+            !ins.step.params().is_empty() && !whitening
         })
         .collect()
 }
