@@ -647,3 +647,153 @@ fn the_scratch_path_equals_the_allocating_path() {
         }
     }
 }
+
+/// The program's parameters and the head of a compiled model, as one vector.
+fn all_numbers(m: &kernelpress::model::CompiledModel) -> Vec<f64> {
+    let mut v: Vec<f64> = m
+        .program()
+        .instrs()
+        .iter()
+        .flat_map(|i| i.step.params())
+        .collect();
+    v.extend(m.head().iter());
+    v.extend(m.intercept());
+    v
+}
+
+#[test]
+fn refinement_lowers_the_choice_error_and_never_reads_the_audit_rows() {
+    use kernelpress::fit::{RefineOptions, Teacher};
+    use kernelpress::observe::Silent;
+    let exact = demo_exact();
+    let calib = demo_rows("pump_calib.csv");
+    let calib = calib.slice(ndarray::s![..3000, ..]).to_owned();
+    let opts = RefineOptions::new(3).unwrap();
+    let grid = RidgeGrid::standard();
+    let refine = |x: &Array2<f64>, method: Method, features: usize, seed: u64| {
+        let t = Teacher::new(&exact, x.view(), &Silent).unwrap();
+        let spec = FeatureSpec::new(
+            exact.kernel().clone(),
+            method,
+            exact.input_dim(),
+            features,
+            seed,
+        );
+        t.distil_refined(&spec, &grid, None, &opts, &Silent)
+            .unwrap()
+    };
+    for (method, features) in [(Method::Nystrom, 64), (Method::Hadamard, 128)] {
+        let (m, _, sum) = refine(&calib, method, features, 1);
+        // The pass kept is judged on the ridge-choice rows: never worse than no pass.
+        assert!(sum.choose_mse.1 <= sum.choose_mse.0, "{method:?}: {sum:?}");
+        assert!(sum.best_pass >= 1, "{method:?}: no pass improved: {sum:?}");
+        assert!(!sum.trained.is_empty());
+        assert_eq!(m.fit["refine"]["passes"], serde_json::json!(sum.passes_run));
+        // Scrambling the audit rows (every tenth) leaves every number of the model as it
+        // was: they are neither fitted on nor used to choose.
+        let mut moved = calib.clone();
+        for i in (9..moved.nrows()).step_by(10) {
+            moved.row_mut(i).mapv_inplace(|v| -3.0 * v + 1.0);
+        }
+        let (m2, _, sum2) = refine(&moved, method, features, 1);
+        assert_eq!(
+            all_numbers(&m),
+            all_numbers(&m2),
+            "{method:?}: audit rows changed the model"
+        );
+        assert_eq!(sum.choose_mse, sum2.choose_mse);
+        // Changing a fitting row does change it (the comparison above can fail).
+        let mut fitrow = calib.clone();
+        fitrow.row_mut(0).mapv_inplace(|v| v + 0.5);
+        let (m3, _, _) = refine(&fitrow, method, features, 1);
+        assert_ne!(all_numbers(&m), all_numbers(&m3));
+        // Another seed draws another map and refines it elsewhere.
+        let (m4, _, _) = refine(&calib, method, features, 2);
+        assert_ne!(all_numbers(&m), all_numbers(&m4));
+    }
+}
+
+#[test]
+fn refined_models_are_bit_identical_whatever_the_thread_count() {
+    let dir = tmpdir("refined_models_are_bit_identical_whatever_the_thread_count");
+    let calib = dir.join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 2001);
+    let out = |threads: &str, seed: &str| {
+        let path = dir.join(format!("refined_{threads}_{seed}.safetensors"));
+        let o = std::process::Command::new(bin())
+            .env("RAYON_NUM_THREADS", threads)
+            .args([
+                "compile",
+                s(&root().join("models/pump_svm.safetensors")),
+                "--calib",
+                s(&calib),
+                "--target",
+                "condition",
+                "--method",
+                "fastfood",
+                "--features",
+                "128",
+                "--no-bandwidth-search",
+                "--no-timing",
+                "--refine",
+                "2",
+                "--seed",
+                seed,
+                "--out",
+                s(&path),
+            ])
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let err = String::from_utf8_lossy(&o.stderr).to_string();
+        assert!(err.contains("refined step"), "{err}");
+        std::fs::read(&path).unwrap()
+    };
+    let one = out("1", "4");
+    assert_eq!(
+        one,
+        out("2", "4"),
+        "one thread and two give different files"
+    );
+    assert_ne!(one, out("2", "5"), "another seed gives the same file");
+}
+
+#[test]
+fn refine_refuses_what_it_cannot_do() {
+    let model = root().join("models/pump_svm.safetensors");
+    let calib = root().join("models/pump_calib.csv");
+    let dir = tmpdir("refine_refuses_what_it_cannot_do");
+    let o = dir.join("m.safetensors");
+    let base = [
+        "compile",
+        s(&model),
+        "--calib",
+        s(&calib),
+        "--target",
+        "condition",
+        "--out",
+        s(&o),
+    ];
+    let with = |extra: &[&str]| -> String {
+        let mut v: Vec<&str> = base.to_vec();
+        v.extend_from_slice(extra);
+        bad(&v)
+    };
+    assert!(
+        with(&["--method", "nystrom", "--features", "32", "--refine", "0"]).contains("--refine 0")
+    );
+    assert!(with(&[
+        "--method",
+        "nystrom",
+        "--features",
+        "32",
+        "--refine",
+        "2",
+        "--refine-rate",
+        "3"
+    ])
+    .contains("--refine-rate 3"));
+    assert!(with(&["--max-disagreement", "0.05", "--refine", "2"]).contains("does not refine"));
+
+    assert!(!o.exists(), "nothing is written when refinement is refused");
+}

@@ -37,8 +37,16 @@ fn models(d: &Data) -> Vec<(String, PathBuf)> {
         ("quasi", "128", vec![]),
         ("nystrom", "96", vec![]),
         ("taylor", "165", vec![]),
+        // Refined maps (continuous diagonals, moved landmarks) export like any other.
+        ("hadamard", "128", vec!["--refine", "2"]),
+        ("nystrom", "96", vec!["--refine", "2"]),
     ] {
-        let p = d.dir.join(format!("{method}.safetensors"));
+        let name = if extra.contains(&"--refine") {
+            format!("{method}_refined")
+        } else {
+            method.to_string()
+        };
+        let p = d.dir.join(format!("{name}.safetensors"));
         let mut args = vec![
             "compile",
             s(&exact),
@@ -56,7 +64,7 @@ fn models(d: &Data) -> Vec<(String, PathBuf)> {
         ];
         args.extend(extra);
         ok(&args);
-        out.push((method.to_string(), p));
+        out.push((name, p));
     }
     for (name, kernel, method) in [
         ("maclaurin", "polynomial(degree=2, gamma=0.2, offset=1)", "maclaurin"),

@@ -57,6 +57,20 @@ fn every_method_scores_the_same_from_the_readme_description() {
         ("quasi", "256", vec!["--sequence", "sobol"]),
         ("nystrom", "128", vec![]),
         ("taylor", "495", vec![]),
+        // Refined: continuous diagonals, learned phases, moved landmarks.
+        ("hadamard", "200", vec!["--refine", "2"]),
+        (
+            "fastfood",
+            "200",
+            vec![
+                "--variant",
+                "phase",
+                "--refine",
+                "2",
+                "--no-bandwidth-search",
+            ],
+        ),
+        ("nystrom", "128", vec!["--refine", "2"]),
     ] {
         let out = dir.join(format!("t_{method}_{}.safetensors", extra.len()));
         let mut args = vec![

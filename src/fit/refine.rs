@@ -101,7 +101,8 @@ pub struct RefineSummary {
 }
 
 impl RefineSummary {
-    /// The summary as stored in the model's fit record and report.
+    /// The summary as stored in the model's fit record and report (without the seconds,
+    /// so that model files stay bit-identical from run to run).
     pub fn to_json(&self) -> serde_json::Value {
         json!({
             "passes": self.passes_run,
@@ -112,7 +113,6 @@ impl RefineSummary {
             "agreement_after": self.audit_agreement.1,
             "judged_on": "calibration audit rows (every tenth row; never fitted on, never used to choose)",
             "trained": self.trained,
-            "seconds": self.seconds,
         })
     }
 }
@@ -183,9 +183,15 @@ impl Teacher<'_> {
         let exact = self.exact();
         check_spec(exact, spec)?;
         let opts = opts.clone().checked()?;
-        let pool = landmark_pool(exact, landmarks, Some(self.scaled()), spec);
+        // Landmarks drawn from calibration rows come from the non-audit rows only, so
+        // that the audit figures judge rows the map has never seen.
+        let seen: Vec<usize> = (0..self.scaled().nrows())
+            .filter(|&i| !audit_row(i))
+            .collect();
+        let seen_rows = self.scaled().select(Axis(0), &seen);
+        let pool = landmark_pool(exact, landmarks, Some(seen_rows.view()), spec);
         let (map, info) = spec.sample(Some(
-            pool.as_ref().map(|p| p.view()).unwrap_or(self.scaled()),
+            pool.as_ref().map(|p| p.view()).unwrap_or(seen_rows.view()),
         ))?;
         super::check_statistics_memory(map.output_dim())?;
         let mut prog = loosen(&map.program)?;
