@@ -591,11 +591,12 @@ fn eval_report(
 /// `eval_labels` for accuracy), else on the audit rows. A `UserWarning` is raised when the
 /// label agreement is below `min_agreement`. As `kernelpress compile MODEL --calib FILE
 /// --method M --features D` does, including the map bandwidth search unless
-/// `bandwidth_search=False`.
+/// `bandwidth_search=False`. With `refine=N`, the map is then refined against the exact
+/// model for up to N passes, as `compile --refine N` does (docs/refining.md).
 ///
 /// >>> compiled = kp.compact(exact, "models/pump_calib.csv", method="nystrom", features=1024)
 #[pyfunction]
-#[pyo3(name = "compact", signature = (exact, calib, method, features, *, seed=0, landmark_rule="uniform", bandwidth_search=true, eval=None, eval_labels=None, min_agreement=0.99))]
+#[pyo3(name = "compact", signature = (exact, calib, method, features, *, seed=0, landmark_rule="uniform", bandwidth_search=true, eval=None, eval_labels=None, min_agreement=0.99, refine=None))]
 #[allow(clippy::too_many_arguments)]
 fn compile(
     py: Python<'_>,
@@ -609,12 +610,17 @@ fn compile(
     eval: Option<&Bound<'_, PyAny>>,
     eval_labels: Option<Vec<String>>,
     min_agreement: f64,
+    refine: Option<usize>,
 ) -> Res<PyCompiled> {
     let e = exact.inner.clone();
     let spec = spec_for(&e, method, features, seed, landmark_rule)?;
     let (x, _) = model_batch(py, calib, "calib", &e.feature_names, None)?;
+    let opts = match refine {
+        Some(n) => Some(lib(kernelpress::fit::RefineOptions::new(n))?),
+        None => None,
+    };
     let (mut model, _) = lib(py.detach(|| {
-        compile_exact_tuned(
+        let (m, info) = compile_exact_tuned(
             &e,
             x.view(),
             &spec,
@@ -622,7 +628,17 @@ fn compile(
             bandwidth_search,
             None,
             &Silent,
-        )
+        )?;
+        match &opts {
+            Some(o) => {
+                let t = kernelpress::fit::Teacher::new(&e, x.view(), &Silent)?;
+                let chosen = m.spec().clone();
+                let (m, info, _) =
+                    t.distil_refined(&chosen, &RidgeGrid::standard(), None, o, &Silent)?;
+                Ok((m, info))
+            }
+            None => Ok((m, info)),
+        }
     }))?;
     match eval {
         Some(ev) => eval_report(

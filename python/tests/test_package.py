@@ -236,3 +236,20 @@ def test_names_of_our_own_and_no_builtin_shadowed():
     assert not hasattr(kp, "compile")
     assert callable(kp.compact) and callable(kp.ExactModel.from_expansion)
     assert not hasattr(kp.ExactModel, "from_arrays")
+
+
+def test_refined_compact_equals_cli_refine(root, cli, tmp_path, exact):
+    # compact(refine=N) runs the library's refinement, as `compile --refine N` does: the
+    # same model, and its report says what moved.
+    calib = tmp_path / "calib.csv"
+    calib.write_text("\n".join((root / "models" / "pump_calib.csv").read_text().splitlines()[:1501]) + "\n")
+    c = kp.compact(exact, str(calib), "hadamard", 128, seed=2, bandwidth_search=False, refine=2)
+    out = tmp_path / "cli.safetensors"
+    cli("compile", root / "models" / "pump_svm.safetensors", "--calib", calib, "--target", "condition",
+        "--method", "hadamard", "--features", 128, "--seed", 2, "--no-bandwidth-search", "--refine", 2,
+        "--no-timing", "--out", out)
+    other = kp.CompiledModel.load(out)
+    x, _, _ = kp.read_data(root / "models" / "pump_test.csv", target="condition")
+    assert np.abs(other.decision(x) - c.decision(x)).max() <= 1e-12 * max(1.0, np.abs(c.decision(x)).max())
+    with pytest.raises(kp.Error):
+        kp.compact(exact, str(calib), "hadamard", 128, refine=0)
