@@ -236,3 +236,44 @@ fn methods_that_cannot_serve_say_which_can() {
         .unwrap_err();
     assert!(e.to_string().contains("needs data"), "{e}");
 }
+
+/// Reverse mode through every method's program against central finite differences.
+#[test]
+fn every_method_program_backward_matches_finite_differences() {
+    let cases: &[(&str, Method, usize)] = &[
+        ("gaussian(gamma=0.3)", Method::Fourier, 12),
+        ("matern(nu=2.5, lengthscale=1.5)", Method::Orthogonal, 12),
+        ("gaussian(gamma=0.3)", Method::Hadamard, 16),
+        ("gaussian(gamma=0.3)", Method::Fastfood, 10),
+        (
+            "rational_quadratic(alpha=1.5, lengthscale=1.0)",
+            Method::Quasi,
+            12,
+        ),
+        ("gaussian(gamma=0.3)", Method::Nystrom, 6),
+        (
+            "polynomial(degree=2, gamma=0.5, offset=1)",
+            Method::Maclaurin,
+            12,
+        ),
+        (
+            "polynomial(degree=2, gamma=0.5, offset=1)",
+            Method::TensorSketch,
+            8,
+        ),
+        ("gaussian(gamma=0.3)", Method::parse("taylor").unwrap(), 15),
+        ("arccos(order=1)", Method::Relu, 8),
+        (
+            "gaussian(gamma=0.3) * laplacian(gamma=0.2) + linear()",
+            Method::Fourier,
+            20,
+        ),
+    ];
+    let x = crate::program::tests::rows(4, 4, 11);
+    for (kern, method, features) in cases {
+        let spec = FeatureSpec::new(kern.parse().unwrap(), *method, 4, *features, 5);
+        let data = crate::program::tests::rows(40, 4, 12);
+        let (map, _) = spec.sample(Some(data.view())).unwrap();
+        crate::program::tests::check_gradients(&map.program, &x, &format!("{method:?} on {kern}"));
+    }
+}

@@ -958,4 +958,4 @@ fn run_f32_at<'a>(
 }
 
 #[cfg(test)]
-mod tests;
+pub(crate) mod tests;

@@ -232,7 +232,6 @@ fn only_steps_that_stream_parameters_are_called_memory_bound() {
 
 // ---- Reverse mode against central finite differences (f64) ----
 
-use crate::features::{FeatureSpec, Method};
 use rand::{RngExt, SeedableRng};
 
 /// `L = Σ r ⊙ program(x)`: a fixed random weighting of the outputs.
@@ -302,7 +301,7 @@ fn fd_disagreement(p: &Program, x: &Array2<f64>, fault: bool) -> f64 {
     worst
 }
 
-fn check_gradients(p: &Program, x: &Array2<f64>, what: &str) {
+pub(crate) fn check_gradients(p: &Program, x: &Array2<f64>, what: &str) {
     let e = fd_disagreement(p, x, false);
     assert!(
         e < 2e-6,
@@ -316,7 +315,7 @@ fn check_gradients(p: &Program, x: &Array2<f64>, what: &str) {
     );
 }
 
-fn rows(n: usize, d: usize, seed: u64) -> Array2<f64> {
+pub(crate) fn rows(n: usize, d: usize, seed: u64) -> Array2<f64> {
     let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(seed);
     Array2::from_shape_simple_fn((n, d), || rng.random::<f64>() * 2.0 - 1.0)
 }
@@ -420,44 +419,4 @@ fn heaviside_has_a_zero_gradient() {
     let g = Array2::ones((2, 3));
     let (_, gx) = p.backward(&vals, g.view(), &[false], true);
     assert!(gx.unwrap().iter().all(|v| *v == 0.0));
-}
-
-#[test]
-fn every_method_program_backward_matches_finite_differences() {
-    let cases: &[(&str, Method, usize)] = &[
-        ("gaussian(gamma=0.3)", Method::Fourier, 12),
-        ("matern(nu=2.5, lengthscale=1.5)", Method::Orthogonal, 12),
-        ("gaussian(gamma=0.3)", Method::Hadamard, 16),
-        ("gaussian(gamma=0.3)", Method::Fastfood, 10),
-        (
-            "rational_quadratic(alpha=1.5, lengthscale=1.0)",
-            Method::Quasi,
-            12,
-        ),
-        ("gaussian(gamma=0.3)", Method::Nystrom, 6),
-        (
-            "polynomial(degree=2, gamma=0.5, offset=1)",
-            Method::Maclaurin,
-            12,
-        ),
-        (
-            "polynomial(degree=2, gamma=0.5, offset=1)",
-            Method::TensorSketch,
-            8,
-        ),
-        ("gaussian(gamma=0.3)", Method::parse("taylor").unwrap(), 15),
-        ("arccos(order=1)", Method::Relu, 8),
-        (
-            "gaussian(gamma=0.3) * laplacian(gamma=0.2) + linear()",
-            Method::Fourier,
-            20,
-        ),
-    ];
-    let x = rows(4, 4, 11);
-    for (kern, method, features) in cases {
-        let spec = FeatureSpec::new(kern.parse().unwrap(), *method, 4, *features, 5);
-        let data = rows(40, 4, 12);
-        let (map, _) = spec.sample(Some(data.view())).unwrap();
-        check_gradients(&map.program, &x, &format!("{method:?} on {kern}"));
-    }
 }
