@@ -8,7 +8,7 @@
 //! of the map distilled as usual and of the same map refined, decision RMSE, refinement
 //! seconds, and the f32 single-row latency of both (median of 2,000 rows).
 //!
-//! Run: `cargo run --release --example fashion_refine -- [OUT.json] [method:features:passes,...]`
+//! Run: `cargo run --release --example fashion_refine -- [OUT.json] [method:features:passes[:rate],...]`
 //! (default `nystrom:1024:8,hadamard:4096:4`; benches/refine.sh runs `nystrom:1024:40,hadamard:4096:12`).
 
 #[path = "common/fashion.rs"]
@@ -49,7 +49,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         .get(1)
         .cloned()
         .unwrap_or_else(|| "target/fashion/refine.json".into());
-    let runs: Vec<(String, usize, usize)> = args
+    let runs: Vec<(String, usize, usize, Option<f64>)> = args
         .get(2)
         .cloned()
         .unwrap_or_else(|| "nystrom:1024:8,hadamard:4096:4".into())
@@ -99,7 +99,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let t = Teacher::new(&teacher, calib, &Silent)?;
     let grid = RidgeGrid::standard();
     let mut results = Vec::new();
-    for (method, features, passes) in runs {
+    for (method, features, passes, rate) in runs {
         let mut spec = FeatureSpec::new(
             teacher.kernel().clone(),
             Method::parse(&method)?,
@@ -112,9 +112,13 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         }
         let (plain, _) = t.distil(&spec, &grid, None, &Silent)?;
         let (a0, _, d0) = agreement(&plain, test.x.view(), &want);
+        let mut opts = RefineOptions::new(passes)?;
+        if let Some(r) = rate {
+            opts.rate = r;
+        }
+        let opts = opts.checked()?;
         let t0 = Instant::now();
-        let (refined, _, sum) =
-            t.distil_refined(&spec, &grid, None, &RefineOptions::new(passes)?, &Silent)?;
+        let (refined, _, sum) = t.distil_refined(&spec, &grid, None, &opts, &Silent)?;
         let secs = t0.elapsed().as_secs_f64();
         let (a1, _, d1) = agreement(&refined, test.x.view(), &want);
         let rmse = |d: &Array2<f64>| (d - &td).mapv(|v| v * v).mean().unwrap().sqrt();
@@ -123,7 +127,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             latency_us(&refined, test.x.view()),
         );
         let r = json!({
-            "method": method, "features": features, "passes_max": passes,
+            "method": method, "features": features, "passes_max": passes, "rate": opts.rate,
             "passes_run": sum.passes_run, "best_pass": sum.best_pass,
             "agreement_test_before": a0, "agreement_test_after": a1,
             "decision_rmse_before": rmse(&d0), "decision_rmse_after": rmse(&d1),
