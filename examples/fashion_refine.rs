@@ -60,6 +60,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 v[0].to_string(),
                 v[1].parse().unwrap(),
                 v[2].parse().unwrap(),
+                v.get(3).map(|r| r.parse().unwrap()),
             )
         })
         .collect();
