@@ -572,3 +572,177 @@ fn onnx_import_follows_the_wiring_and_the_operator_definitions() {
     }
     assert!(obj.len() >= 8);
 }
+
+/// Guarded models (the weak 64-feature Fourier stage of the demo, so that many rows fall
+/// back), under both rules, export whole: onnxruntime and numpy (tests/reference/
+/// guarded_check.py), gcc-built C and rustc-built Rust give `score`'s label and stage on
+/// every row of the test set; `--stage compact` exports the compiled stage alone.
+#[test]
+fn guarded_models_export_whole_and_answer_like_score() {
+    use kernelpress::model::guarded::STAGES;
+    use kernelpress::model::GuardedModel;
+    let d = data("guarded_models_export_whole_and_answer_like_score");
+    let calib = d.dir.join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 3000);
+    let exact = root().join("models/pump_svm.safetensors");
+    let input = numbers(&d.test);
+    let t = kernelpress::data::read_table(&d.test, Some("condition"), false).unwrap();
+    for rule in ["row", "pairs"] {
+        let m = d.dir.join(format!("g_{rule}.safetensors"));
+        ok(&[
+            "compile",
+            s(&exact),
+            "--calib",
+            s(&calib),
+            "--target",
+            "condition",
+            "--method",
+            "fourier",
+            "--features",
+            "64",
+            "--guard-agreement",
+            "0.98",
+            "--guard-rule",
+            rule,
+            "--no-timing",
+            "--out",
+            s(&m),
+        ]);
+        let g = GuardedModel::load(&m).unwrap();
+        let (want, stage) = g.decision(t.x.view());
+        let labels = g.labels_of(want.view());
+        let sent = stage.iter().filter(|&&s| s != 0).count() as f64 / stage.len() as f64;
+        assert!(sent >= 0.05, "{rule}: only {sent} of rows fall back");
+        let k = g.compact().n_outputs();
+        // Rows whose compiled confidence or exact decision is within f32 rounding of the
+        // threshold or of zero may legitimately answer otherwise in f32.
+        let (s32, _) = g.decision_f32(t.x.view());
+        let near: Vec<bool> = (0..want.nrows())
+            .map(|i| {
+                let tol = 1e-4 * want.row(i).iter().fold(1.0f64, |a, v| a.max(v.abs()));
+                want.row(i).iter().any(|v| v.abs() <= tol)
+                    || s32
+                        .row(i)
+                        .iter()
+                        .any(|v| (v.abs() - g.threshold()).abs() <= tol)
+            })
+            .collect();
+        let check_printed = |printed: &str, what: &str| {
+            let lines: Vec<&str> = printed.lines().collect();
+            assert_eq!(lines.len(), want.nrows(), "{what}");
+            let mut worst = 0.0f64;
+            for (i, line) in lines.iter().enumerate() {
+                let v: Vec<f64> = line
+                    .split_whitespace()
+                    .map(|t| t.parse().unwrap())
+                    .collect();
+                assert_eq!(v.len(), k + 2, "{what} line {i}: {line}");
+                for c in 0..k {
+                    worst = worst.max((v[c] - want[[i, c]]).abs());
+                }
+                let (li, st) = (v[k] as usize, v[k + 1] as usize);
+                assert!(
+                    near[i] || (g.compact().labels()[li] == labels[i] && st == stage[i] as usize),
+                    "{what} row {i}: label {} stage {} vs score {} {}",
+                    g.compact().labels()[li],
+                    STAGES[st],
+                    labels[i],
+                    STAGES[stage[i] as usize]
+                );
+            }
+            let scale = want.iter().fold(1.0f64, |a, v| a.max(v.abs()));
+            assert!(worst <= 1e-3 * scale, "{what}: max |Δ| {worst:e}");
+            eprintln!("{what}: max |Δ| {worst:.3e}, fallback share {sent:.3}");
+        };
+        // ONNX and the plain weights, in onnxruntime and numpy.
+        let sc = score(&d, &m, &format!("g_{rule}"));
+        let onnx = d.dir.join(format!("g_{rule}.onnx"));
+        let o = ok(&["export", s(&m), "--format", "onnx", "--out", s(&onnx)]);
+        assert!(o.contains("guarded model") && o.contains("guard:"), "{o}");
+        let st = d.dir.join(format!("g_{rule}_w.safetensors"));
+        ok(&["export", s(&m), "--format", "safetensors", "--out", s(&st)]);
+        let r = py(
+            "guarded_check.py",
+            &[s(&onnx), s(&st), s(&d.test), "condition", s(&sc)],
+        );
+        eprint!("{rule}: {r}");
+        // C, with the stage, built warning-free as C99.
+        let out = d.dir.join(format!("c_g_{rule}"));
+        ok(&["export", s(&m), "--format", "c", "--out", s(&out)]);
+        std::fs::write(
+            out.join("main.c"),
+            "#include <stdio.h>\n#include \"kp_model.h\"\nint main(void) {\n    float x[64], out[64];\n    int d = kp_input_dim(), k = kp_output_dim();\n    static const char *const cols[] = KP_INPUT_NAMES;\n    if (cols[0] == NULL || kp_input_name(d - 1) == NULL || kp_model_info() == NULL) return 1;\n    for (;;) {\n        for (int j = 0; j < d; j++) if (scanf(\"%f\", &x[j]) != 1) return 0;\n        int st = kp_decision_stage(x, out);\n        int li = kp_label_index(x);\n        for (int c = 0; c < k; c++) printf(\"%.9g \", out[c]);\n        printf(\"%d %d\\n\", li, st);\n    }\n}\n",
+        )
+        .unwrap();
+        let exe = out.join("score");
+        let o = Command::new("gcc")
+            .args(["-std=c99", "-O2", "-Wall", "-Wextra", "-Werror", "-o"])
+            .arg(&exe)
+            .arg(out.join("main.c"))
+            .arg(out.join("kp_model.c"))
+            .arg("-lm")
+            .output()
+            .unwrap();
+        assert!(
+            o.status.success(),
+            "gcc failed: {}",
+            String::from_utf8_lossy(&o.stderr)
+        );
+        check_printed(&run_with_stdin(&exe, &input), &format!("C {rule}"));
+        // Rust, calling only some of the module's items, under -D warnings.
+        let dir = d.dir.join(format!("rs_g_{rule}"));
+        std::fs::create_dir_all(&dir).unwrap();
+        ok(&[
+            "export",
+            s(&m),
+            "--format",
+            "rust",
+            "--out",
+            s(&dir.join("model.rs")),
+        ]);
+        std::fs::write(
+            dir.join("main.rs"),
+            "#[path = \"model.rs\"]\nmod model;\nuse std::io::Read;\nfn main() {\n    let mut s = String::new();\n    std::io::stdin().read_to_string(&mut s).unwrap();\n    let v: Vec<f32> = s.split_whitespace().map(|t| t.parse().unwrap()).collect();\n    let d = model::INPUT_NAMES.len();\n    let mut out = vec![0.0_f32; 64];\n    for row in v.chunks(d) {\n        let st = model::decision_stage(row, &mut out);\n        let li = model::label_index(row);\n        let cells: Vec<String> = out[..model::output_dim()].iter().map(|x| format!(\"{x:e}\")).collect();\n        println!(\"{} {li} {st}\", cells.join(\" \"));\n    }\n}\n",
+        )
+        .unwrap();
+        let exe = dir.join("score");
+        let o = Command::new("rustc")
+            .args(["--edition", "2021", "-D", "warnings", "-O", "-o"])
+            .arg(&exe)
+            .arg(dir.join("main.rs"))
+            .output()
+            .unwrap();
+        assert!(
+            o.status.success(),
+            "rustc failed: {}",
+            String::from_utf8_lossy(&o.stderr)
+        );
+        check_printed(&run_with_stdin(&exe, &input), &format!("Rust {rule}"));
+    }
+    // The compiled stage alone: an ordinary compiled export, which says where it came from.
+    let m = d.dir.join("g_row.safetensors");
+    let onnx = d.dir.join("stage.onnx");
+    let o = ok(&[
+        "export",
+        s(&m),
+        "--stage",
+        "compact",
+        "--format",
+        "onnx",
+        "--out",
+        s(&onnx),
+    ]);
+    assert!(o.contains("compiled stage"), "{o}");
+    assert!(!o.contains("guard:"), "{o}");
+    let e = bad(&[
+        "export",
+        s(&m),
+        "--stage",
+        "both",
+        "--format",
+        "onnx",
+        "--out",
+        s(&onnx),
+    ]);
+    assert!(e.contains("--stage"), "{e}");
+}

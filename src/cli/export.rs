@@ -1,9 +1,13 @@
 //! `kernelpress export`: compiled model → ONNX, C, Rust, or plain weights.
 
 use kernelpress::data::write_atomic;
-use kernelpress::export::{check_precision, export, ExportOptions, Format, Precision};
-use kernelpress::model::CompiledModel;
-use kernelpress::{Error, Result};
+
+use kernelpress::export::{
+    check_precision, check_precision_guarded, export, export_guarded, ExportOptions, Format,
+    Precision,
+};
+use kernelpress::model::{CompiledModel, GuardedModel};
+use kernelpress::{Error, ErrorKind, Result};
 use std::path::PathBuf;
 
 /// Export a compiled model's weights and program to where it will run.
@@ -17,13 +21,25 @@ use std::path::PathBuf;
 ///   rust         one dependency-free module, no unsafe.
 ///   npy          one .npy per tensor and program.json (the steps, as in the model file).
 ///   safetensors  the same tensors in one file, the description in its metadata.
-/// Every format carries the input scaling and the teacher's label rule. Tensor Sketch
-/// programs export to onnx, npy and safetensors only.
+/// Every format carries the input scaling, the teacher's label rule and a description:
+/// the input columns in order, labels, decision rule, method and size, the exact model's
+/// fingerprint and the agreement measured at compile time (onnx metadata_props; C
+/// kp_input_name, kp_model_info and KP_INPUT_NAMES; Rust constants; npy/safetensors
+/// export_info). Tensor Sketch programs export to onnx, npy and safetensors only.
+///
+/// Guarded models (compile --guard-agreement) export whole: the compiled stage at
+/// --precision, the exact fallback in f32, the guard's rule and threshold. C and Rust run
+/// the exact expansion only for the rows the guard sends to it; ONNX computes both stages
+/// for every row and selects per row (output `stage`); npy and safetensors carry the
+/// exact.* tensors and the guard section. --stage compact exports the compiled stage alone.
 ///
 /// --precision f16 stores the dense projections, landmarks and head as binary16; int8
 /// stores the dense projections and the head as int8 with one scale per output; signs and
 /// indices stay exact; computation is f32. --check-data measures what the precision costs
-/// on your rows (weights at that precision, arithmetic in f64, against the f64 model).
+/// on your rows against the f64 model twice: the weights alone (arithmetic in f64) and as
+/// shipped (arithmetic in f32); it warns when labels change on more than 1% of the rows,
+/// and --min-agreement P is a gate on the shipped label agreement (exit 3; with
+/// --discard-below-gate nothing is written).
 ///
 /// Examples:
 ///   kernelpress export pump_compiled.safetensors --format onnx --out pump.onnx
@@ -50,6 +66,17 @@ pub(crate) struct Args {
     /// Take the columns of --check-data in file order instead of by name.
     #[arg(long)]
     by_position: bool,
+    /// Which model to export from a guarded file: guarded (the whole guarded model, the
+    /// default) or compact (its compiled stage alone).
+    #[arg(long, default_value = "guarded")]
+    stage: String,
+    /// Gate: exit with code 3 when the shipped labels agree with the f64 model's on less
+    /// than this share of the --check-data rows.
+    #[arg(long)]
+    min_agreement: Option<f64>,
+    /// With a failed --min-agreement gate, write nothing.
+    #[arg(long)]
+    discard_below_gate: bool,
     /// Symbol prefix of the C export.
     #[arg(long, default_value = "kp")]
     prefix: String,
@@ -82,30 +109,116 @@ pub(crate) fn run(a: Args) -> Result<()> {
     opts.precision = Precision::parse(&a.precision)?;
     opts.prefix = a.prefix.clone();
     opts.replace_folder = a.replace_folder;
-    if kernelpress::model::TensorFile::read(&a.model)?
-        .get_str("kind", &a.model.display().to_string())
-        .ok()
-        .as_deref()
-        == Some("guarded")
-    {
+    if a.stage != "guarded" && a.stage != "compact" {
         return Err(Error::input(format!(
-            "{}: a guarded model (compiled stage plus exact fallback) cannot be exported: no format carries the guard yet (ONNX, C, Rust, npy and safetensors all refuse); export the compiled model it was built from and keep the fallback in your serving code",
-            a.model.display()
+            "--stage '{}' is unknown; expected guarded or compact",
+            a.stage
         )));
     }
-    let model = CompiledModel::load(&a.model)?;
+    if let Some(p) = a.min_agreement {
+        if !(0.0..=1.0).contains(&p) {
+            return Err(Error::input(format!(
+                "--min-agreement {p} must be between 0 and 1"
+            )));
+        }
+        if a.check_data.is_none() {
+            return Err(Error::input(
+                "--min-agreement judges the export on rows: give --check-data FILE",
+            ));
+        }
+    }
+    let src = a.model.display().to_string();
+    let file = kernelpress::model::TensorFile::read(&a.model)?;
+    let is_guarded = file.get_str("kind", &src).ok().as_deref() == Some("guarded");
+    let guard = if is_guarded && a.stage == "guarded" {
+        Some(GuardedModel::from_file(&file, &src)?)
+    } else {
+        None
+    };
+    let model = match (&guard, is_guarded) {
+        (Some(g), _) => g.compact().clone(),
+        (None, true) => {
+            // The compiled stage alone: the stored report judged the guarded model, so it
+            // does not describe this one.
+            let g = GuardedModel::from_file(&file, &src)?;
+            let mut m = g.compact().clone();
+            m.report = serde_json::json!({"note": "compiled stage extracted from a guarded model; its own agreement was not stored"});
+            m.exact_fingerprint = Some(g.exact().fingerprint());
+            m
+        }
+        (None, false) => CompiledModel::from_file(&file, &src)?,
+    };
     super::note_unverified(&a.model);
     let check = match &a.check_data {
         Some(p) => {
             let t = super::read_for(p, a.target.as_deref(), &model.feature_names, a.by_position)?;
-            Some(check_precision(&model, opts.precision, t.x.view())?)
+            Some(match &guard {
+                Some(g) => check_precision_guarded(g, opts.precision, t.x.view())?,
+                None => check_precision(&model, opts.precision, t.x.view())?,
+            })
         }
         None => None,
     };
-    let mut sum = export(&model, &opts, &a.out)?;
+    let mut text = String::new();
+    let mut gate = None;
+    if let Some(c) = &check {
+        text.push_str(&format!(
+            "precision check on {} rows: weights at {} (f64 arithmetic) max |Δdecision| {:.3e}, RMS {:.3e}",
+            c.rows,
+            opts.precision.name(),
+            c.max_abs_decision_change,
+            c.rms_decision_change
+        ));
+        if let Some(ag) = c.label_agreement {
+            text.push_str(&format!(", labels unchanged on {ag:.4}"));
+        }
+        text.push_str(&format!(
+            "\n  as shipped (f32 arithmetic): max |Δdecision| {:.3e}",
+            c.shipped_max_abs_decision_change
+        ));
+        if let Some(ag) = c.shipped_label_agreement {
+            text.push_str(&format!(", labels unchanged on {ag:.4}"));
+            if ag < 0.99 {
+                text.push_str(&format!(
+                    "\nwarning: labels change on {:.1}% of the check rows at {}: validate this export before use, or export at a higher precision",
+                    100.0 * (1.0 - ag),
+                    opts.precision.name()
+                ));
+            }
+            if let Some(p) = a.min_agreement {
+                if ag < p {
+                    gate = Some(format!(
+                        "shipped label agreement {ag:.4} < --min-agreement {p}"
+                    ));
+                }
+            }
+        } else if a.min_agreement.is_some() {
+            return Err(Error::input(
+                "--min-agreement applies to classifiers; this model is a regression",
+            ));
+        }
+        text.push('\n');
+    }
+    if let (Some(why), true) = (&gate, a.discard_below_gate) {
+        text.push_str(&format!(
+            "not written: {} (--discard-below-gate)\n",
+            a.out.display()
+        ));
+        super::print_stdout(&text)?;
+        return Err(Error::new(ErrorKind::Gate, why.clone()));
+    }
+    let mut sum = match &guard {
+        Some(g) => export_guarded(g, &opts, &a.out)?,
+        None => export(&model, &opts, &a.out)?,
+    };
     sum.check = check;
-    let mut text = format!(
-        "exported {} ({} features, {}) as {} at {}\n",
+    let what = match (&guard, is_guarded) {
+        (Some(_), _) => "guarded model",
+        (None, true) => "compiled stage",
+        (None, false) => "model",
+    };
+    let mut head = format!(
+        "exported {} ({what}: {} features, {}) as {} at {}\n",
         a.model.display(),
         model.features(),
         model.spec().method.name(),
@@ -113,28 +226,19 @@ pub(crate) fn run(a: Args) -> Result<()> {
         sum.precision
     );
     for (f, n) in &sum.files {
-        text.push_str(&format!("  wrote {f} ({})\n", human_bytes(*n)));
+        head.push_str(&format!("  wrote {f} ({})\n", human_bytes(*n)));
     }
     for l in &sum.steps {
-        text.push_str(&format!("  {l}\n"));
+        head.push_str(&format!("  {l}\n"));
     }
-    if let Some(c) = &sum.check {
-        text.push_str(&format!(
-            "precision check on {} rows: max |Δdecision| {:.3e}, RMS {:.3e}",
-            c.rows, c.max_abs_decision_change, c.rms_decision_change
-        ));
-        if let Some(ag) = c.label_agreement {
-            text.push_str(&format!(", labels unchanged on {:.4}", ag));
-        }
-        text.push('\n');
-    }
+    head.push_str(&text);
     if let Some(p) = &a.summary {
         write_atomic(
             p,
             format!("{}\n", serde_json::to_string_pretty(&sum).unwrap()).as_bytes(),
         )?;
     }
-    super::print_stdout(&text)
+    super::finish_gate(&head, gate, &a.out)
 }
 
 fn human_bytes(n: u64) -> String {

@@ -69,13 +69,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         a.by_position,
     )?;
     let (s, stages) = if a.f32 {
-        let s = model.decision_f32(t.x.view()).ok_or_else(|| {
-            kernelpress::Error::input(format!(
-                "{}: a guarded model scores in f64 only (its threshold was calibrated on f64 decisions); leave out --f32",
-                a.model.display()
-            ))
-        })?;
-        (s, None)
+        model.decision_f32_with_stage(t.x.view())
     } else {
         model.decision_with_stage(t.x.view())
     };

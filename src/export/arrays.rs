@@ -3,10 +3,16 @@
 //! model file's manifest (README, "Model files") plus a `tensors` map: for each tensor its
 //! file (npy), dtype and shape, and for int8 weights the name of its f32 scales and the axis
 //! they run along (`w = q · scale`, one scale per row for axis 0, per column for axis 1).
+//! The description also carries `export_info` (the columns in order, labels, decision rule,
+//! method, exact model fingerprint, agreement at compile time). A guarded model adds its
+//! exact fallback as `exact.support_vectors` `[n, d]`, `exact.coefficients` `[n, k]` and
+//! `exact.intercepts` `[k]` in float32 whatever the precision, and the `guard` section of the
+//! model file (`rule`, `threshold`; README, "Guarded models").
 
+use super::meta::ArtefactInfo;
 use super::precision::{Quant, Quantized};
 use crate::format::{Data, TensorFile};
-use crate::model::CompiledModel;
+use crate::model::{CompiledModel, GuardedModel};
 use crate::Result;
 use serde_json::{json, Map, Value};
 use std::path::{Path, PathBuf};
@@ -35,10 +41,24 @@ fn npy(dtype: &str, shape: &[usize], data: &[u8]) -> Vec<u8> {
 type Named = (String, Vec<usize>, Data);
 
 /// The tensors of `q` as (name, shape, data) plus their entries in the description.
-fn entries(q: &Quantized) -> (Vec<Named>, Map<String, Value>) {
+fn entries(q: &Quantized, guard: Option<&GuardedModel>) -> (Vec<Named>, Map<String, Value>) {
     let mut out = Vec::new();
     let mut desc = Map::new();
-    for (name, (shape, v)) in &q.tensors {
+    let mut exact = Vec::new();
+    if let Some(g) = guard {
+        for (name, t) in g.exact().to_file().tensors {
+            if let (true, Data::F64(v)) = (name.starts_with("exact."), &t.data) {
+                exact.push((
+                    name,
+                    (
+                        t.shape.clone(),
+                        Quant::F32(v.iter().map(|x| *x as f32).collect()),
+                    ),
+                ));
+            }
+        }
+    }
+    for (name, (shape, v)) in q.tensors.iter().chain(exact.iter().map(|(n, t)| (n, t))) {
         let (data, dtype) = match v {
             Quant::F32(x) => (Data::F32(x.clone()), "float32"),
             Quant::F16(x) => (Data::F16(x.clone()), "float16"),
@@ -61,10 +81,29 @@ fn entries(q: &Quantized) -> (Vec<Named>, Map<String, Value>) {
     (out, desc)
 }
 
-fn description(model: &CompiledModel, q: &Quantized, tensors: Map<String, Value>) -> Value {
-    let f = model.to_file();
+fn description(
+    model: &CompiledModel,
+    guard: Option<&GuardedModel>,
+    q: &Quantized,
+    tensors: Map<String, Value>,
+) -> Value {
+    let f = match guard {
+        Some(g) => g.to_file(),
+        None => model.to_file(),
+    };
     let mut m = f.manifest.clone();
-    m.insert("kind".into(), json!("compiled-weights"));
+    let kind = if guard.is_some() {
+        "guarded-weights"
+    } else {
+        "compiled-weights"
+    };
+    m.insert("kind".into(), json!(kind));
+    let info: Map<String, Value> = ArtefactInfo::of(model, guard)
+        .pairs()
+        .into_iter()
+        .map(|(k, v)| (k, json!(v)))
+        .collect();
+    m.insert("export_info".into(), Value::Object(info));
     m.insert("precision".into(), json!(q.precision.name()));
     m.insert("tensors".into(), Value::Object(tensors));
     Value::Object(m)
@@ -83,11 +122,12 @@ fn bytes_of(d: &Data) -> (&'static str, Vec<u8>) {
 /// A folder of `.npy` files (one per tensor, named after it) and `program.json`.
 pub fn write_npy(
     model: &CompiledModel,
+    guard: Option<&GuardedModel>,
     q: &Quantized,
     dir: &Path,
     replace: bool,
 ) -> Result<(Vec<PathBuf>, Vec<String>)> {
-    let (ts, mut desc) = entries(q);
+    let (ts, mut desc) = entries(q, guard);
     let mut files: Vec<(String, Vec<u8>)> = Vec::new();
     for (name, shape, data) in &ts {
         let (dt, raw) = bytes_of(data);
@@ -99,7 +139,7 @@ pub fn write_npy(
             desc.insert(name.clone(), json!({"file": file}));
         }
     }
-    let d = description(model, q, desc);
+    let d = description(model, guard, q, desc);
     files.push((
         "program.json".into(),
         format!("{}\n", serde_json::to_string_pretty(&d).expect("json")).into_bytes(),
@@ -114,15 +154,16 @@ pub fn write_npy(
 /// One safetensors file with the description in its metadata.
 pub fn write_safetensors(
     model: &CompiledModel,
+    guard: Option<&GuardedModel>,
     q: &Quantized,
     out: &Path,
 ) -> Result<(Vec<PathBuf>, Vec<String>)> {
-    let (ts, desc) = entries(q);
+    let (ts, desc) = entries(q, guard);
     let mut f = TensorFile::default();
     for (name, shape, data) in ts {
         f.put_data(&name, shape, data);
     }
-    if let Value::Object(m) = description(model, q, desc) {
+    if let Value::Object(m) = description(model, guard, q, desc) {
         f.manifest = m;
     }
     f.write(out)?;

@@ -1,14 +1,23 @@
 //! C export: `kp_model.h` and `kp_model.c` in a folder — self-contained C99 that needs only
 //! libm, weights as `static const` arrays, no allocation, re-entrant (every buffer is a
-//! local array), symbols prefixed by `--prefix` (`kp` by default). The header declares
-//! `int kp_input_dim(void)`, `int kp_output_dim(void)`,
-//! `void kp_decision(const float *x, float *out)` (same order and sign as `score`, input
-//! scaling applied inside), `int kp_label_index(const float *x)` and, for classifiers,
-//! `const char *kp_label_name(int index)`. Computation is in f32.
+//! local array), symbols prefixed by `--prefix` (`kp` by default). The header describes the
+//! model in a comment (columns, scaling, labels, decision rule, method, exact model
+//! fingerprint, agreement at compile time), defines `KP_INPUT_NAMES` (the input columns in
+//! order, as an initializer) and declares `int kp_input_dim(void)`,
+//! `const char *kp_input_name(int index)`, `const char *kp_model_info(void)`,
+//! `int kp_output_dim(void)`, `void kp_decision(const float *x, float *out)` (same order
+//! and sign as `score`, input scaling applied inside), `int kp_label_index(const float *x)`
+//! and, for classifiers, `const char *kp_label_name(int index)`. A guarded model adds
+//! `int kp_decision_stage(const float *x, float *out)`, which also says which stage
+//! answered; its exact expansion runs only for the rows (and, under the pairs rule, only
+//! over the support vectors of the pairs) the guard sends to it. Computation is in f32;
+//! strings escape `?` so that no trigraph survives `-std=c99`.
 
 use super::code::{self, Lang};
+use super::meta::ArtefactInfo;
 use super::precision::Quantized;
-use crate::model::{CompiledModel, Task};
+use crate::model::guarded::GuardRule;
+use crate::model::{CompiledModel, GuardedModel, Task};
 use crate::{Error, Result};
 use std::fmt::Write;
 use std::path::{Path, PathBuf};
@@ -19,6 +28,8 @@ fn c_string(s: &str) -> String {
         match ch {
             b'"' => o.push_str("\\\""),
             b'\\' => o.push_str("\\\\"),
+            // `??/` and the other trigraphs are read as other characters under -std=c99.
+            b'?' => o.push_str("\\?"),
             0x20..=0x7e => o.push(ch as char),
             other => {
                 let _ = write!(o, "\\{other:03o}");
@@ -29,9 +40,77 @@ fn c_string(s: &str) -> String {
     o
 }
 
-/// Writes `dir/kp_model.h` and `dir/kp_model.c`.
+/// Text safe inside a C comment: printable ASCII, no comment ends, no trigraphs.
+fn comment_text(s: &str) -> String {
+    s.chars()
+        .map(|c| if (' '..='~').contains(&c) { c } else { '_' })
+        .collect::<String>()
+        .replace("*/", "* /")
+        .replace("??", "?_?")
+}
+
+/// The label rule of a row of decisions `s` (`k` of them), leaving the index in `best`.
+fn label_rule(task: Task, k: usize, nl: usize) -> String {
+    match task {
+        Task::Regression => "    int best = 0;".into(),
+        Task::Binary => "    int best = s[0] > 0.0f ? 1 : 0;".into(),
+        Task::Ovr => format!(
+            "    int best = 0;\n    for (int j = 1; j < {k}; j++) if (s[j] > s[best]) best = j;"
+        ),
+        Task::Ovo => format!(
+            "    int votes[{nl}] = {{0}};\n    int p = 0;\n    for (int i = 0; i < {nl}; i++)\n        for (int j = i + 1; j < {nl}; j++, p++)\n            votes[s[p] > 0.0f ? i : j]++;\n    int best = 0;\n    for (int i = 1; i < {nl}; i++) if (votes[i] > votes[best]) best = i;"
+        ),
+    }
+}
+
+/// The guard's plan for compiled decisions `s`: fills `need` and returns the stage (0 the
+/// compiled stage alone, 1 the exact model alone, 2 some outputs exact), as
+/// `GuardedModel::decision` decides.
+fn plan_fn(g: &GuardedModel, prefix: &str, k: usize) -> String {
+    let nl = g.exact().labels().len();
+    let t = code::threshold_lit(g.threshold(), Lang::C);
+    let mut f = format!("static int {prefix}_plan(const float *s, unsigned char *need) {{\n");
+    match g.guard_rule() {
+        GuardRule::Row => {
+            f.push_str(&label_rule(g.exact().task(), k, nl));
+            f.push('\n');
+            match g.exact().task() {
+                Task::Binary => f.push_str("    (void)best;\n    float conf = fabsf(s[0]);\n"),
+                Task::Ovr => {
+                    let _ = write!(
+                        f,
+                        "    float other = -HUGE_VALF;\n    for (int j = 0; j < {k}; j++) if (j != best && s[j] > other) other = s[j];\n    float conf = s[best] - other;\n"
+                    );
+                }
+                Task::Ovo => {
+                    let _ = write!(
+                        f,
+                        "    float conf = HUGE_VALF;\n    p = 0;\n    for (int i = 0; i < {nl}; i++)\n        for (int j = i + 1; j < {nl}; j++, p++) {{\n            if (i == best && s[p] < conf) conf = s[p];\n            if (j == best && -s[p] < conf) conf = -s[p];\n        }}\n"
+                    );
+                }
+                Task::Regression => unreachable!("guards need classifiers"),
+            }
+            let _ = write!(
+                f,
+                "    int all = conf < {t};\n    for (int c = 0; c < {k}; c++) need[c] = (unsigned char)all;\n    return all;\n}}\n"
+            );
+        }
+        GuardRule::Pairs => {
+            let _ = write!(
+                f,
+                "    int votes[{nl}] = {{0}}, gain[{nl}] = {{0}}, loss[{nl}] = {{0}};\n    unsigned char contender[{nl}];\n    int p = 0;\n    for (int i = 0; i < {nl}; i++)\n        for (int j = i + 1; j < {nl}; j++, p++) {{\n            int w = s[p] > 0.0f ? i : j, l = s[p] > 0.0f ? j : i;\n            votes[w]++;\n            if (fabsf(s[p]) < {t}) {{ loss[w]++; gain[l]++; }}\n        }}\n    int best = 0;\n    for (int c = 1; c < {nl}; c++) if (votes[c] > votes[best]) best = c;\n    int floor_votes = votes[best] - loss[best];\n    for (int c = 0; c < {nl}; c++) contender[c] = (unsigned char)(c == best || votes[c] + gain[c] >= floor_votes);\n    int any = 0, all = 1;\n    p = 0;\n    for (int i = 0; i < {nl}; i++)\n        for (int j = i + 1; j < {nl}; j++, p++) {{\n            need[p] = (unsigned char)(fabsf(s[p]) < {t} && (contender[i] || contender[j]));\n            if (need[p]) any = 1; else all = 0;\n        }}\n    return any ? (all ? 1 : 2) : 0;\n}}\n"
+            );
+        }
+    }
+    f
+}
+
+/// Writes `dir/kp_model.h` and `dir/kp_model.c`; with `guard`, the model is that guarded
+/// model (whose compiled stage is `model`): the exact expansion runs only for the rows, and
+/// the outputs, the guard sends to it.
 pub fn write(
     model: &CompiledModel,
+    guard: Option<&GuardedModel>,
     q: &Quantized,
     prefix: &str,
     dir: &Path,
@@ -53,22 +132,48 @@ pub fn write(
             dir.display()
         )));
     }
-    let code = code::scorer(model, q)?;
+    let mut code = code::scorer(model, q)?;
+    let mut lines = std::mem::take(&mut code.lines);
+    let exact = guard.map(|g| code::exact_part(&mut code, g.exact()));
     let (d, k) = (model.input_dim(), model.n_outputs());
+    let info = ArtefactInfo::of(model, guard);
     let up = prefix.to_uppercase();
     let mut h = String::new();
+    let what = if guard.is_some() {
+        "guarded model: compiled stage with exact fallback"
+    } else {
+        "compiled model"
+    };
     let _ = writeln!(
         h,
-        "/* Generated by kernelpress {}: {} features ({}) of {}. C99, libm only. */",
+        "/* Generated by kernelpress {}: {what}, {} features ({}) of {}. C99, libm only.\n",
         env!("CARGO_PKG_VERSION"),
         model.features(),
         model.spec().method.name(),
-        model.spec().kernel
+        comment_text(&model.spec().kernel.to_string())
     );
+    for (key, val) in info.pairs() {
+        let _ = writeln!(h, "   {}: {}", key, comment_text(&val));
+    }
+    let _ = writeln!(h, "*/\n");
     let _ = writeln!(h, "#ifndef {up}_MODEL_H\n#define {up}_MODEL_H\n");
+    let names: Vec<String> = info.columns.iter().map(|c| c_string(c)).collect();
+    let _ = writeln!(
+        h,
+        "/* The input columns in the order x[] takes them, as an initializer:\n   static const char *const columns[{d}] = {up}_INPUT_NAMES; */\n#define {up}_INPUT_NAMES {{ {} }}\n",
+        names.join(", ")
+    );
     let _ = writeln!(
         h,
         "/* Number of inputs (raw, unscaled) of one row. */\nint {prefix}_input_dim(void);"
+    );
+    let _ = writeln!(
+        h,
+        "/* Name of input column `index` (NULL when out of range). */\nconst char *{prefix}_input_name(int index);"
+    );
+    let _ = writeln!(
+        h,
+        "/* What this model is (\"key: value\" lines: columns, scaling, labels, decision rule,\n   method, exact model fingerprint, agreement measured at compile time). */\nconst char *{prefix}_model_info(void);"
     );
     let _ = writeln!(
         h,
@@ -78,6 +183,12 @@ pub fn write(
         h,
         "/* Decision values of the row x[{d}] into out[{k}], in the order and sign of `kernelpress score`. */\nvoid {prefix}_decision(const float *x, float *out);"
     );
+    if guard.is_some() {
+        let _ = writeln!(
+            h,
+            "/* As {prefix}_decision, and returns the stage that answered: 0 the compiled stage,\n   1 the exact model, 2 the compiled stage with some pairs recomputed exactly. */\nint {prefix}_decision_stage(const float *x, float *out);"
+        );
+    }
     let _ = writeln!(
         h,
         "/* Index of the predicted class (0 for regression models). */\nint {prefix}_label_index(const float *x);"
@@ -107,30 +218,62 @@ pub fn write(
     c.push_str(&code::declare(&code.arrays, Lang::C));
     let _ = writeln!(c, "\nint {prefix}_input_dim(void) {{ return {d}; }}");
     let _ = writeln!(c, "int {prefix}_output_dim(void) {{ return {k}; }}\n");
-    let _ = writeln!(c, "void {prefix}_decision(const float *x, float *out) {{");
+    let _ = writeln!(
+        c,
+        "const char *{prefix}_input_name(int index) {{\n    static const char *const names[{d}] = {up}_INPUT_NAMES;\n    return index >= 0 && index < {d} ? names[index] : NULL;\n}}\n"
+    );
+    let _ = writeln!(
+        c,
+        "const char *{prefix}_model_info(void) {{\n    return {};\n}}\n",
+        c_string(&info.text())
+    );
+    let compact_name = if guard.is_some() {
+        format!("static void {prefix}_compact")
+    } else {
+        format!("void {prefix}_decision")
+    };
+    let _ = writeln!(c, "{compact_name}(const float *x, float *out) {{");
     code::stmts(&code.body, Lang::C, &code.arrays, 1, &mut c);
     let _ = writeln!(c, "}}\n");
+    if let (Some(g), Some(e)) = (guard, &exact) {
+        let _ = writeln!(
+            c,
+            "/* The exact expansion of the outputs marked in need[], from the support vectors\n   of the groups that feed them. */\nstatic void {prefix}_exact_some(const float *x, const unsigned char *need, float *out) {{"
+        );
+        code::stmts(&e.scale, Lang::C, &code.arrays, 1, &mut c);
+        let _ = writeln!(
+            c,
+            "    for (int c = 0; c < {k}; c++) if (need[c]) out[c] = EXACT_BIAS[c];\n    for (int g = 0; g < {}; g++) {{\n        int use = 0;\n        for (int c = 0; c < {k}; c++) if (need[c] && EXACT_GROUP_OUTPUTS[g * {k} + c]) use = 1;\n        if (!use) continue;\n        for (int l = EXACT_GROUP_START[g]; l < EXACT_GROUP_START[g + 1]; l++) {{",
+            e.groups
+        );
+        code::stmts(&e.kernel, Lang::C, &code.arrays, 3, &mut c);
+        let _ = writeln!(
+            c,
+            "            const float kv = {};\n            for (int c = 0; c < {k}; c++) if (need[c]) out[c] += kv * EXACT_COEF[l * {k} + c];\n        }}\n    }}\n}}\n",
+            code::expr(&e.value, Lang::C, &code.arrays)
+        );
+        c.push_str(&plan_fn(g, prefix, k));
+        let _ = writeln!(
+            c,
+            "\nint {prefix}_decision_stage(const float *x, float *out) {{\n    unsigned char need[{k}];\n    {prefix}_compact(x, out);\n    int stage = {prefix}_plan(out, need);\n    if (stage) {prefix}_exact_some(x, need, out);\n    return stage;\n}}\n\nvoid {prefix}_decision(const float *x, float *out) {{\n    (void){prefix}_decision_stage(x, out);\n}}\n"
+        );
+        lines.push(format!(
+            "guard: {} below {} sends outputs to the exact expansion ({} support vectors in {} groups, f32), run only for those rows",
+            g.guard_rule().describe(),
+            g.threshold(),
+            g.exact().n_support_vectors(),
+            e.groups
+        ));
+    }
     let _ = writeln!(c, "int {prefix}_label_index(const float *x) {{");
     let _ = writeln!(c, "    float s[{k}];\n    {prefix}_decision(x, s);");
+    let nl = model.labels().len();
     match model.task() {
         Task::Regression => {
             let _ = writeln!(c, "    (void)s;\n    return 0;");
         }
-        Task::Binary => {
-            let _ = writeln!(c, "    return s[0] > 0.0f ? 1 : 0;");
-        }
-        Task::Ovr => {
-            let _ = writeln!(
-                c,
-                "    int best = 0;\n    for (int j = 1; j < {k}; j++) if (s[j] > s[best]) best = j;\n    return best;"
-            );
-        }
-        Task::Ovo => {
-            let nl = model.labels().len();
-            let _ = writeln!(
-                c,
-                "    int votes[{nl}] = {{0}};\n    int p = 0;\n    for (int i = 0; i < {nl}; i++)\n        for (int j = i + 1; j < {nl}; j++, p++)\n            votes[s[p] > 0.0f ? i : j]++;\n    int best = 0;\n    for (int i = 1; i < {nl}; i++) if (votes[i] > votes[best]) best = i;\n    return best;"
-            );
+        t => {
+            let _ = writeln!(c, "{}\n    return best;", label_rule(t, k, nl));
         }
     }
     let _ = writeln!(c, "}}");
@@ -152,5 +295,5 @@ pub fn write(
         ],
         replace,
     )?;
-    Ok((paths, code.lines))
+    Ok((paths, lines))
 }

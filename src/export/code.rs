@@ -791,3 +791,114 @@ pub(crate) fn declare(arrays: &[Array], lang: Lang) -> String {
 pub(crate) fn uses_f16(arrays: &[Array]) -> bool {
     arrays.iter().any(|a| matches!(a.data, ArrayData::F16(_)))
 }
+
+/// The exact fallback of a guarded export: the support vectors ordered by the outputs
+/// their coefficients feed (those feeding none dropped), in groups of one pattern, so that
+/// a subset of outputs reads only the groups that feed it.
+pub(crate) struct ExactPart {
+    /// Statements computing the kernel value of support vector `l` against the scaled
+    /// row in buffer `v0`, then the value.
+    pub kernel: Vec<S>,
+    pub value: E,
+    /// Number of groups (`EXACT_GROUP_START` has one more entry).
+    pub groups: usize,
+    /// Statements filling the scaled row `v0` from `x`.
+    pub scale: Vec<S>,
+}
+
+/// Declares the exact model's arrays (`EXACT_SV`, `EXACT_COEF` `[n × k]`, `EXACT_BIAS`,
+/// `EXACT_GROUP_START`, `EXACT_GROUP_OUTPUTS` `[groups × k]`, 1 where the group feeds the
+/// output) in f32 whatever the export precision, and returns its statements. The scaling
+/// arrays are those [`scorer`] declared (a guard's two stages share their scaling).
+pub(crate) fn exact_part(code: &mut Code, exact: &crate::model::ExactModel) -> ExactPart {
+    let sv = exact.support_vectors();
+    let coef = exact.coef();
+    let (n, k) = coef.dim();
+    let d = sv.ncols();
+    let pattern = |i: usize| -> Vec<bool> { coef.row(i).iter().map(|c| *c != 0.0).collect() };
+    let mut order: Vec<usize> = (0..n)
+        .filter(|&i| coef.row(i).iter().any(|c| *c != 0.0))
+        .collect();
+    order.sort_by_key(|&i| std::cmp::Reverse(pattern(i)));
+    let mut starts = vec![0i32];
+    let mut group_out: Vec<i8> = Vec::new();
+    let mut last: Option<Vec<bool>> = None;
+    for (r, &i) in order.iter().enumerate() {
+        let p = pattern(i);
+        if last.as_ref() != Some(&p) {
+            if last.is_some() {
+                starts.push(r as i32);
+            }
+            group_out.extend(p.iter().map(|&b| i8::from(b)));
+            last = Some(p);
+        }
+    }
+    starts.push(order.len() as i32);
+    if order.is_empty() {
+        starts = vec![0, 0];
+        group_out = vec![0; k];
+    }
+    let groups = starts.len() - 1;
+    let svs: Vec<f32> = order
+        .iter()
+        .flat_map(|&i| sv.row(i).iter().map(|v| *v as f32).collect::<Vec<_>>())
+        .collect();
+    let cs: Vec<f32> = order
+        .iter()
+        .flat_map(|&i| coef.row(i).iter().map(|v| *v as f32).collect::<Vec<_>>())
+        .collect();
+    code.f32_array("EXACT_SV", svs);
+    code.f32_array("EXACT_COEF", cs);
+    code.f32_array(
+        "EXACT_BIAS",
+        exact.intercept().iter().map(|v| *v as f32).collect(),
+    );
+    code.arrays.push(Array {
+        name: "EXACT_GROUP_START".into(),
+        data: ArrayData::Index(starts),
+    });
+    code.arrays.push(Array {
+        name: "EXACT_GROUP_OUTPUTS".into(),
+        data: ArrayData::Signs(group_out),
+    });
+    let mut kernel_stmts = Vec::new();
+    let value = kernel(code, exact.kernel(), "v0", "EXACT_SV", d, &mut kernel_stmts);
+    let input = if exact.scaling().is_some() {
+        assert!(
+            code.arrays.iter().any(|a| a.name == "INPUT_MEAN"),
+            "the compiled stage declares the scaling"
+        );
+        div(
+            sub(buf("x", v("j")), w("INPUT_MEAN", v("j"))),
+            w("INPUT_SCALE", v("j")),
+        )
+    } else {
+        buf("x", v("j"))
+    };
+    let scale = vec![
+        S::Buf("v0".into(), d),
+        for_(
+            "j",
+            E::Ix(0),
+            E::Ix(d),
+            vec![S::Store("v0".into(), v("j"), input)],
+        ),
+    ];
+    ExactPart {
+        kernel: kernel_stmts,
+        value,
+        groups,
+        scale,
+    }
+}
+
+/// A threshold literal (infinities allowed).
+pub(crate) fn threshold_lit(t: f64, lang: Lang) -> String {
+    match (t.is_finite(), t > 0.0, lang) {
+        (true, _, _) => lit(t, lang),
+        (false, true, Lang::C) => "HUGE_VALF".into(),
+        (false, false, Lang::C) => "(-HUGE_VALF)".into(),
+        (false, true, Lang::Rust) => "f32::INFINITY".into(),
+        (false, false, Lang::Rust) => "f32::NEG_INFINITY".into(),
+    }
+}

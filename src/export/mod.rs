@@ -16,13 +16,14 @@
 pub mod arrays;
 pub mod c;
 mod code;
+pub mod meta;
 pub mod onnx;
 pub mod precision;
 pub mod rust;
 
-pub use precision::{check_precision, PrecisionCheck, Quant};
+pub use precision::{check_precision, check_precision_guarded, PrecisionCheck, Quant};
 
-use crate::model::CompiledModel;
+use crate::model::{CompiledModel, GuardedModel};
 use crate::{Error, Result};
 use serde::Serialize;
 use std::path::Path;
@@ -152,13 +153,31 @@ pub struct ExportSummary {
 /// Writes `model` to `out` (a file, or a folder for C and `.npy`). Every output is written
 /// atomically; nothing is written when the model cannot be exported to the format.
 pub fn export(model: &CompiledModel, opts: &ExportOptions, out: &Path) -> Result<ExportSummary> {
+    export_with(model, None, opts, out)
+}
+
+/// Writes the guarded model `g` to `out`: its compiled stage at the export precision, its
+/// exact fallback in f32, and the guard's rule and threshold. ONNX evaluates both stages
+/// for every row and selects per row (a graph cannot branch per row); C and Rust run the
+/// exact expansion only for the rows the guard sends to it; plain weights carry the
+/// `exact.*` tensors and the `guard` section for the caller's own code.
+pub fn export_guarded(g: &GuardedModel, opts: &ExportOptions, out: &Path) -> Result<ExportSummary> {
+    export_with(g.compact(), Some(g), opts, out)
+}
+
+fn export_with(
+    model: &CompiledModel,
+    guard: Option<&GuardedModel>,
+    opts: &ExportOptions,
+    out: &Path,
+) -> Result<ExportSummary> {
     let q = precision::quantize(model, opts.precision);
     let (files, steps) = match opts.format {
-        Format::Onnx => onnx::write(model, &q, out)?,
-        Format::C => c::write(model, &q, &opts.prefix, out, opts.replace_folder)?,
-        Format::Rust => rust::write(model, &q, out)?,
-        Format::Npy => arrays::write_npy(model, &q, out, opts.replace_folder)?,
-        Format::Safetensors => arrays::write_safetensors(model, &q, out)?,
+        Format::Onnx => onnx::write(model, guard, &q, out)?,
+        Format::C => c::write(model, guard, &q, &opts.prefix, out, opts.replace_folder)?,
+        Format::Rust => rust::write(model, guard, &q, out)?,
+        Format::Npy => arrays::write_npy(model, guard, &q, out, opts.replace_folder)?,
+        Format::Safetensors => arrays::write_safetensors(model, guard, &q, out)?,
     };
     let files = files
         .into_iter()

@@ -9,7 +9,7 @@
 
 use super::Precision;
 use crate::format::{Data, TensorFile};
-use crate::model::CompiledModel;
+use crate::model::{CompiledModel, GuardedModel};
 use crate::{Error, Result};
 use ndarray::ArrayView2;
 use serde::Serialize;
@@ -232,19 +232,42 @@ pub fn dequantized_model(model: &CompiledModel, q: &Quantized) -> Result<Compile
     CompiledModel::from_file(&f, "export")
 }
 
-/// What a precision costs on given rows, measured against the f64 model: the weights at
-/// the export precision, arithmetic in f64 (the exports compute in f32, which adds rounding
-/// of the order of 1e-6 relative).
+/// What a precision costs on given rows, measured against the f64 model twice: the weights
+/// at the export precision with arithmetic in f64 (the cost of the weights alone, which a
+/// float64 reader of the plain weights reproduces), and as shipped — the same weights with
+/// arithmetic in f32, as the C, Rust and ONNX exports compute.
 #[derive(Debug, Clone, Serialize, PartialEq)]
 pub struct PrecisionCheck {
     /// Rows checked.
     pub rows: usize,
-    /// Largest change of a decision value.
+    /// Largest change of a decision value (weights at the precision, f64 arithmetic).
     pub max_abs_decision_change: f64,
-    /// Root mean square change of the decision values.
+    /// Root mean square change of the decision values (weights at the precision, f64
+    /// arithmetic).
     pub rms_decision_change: f64,
-    /// Share of rows whose label is unchanged (classifiers).
+    /// Share of rows whose label is unchanged (classifiers; f64 arithmetic).
     pub label_agreement: Option<f64>,
+    /// Largest change of a decision value as shipped (f32 arithmetic).
+    pub shipped_max_abs_decision_change: f64,
+    /// Share of rows whose label is unchanged as shipped (classifiers; f32 arithmetic).
+    pub shipped_label_agreement: Option<f64>,
+}
+
+fn changes(
+    rule: &crate::model::OutputRule,
+    a: &ndarray::Array2<f64>,
+    b: &ndarray::Array2<f64>,
+) -> (f64, f64, Option<f64>) {
+    let n = a.len().max(1) as f64;
+    let diff = a - b;
+    let max = diff.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    let rms = (diff.iter().map(|v| v * v).sum::<f64>() / n).sqrt();
+    let agree = rule.task().is_classifier().then(|| {
+        let la = rule.indices(a.view());
+        let lb = rule.indices(b.view());
+        la.iter().zip(&lb).filter(|(p, q)| p == q).count() as f64 / la.len().max(1) as f64
+    });
+    (max, rms, agree)
 }
 
 /// Measures [`PrecisionCheck`] on raw inputs `x`.
@@ -256,21 +279,42 @@ pub fn check_precision(
     let q = quantize(model, precision);
     let low = dequantized_model(model, &q)?;
     let a = model.decision(x);
-    let b = low.decision(x);
-    let n = a.len().max(1) as f64;
-    let diff = &a - &b;
-    let max = diff.iter().fold(0.0f64, |m, v| m.max(v.abs()));
-    let rms = (diff.iter().map(|v| v * v).sum::<f64>() / n).sqrt();
-    let label_agreement = model.task().is_classifier().then(|| {
-        let la = model.rule().indices(a.view());
-        let lb = model.rule().indices(b.view());
-        la.iter().zip(&lb).filter(|(p, q)| p == q).count() as f64 / la.len().max(1) as f64
-    });
+    let (max, rms, agree) = changes(model.rule(), &a, &low.decision(x));
+    let (smax, _, sagree) = changes(model.rule(), &a, &low.decision_f32(x));
     Ok(PrecisionCheck {
         rows: x.nrows(),
         max_abs_decision_change: max,
         rms_decision_change: rms,
-        label_agreement,
+        label_agreement: agree,
+        shipped_max_abs_decision_change: smax,
+        shipped_label_agreement: sagree,
+    })
+}
+
+/// [`check_precision`] of a guarded model: its compiled stage at `precision`, its exact
+/// stage in f32 (as every export stores it), against the f64 guarded model.
+pub fn check_precision_guarded(
+    g: &GuardedModel,
+    precision: Precision,
+    x: ArrayView2<f64>,
+) -> Result<PrecisionCheck> {
+    let q = quantize(g.compact(), precision);
+    let low = GuardedModel::with_rule(
+        dequantized_model(g.compact(), &q)?,
+        g.exact().clone(),
+        g.threshold(),
+        g.guard_rule(),
+    )?;
+    let a = g.decision(x).0;
+    let (max, rms, agree) = changes(g.rule(), &a, &low.decision(x).0);
+    let (smax, _, sagree) = changes(g.rule(), &a, &low.decision_f32(x).0);
+    Ok(PrecisionCheck {
+        rows: x.nrows(),
+        max_abs_decision_change: max,
+        rms_decision_change: rms,
+        label_agreement: agree,
+        shipped_max_abs_decision_change: smax,
+        shipped_label_agreement: sagree,
     })
 }
 

@@ -303,20 +303,47 @@ impl GuardedModel {
     /// # Panics
     /// If `x` does not have the model's number of columns.
     pub fn decision(&self, x: ArrayView2<f64>) -> (Array2<f64>, Vec<u8>) {
-        let mut s = self.compact.decision(x);
-        let plans: Vec<Option<Vec<bool>>> = s
-            .rows()
-            .into_iter()
-            .map(|r| self.plan(r.as_slice().expect("a fresh batch is row-major")))
-            .collect();
-        let mut stage = vec![0u8; plans.len()];
         // Rows the exact model takes part in go through its batched path (one matrix
         // product per chunk beats reading the support vectors once per row); the pairs
         // rule keeps the exact values of the planned outputs only, as one row at a time
         // does (equal up to the order of the sums).
+        let mut s = self.compact.decision(x);
+        self.finish_batch(x, &mut s, false)
+    }
+
+    /// [`Self::decision`] in f32 arithmetic: the compiled stage's f32 path
+    /// ([`CompiledModel::decision_f32`]) and, for the rows the guard sends on, the exact
+    /// model's ([`ExactModel::decision_f32`]); the threshold is compared with the f32
+    /// decisions, as the C, Rust and ONNX exports compare it.
+    ///
+    /// # Panics
+    /// If `x` does not have the model's number of columns.
+    pub fn decision_f32(&self, x: ArrayView2<f64>) -> (Array2<f64>, Vec<u8>) {
+        let mut s = self.compact.decision_f32(x);
+        self.finish_batch(x, &mut s, true)
+    }
+
+    /// Completes compiled decisions `s` of the rows `x` by the exact model as planned.
+    fn finish_batch(
+        &self,
+        x: ArrayView2<f64>,
+        s: &mut Array2<f64>,
+        f32: bool,
+    ) -> (Array2<f64>, Vec<u8>) {
+        let plans: Vec<Option<Vec<bool>>> = s
+            .rows()
+            .into_iter()
+            .map(|r| self.plan(&r.to_vec()))
+            .collect();
+        let mut stage = vec![0u8; plans.len()];
         let sent: Vec<usize> = (0..plans.len()).filter(|&i| plans[i].is_some()).collect();
         if !sent.is_empty() {
-            let se = self.exact.decision(x.select(Axis(0), &sent).view());
+            let xs = x.select(Axis(0), &sent);
+            let se = if f32 {
+                self.exact.decision_f32(xs.view())
+            } else {
+                self.exact.decision(xs.view())
+            };
             for (r, &i) in sent.iter().enumerate() {
                 let m = plans[i].as_ref().expect("planned");
                 for ((v, &b), &ev) in s.row_mut(i).iter_mut().zip(m).zip(se.row(r)) {
@@ -327,7 +354,7 @@ impl GuardedModel {
                 stage[i] = if m.iter().all(|&b| b) { 1 } else { 2 };
             }
         }
-        (s, stage)
+        (std::mem::take(s), stage)
     }
 
     /// Decision values of one row (sequential) and the stage that answered it.

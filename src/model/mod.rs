@@ -126,13 +126,17 @@ impl AnyModel {
     }
 
     /// Decision values computed in f32 ([`ExactModel::decision_f32`],
-    /// [`CompiledModel::decision_f32`]); `None` for a guarded model, which scores in f64
-    /// only (its threshold was calibrated on f64 decisions).
-    pub fn decision_f32(&self, x: ArrayView2<f64>) -> Option<Array2<f64>> {
+    /// [`CompiledModel::decision_f32`], [`GuardedModel::decision_f32`], which compares its
+    /// threshold with f32 decisions as the exports do) and, for a guarded model, the stage
+    /// of each row.
+    pub fn decision_f32_with_stage(&self, x: ArrayView2<f64>) -> (Array2<f64>, Option<Vec<u8>>) {
         match self {
-            AnyModel::Exact(m) => Some(m.decision_f32(x)),
-            AnyModel::Compiled(m) => Some(m.decision_f32(x)),
-            AnyModel::Guarded(_) => None,
+            AnyModel::Exact(m) => (m.decision_f32(x), None),
+            AnyModel::Compiled(m) => (m.decision_f32(x), None),
+            AnyModel::Guarded(m) => {
+                let (s, st) = m.decision_f32(x);
+                (s, Some(st))
+            }
         }
     }
 

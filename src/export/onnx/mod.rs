@@ -15,7 +15,8 @@ pub mod svm;
 use super::precision::{Quant, Quantized};
 use crate::fsio::write_atomic;
 use crate::kernel::Kernel;
-use crate::model::{CompiledModel, Task};
+use crate::model::guarded::GuardRule;
+use crate::model::{CompiledModel, GuardedModel, Task};
 use crate::program::Step;
 use crate::Result;
 use prost::Message;
@@ -605,6 +606,191 @@ fn value_info(name: &str, elem: i32, dims: &[Option<i64>]) -> ValueInfoProto {
 pub const INPUT_NAME: &str = "input_rows";
 /// The exported graph's class output (classifiers): the predicted class, `[N]` string.
 pub const CLASS_NAME: &str = "predicted_class";
+/// A guarded graph's stage output, `[N]` int64: 0 the compiled stage answered, 1 the exact
+/// model, 2 the compiled stage with some pairs recomputed exactly.
+pub const STAGE_NAME: &str = "stage";
+
+/// The one-vs-one vote matrices over `nl` classes: `[pairs, nl]`, 1 where the pair's
+/// first (`a`) or second (`b`) class is the column.
+fn vote_matrices(nl: usize) -> (Vec<f32>, Vec<f32>) {
+    let pairs = nl * (nl - 1) / 2;
+    let (mut a, mut bm) = (vec![0f32; pairs * nl], vec![0f32; pairs * nl]);
+    let mut pi = 0;
+    for i in 0..nl {
+        for j in i + 1..nl {
+            a[pi * nl + i] = 1.0;
+            bm[pi * nl + j] = 1.0;
+            pi += 1;
+        }
+    }
+    (a, bm)
+}
+
+/// The guard of a guarded graph: the exact expansion of every row from the scaled input
+/// `xs` (a graph evaluates both branches), the guard's mask over the compiled decisions
+/// `dec` (the rule of `GuardedModel::decision`), and the selection. Returns the decisions,
+/// the stage per row and how it was lowered.
+fn guarded(gr: &mut G, gm: &GuardedModel, xs: &str, dec: &str) -> (String, String, String) {
+    let ex = gm.exact();
+    let sv = ex.support_vectors();
+    let (nsv, d) = sv.dim();
+    let k = ex.n_outputs();
+    let svf: Vec<f32> = sv.iter().map(|v| *v as f32).collect();
+    let kx = kernel(gr, ex.kernel(), xs, &svf, nsv, d);
+    let cf: Vec<f32> = ex.coef().iter().map(|v| *v as f32).collect();
+    let ct = gr.f32s("exact_coef", &[nsv, k], &cf);
+    let m = gr.op("MatMul", &[&kx, &ct], vec![]);
+    let bf: Vec<f32> = ex.intercept().iter().map(|v| *v as f32).collect();
+    let bt = gr.f32s("exact_bias", &[k], &bf);
+    let exact = gr.op("Add", &[&m, &bt], vec![]);
+    let t = gr.f32s("threshold", &[], &[gm.threshold() as f32]);
+    let nl = ex.labels().len();
+    let ax1 = gr.i64s("axes", &[1]);
+    let mask = match (gm.guard_rule(), ex.task()) {
+        (GuardRule::Row, Task::Binary) => {
+            let a = gr.op("Abs", &[dec], vec![]);
+            gr.op("Less", &[&a, &t], vec![])
+        }
+        (GuardRule::Row, Task::Ovr) => {
+            let two = gr.i64s("k", &[2]);
+            let top = gr.op("TopK", &[dec, &two], vec![attr_i("axis", 1)]);
+            let idx = gr.fresh("topk_indices");
+            gr.nodes.last_mut().expect("node").output.push(idx);
+            let dv = gr.f32s("top_minus_second", &[2, 1], &[1.0, -1.0]);
+            let conf = gr.op("MatMul", &[&top, &dv], vec![]);
+            gr.op("Less", &[&conf, &t], vec![])
+        }
+        (GuardRule::Row, _) => {
+            // One-vs-one: the predicted class's smallest pair value, oriented towards it.
+            let (a, bm) = vote_matrices(nl);
+            let pairs = k;
+            let at = gr.f32s("votes_pos", &[pairs, nl], &a);
+            let bt2 = gr.f32s("votes_neg", &[pairs, nl], &bm);
+            let z = gr.scalar(0.0);
+            let gt = gr.op("Greater", &[dec, &z], vec![]);
+            let pos = gr.op("Cast", &[&gt], vec![attr_i("to", data_type::FLOAT as i64)]);
+            let one = gr.scalar(1.0);
+            let neg = gr.op("Sub", &[&one, &pos], vec![]);
+            let va = gr.op("MatMul", &[&pos, &at], vec![]);
+            let vb = gr.op("MatMul", &[&neg, &bt2], vec![]);
+            let votes = gr.op("Add", &[&va, &vb], vec![]);
+            let best = gr.op(
+                "ArgMax",
+                &[&votes],
+                vec![attr_i("axis", 1), attr_i("keepdims", 1)],
+            );
+            let orient: Vec<f32> = a.iter().zip(&bm).map(|(x, y)| x - y).collect();
+            let off: Vec<f32> = orient
+                .iter()
+                .map(|o| if *o == 0.0 { f32::INFINITY } else { 0.0 })
+                .collect();
+            let ot = gr.f32s("orient", &[pairs, nl], &orient);
+            let of = gr.f32s("not_involved", &[pairs, nl], &off);
+            let ax2 = gr.i64s("axes", &[2]);
+            let d3 = gr.op("Unsqueeze", &[dec, &ax2], vec![]);
+            let o = gr.op("Mul", &[&d3, &ot], vec![]);
+            let o2 = gr.op("Add", &[&o, &of], vec![]);
+            let mins = gr.op(
+                "ReduceMin",
+                &[&o2],
+                vec![attr_ints("axes", &[1]), attr_i("keepdims", 0)],
+            );
+            let conf = gr.op("GatherElements", &[&mins, &best], vec![attr_i("axis", 1)]);
+            gr.op("Less", &[&conf, &t], vec![])
+        }
+        (GuardRule::Pairs, _) => {
+            let (a, bm) = vote_matrices(nl);
+            let pairs = k;
+            let at = gr.f32s("votes_pos", &[pairs, nl], &a);
+            let bt2 = gr.f32s("votes_neg", &[pairs, nl], &bm);
+            let both: Vec<f32> = (0..nl * pairs)
+                .map(|i| {
+                    let (c, p) = (i / pairs, i % pairs);
+                    a[p * nl + c] + bm[p * nl + c]
+                })
+                .collect();
+            let bth = gr.f32s("pairs_of_class", &[nl, pairs], &both);
+            let z = gr.scalar(0.0);
+            let one = gr.scalar(1.0);
+            let gt = gr.op("Greater", &[dec, &z], vec![]);
+            let w = gr.op("Cast", &[&gt], vec![attr_i("to", data_type::FLOAT as i64)]);
+            let wn = gr.op("Sub", &[&one, &w], vec![]);
+            let ab = gr.op("Abs", &[dec], vec![]);
+            let uncb = gr.op("Less", &[&ab, &t], vec![]);
+            let unc = gr.op(
+                "Cast",
+                &[&uncb],
+                vec![attr_i("to", data_type::FLOAT as i64)],
+            );
+            let mm = |gr: &mut G, x: &str, y: &str| gr.op("MatMul", &[x, y], vec![]);
+            let va = mm(gr, &w, &at);
+            let vb = mm(gr, &wn, &bt2);
+            let votes = gr.op("Add", &[&va, &vb], vec![]);
+            let uw = gr.op("Mul", &[&unc, &w], vec![]);
+            let uwn = gr.op("Mul", &[&unc, &wn], vec![]);
+            let la = mm(gr, &uw, &at);
+            let lb = mm(gr, &uwn, &bt2);
+            let loss = gr.op("Add", &[&la, &lb], vec![]);
+            let ga = mm(gr, &uwn, &at);
+            let gb = mm(gr, &uw, &bt2);
+            let gain = gr.op("Add", &[&ga, &gb], vec![]);
+            let best = gr.op(
+                "ArgMax",
+                &[&votes],
+                vec![attr_i("axis", 1), attr_i("keepdims", 1)],
+            );
+            let vl = gr.op("Sub", &[&votes, &loss], vec![]);
+            let floor = gr.op("GatherElements", &[&vl, &best], vec![attr_i("axis", 1)]);
+            let vg = gr.op("Add", &[&votes, &gain], vec![]);
+            let reach = gr.op("GreaterOrEqual", &[&vg, &floor], vec![]);
+            let classes: Vec<i64> = (0..nl as i64).collect();
+            let ct2 = gr.i64s("classes", &classes);
+            let isbest = gr.op("Equal", &[&ct2, &best], vec![]);
+            let cont = gr.op("Or", &[&reach, &isbest], vec![]);
+            let contf = gr.op(
+                "Cast",
+                &[&cont],
+                vec![attr_i("to", data_type::FLOAT as i64)],
+            );
+            let pc = mm(gr, &contf, &bth);
+            let pcb = gr.op("Greater", &[&pc, &z], vec![]);
+            gr.op("And", &[&uncb, &pcb], vec![])
+        }
+    };
+    let out = gr.op("Where", &[&mask, &exact, dec], vec![]);
+    // The stage: 0 none exact, 1 all, 2 some.
+    let mf = gr.op(
+        "Cast",
+        &[&mask],
+        vec![attr_i("to", data_type::FLOAT as i64)],
+    );
+    let cnt = gr.op("ReduceSum", &[&mf, &ax1], vec![attr_i("keepdims", 0)]);
+    let width = if gm.guard_rule() == GuardRule::Pairs || ex.task() == Task::Binary {
+        k
+    } else {
+        1
+    };
+    let z = gr.scalar(0.0);
+    let any = gr.op("Greater", &[&cnt, &z], vec![]);
+    let wv = gr.scalar(width as f64);
+    let all = gr.op("Equal", &[&cnt, &wv], vec![]);
+    let notall = gr.op("Not", &[&all], vec![]);
+    let part = gr.op("And", &[&any, &notall], vec![]);
+    let a64 = gr.op("Cast", &[&any], vec![attr_i("to", data_type::INT64 as i64)]);
+    let p64 = gr.op(
+        "Cast",
+        &[&part],
+        vec![attr_i("to", data_type::INT64 as i64)],
+    );
+    let stage = gr.op("Add", &[&a64, &p64], vec![]);
+    let how = format!(
+        "guard: {} below {} selects per row between the compiled stage and the exact expansion ({} support vectors, f32); the graph computes both for every row",
+        gm.guard_rule().describe(),
+        gm.threshold(),
+        nsv
+    );
+    (out, stage, how)
+}
 
 /// Builds the ONNX model of `model` at the precision of `q`; returns it with one line per
 /// step saying how it was lowered.
@@ -612,8 +798,13 @@ pub const CLASS_NAME: &str = "predicted_class";
 /// The graph reads one float input [`INPUT_NAME`] (`[N, d]`, the raw input columns in the
 /// model's order) and writes `decision` (`[N, outputs]`) and, for classifiers,
 /// `label_index` and [`CLASS_NAME`] (the predicted class as a string).
-pub fn build(model: &CompiledModel, q: &Quantized) -> Result<(ModelProto, Vec<String>)> {
+pub fn build(
+    model: &CompiledModel,
+    guard: Option<&GuardedModel>,
+    q: &Quantized,
+) -> Result<(ModelProto, Vec<String>)> {
     let mut g = G::new();
+    let info = super::meta::ArtefactInfo::of(model, guard);
     let p = model.program();
     let d = model.input_dim();
     let mut x = INPUT_NAME.to_string();
@@ -637,9 +828,17 @@ pub fn build(model: &CompiledModel, q: &Quantized) -> Result<(ModelProto, Vec<St
     let w = g.weights("head", hs, hq, false);
     let zw = g.op("MatMul", &[&z, &w], vec![]);
     let b = g.f32s("bias", &[model.n_outputs()], &q.f32s("head.bias"));
-    let dec = g.op("Add", &[&zw, &b], vec![]);
+    let mut dec = g.op("Add", &[&zw, &b], vec![]);
     let k = model.n_outputs() as i64;
     let mut outputs = vec![value_info("decision", data_type::FLOAT, &[None, Some(k)])];
+    if let Some(gm) = guard {
+        let (d2, stage, how) = guarded(&mut g, gm, &vals[0], &dec);
+        dec = d2;
+        g.op("Identity", &[&stage], vec![]);
+        g.nodes.last_mut().expect("node").output = vec![STAGE_NAME.into()];
+        outputs.push(value_info(STAGE_NAME, data_type::INT64, &[None]));
+        lines.push(how);
+    }
     g.op("Identity", &[&dec], vec![]);
     g.nodes.last_mut().expect("node").output = vec!["decision".into()];
     if model.task().is_classifier() {
@@ -720,10 +919,16 @@ pub fn build(model: &CompiledModel, q: &Quantized) -> Result<(ModelProto, Vec<St
         )],
         output: outputs,
         doc_string: Some(format!(
-            "compiled {} model ({} features of {}) exported by kernelpress",
+            "{} {} model ({} features of {}) exported by kernelpress\n{}",
+            if guard.is_some() {
+                "guarded"
+            } else {
+                "compiled"
+            },
             model.spec().method.name(),
             model.features(),
-            model.spec().kernel
+            model.spec().kernel,
+            info.text()
         )),
         ..Default::default()
     };
@@ -735,19 +940,30 @@ pub fn build(model: &CompiledModel, q: &Quantized) -> Result<(ModelProto, Vec<St
         }],
         producer_name: Some("kernelpress".into()),
         producer_version: Some(env!("CARGO_PKG_VERSION").into()),
+        doc_string: Some(info.text()),
+        metadata_props: info
+            .pairs()
+            .into_iter()
+            .map(|(k, v)| StringStringEntryProto {
+                key: Some(k),
+                value: Some(v),
+            })
+            .collect(),
         graph: Some(graph),
         ..Default::default()
     };
     Ok((m, lines))
 }
 
-/// Writes the ONNX file.
+/// Writes the ONNX file (of the guarded model `guard` when given, whose compiled stage is
+/// `model`).
 pub fn write(
     model: &CompiledModel,
+    guard: Option<&GuardedModel>,
     q: &Quantized,
     out: &Path,
 ) -> Result<(Vec<PathBuf>, Vec<String>)> {
-    let (m, lines) = build(model, q)?;
+    let (m, lines) = build(model, guard, q)?;
     write_atomic(out, &m.encode_to_vec())?;
     Ok((vec![out.to_path_buf()], lines))
 }
