@@ -179,6 +179,8 @@ fn export_with(
         Format::Npy => arrays::write_npy(model, guard, &q, out, opts.replace_folder)?,
         Format::Safetensors => arrays::write_safetensors(model, guard, &q, out)?,
     };
+    let mut steps = steps;
+    steps.extend(q.notes.iter().cloned());
     let files = files
         .into_iter()
         .map(|p| {

@@ -1,5 +1,6 @@
 """An exported ONNX model checked by the onnx package (check_model with full_check) and run
-by onnxruntime on the data; its outputs are compared with `kernelpress score` of the
+by onnxruntime on the data (its metadata must name the input columns in the data's order);
+its outputs are compared with `kernelpress score` of the
 compiled model. Tolerance: 1e-4 relative to the decision scale, plus the rounding bound of
 f32 dot products, 64·2⁻²⁴·Σ|z_j·w_jc| (z the features, recomputed from the model file by the
 README scorer, w the head): a model whose head cancels large terms cannot be closer in f32.
@@ -23,6 +24,10 @@ with open(data) as f:
 head = rows[0]
 cols = [j for j in range(len(head)) if head[j] != target]
 x = np.array([[float(r[j]) for j in cols] for r in rows[1:]])
+# The artefact names its input columns, in order, in its metadata.
+meta = {p.key: p.value for p in m.metadata_props}
+assert meta["input_columns"] == ",".join(head[j] for j in cols), meta.get("input_columns")
+assert meta["method"] and int(meta["features"]) > 0, meta
 sess = ort.InferenceSession(onnx_path, providers=["CPUExecutionProvider"])
 names = [o.name for o in sess.get_outputs()]
 out = dict(zip(names, sess.run(None, {"input_rows": x.astype(np.float32)})))
