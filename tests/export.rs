@@ -619,8 +619,14 @@ fn guarded_models_export_whole_and_answer_like_score() {
     let exact = root().join("models/pump_svm.safetensors");
     let input = numbers(&d.test);
     let t = kernelpress::data::read_table(&d.test, Some("condition"), false).unwrap();
-    for rule in ["row", "pairs"] {
+    // "all": every row to the exact model (--guard-rate 1), whose exports skip the
+    // compiled stage.
+    for rule in ["row", "pairs", "all"] {
         let m = d.dir.join(format!("g_{rule}.safetensors"));
+        let (flag, value, r) = match rule {
+            "all" => ("--guard-rate", "1", "row"),
+            r => ("--guard-agreement", "0.98", r),
+        };
         ok(&[
             "compile",
             s(&exact),
@@ -632,10 +638,10 @@ fn guarded_models_export_whole_and_answer_like_score() {
             "fourier",
             "--features",
             "64",
-            "--guard-agreement",
-            "0.98",
+            flag,
+            value,
             "--guard-rule",
-            rule,
+            r,
             "--no-timing",
             "--out",
             s(&m),

@@ -105,6 +105,12 @@ fn plan_fn(g: &GuardedModel, prefix: &str, k: usize) -> String {
     f
 }
 
+/// True when the guard sends every row whole to the exact model (the rows rule with an
+/// infinite threshold): the compiled stage need not run.
+pub(crate) fn every_row_exact(g: &GuardedModel) -> bool {
+    g.guard_rule() == GuardRule::Row && g.threshold() == f64::INFINITY
+}
+
 /// Writes `dir/kp_model.h` and `dir/kp_model.c`; with `guard`, the model is that guarded
 /// model (whose compiled stage is `model`): the exact expansion runs only for the rows, and
 /// the outputs, the guard sends to it.
@@ -252,11 +258,20 @@ pub fn write(
             "            const float kv = {};\n            for (int c = 0; c < {k}; c++) if (need[c]) out[c] += kv * EXACT_COEF[l * {k} + c];\n        }}\n    }}\n}}\n",
             code::expr(&e.value, Lang::C, &code.arrays)
         );
-        c.push_str(&plan_fn(g, prefix, k));
-        let _ = writeln!(
-            c,
-            "\nint {prefix}_decision_stage(const float *x, float *out) {{\n    unsigned char need[{k}];\n    {prefix}_compact(x, out);\n    int stage = {prefix}_plan(out, need);\n    if (stage) {prefix}_exact_some(x, need, out);\n    return stage;\n}}\n\nvoid {prefix}_decision(const float *x, float *out) {{\n    (void){prefix}_decision_stage(x, out);\n}}\n"
-        );
+        if every_row_exact(g) {
+            // Every row goes to the exact model whatever the compiled stage says: the
+            // compiled stage is not run (the export is the exact model's).
+            let _ = writeln!(
+                c,
+                "\nint {prefix}_decision_stage(const float *x, float *out) {{\n    unsigned char need[{k}];\n    for (int c = 0; c < {k}; c++) need[c] = 1;\n    (void){prefix}_compact;\n    {prefix}_exact_some(x, need, out);\n    return 1;\n}}\n\nvoid {prefix}_decision(const float *x, float *out) {{\n    (void){prefix}_decision_stage(x, out);\n}}\n"
+            );
+        } else {
+            c.push_str(&plan_fn(g, prefix, k));
+            let _ = writeln!(
+                c,
+                "\nint {prefix}_decision_stage(const float *x, float *out) {{\n    unsigned char need[{k}];\n    {prefix}_compact(x, out);\n    int stage = {prefix}_plan(out, need);\n    if (stage) {prefix}_exact_some(x, need, out);\n    return stage;\n}}\n\nvoid {prefix}_decision(const float *x, float *out) {{\n    (void){prefix}_decision_stage(x, out);\n}}\n"
+            );
+        }
         lines.push(format!(
             "guard: {} below {} sends outputs to the exact expansion ({} support vectors in {} groups, f32), run only for those rows",
             g.guard_rule().describe(),

@@ -182,10 +182,16 @@ pub fn write(
             "            let kv: f32 = {};\n            for c in 0..{k} {{\n                if need[c] {{\n                    out[c] += kv * EXACT_COEF[l * {k} + c];\n                }}\n            }}\n        }}\n    }}\n}}\n",
             code::expr(&e.value, Lang::Rust, &code.arrays)
         );
-        s.push_str(&plan_fn(g, k));
+        let stage_body = if super::c::every_row_exact(g) {
+            // Every row goes to the exact model: the compiled stage is not run.
+            format!("    let _ = compact;\n    exact_some(x, &[true; {k}], out);\n    1")
+        } else {
+            s.push_str(&plan_fn(g, k));
+            format!("    compact(x, out);\n    let mut need = [false; {k}];\n    let stage = plan(out, &mut need);\n    if stage != 0 {{\n        exact_some(x, &need, out);\n    }}\n    stage")
+        };
         let _ = writeln!(
             s,
-            "\n{doc}/// Returns the stage that answered: 0 the compiled stage, 1 the exact model, 2 the\n/// compiled stage with some pairs recomputed exactly.\npub fn decision_stage(x: &[f32], out: &mut [f32]) -> u8 {{\n    compact(x, out);\n    let mut need = [false; {k}];\n    let stage = plan(out, &mut need);\n    if stage != 0 {{\n        exact_some(x, &need, out);\n    }}\n    stage\n}}\n\n{doc}pub fn decision(x: &[f32], out: &mut [f32]) {{\n    let _ = decision_stage(x, out);\n}}\n"
+            "\n{doc}/// Returns the stage that answered: 0 the compiled stage, 1 the exact model, 2 the\n/// compiled stage with some pairs recomputed exactly.\npub fn decision_stage(x: &[f32], out: &mut [f32]) -> u8 {{\n{stage_body}\n}}\n\n{doc}pub fn decision(x: &[f32], out: &mut [f32]) {{\n    let _ = decision_stage(x, out);\n}}\n"
         );
         lines.push(format!(
             "guard: {} below {} sends outputs to the exact expansion ({} support vectors in {} groups, f32), run only for those rows",
