@@ -11,7 +11,8 @@ vectors, and measures how far it is from the exact model::
 
 ``compiled.report`` holds the agreement with the exact model on calibration rows that
 were never fitted on. An approximated model changes some decisions: validate it on your
-own data before any high-stakes use.
+own data before any high-stakes use. :func:`guard` sends the rows it is unsure of to the
+exact model (a :class:`GuardedModel`), and :func:`export` writes either kind.
 
 Distillation over many rows can be sharded: :func:`shard_statistics` on each shard,
 :func:`merge_statistics`, then :func:`compile_from_statistics`;
@@ -22,12 +23,14 @@ from ._kernelpress import (  # noqa: F401
     CompiledModel,
     Error,
     ExactModel,
+    GuardedModel,
     Statistics,
     __version__,
     compact,
     compile_from_statistics,
     export,
     featurize,
+    guard,
     merge_statistics,
     read_data,
     report,
@@ -38,11 +41,13 @@ __all__ = [
     "CompiledModel",
     "Error",
     "ExactModel",
+    "GuardedModel",
     "Statistics",
     "compact",
     "compile_from_statistics",
     "export",
     "featurize",
+    "guard",
     "merge_statistics",
     "read_data",
     "report",

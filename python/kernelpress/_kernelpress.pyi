@@ -82,6 +82,34 @@ class CompiledModel:
     report: Optional[Dict[str, Any]]
     fit: Dict[str, Any]
 
+class GuardedModel:
+    """A compiled model guarded by its exact model: rows it is unsure of go to the exact model.
+
+    >>> g = guard(compiled, exact, "models/pump_calib.csv", agreement=0.995)
+    >>> s, stage = g.decision_with_stage(x)
+    """
+
+    @staticmethod
+    def load(path: Union[str, PathLike]) -> "GuardedModel": ...
+    @staticmethod
+    def from_bytes(data: bytes) -> "GuardedModel": ...
+    def to_bytes(self) -> bytes: ...
+    def save(self, path: Union[str, PathLike]) -> None: ...
+    def decision(self, x: npt.ArrayLike) -> npt.NDArray[np.float64]: ...
+    def decision_with_stage(
+        self, x: npt.ArrayLike, *, f32: bool = False
+    ) -> Tuple[npt.NDArray[np.float64], List[str]]: ...
+    def predict(self, x: npt.ArrayLike) -> List[str]: ...
+    task: str
+    labels: List[str]
+    input_dim: int
+    threshold: float
+    rule: str
+    compact: CompiledModel
+    exact: ExactModel
+    report: Optional[Dict[str, Any]]
+    guard: Dict[str, Any]
+
 class Statistics:
     """Distillation statistics of some calibration rows; picklable and mergeable.
 
@@ -113,6 +141,20 @@ def compact(
 ) -> CompiledModel:
     """>>> compiled = compact(exact, "models/pump_calib.csv", "hadamard", 2048, seed=1)"""
 
+def guard(
+    compiled: CompiledModel,
+    exact: ExactModel,
+    calib: Rows,
+    *,
+    agreement: Optional[float] = None,
+    rate: Optional[float] = None,
+    rule: Optional[str] = None,
+    eval: Optional[Rows] = None,
+    eval_labels: Optional[Sequence[str]] = None,
+    min_agreement: float = 0.99,
+) -> GuardedModel:
+    """>>> g = guard(compiled, exact, "models/pump_calib.csv", agreement=0.995, eval=x_test)"""
+
 def report(
     compiled: CompiledModel,
     exact: ExactModel,
@@ -136,7 +178,7 @@ def featurize(
     """>>> z = featurize("gaussian(gamma=0.3)", "orthogonal", 2048, x, seed=7)"""
 
 def export(
-    compiled: CompiledModel,
+    model: Union[CompiledModel, GuardedModel],
     format: str,
     path: Union[str, PathLike],
     *,

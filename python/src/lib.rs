@@ -10,12 +10,12 @@ use kernelpress::features::{parse_landmarks, FeatureSpec, Method};
 use kernelpress::fit::shard::ShardStats;
 use kernelpress::fit::{audit_rows, compile_exact_tuned, RidgeGrid};
 use kernelpress::kernel::Kernel;
-use kernelpress::model::{CompiledModel, ExactModel, Task};
+use kernelpress::model::{CompiledModel, ExactModel, GuardedModel, Task};
 use kernelpress::observe::Silent;
 use kernelpress::report::{self as kreport, ReportOptions};
 use ndarray::{Array2, ArrayView2};
 use numpy::{IntoPyArray, PyArray2, PyArrayMethods, PyReadonlyArray2};
-use pyo3::exceptions::{PyException, PyUserWarning};
+use pyo3::exceptions::{PyException, PyTypeError, PyUserWarning};
 use pyo3::prelude::*;
 use pyo3::types::{PyBytes, PyList};
 use std::path::PathBuf;
@@ -478,6 +478,250 @@ model_class!(PyCompiled, CompiledModel, {
     }
 });
 
+/// A guarded model: the compiled model answers where it is confident, the exact model
+/// where it is not (docs/guarding.md). Built by :func:`guard`, or read from a file that
+/// `kernelpress compile --guard-agreement` wrote. Scores like `kernelpress score`: the same
+/// labels, decisions and stage column.
+///
+/// >>> g = kp.guard(compiled, exact, "models/pump_calib.csv", agreement=0.995)
+/// >>> s, stage = g.decision_with_stage(x)    # stage: "compiled", "exact" or "partial"
+#[pyclass(name = "GuardedModel", module = "kernelpress", frozen)]
+struct PyGuarded {
+    inner: Arc<GuardedModel>,
+}
+
+#[pymethods]
+impl PyGuarded {
+    /// Reads a guarded model file.
+    #[staticmethod]
+    fn load(py: Python<'_>, path: PathBuf) -> Res<Self> {
+        let m = py.detach(|| GuardedModel::load(&path));
+        Ok(PyGuarded {
+            inner: Arc::new(lib(m)?),
+        })
+    }
+
+    /// A guarded model from the bytes of its file (as `to_bytes` gives).
+    #[staticmethod]
+    fn from_bytes(py: Python<'_>, data: &[u8]) -> Res<Self> {
+        let m = py.detach(|| {
+            let f = kernelpress::format::TensorFile::from_bytes(data, "bytes")?;
+            GuardedModel::from_file(&f, "bytes")
+        });
+        Ok(PyGuarded {
+            inner: Arc::new(lib(m)?),
+        })
+    }
+
+    /// The model file's bytes (safetensors).
+    fn to_bytes<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyBytes>> {
+        let b = lib(self.inner.to_file().to_bytes())?;
+        Ok(PyBytes::new(py, &b))
+    }
+
+    /// Writes the model file atomically (`kernelpress score`, `inspect` and `export` read it).
+    fn save(&self, py: Python<'_>, path: PathBuf) -> Res<()> {
+        lib(py.detach(|| self.inner.save(&path)))
+    }
+
+    /// Decision values, rows × decision functions (float64).
+    fn decision<'py>(
+        &self,
+        py: Python<'py>,
+        x: &Bound<'py, PyAny>,
+    ) -> Res<Bound<'py, PyArray2<f64>>> {
+        let r = model_rows(py, x, "x", self.inner.compact().input_dim())?;
+        let v = r.view();
+        let (s, _) = py.detach(|| self.inner.decision(v));
+        Ok(to_py(py, s))
+    }
+
+    /// Decision values and, per row, the stage that answered (`compiled`, `exact` or
+    /// `partial`, as `score`'s stage column). With `f32=True`, both stages compute in f32
+    /// and the threshold is compared with f32 decisions, as the exports do.
+    #[pyo3(signature = (x, *, f32=false))]
+    fn decision_with_stage<'py>(
+        &self,
+        py: Python<'py>,
+        x: &Bound<'py, PyAny>,
+        f32: bool,
+    ) -> Res<(Bound<'py, PyArray2<f64>>, Vec<&'static str>)> {
+        let r = model_rows(py, x, "x", self.inner.compact().input_dim())?;
+        let v = r.view();
+        let (s, st) = py.detach(|| {
+            if f32 {
+                self.inner.decision_f32(v)
+            } else {
+                self.inner.decision(v)
+            }
+        });
+        let names = st
+            .iter()
+            .map(|&i| kernelpress::model::guarded::STAGES[i as usize])
+            .collect();
+        Ok((to_py(py, s), names))
+    }
+
+    /// Class labels (a list of str).
+    fn predict(&self, py: Python<'_>, x: &Bound<'_, PyAny>) -> Res<Py<PyAny>> {
+        let r = model_rows(py, x, "x", self.inner.compact().input_dim())?;
+        let v = r.view();
+        let (s, _) = py.detach(|| self.inner.decision(v));
+        let l = self.inner.labels_of(s.view());
+        labels_or_values(py, self.inner.exact().task(), l, s)
+    }
+
+    /// `binary`, `ovr` or `ovo`.
+    #[getter]
+    fn task(&self) -> &'static str {
+        self.inner.exact().task().name()
+    }
+    /// Class labels.
+    #[getter]
+    fn labels(&self) -> Vec<String> {
+        self.inner.exact().labels().to_vec()
+    }
+    /// Input width `d`.
+    #[getter]
+    fn input_dim(&self) -> usize {
+        self.inner.compact().input_dim()
+    }
+    /// The confidence threshold below which the exact model answers.
+    #[getter]
+    fn threshold(&self) -> f64 {
+        self.inner.threshold()
+    }
+    /// The guard's rule, as the model file names it.
+    #[getter]
+    fn rule(&self) -> &'static str {
+        self.inner.guard_rule().describe()
+    }
+    /// The compiled stage (a :class:`CompiledModel`).
+    #[getter]
+    fn compact(&self) -> PyCompiled {
+        PyCompiled {
+            inner: Arc::new(self.inner.compact().clone()),
+        }
+    }
+    /// The exact fallback (an :class:`ExactModel`).
+    #[getter]
+    fn exact(&self) -> PyExact {
+        PyExact {
+            inner: Arc::new(self.inner.exact().clone()),
+        }
+    }
+    /// The stored report of the guarded model (a dict: the keys of `kernelpress report
+    /// --json`, with `stage_shares` and `stage_agreement`; timings left out), or None.
+    #[getter]
+    fn report<'py>(&self, py: Python<'py>) -> Res<Option<Bound<'py, PyAny>>> {
+        let r = &self.inner.compact().report;
+        if r.is_null() || r.get("stage_shares").is_none() {
+            return Ok(None);
+        }
+        json_to_py(py, r).map(Some)
+    }
+    /// How the threshold was chosen (the file's `guard` section), a dict.
+    #[getter]
+    fn guard<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyAny>> {
+        json_to_py(py, &self.inner.guard)
+    }
+
+    fn __reduce__<'py>(&self, py: Python<'py>) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let f = py.get_type::<PyGuarded>().getattr("from_bytes")?;
+        Ok((f, (self.to_bytes(py)?,)))
+    }
+
+    fn __repr__(&self) -> String {
+        format!(
+            "GuardedModel(method='{}', features={}, threshold={:.4}, rule='{}')",
+            self.inner.compact().spec().method.name(),
+            self.inner.compact().features(),
+            self.inner.threshold(),
+            self.inner.guard_rule().describe()
+        )
+    }
+}
+
+/// Guards `compiled` by `exact`: rows whose compiled answer is unsure go to the exact
+/// model. The threshold is chosen on the audit rows of `calib` (every tenth row, never
+/// fitted on: pass the calibration rows `compact` was given) for `agreement` (the one-sided
+/// 95% lower bound on those rows reaches it) or for a fallback `rate`; `rule` is `row`,
+/// `pairs` (one-vs-one) or None for the cheaper. The report (`model.report`) is computed
+/// on `eval` when given, else on the audit rows (optimistic: they chose the threshold; a
+/// `UserWarning` says so). As `kernelpress compile --guard-agreement P` does.
+///
+/// >>> g = kp.guard(compiled, exact, "models/pump_calib.csv", agreement=0.995, eval=test_x)
+#[pyfunction]
+#[pyo3(signature = (compiled, exact, calib, *, agreement=None, rate=None, rule=None, eval=None, eval_labels=None, min_agreement=0.99))]
+#[allow(clippy::too_many_arguments)]
+fn guard(
+    py: Python<'_>,
+    compiled: &PyCompiled,
+    exact: &PyExact,
+    calib: &Bound<'_, PyAny>,
+    agreement: Option<f64>,
+    rate: Option<f64>,
+    rule: Option<&str>,
+    eval: Option<&Bound<'_, PyAny>>,
+    eval_labels: Option<Vec<String>>,
+    min_agreement: f64,
+) -> Res<PyGuarded> {
+    use kernelpress::model::guarded::{GuardRule, GuardTarget};
+    let target = match (agreement, rate) {
+        (Some(p), None) => GuardTarget::Agreement(p),
+        (None, Some(r)) => GuardTarget::Rate(r),
+        _ => {
+            return lib(Err(kernelpress::Error::input(
+                "give agreement=P or rate=R (one of them)",
+            )))
+        }
+    };
+    let rule = match rule {
+        None => None,
+        Some("row") => Some(GuardRule::Row),
+        Some("pairs") => Some(GuardRule::Pairs),
+        Some(o) => {
+            return lib(Err(kernelpress::Error::input(format!(
+                "rule '{o}' is unknown; expected 'row', 'pairs' or None"
+            ))))
+        }
+    };
+    let e = exact.inner.clone();
+    let (x, _) = model_batch(py, calib, "calib", &e.feature_names, None)?;
+    let c = (*compiled.inner).clone();
+    let mut g =
+        lib(py.detach(|| kernelpress::fit::guard_on_audit_rows(c, &e, x.view(), target, rule)))?;
+    let (xe, on) = match eval {
+        Some(ev) => (
+            model_batch(py, ev, "eval", &e.feature_names, None)?.0,
+            "eval".to_string(),
+        ),
+        None => {
+            warn(py, "no eval: the guard's figures are computed on the audit rows its threshold was chosen on (optimistic); pass eval= for an independent check")?;
+            (
+                audit_rows(x.view()).0,
+                "calibration audit rows (also used to choose the guard)".to_string(),
+            )
+        }
+    };
+    let opts = ReportOptions {
+        min_agreement,
+        timing: false,
+        ..ReportOptions::default()
+    };
+    let mut rep = lib(
+        py.detach(|| kreport::build_guarded(&g, &e, xe.view(), eval_labels.as_deref(), &opts))
+    )?;
+    rep.evaluated_on = Some(on);
+    for w in &rep.warnings {
+        warn(py, w)?;
+    }
+    let mut stored = rep.without_timing();
+    stored.warnings.clear();
+    g.set_report(stored.to_json());
+    Ok(PyGuarded { inner: Arc::new(g) })
+}
+
 /// Distillation statistics of some calibration rows (one shard, or several merged):
 /// picklable, mergeable, and enough to fit the head (`compile_from_statistics`).
 #[pyclass(name = "Statistics", module = "kernelpress", frozen)]
@@ -719,21 +963,34 @@ fn featurize<'py>(
     Ok(to_py(py, z))
 }
 
-/// Exports `compiled` to `path` in `format` (`onnx`, `c`, `rust`, `npy`, `safetensors`) at
-/// `precision` (`f64`, `f32`, `f16`, `int8`); returns a dict of what was written.
+/// Exports `model` (a :class:`CompiledModel` or a :class:`GuardedModel`, which exports
+/// whole: docs/exporting.md) to `path` in `format` (`onnx`, `c`, `rust`, `npy`,
+/// `safetensors`) at `precision` (`f32`, `f16`, `int8`); returns a dict of what was written.
 #[pyfunction]
-#[pyo3(signature = (compiled, format, path, *, precision="f32"))]
+#[pyo3(signature = (model, format, path, *, precision="f32"))]
 fn export<'py>(
     py: Python<'py>,
-    compiled: &PyCompiled,
+    model: &Bound<'py, PyAny>,
     format: &str,
     path: PathBuf,
     precision: &str,
 ) -> Res<Bound<'py, PyAny>> {
     let mut opts = ExportOptions::new(lib(Format::parse(format))?);
     opts.precision = lib(Precision::parse(precision))?;
-    let c = compiled.inner.clone();
-    let s = lib(py.detach(|| kernelpress::export::export(&c, &opts, &path)))?;
+    let s = if let Ok(g) = model.cast::<PyGuarded>() {
+        let g = g.get().inner.clone();
+        lib(py.detach(|| kernelpress::export::export_guarded(&g, &opts, &path)))?
+    } else {
+        let c = model
+            .cast::<PyCompiled>()
+            .map_err(|_| {
+                PyTypeError::new_err("export: model must be a CompiledModel or a GuardedModel")
+            })?
+            .get()
+            .inner
+            .clone();
+        lib(py.detach(|| kernelpress::export::export(&c, &opts, &path)))?
+    };
     json_to_py(py, &serde_json::to_value(&s).unwrap_or_default())
 }
 
@@ -826,8 +1083,10 @@ fn _kernelpress(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("Error", m.py().get_type::<Error>())?;
     m.add_class::<PyExact>()?;
     m.add_class::<PyCompiled>()?;
+    m.add_class::<PyGuarded>()?;
     m.add_class::<PyStats>()?;
     m.add_function(wrap_pyfunction!(compile, m)?)?;
+    m.add_function(wrap_pyfunction!(guard, m)?)?;
     m.add_function(wrap_pyfunction!(report, m)?)?;
     m.add_function(wrap_pyfunction!(featurize, m)?)?;
     m.add_function(wrap_pyfunction!(export, m)?)?;

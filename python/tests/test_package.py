@@ -253,3 +253,51 @@ def test_refined_compact_equals_cli_refine(root, cli, tmp_path, exact):
     assert np.abs(other.decision(x) - c.decision(x)).max() <= 1e-12 * max(1.0, np.abs(c.decision(x)).max())
     with pytest.raises(kp.Error):
         kp.compact(exact, str(calib), "hadamard", 128, refine=0)
+
+
+def test_guard_equals_cli_guard_and_scores_like_score(root, cli, tmp_path, exact):
+    # kp.guard chooses the threshold as `compile --guard-agreement` does (the library's
+    # guard_on_audit_rows); the guarded model scores, stages and pickles like the file the
+    # command line wrote, and exports whole.
+    calib = tmp_path / "calib.csv"
+    calib.write_text("\n".join((root / "models" / "pump_calib.csv").read_text().splitlines()[:3001]) + "\n")
+    test = root / "models" / "pump_test.csv"
+    with pytest.warns(UserWarning, match="agreement"):
+        c = kp.compact(exact, str(calib), "fourier", 64, bandwidth_search=False)
+    x, _, y = kp.read_data(test, target="condition")
+    g = kp.guard(c, exact, str(calib), agreement=0.98, rule="row", eval=x, eval_labels=y)
+    out = tmp_path / "cli.safetensors"
+    cli("compile", root / "models" / "pump_svm.safetensors", "--calib", calib, "--target", "condition",
+        "--method", "fourier", "--features", 64, "--no-bandwidth-search", "--guard-agreement", 0.98,
+        "--guard-rule", "row", "--eval", test, "--no-timing", "--out", out)
+    other = kp.GuardedModel.load(out)
+    assert g.threshold == other.threshold and g.rule == other.rule
+    s, stage = g.decision_with_stage(x)
+    s2, stage2 = other.decision_with_stage(x)
+    assert np.array_equal(s, s2) and stage == stage2
+    assert 0.05 <= np.mean([t != "compiled" for t in stage]) < 1.0
+    # The command line's score of the same file: labels, decisions, stage column.
+    sc = tmp_path / "score.csv"
+    cli("score", "--decisions", out, "--data", test, "--target", "condition", "--out", sc)
+    with open(sc) as f:
+        rows = list(csv.DictReader(f))
+    assert [r["stage"] for r in rows] == stage
+    assert [r["label"] for r in rows] == g.predict(x)
+    dec, _ = read_score(sc)
+    assert np.abs(dec - s).max() <= 1e-12 * max(1.0, np.abs(s).max())
+    # The report: the CLI's keys, computed on eval.
+    for key in ["agreement", "stage_shares", "stage_agreement", "accuracy_compiled"]:
+        assert g.report[key] == other.report[key], key
+    assert g.report["evaluated_on"] == "eval"
+    # f32 scoring stays near f64; pickling keeps the model.
+    s32, _ = g.decision_with_stage(x, f32=True)
+    assert np.abs(s32 - s).max() <= 1e-3 * max(1.0, np.abs(s).max())
+    back = pickle.loads(pickle.dumps(g))
+    assert np.array_equal(back.decision(x), s)
+    assert g.compact.features == 64 and g.exact.n_support_vectors == exact.n_support_vectors
+    info = kp.export(g, "onnx", tmp_path / "g.onnx")
+    assert any("guard" in line for line in info["steps"])
+    with pytest.raises(kp.Error):
+        kp.guard(c, exact, str(calib), agreement=1.5)
+    with pytest.raises(kp.Error):
+        kp.guard(c, exact, str(calib))

@@ -442,42 +442,20 @@ fn run_guard(
     calib: Option<&kernelpress::data::Table>,
     model: kernelpress::model::CompiledModel,
 ) -> Result<()> {
-    use kernelpress::model::GuardedModel;
     let calib =
         calib.ok_or_else(|| Error::input("a guard is chosen on calibration rows: give --calib"))?;
-    let idx: Vec<usize> = (0..calib.x.nrows()).filter(|&i| audit_row(i)).collect();
-    let xa = calib.x.select(Axis(0), &idx);
-    let sc = model.decision(xa.view());
-    let se = exact.decision(xa.view());
-    use kernelpress::model::guarded::{choose_guard, choose_guard_auto, GuardRule, GuardTarget};
+    use kernelpress::model::guarded::{GuardRule, GuardTarget};
     let target = match (a.guard_agreement, a.guard_rate) {
         (Some(p), None) => GuardTarget::Agreement(p),
         (None, Some(r)) => GuardTarget::Rate(r),
         _ => unreachable!("checked in run"),
     };
-    let choice = match a.guard_rule.as_deref() {
-        Some("row") => choose_guard(exact, GuardRule::Row, sc.view(), se.view(), target),
-        Some("pairs") => choose_guard(exact, GuardRule::Pairs, sc.view(), se.view(), target),
-        _ => choose_guard_auto(exact, sc.view(), se.view(), target),
+    let rule = match a.guard_rule.as_deref() {
+        Some("row") => Some(GuardRule::Row),
+        Some("pairs") => Some(GuardRule::Pairs),
+        _ => None,
     };
-    let choice = choice.ok_or_else(|| {
-        Error::new(
-            ErrorKind::Budget,
-            format!(
-                "no guard reaches agreement {} with 95% confidence on the {} audit rows, even sending every row to the exact model; give more calibration rows or a lower target",
-                a.guard_agreement.unwrap_or(1.0),
-                idx.len()
-            ),
-        )
-    })?;
-    let threshold = choice.threshold;
-    let mut g = GuardedModel::with_rule(model, exact.clone(), threshold, choice.rule)?;
-    g.guard = serde_json::json!({
-        "chosen_on": format!("calibration audit rows ({} rows, never fitted on)", idx.len()),
-        "target_agreement": a.guard_agreement,
-        "fallback_share": choice.fallback_share,
-        "work_share": choice.work_share,
-    });
+    let g = kernelpress::fit::guard_on_audit_rows(model, exact, calib.x.view(), target, rule)?;
     finish_guarded(a, exact, calib, g, String::new())
 }
 
@@ -548,9 +526,9 @@ fn finish_guarded(
     }
     let mut stored = rep.without_timing();
     stored.warnings.clear();
-    let mut file = g.to_file();
-    file.manifest.insert("report".into(), stored.to_json());
-    let bytes = file.to_bytes()?;
+    let mut g = g;
+    g.set_report(stored.to_json());
+    let bytes = g.to_file().to_bytes()?;
     let json = format!("{}\n", serde_json::to_string_pretty(&rep).unwrap());
     let mut items: Vec<(&std::path::Path, &[u8])> = vec![(a.out(), &bytes)];
     if let Some(p) = &a.report {

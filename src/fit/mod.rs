@@ -24,9 +24,11 @@
 //! ```
 
 mod compile;
+mod guard;
 mod refine;
 pub mod shard;
 
+pub use guard::guard_on_audit_rows;
 pub use refine::{RefineOptions, RefineSummary};
 
 pub use compile::{

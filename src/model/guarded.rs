@@ -283,6 +283,12 @@ impl GuardedModel {
             / n
     }
 
+    /// Stores `report` (the guarded model's report, [`crate::report::build_guarded`]) in
+    /// the model; [`Self::to_file`] writes it as the manifest's `report`.
+    pub fn set_report(&mut self, report: Value) {
+        self.compact.report = report;
+    }
+
     /// The compiled stage.
     pub fn compact(&self) -> &CompiledModel {
         &self.compact
