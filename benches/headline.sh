@@ -2,7 +2,9 @@
 # The headline speed figures in one run: builds the `headline` example (release) and runs
 # it, writing one JSON object (see examples/headline.rs for what each key measures).
 # Installs Debian's dataset-fashion-mnist when it is missing (apt-get, as root or through
-# sudo). About three minutes on a 2-core machine.
+# sudo). With the Python reference environment of scripts/test.sh, also times the
+# Hadamard model's ONNX export in onnxruntime (onnx_vs_native_batch, onnx_vs_native_single).
+# About three minutes on a 2-core machine.
 #
 # Usage: bash benches/headline.sh --out FILE.json
 set -euo pipefail
@@ -24,3 +26,11 @@ fi
 cargo build --release --quiet --example headline
 case "$OUT" in /*) ABS="$OUT" ;; *) ABS="$PWD/$OUT" ;; esac
 ./target/release/examples/headline "$ABS"
+# The Hadamard model as ONNX in onnxruntime, beside score's f32 figures (the Python
+# reference environment of scripts/test.sh; skipped, and said so, when it is missing).
+PY=target/pyenv/bin/python
+if [ -x "$PY" ] && "$PY" -c "import onnxruntime" 2>/dev/null; then
+  "$PY" benches/onnx_time.py "$ABS"
+else
+  echo "onnxruntime not found (run bash scripts/test.sh once): onnx_vs_native_* not measured" >&2
+fi

@@ -285,6 +285,21 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         c32 / head_us,
         e32 / head_us
     ));
+    // The Hadamard model as ONNX, for benches/headline.sh to time in onnxruntime beside
+    // `score`'s f32 paths (fmnist_hadamard: latency_us_compiled_f32_p50 and
+    // throughput_rows_per_s_compiled_f32), with the test images as .npy rows.
+    let onnx_path = std::path::Path::new(&out).with_extension("hadamard4096.onnx");
+    kernelpress::export::export(
+        &had,
+        &kernelpress::export::ExportOptions::new(kernelpress::export::Format::Onnx),
+        &onnx_path,
+    )?;
+    let rows_path = std::path::Path::new(&out).with_extension("test_rows.npy");
+    let flat: Vec<f32> = xte.iter().map(|v| *v as f32).collect();
+    kernelpress::data::write_npy_f32(&rows_path, &[xte.nrows(), xte.ncols()], &flat)?;
+    res.insert("onnx_model".into(), json!(onnx_path.display().to_string()));
+    res.insert("onnx_rows".into(), json!(rows_path.display().to_string()));
+    res.insert("threads".into(), json!(rayon::current_num_threads()));
     res.insert("fmnist_best".into(), json!(name));
     res.insert("fmnist_speedup_single".into(), json!(single));
     res.insert("fmnist_speedup_batch".into(), json!(batch));

@@ -786,8 +786,9 @@ fn guarded_models_export_whole_and_answer_like_score() {
 }
 
 /// int8 exports keep the f64 compiled model's labels on ≥ 0.98 of rows in onnxruntime with
-/// its default optimisations (Nyström keeps its folded, cancelling head in f32), the
-/// check's shipped figure matches onnxruntime's, and `--min-agreement` gates the export
+/// its default optimisations, or the export warns (Nyström keeps its folded, cancelling
+/// head in f32); the check's shipped figure and the export's own onnxruntime run match
+/// onnxruntime's (tests/reference/onnx_int8.py), and `--min-agreement` gates the export
 /// (exit 3; nothing written with `--discard-below-gate`).
 #[test]
 fn int8_exports_keep_labels_in_onnxruntime_and_the_gate_stops_them() {
@@ -834,11 +835,24 @@ fn int8_exports_keep_labels_in_onnxruntime_and_the_gate_stops_them() {
         if method == "nystrom" {
             assert!(text.contains("kept in f32"), "{text}");
         }
+        // The export ran its file in onnxruntime (KP_PYTHON) and timed it beside score.
+        assert!(
+            text.contains("in onnxruntime") && text.contains("speed:"),
+            "{text}"
+        );
         let r = py(
             "onnx_int8.py",
-            &[s(&onnx), s(&d.test), "condition", s(&sc), s(&sum), "0.98"],
+            &[s(&onnx), s(&d.test), "condition", s(&sc), s(&sum), "0"],
         );
         eprint!("{method}: {r}");
+        // ≥ 0.98 of the f64 labels in onnxruntime, or the export said so.
+        let v: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&sum).unwrap()).unwrap();
+        let in_ort = v["runtime_check"]["label_agreement"].as_f64().unwrap();
+        assert!(
+            in_ort >= 0.98 || text.contains("warning: labels change"),
+            "{method}: {in_ort} without a warning:\n{text}"
+        );
         if method == "hadamard" {
             // The gate: int8 changes some labels of this model (deterministic for its seed).
             let v: serde_json::Value =

@@ -3,8 +3,8 @@
 use kernelpress::data::write_atomic;
 
 use kernelpress::export::{
-    check_precision, check_precision_guarded, export, export_guarded, ExportOptions, Format,
-    Precision,
+    check_precision, check_precision_guarded, export, export_guarded, ExportOptions, ExportSummary,
+    Format, Precision,
 };
 use kernelpress::model::{CompiledModel, GuardedModel};
 use kernelpress::{Error, ErrorKind, Result};
@@ -149,16 +149,45 @@ pub(crate) fn run(a: Args) -> Result<()> {
         (None, false) => CompiledModel::from_file(&file, &src)?,
     };
     super::note_unverified(&a.model);
-    let check = match &a.check_data {
-        Some(p) => {
-            let t = super::read_for(p, a.target.as_deref(), &model.feature_names, a.by_position)?;
-            Some(match &guard {
-                Some(g) => check_precision_guarded(g, opts.precision, t.x.view())?,
-                None => check_precision(&model, opts.precision, t.x.view())?,
-            })
-        }
+    let rows = match &a.check_data {
+        Some(p) => Some(super::read_for(
+            p,
+            a.target.as_deref(),
+            &model.feature_names,
+            a.by_position,
+        )?),
         None => None,
     };
+    let check = match &rows {
+        Some(t) => Some(match &guard {
+            Some(g) => check_precision_guarded(g, opts.precision, t.x.view())?,
+            None => check_precision(&model, opts.precision, t.x.view())?,
+        }),
+        None => None,
+    };
+    let write = |out: &std::path::Path| match &guard {
+        Some(g) => export_guarded(g, &opts, out),
+        None => export(&model, &opts, out),
+    };
+    // ONNX with check rows: the file is built in a private temporary folder first and run
+    // by onnxruntime there; it is written to --out (as every output is) only when kept.
+    let mut staged: Option<(tempfile::TempDir, std::path::PathBuf, ExportSummary)> = None;
+    let mut runtime = None;
+    if let (Some(t), Format::Onnx) = (&rows, opts.format) {
+        let dir = tempfile::Builder::new()
+            .prefix("kernelpress-export")
+            .tempdir()
+            .map_err(|e| Error::io(format!("a temporary folder for the onnxruntime check: {e}")))?;
+        let tmp = dir.path().join("model.onnx");
+        let sum = write(&tmp)?;
+        let reference = match &guard {
+            Some(g) => g.decision(t.x.view()).0,
+            None => model.decision(t.x.view()),
+        };
+        runtime =
+            super::export_check::onnxruntime(&tmp, t.x.view(), reference.view(), model.rule())?;
+        staged = Some((dir, tmp, sum));
+    }
     let mut text = String::new();
     let mut gate = None;
     if let Some(c) = &check {
@@ -178,6 +207,25 @@ pub(crate) fn run(a: Args) -> Result<()> {
         ));
         if let Some(ag) = c.shipped_label_agreement {
             text.push_str(&format!(", labels unchanged on {ag:.4}"));
+        }
+        let mut judged = c.shipped_label_agreement;
+        match (&runtime, opts.format) {
+            (Some(r), _) => {
+                text.push_str(&format!(
+                    "\n  in {}: max |Δdecision| {:.3e}",
+                    r.runtime, r.max_abs_decision_change
+                ));
+                if let Some(ag) = r.label_agreement {
+                    text.push_str(&format!(", labels unchanged on {ag:.4}"));
+                    judged = Some(ag);
+                }
+            }
+            (None, Format::Onnx) => text.push_str(
+                "\n  onnxruntime not found (a Python with onnxruntime and numpy, as KP_PYTHON or python3): the file was not run",
+            ),
+            _ => {}
+        }
+        if let Some(ag) = judged {
             if ag < 0.99 {
                 text.push_str(&format!(
                     "\nwarning: labels change on {:.1}% of the check rows at {}: validate this export before use, or export at a higher precision",
@@ -199,6 +247,31 @@ pub(crate) fn run(a: Args) -> Result<()> {
         }
         text.push('\n');
     }
+    if let (Some(r), Some(t)) = (&runtime, &rows) {
+        // Time what ships beside score's own f32 paths, one thread each for single rows.
+        use kernelpress::report::{measure_batch, measure_single};
+        let x = t.x.view();
+        let (single, batch) = match &guard {
+            Some(g) => (
+                measure_single(x, 2000, |row| g.decision_one(row).0).p50_us,
+                measure_batch(x, |b| g.decision_f32(b).0),
+            ),
+            None => (
+                measure_single(x, 2000, |row| model.decision_one_f32(row)).p50_us,
+                measure_batch(x, |b| model.decision_f32(b)),
+            ),
+        };
+        text.push_str(&format!(
+            "  speed: {} single row {:.1} µs, batch {:.0} rows/s (1 thread); score {} single row {:.1} µs, batch {:.0} rows/s ({} threads)\n",
+            r.runtime,
+            r.single_us_p50,
+            r.batch_rows_per_s,
+            if guard.is_some() { "(guarded: single row in f64, batch in f32)" } else { "(f32)" },
+            single,
+            batch,
+            rayon::current_num_threads()
+        ));
+    }
     if let (Some(why), true) = (&gate, a.discard_below_gate) {
         text.push_str(&format!(
             "not written: {} (--discard-below-gate)\n",
@@ -207,11 +280,21 @@ pub(crate) fn run(a: Args) -> Result<()> {
         super::print_stdout(&text)?;
         return Err(Error::new(ErrorKind::Gate, why.clone()));
     }
-    let mut sum = match &guard {
-        Some(g) => export_guarded(g, &opts, &a.out)?,
-        None => export(&model, &opts, &a.out)?,
+    let mut sum = match staged {
+        Some((dir, tmp, mut sum)) => {
+            let bytes =
+                std::fs::read(&tmp).map_err(|e| Error::io(format!("{}: {e}", tmp.display())))?;
+            write_atomic(&a.out, &bytes)?;
+            drop(dir);
+            for f in sum.files.iter_mut() {
+                f.0 = a.out.display().to_string();
+            }
+            sum
+        }
+        None => write(&a.out)?,
     };
     sum.check = check;
+    sum.runtime_check = runtime.map(|r| serde_json::to_value(r).unwrap_or_default());
     let what = match (&guard, is_guarded) {
         (Some(_), _) => "guarded model",
         (None, true) => "compiled stage",

@@ -4,6 +4,7 @@
 
 mod compile;
 mod export;
+mod export_check;
 mod featurize;
 mod import;
 mod inspect;

@@ -273,7 +273,7 @@ pub fn write(
             );
         }
         lines.push(format!(
-            "guard: {} below {} sends outputs to the exact expansion ({} support vectors in {} groups, f32), run only for those rows",
+            "guard: {} below {:.4} sends outputs to the exact expansion ({} support vectors in {} groups, f32), run only for those rows",
             g.guard_rule().describe(),
             g.threshold(),
             g.exact().n_support_vectors(),

@@ -148,6 +148,9 @@ pub struct ExportSummary {
     pub steps: Vec<String>,
     /// The precision's measured cost, when data was given.
     pub check: Option<PrecisionCheck>,
+    /// The same check run in the target's own runtime (onnxruntime for ONNX), when the
+    /// caller ran one.
+    pub runtime_check: Option<serde_json::Value>,
 }
 
 /// Writes `model` to `out` (a file, or a folder for C and `.npy`). Every output is written
@@ -194,5 +197,6 @@ fn export_with(
         files,
         steps,
         check: None,
+        runtime_check: None,
     })
 }

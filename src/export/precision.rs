@@ -62,6 +62,26 @@ impl Quant {
             Quant::Index(v) => v.iter().map(|x| *x as f32).collect(),
         }
     }
+    /// Rows `lo..hi` of a matrix of `cols` columns (int8 scales per column stay whole; per
+    /// row they are sliced with the rows).
+    pub fn rows(&self, cols: usize, lo: usize, hi: usize) -> Quant {
+        let r = lo * cols..hi * cols;
+        match self {
+            Quant::F32(v) => Quant::F32(v[r].to_vec()),
+            Quant::F16(v) => Quant::F16(v[r].to_vec()),
+            Quant::I8 { q, scale, axis } => Quant::I8 {
+                q: q[r].to_vec(),
+                scale: if *axis == 0 {
+                    scale[lo..hi].to_vec()
+                } else {
+                    scale.clone()
+                },
+                axis: *axis,
+            },
+            Quant::Signs(v) => Quant::Signs(v[r].to_vec()),
+            Quant::Index(v) => Quant::Index(v[r].to_vec()),
+        }
+    }
     /// Bytes stored.
     pub fn bytes(&self) -> usize {
         match self {
@@ -317,12 +337,19 @@ pub fn check_precision_guarded(
     x: ArrayView2<f64>,
 ) -> Result<PrecisionCheck> {
     let q = quantize(g.compact(), precision);
-    let low = GuardedModel::with_rule(
-        dequantized_model(g.compact(), &q)?,
-        g.exact().clone(),
-        g.threshold(),
-        g.guard_rule(),
+    let compact = dequantized_model(g.compact(), &q)?;
+    // The exports store the input scaling once, in f32, for both stages.
+    let e = g.exact();
+    let exact = crate::model::ExactModel::new(
+        e.kernel().clone(),
+        e.support_vectors().to_owned(),
+        e.coef().to_owned(),
+        e.intercept().to_vec(),
+        e.task(),
+        e.labels().to_vec(),
+        compact.scaling().cloned(),
     )?;
+    let low = GuardedModel::with_rule(compact, exact, g.threshold(), g.guard_rule())?;
     let a = g.decision(x).0;
     let (max, rms, agree) = changes(g.rule(), &a, &low.decision(x).0);
     let (smax, _, sagree) = changes(g.rule(), &a, &low.decision_f32(x).0);

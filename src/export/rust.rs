@@ -194,7 +194,7 @@ pub fn write(
             "\n{doc}/// Returns the stage that answered: 0 the compiled stage, 1 the exact model, 2 the\n/// compiled stage with some pairs recomputed exactly.\npub fn decision_stage(x: &[f32], out: &mut [f32]) -> u8 {{\n{stage_body}\n}}\n\n{doc}pub fn decision(x: &[f32], out: &mut [f32]) {{\n    let _ = decision_stage(x, out);\n}}\n"
         );
         lines.push(format!(
-            "guard: {} below {} sends outputs to the exact expansion ({} support vectors in {} groups, f32), run only for those rows",
+            "guard: {} below {:.4} sends outputs to the exact expansion ({} support vectors in {} groups, f32), run only for those rows",
             g.guard_rule().describe(),
             g.threshold(),
             g.exact().n_support_vectors(),

@@ -164,6 +164,26 @@ fn wht(g: &mut G, u: &str, n: usize, block: usize) -> (String, String) {
             format!("dense {block}×{block} Hadamard MatMul"),
         );
     }
+    if block <= 64 * 64 {
+        // H_b = H_f1 ⊗ H_f2 (Sylvester), so a block read as an f1 × f2 matrix M becomes
+        // H_f1 · M · H_f2: one MatMul on the last axis, one with H_f1 on the left
+        // (broadcast over rows and blocks). Two dense products beat ⌈log₈ b⌉ stages of
+        // 8 × 8 ones in onnxruntime (a Hadamard 4,096 map on 784 columns: 6,400 → see
+        // docs/exporting.md for the measured rows per second).
+        let f2 = 1usize << (block.trailing_zeros().div_ceil(2));
+        let f1 = block / f2;
+        let h2 = g.f32s("hadamard", &[f2, f2], &h(f2));
+        let h1 = g.f32s("hadamard", &[f1, f1], &h(f1));
+        let shp = g.i64s("shape", &[-1, (n / block) as i64, f1 as i64, f2 as i64]);
+        let r = g.op("Reshape", &[u, &shp], vec![]);
+        let right = g.op("MatMul", &[&r, &h2], vec![]);
+        let left = g.op("MatMul", &[&h1, &right], vec![]);
+        let back = g.i64s("shape", &[-1, n as i64]);
+        return (
+            g.op("Reshape", &[&left, &back], vec![]),
+            format!("H{f1} · block · H{f2} (two MatMuls, Kronecker factors of H{block})"),
+        );
+    }
     let mut v = u.to_string();
     let mut span = 1usize;
     let mut stages = 0;
@@ -784,7 +804,7 @@ fn guarded(gr: &mut G, gm: &GuardedModel, xs: &str, dec: &str) -> (String, Strin
     );
     let stage = gr.op("Add", &[&a64, &p64], vec![]);
     let how = format!(
-        "guard: {} below {} selects per row between the compiled stage and the exact expansion ({} support vectors, f32); the graph computes both for every row",
+        "guard: {} below {:.4} selects per row between the compiled stage and the exact expansion ({} support vectors, f32); the graph computes both for every row",
         gm.guard_rule().describe(),
         gm.threshold(),
         nsv
@@ -816,17 +836,57 @@ pub fn build(
     }
     let mut vals = vec![x];
     let mut lines = Vec::new();
+    // A program ending in cos_sin whose output only the head reads: [c·cos u, c·sin u]·H
+    // is lowered as (cos u·H_top + sin u·H_bottom)·c, without the Concat and the two
+    // scalings of the [N, D] features (a quarter of the graph's time in onnxruntime).
+    let last = p.instrs().len().checked_sub(1);
+    let fused = last.and_then(|l| {
+        let ins = &p.instrs()[l];
+        let only_head = p.output().0 == l + 1
+            && p.instrs()[..l]
+                .iter()
+                .all(|o| o.inputs.iter().all(|v| v.0 != l + 1));
+        match (&ins.step, only_head) {
+            (Step::CosSin(cs), true) => Some((l, cs.scale())),
+            _ => None,
+        }
+    });
     for (i, ins) in p.instrs().iter().enumerate() {
+        if fused.is_some_and(|(l, _)| l == i) {
+            vals.push(String::new());
+            continue;
+        }
         let names: Vec<String> = ins.inputs.iter().map(|v| vals[v.0].clone()).collect();
         let dims: Vec<usize> = ins.inputs.iter().map(|v| p.dim(*v)).collect();
         let (out, how) = lower_step(&mut g, q, i, &ins.step, &names, &dims)?;
         lines.push(format!("step {i} {}: {how}", ins.step.name()));
         vals.push(out);
     }
-    let z = vals[p.output().0].clone();
     let (hs, hq) = q.get("head.weights");
-    let w = g.weights("head", hs, hq, false);
-    let zw = g.op("MatMul", &[&z, &w], vec![]);
+    let k0 = model.n_outputs();
+    let zw = match fused {
+        Some((l, c)) => {
+            let u = vals[p.instrs()[l].inputs[0].0].clone();
+            let half = hs[0] / 2;
+            let top = g.weights("head_cos", &[half, k0], &hq.rows(k0, 0, half), false);
+            let bot = g.weights("head_sin", &[half, k0], &hq.rows(k0, half, 2 * half), false);
+            let co = g.op("Cos", &[&u], vec![]);
+            let si = g.op("Sin", &[&u], vec![]);
+            let a = g.op("MatMul", &[&co, &top], vec![]);
+            let b2 = g.op("MatMul", &[&si, &bot], vec![]);
+            let sum = g.op("Add", &[&a, &b2], vec![]);
+            let cs = g.scalar(c);
+            lines.push(format!(
+                "step {l} cos_sin: fused with the head: (Cos·H_top + Sin·H_bottom)·c, no Concat"
+            ));
+            g.op("Mul", &[&sum, &cs], vec![])
+        }
+        None => {
+            let z = vals[p.output().0].clone();
+            let w = g.weights("head", hs, hq, false);
+            g.op("MatMul", &[&z, &w], vec![])
+        }
+    };
     let b = g.f32s("bias", &[model.n_outputs()], &q.f32s("head.bias"));
     let mut dec = g.op("Add", &[&zw, &b], vec![]);
     let k = model.n_outputs() as i64;
