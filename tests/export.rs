@@ -704,9 +704,33 @@ fn guarded_models_export_whole_and_answer_like_score() {
             &[s(&onnx), s(&st), s(&d.test), "condition", s(&sc)],
         );
         eprint!("{rule}: {r}");
-        // C, with the stage, built warning-free as C99.
+        // C, with the stage, built warning-free as C99. Its own check builds it with cc
+        // -O2 and runs it on the rows (labels and speed beside score's).
         let out = d.dir.join(format!("c_g_{rule}"));
-        ok(&["export", s(&m), "--format", "c", "--out", s(&out)]);
+        let sum = d.dir.join(format!("c_g_{rule}.json"));
+        let text = ok(&[
+            "export",
+            s(&m),
+            "--format",
+            "c",
+            "--check-data",
+            s(&d.test),
+            "--target",
+            "condition",
+            "--summary",
+            s(&sum),
+            "--out",
+            s(&out),
+        ]);
+        assert!(
+            text.contains("in C built with") && text.contains("speed:"),
+            "{text}"
+        );
+        let v: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&sum).unwrap()).unwrap();
+        let c_agree = v["runtime_check"]["label_agreement"].as_f64().unwrap();
+        let n_near = near.iter().filter(|&&b| b).count() as f64 / near.len() as f64;
+        assert!(c_agree >= 1.0 - n_near, "{c_agree} ({n_near} near)");
         std::fs::write(
             out.join("main.c"),
             "#include <stdio.h>\n#include \"kp_model.h\"\nint main(void) {\n    float x[64], out[64];\n    int d = kp_input_dim(), k = kp_output_dim();\n    static const char *const cols[] = KP_INPUT_NAMES;\n    if (cols[0] == NULL || kp_input_name(d - 1) == NULL || kp_model_info() == NULL) return 1;\n    for (;;) {\n        for (int j = 0; j < d; j++) if (scanf(\"%f\", &x[j]) != 1) return 0;\n        int st = kp_decision_stage(x, out);\n        int li = kp_label_index(x);\n        for (int c = 0; c < k; c++) printf(\"%.9g \", out[c]);\n        printf(\"%d %d\\n\", li, st);\n    }\n}\n",

@@ -37,8 +37,10 @@ use std::path::PathBuf;
 /// stores the dense projections and the head as int8 with one scale per output; signs and
 /// indices stay exact; computation is f32. --check-data measures what the precision costs
 /// on your rows against the f64 model twice: the weights alone (arithmetic in f64) and as
-/// shipped (arithmetic in f32); it warns when labels change on more than 1% of the rows,
-/// and --min-agreement P is a gate on the shipped label agreement (exit 3; with
+/// shipped (arithmetic in f32); an onnx export is also run by onnxruntime (a Python with
+/// onnxruntime, as KP_PYTHON or python3) and a c export built with cc -O2 and run, each
+/// timed beside score. It warns when labels change on more than 1% of the rows, and
+/// --min-agreement P is a gate on the shipped label agreement (exit 3; with
 /// --discard-below-gate nothing is written).
 ///
 /// Examples:
@@ -188,6 +190,27 @@ pub(crate) fn run(a: Args) -> Result<()> {
             super::export_check::onnxruntime(&tmp, t.x.view(), reference.view(), model.rule())?;
         staged = Some((dir, tmp, sum));
     }
+    // C with check rows: built in a private temporary folder with the system's cc -O2 and
+    // run on the rows; the folder at --out is written afterwards (the same files).
+    if let (Some(t), Format::C) = (&rows, opts.format) {
+        let dir = tempfile::Builder::new()
+            .prefix("kernelpress-export")
+            .tempdir()
+            .map_err(|e| Error::io(format!("a temporary folder for the C check: {e}")))?;
+        let folder = dir.path().join("c");
+        write(&folder)?;
+        let reference = match &guard {
+            Some(g) => g.decision(t.x.view()).0,
+            None => model.decision(t.x.view()),
+        };
+        runtime = super::export_check::c_export(
+            &folder,
+            &opts.prefix,
+            t.x.view(),
+            reference.view(),
+            model.rule(),
+        )?;
+    }
     let mut text = String::new();
     let mut gate = None;
     if let Some(c) = &check {
@@ -223,6 +246,9 @@ pub(crate) fn run(a: Args) -> Result<()> {
             (None, Format::Onnx) => text.push_str(
                 "\n  onnxruntime not found (a Python with onnxruntime and numpy, as KP_PYTHON or python3): the file was not run",
             ),
+            (None, Format::C) => {
+                text.push_str("\n  no C compiler found (cc or gcc): the export was not built")
+            }
             _ => {}
         }
         if let Some(ag) = judged {
@@ -262,7 +288,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
             ),
         };
         text.push_str(&format!(
-            "  speed: {} single row {:.1} µs, batch {:.0} rows/s (1 thread); score {} single row {:.1} µs, batch {:.0} rows/s ({} threads)\n",
+            "  speed: {} single row {:.1} µs, {:.0} rows/s (1 thread); score {} single row {:.1} µs, batch {:.0} rows/s ({} threads)\n",
             r.runtime,
             r.single_us_p50,
             r.batch_rows_per_s,

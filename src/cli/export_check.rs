@@ -134,3 +134,132 @@ pub(crate) fn onnxruntime(
         batch_rows_per_s: v["rows_per_s"].as_f64().unwrap_or(f64::NAN),
     }))
 }
+
+/// The harness the C check builds with the export: reads `n × d` f32 rows from a file,
+/// writes the decisions (f32) of every row to another, then times `kp_decision` over the
+/// rows, repeated for at least 0.3 s, and prints the mean microseconds per row.
+const C_MAIN: &str = r#"
+#include <stdio.h>
+#include <stdlib.h>
+#include <time.h>
+#include "kp_model.h"
+int main(int argc, char **argv) {
+    long n = atol(argv[1]);
+    int d = PREFIX_input_dim(), k = PREFIX_output_dim();
+    float *x = malloc(sizeof(float) * (size_t)(n * d)), *s = malloc(sizeof(float) * (size_t)(n * k));
+    FILE *f = fopen(argv[2], "rb");
+    if (!x || !s || !f || fread(x, sizeof(float), (size_t)(n * d), f) != (size_t)(n * d)) return 1;
+    fclose(f);
+    for (long i = 0; i < n; i++) PREFIX_decision(x + i * d, s + i * k);
+    f = fopen(argv[3], "wb");
+    if (!f || fwrite(s, sizeof(float), (size_t)(n * k), f) != (size_t)(n * k)) return 1;
+    fclose(f);
+    struct timespec a, b;
+    long calls = 0;
+    double el = 0;
+    clock_gettime(CLOCK_MONOTONIC, &a);
+    do {
+        for (long i = 0; i < n && i < 2000; i++, calls++) PREFIX_decision(x + i * d, s);
+        clock_gettime(CLOCK_MONOTONIC, &b);
+        el = (double)(b.tv_sec - a.tv_sec) + 1e-9 * (double)(b.tv_nsec - a.tv_nsec);
+    } while (el < 0.3);
+    printf("%.6f\n", 1e6 * el / (double)calls);
+    return 0;
+}
+"#;
+
+/// The C compiler (`cc`, else `gcc`), if any.
+fn c_compiler() -> Option<&'static str> {
+    ["cc", "gcc"].into_iter().find(|c| {
+        Command::new(c)
+            .arg("--version")
+            .output()
+            .map(|o| o.status.success())
+            .unwrap_or(false)
+    })
+}
+
+/// Builds the C export in `dir` (its `kp_model.h`, `kp_model.c`, symbols `prefix`) with the
+/// system's `cc -O2` and a harness, runs it on `x` and compares with `reference` under
+/// `rule`. `Ok(None)` when no C compiler is found.
+pub(crate) fn c_export(
+    dir: &Path,
+    prefix: &str,
+    x: ArrayView2<f64>,
+    reference: ArrayView2<f64>,
+    rule: &OutputRule,
+) -> Result<Option<RuntimeCheck>> {
+    let Some(cc) = c_compiler() else {
+        return Ok(None);
+    };
+    let work = tempfile::Builder::new()
+        .prefix("kernelpress-c-check")
+        .tempdir()
+        .map_err(|e| Error::io(format!("a temporary folder for the C check: {e}")))?;
+    let w = work.path();
+    let main = w.join("main.c");
+    std::fs::write(&main, C_MAIN.replace("PREFIX", prefix))
+        .map_err(|e| Error::io(format!("{}: {e}", main.display())))?;
+    let exe = w.join("check");
+    let o = Command::new(cc)
+        .args(["-std=c99", "-D_POSIX_C_SOURCE=199309L", "-O2", "-I"])
+        .arg(dir)
+        .arg("-o")
+        .arg(&exe)
+        .arg(&main)
+        .arg(dir.join("kp_model.c"))
+        .arg("-lm")
+        .output()
+        .map_err(|e| Error::io(format!("running {cc}: {e}")))?;
+    if !o.status.success() {
+        let err = String::from_utf8_lossy(&o.stderr);
+        return Err(Error::numerical(format!(
+            "{cc} could not build the C export: {}",
+            err.lines().next().unwrap_or("")
+        )));
+    }
+    let rows = w.join("rows.f32");
+    let out = w.join("decision.f32");
+    let raw: Vec<u8> = x.iter().flat_map(|v| (*v as f32).to_le_bytes()).collect();
+    std::fs::write(&rows, raw).map_err(|e| Error::io(format!("{}: {e}", rows.display())))?;
+    let o = Command::new(&exe)
+        .arg(x.nrows().to_string())
+        .arg(&rows)
+        .arg(&out)
+        .output()
+        .map_err(|e| Error::io(format!("running the C check: {e}")))?;
+    if !o.status.success() {
+        return Err(Error::numerical("the C export's check program failed"));
+    }
+    let us: f64 = String::from_utf8_lossy(&o.stdout)
+        .trim()
+        .parse()
+        .unwrap_or(f64::NAN);
+    let bytes = std::fs::read(&out).map_err(|e| Error::io(format!("{}: {e}", out.display())))?;
+    let k = reference.ncols();
+    if bytes.len() != 4 * x.nrows() * k {
+        return Err(Error::numerical(
+            "the C export's check wrote the wrong number of decisions",
+        ));
+    }
+    let d = Array2::from_shape_fn((x.nrows(), k), |(i, j)| {
+        let at = 4 * (i * k + j);
+        f32::from_le_bytes([bytes[at], bytes[at + 1], bytes[at + 2], bytes[at + 3]]) as f64
+    });
+    let max = d
+        .iter()
+        .zip(reference.iter())
+        .fold(0.0f64, |m, (a, b)| m.max((a - b).abs()));
+    let label_agreement = rule.task().is_classifier().then(|| {
+        let a = rule.indices(reference);
+        let b = rule.indices(d.view());
+        a.iter().zip(&b).filter(|(p, q)| p == q).count() as f64 / a.len().max(1) as f64
+    });
+    Ok(Some(RuntimeCheck {
+        runtime: format!("C built with {cc} -O2"),
+        label_agreement,
+        max_abs_decision_change: max,
+        single_us_p50: us,
+        batch_rows_per_s: 1e6 / us,
+    }))
+}
