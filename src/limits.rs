@@ -1,13 +1,29 @@
 //! Limits checked before anything is allocated from a size that came from a file, a flag
 //! or an expression. The memory ceiling defaults to half of the machine's physical memory
 //! (read from `/proc/meminfo`; 8 GiB where that cannot be read) and can be set by the
-//! caller ([`set_max_memory`], the CLI's `--max-memory`). This is the one process-wide value
-//! of the library, and only the caller sets it.
+//! caller ([`set_max_memory`], the CLI's `--max-memory`). A caller that counts the
+//! process's heap ([`set_usage_probe`]: the CLI installs a counting allocator) makes the
+//! ceiling a budget for the whole process: every sized allocation is checked against the
+//! ceiling less what is already in use. These are the library's only process-wide values,
+//! and only the caller sets them.
 
 use crate::{Error, Result};
 use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::OnceLock;
 
 static MAX_MEMORY: AtomicU64 = AtomicU64::new(0);
+static USAGE: OnceLock<fn() -> u64> = OnceLock::new();
+
+/// Installs `probe`, which returns the bytes the process has allocated now; from then on
+/// [`check_alloc`] counts them against the ceiling. Set once (later calls are ignored).
+pub fn set_usage_probe(probe: fn() -> u64) {
+    let _ = USAGE.set(probe);
+}
+
+/// Bytes in use by the process according to the installed probe (0 without one).
+pub fn in_use() -> u64 {
+    USAGE.get().map(|f| f()).unwrap_or(0)
+}
 
 fn physical_memory() -> Option<u64> {
     let text = std::fs::read_to_string("/proc/meminfo").ok()?;
@@ -39,9 +55,15 @@ pub fn set_max_memory(bytes: u64) {
 pub fn check_alloc(count: u64, elem: u64, what: &str) -> Result<()> {
     let bytes = count.saturating_mul(elem);
     let limit = max_memory();
+    let used = in_use();
     if bytes > limit {
         return Err(Error::input(format!(
             "{what} would need {bytes} bytes, more than the memory limit of {limit} bytes (raise it with --max-memory)"
+        )));
+    }
+    if bytes.saturating_add(used) > limit {
+        return Err(Error::input(format!(
+            "{what} would need {bytes} bytes with {used} bytes already in use, more than the memory limit of {limit} bytes (raise it with --max-memory)"
         )));
     }
     Ok(())

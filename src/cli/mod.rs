@@ -10,6 +10,7 @@ mod import;
 mod inspect;
 mod kernel_check;
 mod machine;
+mod memory;
 pub(crate) mod progress;
 mod report;
 mod score;
@@ -26,8 +27,10 @@ pub struct Cli {
     /// No progress bars or log lines on stderr (warnings still print).
     #[arg(long, global = true)]
     pub quiet: bool,
-    /// Memory ceiling for anything sized by a file, a flag or an expression (e.g. 4G,
-    /// 512M); default half of the physical memory.
+    /// Memory ceiling (e.g. 4G, 512M). Given, it bounds the whole process: sizes from
+    /// files, flags and expressions are checked against it less the memory in use, and the
+    /// command stops with exit 2 if its resident memory crosses it. Without it, each such
+    /// size is checked against half of the physical memory.
     #[arg(long, global = true)]
     pub max_memory: Option<String>,
     #[command(subcommand)]
@@ -63,7 +66,10 @@ pub fn main() -> i32 {
     progress::set_quiet(cli.quiet);
     if let Some(m) = &cli.max_memory {
         match kernelpress::limits::parse_size(m) {
-            Ok(v) => kernelpress::limits::set_max_memory(v),
+            Ok(v) => {
+                kernelpress::limits::set_max_memory(v);
+                memory::watch(v);
+            }
             Err(e) => {
                 eprintln!("error: {e}");
                 return 2;
@@ -110,7 +116,7 @@ static OUTPUT_DIRS: std::sync::Mutex<Vec<std::path::PathBuf>> = std::sync::Mutex
 /// Removes this process's temporary outputs (`.NAME.<random>.tmpPID` files and folders)
 /// from the output folders. A folder moved aside while a replacement is renamed in
 /// (`.NAME.old.tmpPID`) is left, so that nothing of the user's is deleted.
-fn remove_temporaries() {
+pub(crate) fn remove_temporaries() {
     let suffix = format!(".tmp{}", std::process::id());
     if let Ok(dirs) = OUTPUT_DIRS.lock() {
         for d in dirs.iter() {
