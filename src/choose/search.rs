@@ -62,6 +62,10 @@ pub struct SearchOptions {
     /// `1 − max_loss` with 95% confidence on the audit rows), judged at its *mean*
     /// single-row latency; the fastest of all that meet the bound wins.
     pub guard: bool,
+    /// Refine every candidate's map against the exact model before judging it
+    /// ([`Teacher::distil_refined`]; methods without continuous parameters are distilled as
+    /// usual, with a note). The audit rows that judge candidates are never refined on.
+    pub refine: Option<crate::fit::RefineOptions>,
 }
 
 impl SearchOptions {
@@ -252,8 +256,25 @@ pub fn search(
         for (f, p) in order {
             let spec = FeatureSpec::new(exact.kernel().clone(), m, exact.input_dim(), f, opts.seed);
             let t0 = Instant::now();
-            let model = match teacher.distil(&spec, &opts.grid, None, &Silent) {
-                Ok((mdl, _)) => mdl,
+            let built = match &opts.refine {
+                Some(r) => match teacher.distil_refined(&spec, &opts.grid, None, r, &Silent) {
+                    Ok((mdl, _, _)) => Ok(mdl),
+                    // A map without continuous parameters (or derivatives) is refused as
+                    // input: that candidate is distilled as usual.
+                    Err(e) if e.kind() == crate::ErrorKind::Input => {
+                        notes.push(format!("{m} at {f} features: not refined: {}", e.message()));
+                        teacher
+                            .distil(&spec, &opts.grid, None, &Silent)
+                            .map(|(mdl, _)| mdl)
+                    }
+                    Err(e) => Err(e),
+                },
+                None => teacher
+                    .distil(&spec, &opts.grid, None, &Silent)
+                    .map(|(mdl, _)| mdl),
+            };
+            let model = match built {
+                Ok(mdl) => mdl,
                 Err(e) => {
                     notes.push(format!("{m} at {f} features: {}", e.message()));
                     continue;

@@ -140,7 +140,8 @@ pub(crate) struct Args {
     /// diagonals of Hadamard and Fastfood maps move by gradient descent on the squared
     /// decision error; the head is refitted after each pass and the best pass on the
     /// ridge-choice rows is kept (the audit rows are never used). Same program shape and
-    /// cost. See docs/refining.md.
+    /// cost. With a budget, every candidate is refined before it is judged. See
+    /// docs/refining.md.
     #[arg(long, value_name = "N")]
     refine: Option<usize>,
     /// Refinement step size, relative to each parameter tensor's size.
@@ -342,10 +343,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         None => None,
     };
     if a.budget_us.is_some() || a.max_bytes.is_some() || a.max_disagreement.is_some() {
-        if refine.is_some() {
-            return Err(Error::input("the budget search does not refine its candidates yet: compile the chosen method and size with --method, --features and --refine"));
-        }
-        return run_budget(&a, &exact, calib, &grid);
+        return run_budget(&a, &exact, calib, &grid, refine);
     }
     if !a.methods.is_empty() {
         return Err(Error::input(
@@ -604,6 +602,7 @@ fn run_budget(
     exact: &ExactModel,
     calib: Option<kernelpress::data::Table>,
     grid: &RidgeGrid,
+    refine: Option<RefineOptions>,
 ) -> Result<()> {
     let calib = calib.ok_or_else(|| Error::input("a budget search needs --calib FILE"))?;
     let max_bytes = match &a.max_bytes {
@@ -644,6 +643,7 @@ fn run_budget(
         grid: grid.clone(),
         reps: 300,
         guard: a.allow_guard,
+        refine,
     };
     let res = search(&teacher, &profile, budget, &opts, &bars)?;
     for n in &res.notes {
