@@ -231,6 +231,10 @@ enum Node32 {
         scaled: AlignedF32,
         sq: Vec<f64>,
         sq32: Vec<f32>,
+        /// For narrow rows (`d ≤ NARROW`), the same values column-major (`d × n`): one
+        /// row's products then run along the support vectors, `d` multiply-adds over
+        /// contiguous memory, instead of `n` dot products too short to fill a vector.
+        cols: Option<Vec<f32>>,
     },
     L1 {
         scaled: AlignedF32,
@@ -255,16 +259,33 @@ fn sq_norms32(v: &[f32], d: usize) -> Vec<f64> {
         .collect()
 }
 
+/// Input widths up to which one f32 row against a set uses the column-major copy.
+/// Measured on the 20-column, 4,598-vector SVM of docs/measurements.md ("Exact f32 on
+/// narrow inputs"): row-major dot products of 20 values made the f32 row slower than f64.
+const NARROW: usize = 64;
+
 fn build32(n: &Node) -> Node32 {
     match n {
         Node::Euclid { scaled, .. } => {
             let v = to32(scaled);
-            let sq = sq_norms32(&v, scaled.ncols());
+            let d = scaled.ncols();
+            let sq = sq_norms32(&v, d);
             let sq32 = sq.iter().map(|&q| q as f32).collect();
+            let rows = scaled.nrows();
+            let cols = (d <= NARROW && d > 0).then(|| {
+                let mut c = vec![0f32; d * rows];
+                for (j, r) in v.chunks_exact(d).enumerate() {
+                    for (i, x) in r.iter().enumerate() {
+                        c[i * rows + j] = *x;
+                    }
+                }
+                c
+            });
             Node32::Euclid {
                 scaled: v,
                 sq,
                 sq32,
+                cols,
             }
         }
         Node::L1 { scaled } => Node32::L1 {
@@ -298,7 +319,9 @@ impl Prepared32 {
     pub fn bytes(&self) -> usize {
         fn b(n: &Node32) -> usize {
             match n {
-                Node32::Euclid { scaled, sq, .. } => 4 * scaled.len() + 8 * sq.len(),
+                Node32::Euclid {
+                    scaled, sq, cols, ..
+                } => 4 * scaled.len() + 8 * sq.len() + cols.as_ref().map_or(0, |c| 4 * c.len()),
                 Node32::L1 { scaled } => 4 * scaled.len(),
                 Node32::Dot { data, norms } => 4 * data.len() + 8 * norms.len(),
                 Node32::Many(v) => v.iter().map(b).sum(),
@@ -332,11 +355,19 @@ fn row32(k: &Kernel, x: &[f64], b: &Node32, out: &mut [f64]) {
             row32(inner, x, nb, out);
             out.iter_mut().for_each(|v| *v *= c);
         }
-        (k, Node32::Euclid { scaled, sq, .. }) => {
+        (
+            k,
+            Node32::Euclid {
+                scaled, sq, cols, ..
+            },
+        ) => {
             let s = k.inverse_scale(d).expect("shift-invariant");
             let xs: Vec<f32> = x.iter().zip(&s).map(|(v, f)| (v * f) as f32).collect();
             let qa: f64 = xs.iter().map(|&v| v as f64 * v as f64).sum();
-            linalg::dot_rows(scaled, &xs, out);
+            match cols {
+                Some(c) => linalg::dot_cols_f32(c, &xs, out),
+                None => linalg::dot_rows(scaled, &xs, out),
+            }
             if matches!(k, Kernel::Gaussian { .. }) {
                 crate::transform::expo::gaussian_row(out, qa, sq, 0.5);
                 return;
@@ -415,6 +446,7 @@ fn block32(k: &Kernel, a: &Node32, b: &Node32, m: usize, n: usize) -> Vec<f32> {
                 scaled: sb,
                 sq: qb,
                 sq32,
+                ..
             },
         ) => {
             let d = sa.len() / m.max(1);

@@ -515,6 +515,78 @@ pub fn dot_rows_at<T: RowFloat>(level: crate::simd::Level, rows: &[T], x: &[T], 
     }
 }
 
+/// `out[j] = Σ_i x[i]·cols[i·n + j]` for a column-major `d × n` matrix (`d = x.len()`,
+/// `n = out.len()`): the products of one row with `n` rows stored by column, as `d`
+/// multiply-adds along contiguous memory (plain loops the compiler vectorises), summed in
+/// f32 in the order of `i`.
+///
+/// ```
+/// use kernelpress::linalg::dot_cols_f32;
+/// // Rows (1, 2) and (3, 4) stored by column: [1, 3, 2, 4].
+/// let mut out = [0.0; 2];
+/// dot_cols_f32(&[1.0, 3.0, 2.0, 4.0], &[10.0, 1.0], &mut out);
+/// assert_eq!(out, [12.0, 34.0]);
+/// ```
+///
+/// # Panics
+/// If `cols` does not hold `x.len() × out.len()` values.
+#[track_caller]
+pub fn dot_cols_f32(cols: &[f32], x: &[f32], out: &mut [f64]) {
+    let n = out.len();
+    assert_eq!(cols.len(), x.len() * n, "dot_cols_f32: shapes differ");
+    const BLOCK: usize = 512;
+    let mut acc = [0f32; BLOCK];
+    let mut at = 0;
+    while at < n {
+        let w = BLOCK.min(n - at);
+        let a = &mut acc[..w];
+        a.iter_mut().for_each(|v| *v = 0.0);
+        for (i, &xi) in x.iter().enumerate() {
+            let c = &cols[i * n + at..i * n + at + w];
+            for (v, &cv) in a.iter_mut().zip(c) {
+                *v += xi * cv;
+            }
+        }
+        for (o, &v) in out[at..at + w].iter_mut().zip(a.iter()) {
+            *o = v as f64;
+        }
+        at += w;
+    }
+}
+
+#[cfg(test)]
+mod dot_cols_tests {
+    use super::*;
+
+    /// Against the definition in f64 (a different summation order: agreement to f32
+    /// rounding), over widths that cross the 512-value block and a ragged tail.
+    #[test]
+    fn matches_the_definition() {
+        for (d, n) in [(1, 1), (3, 7), (20, 513), (64, 1500)] {
+            let rows: Vec<f32> = (0..n * d)
+                .map(|i| ((i * 37 % 101) as f32 - 50.0) / 17.0)
+                .collect();
+            let x: Vec<f32> = (0..d).map(|i| (i as f32 * 0.3).sin()).collect();
+            let mut cols = vec![0f32; d * n];
+            for j in 0..n {
+                for i in 0..d {
+                    cols[i * n + j] = rows[j * d + i];
+                }
+            }
+            let mut out = vec![0.0; n];
+            dot_cols_f32(&cols, &x, &mut out);
+            for j in 0..n {
+                let want: f64 = (0..d).map(|i| rows[j * d + i] as f64 * x[i] as f64).sum();
+                let scale: f64 = (0..d).map(|i| (rows[j * d + i] * x[i]).abs() as f64).sum();
+                assert!(
+                    (out[j] - want).abs() <= 1e-6 * scale.max(1.0),
+                    "{d}×{n} at {j}"
+                );
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod dot_rows_f64_tests {
     use super::*;
