@@ -21,8 +21,19 @@ fn data(name: &str) -> Data {
 }
 
 /// Compiled models covering every method (teacher mode for the Gaussian methods, labels
-/// mode for the others), as (name, path).
-fn models(d: &Data) -> Vec<(String, PathBuf)> {
+/// mode for the others), as (name, path): compiled once per test run (the tests of this
+/// file share them, read-only) into their own folder.
+fn models(_: &Data) -> Vec<(String, PathBuf)> {
+    static MODELS: std::sync::OnceLock<Vec<(String, PathBuf)>> = std::sync::OnceLock::new();
+    MODELS
+        .get_or_init(|| {
+            let d = data("export_models_shared");
+            build_models(&d)
+        })
+        .clone()
+}
+
+fn build_models(d: &Data) -> Vec<(String, PathBuf)> {
     let calib = d.dir.join("calib.csv");
     head_lines(&root().join("models/pump_calib.csv"), &calib, 800);
     let train = d.dir.join("train.csv");
