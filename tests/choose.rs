@@ -60,6 +60,39 @@ fn spearman_matches_the_textbook_cases() {
     assert!((r - 0.9).abs() < 1e-12, "{r}");
 }
 
+/// Ladder rungs that give the same map size (Taylor features come in whole degrees) are
+/// built once: no (method, features) pair appears twice among the candidates.
+#[test]
+fn search_builds_each_map_size_once() {
+    let (exact, calib) = demo();
+    let calib = calib.slice(s![..1500, ..]).to_owned();
+    let teacher = Teacher::new(&exact, calib.view(), &Silent).unwrap();
+    let opts = SearchOptions {
+        methods: vec![Method::parse("taylor").unwrap()],
+        ladder: vec![16, 32, 48, 64, 128, 256],
+        seed: 3,
+        grid: RidgeGrid::standard(),
+        reps: 20,
+        guard: false,
+        refine: None,
+    };
+    // Smaller than the exact model, and a fidelity bound nothing meets: every rung whose
+    // prediction fits is built, smallest first.
+    let budget = Budget {
+        max_bytes: Some(200_000),
+        max_loss: Some(0.0001),
+        ..Budget::default()
+    };
+    let res = search(&teacher, &MachineProfile::nominal(), budget, &opts, &Silent).unwrap();
+    let mut seen: Vec<(String, usize)> = Vec::new();
+    for r in res.tried.iter().filter(|r| !r.exact) {
+        let key = (r.method.clone(), r.features);
+        assert!(!seen.contains(&key), "{key:?} built twice: {:?}", seen);
+        seen.push(key);
+    }
+    assert!(!seen.is_empty(), "{:?} {:?}", res.notes, res.choice);
+}
+
 /// The search with a size budget (deterministic: no timing decides it) returns the model
 /// an exhaustive grid over the same methods and feature counts picks: the smallest
 /// held-out disagreement among the models within the byte budget.

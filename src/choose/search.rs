@@ -214,8 +214,11 @@ pub fn search(
     let scaled = exact.scaling().is_some();
     obs.stage("searching", opts.methods.len() as u64);
     for &m in &opts.methods {
-        // Predict up the ladder while the prediction fits.
+        // Predict up the ladder while the prediction fits. Rungs whose map comes out the
+        // same size as an earlier one (Taylor and Maclaurin round to whole degrees) are
+        // built once.
         let mut fit: Vec<(usize, Prediction)> = Vec::new();
+        let mut sizes: Vec<usize> = Vec::new();
         for &f in &opts.ladder {
             let spec = FeatureSpec::new(exact.kernel().clone(), m, exact.input_dim(), f, opts.seed);
             if spec.from_data() && f > n {
@@ -234,6 +237,10 @@ pub fn search(
                     continue;
                 }
             };
+            if sizes.contains(&prog.output_dim()) {
+                continue;
+            }
+            sizes.push(prog.output_dim());
             let p = predict(profile, &program_lines(&prog, exact.n_outputs(), scaled));
             if fastest
                 .as_ref()
