@@ -43,7 +43,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 (AnyModel::Compiled(c), false) => black_box(c.decision_one(r)),
                 (AnyModel::Exact(e), true) => black_box(e.decision_one_f32(r)),
                 (AnyModel::Exact(e), false) => black_box(e.decision_one(r)),
-                (AnyModel::Guarded(g), _) => black_box(g.decision_one(r).0),
+                (AnyModel::Guarded(g), true) => black_box(g.decision_one_f32(r).0),
+                (AnyModel::Guarded(g), false) => black_box(g.decision_one(r).0),
             };
         }
         n += rows.len();

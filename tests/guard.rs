@@ -186,7 +186,12 @@ fn command_line_writes_scores_reports_and_exports_a_guarded_model() {
     let total: f64 = shares.iter().map(|v| v.as_f64().unwrap()).sum();
     assert!((total - 1.0).abs() < 1e-12);
     assert!(shares[1].as_f64().unwrap() > 0.0);
-    for key in ["latency_us_compiled_mean", "speedup_mean", "agreement"] {
+    for key in [
+        "latency_us_compiled_mean",
+        "speedup_mean",
+        "speedup_mean_f32",
+        "agreement",
+    ] {
         let v = r[key].as_f64().unwrap();
         assert!(v.is_finite() && v > 0.0, "{key}: {v}");
     }
@@ -693,5 +698,47 @@ fn command_line_pairs_guard_scores_partial_rows() {
             (n as f64 / rows.len() as f64 - want).abs() < 1e-12,
             "{st}: {n} rows vs share {want}"
         );
+    }
+}
+
+/// The guarded model in f32, one row at a time and in batches, under both rules: the same
+/// stage as the other f32 path on every row not within rounding of the threshold, and
+/// decisions within f32 rounding of the f64 guarded model's where the stages agree.
+#[test]
+fn f32_rows_and_batches_agree_under_both_rules() {
+    use kernelpress::model::guarded::GuardRule;
+    let (exact, calib, test) = demo();
+    let c = weak(&exact, &calib);
+    for rule in [GuardRule::Row, GuardRule::Pairs] {
+        let g = GuardedModel::with_rule(c.clone(), exact.clone(), 0.5, rule).unwrap();
+        let (s64, st64) = g.decision(test.view());
+        let (sb, stb) = g.decision_f32(test.view());
+        let scale = s64.iter().fold(1.0f64, |a, v| a.max(v.abs()));
+        let mut checked = 0;
+        for (i, r) in test.rows().into_iter().enumerate() {
+            let (s1, st1) = g.decision_one_f32(r.as_slice().unwrap());
+            let near = s64
+                .row(i)
+                .iter()
+                .any(|v| (v.abs() - 0.5).abs() < 1e-3 * scale);
+            if near {
+                continue;
+            }
+            checked += 1;
+            assert_eq!(st1, stb[i], "{rule:?} row {i}");
+            assert_eq!(st1, st64[i], "{rule:?} row {i}");
+            for j in 0..s64.ncols() {
+                assert!(
+                    (s1[j] - s64[[i, j]]).abs() <= 1e-3 * scale,
+                    "{rule:?} row {i}"
+                );
+                assert!(
+                    (sb[[i, j]] - s64[[i, j]]).abs() <= 1e-3 * scale,
+                    "{rule:?} row {i}"
+                );
+            }
+        }
+        assert!(checked > test.nrows() / 2);
+        assert!(st64.iter().any(|&s| s != 0), "{rule:?}: the guard has work");
     }
 }

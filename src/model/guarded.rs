@@ -369,6 +369,20 @@ impl GuardedModel {
         self.finish_one(x, s)
     }
 
+    /// [`Self::decision_one`] in f32: the compiled stage's f32 row
+    /// ([`CompiledModel::decision_one_f32`]), the threshold compared with those f32
+    /// decisions (as the exports do), and the exact model's f32 row
+    /// ([`ExactModel::decision_one_f32`]) for a row sent whole; the pairs rule completes its
+    /// marked pairs from the grouped f64 copy ([`ExactModel::decision_some_one`]).
+    pub fn decision_one_f32(&self, x: &[f64]) -> (Vec<f64>, u8) {
+        let s = self.compact.decision_one_f32(x);
+        match self.plan(&s) {
+            None => (s, 0),
+            Some(m) if m.iter().all(|&b| b) => (self.exact.decision_one_f32(x), 1),
+            Some(_) => self.finish_one(x, s),
+        }
+    }
+
     /// The output rule.
     pub fn rule(&self) -> &OutputRule {
         self.exact.rule()

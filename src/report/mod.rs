@@ -68,6 +68,17 @@ pub struct Timing {
     /// Guarded models: mean single-row latency ratio exact / guarded.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub speedup_mean: Option<f64>,
+    /// Guarded models: the mean single-row latencies and their ratio with both sides in
+    /// f32 (the exact model's f32 row; the guarded model's f32 stages, its pairs
+    /// completed in f64).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub latency_us_exact_f32_mean: Option<f64>,
+    /// See [`Self::latency_us_exact_f32_mean`].
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub latency_us_compiled_f32_mean: Option<f64>,
+    /// See [`Self::latency_us_exact_f32_mean`].
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub speedup_mean_f32: Option<f64>,
 }
 
 /// Rows whose label changes from `exact` to `compiled`.
@@ -308,6 +319,10 @@ pub fn build_guarded(
         });
         let c1 = measure_single(x, opts.reps * 4, |row| g.decision_one(row).0);
         let cb = measure_batch(x, |b| g.decision(b).0);
+        let e32 = measure_single(x, opts.reps.min(n.max(1) * 50), |row| {
+            exact.decision_one_f32(row)
+        });
+        let c32 = measure_single(x, opts.reps * 4, |row| g.decision_one_f32(row).0);
         r.timing = Timing {
             latency_us_exact_p50: Some(et.single.p50_us),
             latency_us_exact_p99: Some(et.single.p99_us),
@@ -324,6 +339,9 @@ pub fn build_guarded(
             latency_us_exact_mean: Some(e_mean.mean_us),
             latency_us_compiled_mean: Some(c1.mean_us),
             speedup_mean: Some(e_mean.mean_us / c1.mean_us),
+            latency_us_exact_f32_mean: Some(e32.mean_us),
+            latency_us_compiled_f32_mean: Some(c32.mean_us),
+            speedup_mean_f32: Some(e32.mean_us / c32.mean_us),
             ..Timing::default()
         };
         let sp = e_mean.mean_us / c1.mean_us;

@@ -216,6 +216,16 @@ pub fn render_text(r: &Report) -> String {
             &speed,
         );
     }
+    if let (Some(e), Some(c)) = (t.latency_us_exact_f32_mean, t.latency_us_compiled_f32_mean) {
+        let speed = t.speedup_mean_f32.map(speed_ratio).unwrap_or_default();
+        row(
+            &mut s,
+            "  mean, both in f32",
+            &format!("{} µs", sig3(e)),
+            &format!("{} µs", sig3(c)),
+            &speed,
+        );
+    }
     if let (Some(e), Some(c)) = (t.latency_us_exact_p99, t.latency_us_compiled_p99) {
         row(
             &mut s,
