@@ -353,7 +353,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         m.save(cache)?;
         m
     };
-    let spec = FeatureSpec::new(kernel.clone(), Method::Hadamard, 784, 4096, 1);
+    // The cached teacher's own kernel (examples/fashion_refine.rs writes γ to 5 digits).
+    let spec = FeatureSpec::new(big.kernel().clone(), Method::Hadamard, 784, 4096, 1);
     let (h60, _) = compile_exact(
         &big,
         Some(xtr.view()),
