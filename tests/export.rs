@@ -284,6 +284,46 @@ fn compare(model: &Path, sc: &Path, printed: &str, test: &Path) {
     eprintln!("{}: max |Δ| {worst:.3e} (tol {tol:.3e})", model.display());
 }
 
+/// Builds `dir/main.c` (written from `main`) with `dir/kp_model.c` by gcc as warning-free
+/// C99; returns the program.
+fn gcc_build(dir: &Path, main: &str, what: &str) -> PathBuf {
+    std::fs::write(dir.join("main.c"), main).unwrap();
+    let exe = dir.join("score");
+    let o = Command::new("gcc")
+        .args(["-std=c99", "-O2", "-Wall", "-Wextra", "-Werror", "-o"])
+        .arg(&exe)
+        .arg(dir.join("main.c"))
+        .arg(dir.join("kp_model.c"))
+        .arg("-lm")
+        .output()
+        .unwrap();
+    assert!(
+        o.status.success(),
+        "{what}: gcc failed: {}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    exe
+}
+
+/// Builds `dir/main.rs` (written from `main`, which includes `model.rs`) by rustc under
+/// `-D warnings`; returns the program.
+fn rustc_build(dir: &Path, main: &str, what: &str) -> PathBuf {
+    std::fs::write(dir.join("main.rs"), main).unwrap();
+    let exe = dir.join("score");
+    let o = Command::new("rustc")
+        .args(["--edition", "2021", "-D", "warnings", "-O", "-o"])
+        .arg(&exe)
+        .arg(dir.join("main.rs"))
+        .output()
+        .unwrap();
+    assert!(
+        o.status.success(),
+        "{what}: rustc failed: {}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    exe
+}
+
 fn gcc_available() -> bool {
     Command::new("gcc").arg("--version").output().is_ok()
 }
@@ -323,7 +363,6 @@ fn c_export_compiles_warning_free_and_matches_score() {
             "--out",
             s(&out),
         ]);
-        let main = out.join("main.c");
         let cm = CompiledModel::load(&m).unwrap();
         let label_line = if cm.task().is_classifier() {
             format!("if ({prefix}_label_name(li) == NULL) return 1;")
@@ -339,27 +378,9 @@ fn c_export_compiles_warning_free_and_matches_score() {
             String::new()
         };
         let upper = prefix.to_uppercase();
-        std::fs::write(
-            &main,
-            format!(
+        let exe = gcc_build(&out, &format!(
                 "#include <stdio.h>\n#include \"kp_model.h\"\nint main(void) {{\n    float x[64], out[64];\n    int d = {prefix}_input_dim(), k = {prefix}_output_dim();\n    static const char *const cols[] = {upper}_INPUT_NAMES;\n    printf(\"#\");\n    for (int j = 0; j < d; j++) printf(\"%s|%s|\", cols[j], {prefix}_input_name(j));\n    {names_line}\n    printf(\"\\n\");\n    for (;;) {{\n        for (int j = 0; j < d; j++) if (scanf(\"%f\", &x[j]) != 1) return 0;\n        {prefix}_decision(x, out);\n        int li = {prefix}_label_index(x);\n        {label_line}\n        for (int c = 0; c < k; c++) printf(\"%.9g \", out[c]);\n        printf(\"%d\\n\", li);\n    }}\n}}\n"
-            ),
-        )
-        .unwrap();
-        let exe = out.join("score");
-        let o = Command::new("gcc")
-            .args(["-std=c99", "-O2", "-Wall", "-Wextra", "-Werror", "-o"])
-            .arg(&exe)
-            .arg(&main)
-            .arg(out.join("kp_model.c"))
-            .arg("-lm")
-            .output()
-            .unwrap();
-        assert!(
-            o.status.success(),
-            "{name}: gcc failed: {}",
-            String::from_utf8_lossy(&o.stderr)
-        );
+            ), &name);
         let printed = run_with_stdin(&exe, &input);
         let printed = check_names(&cm, &printed, true);
         compare(&m, &sc, &printed, &d.test);
@@ -422,23 +443,7 @@ fn rust_export_builds_with_deny_warnings_and_matches_score() {
             "--out",
             s(&dir.join("model.rs")),
         ]);
-        std::fs::write(
-            dir.join("main.rs"),
-            "#[path = \"model.rs\"]\nmod model;\nuse std::io::Read;\nfn main() {\n    let mut s = String::new();\n    std::io::stdin().read_to_string(&mut s).unwrap();\n    let v: Vec<f32> = s.split_whitespace().map(|t| t.parse().unwrap()).collect();\n    let (d, k) = (model::input_dim(), model::output_dim());\n    let mut names = String::from(\"#\");\n    for c in model::INPUT_NAMES.iter().chain(model::LABEL_NAMES.iter()) {\n        names.push_str(c);\n        names.push(\'|\');\n    }\n    println!(\"{names}\");\n    let mut out = vec![0.0_f32; k];\n    for row in v.chunks(d) {\n        model::decision(row, &mut out);\n        let li = model::label_index(row);\n        let _ = model::label_name(li);\n        let cells: Vec<String> = out.iter().map(|x| format!(\"{x:e}\")).collect();\n        println!(\"{} {li}\", cells.join(\" \"));\n    }\n}\n",
-        )
-        .unwrap();
-        let exe = dir.join("score");
-        let o = Command::new("rustc")
-            .args(["--edition", "2021", "-D", "warnings", "-O", "-o"])
-            .arg(&exe)
-            .arg(dir.join("main.rs"))
-            .output()
-            .unwrap();
-        assert!(
-            o.status.success(),
-            "{name}: rustc failed: {}",
-            String::from_utf8_lossy(&o.stderr)
-        );
+        let exe = rustc_build(&dir, "#[path = \"model.rs\"]\nmod model;\nuse std::io::Read;\nfn main() {\n    let mut s = String::new();\n    std::io::stdin().read_to_string(&mut s).unwrap();\n    let v: Vec<f32> = s.split_whitespace().map(|t| t.parse().unwrap()).collect();\n    let (d, k) = (model::input_dim(), model::output_dim());\n    let mut names = String::from(\"#\");\n    for c in model::INPUT_NAMES.iter().chain(model::LABEL_NAMES.iter()) {\n        names.push_str(c);\n        names.push(\'|\');\n    }\n    println!(\"{names}\");\n    let mut out = vec![0.0_f32; k];\n    for row in v.chunks(d) {\n        model::decision(row, &mut out);\n        let li = model::label_index(row);\n        let _ = model::label_name(li);\n        let cells: Vec<String> = out.iter().map(|x| format!(\"{x:e}\")).collect();\n        println!(\"{} {li}\", cells.join(\" \"));\n    }\n}\n", &name);
         let printed = run_with_stdin(&exe, &input);
         let printed = check_names(&CompiledModel::load(&m).unwrap(), &printed, false);
         compare(&m, &sc, &printed, &d.test);
@@ -742,25 +747,7 @@ fn guarded_models_export_whole_and_answer_like_score() {
         let c_agree = v["runtime_check"]["label_agreement"].as_f64().unwrap();
         let n_near = near.iter().filter(|&&b| b).count() as f64 / near.len() as f64;
         assert!(c_agree >= 1.0 - n_near, "{c_agree} ({n_near} near)");
-        std::fs::write(
-            out.join("main.c"),
-            "#include <stdio.h>\n#include \"kp_model.h\"\nint main(void) {\n    float x[64], out[64];\n    int d = kp_input_dim(), k = kp_output_dim();\n    static const char *const cols[] = KP_INPUT_NAMES;\n    if (cols[0] == NULL || kp_input_name(d - 1) == NULL || kp_model_info() == NULL) return 1;\n    for (;;) {\n        for (int j = 0; j < d; j++) if (scanf(\"%f\", &x[j]) != 1) return 0;\n        int st = kp_decision_stage(x, out);\n        int li = kp_label_index(x);\n        for (int c = 0; c < k; c++) printf(\"%.9g \", out[c]);\n        printf(\"%d %d\\n\", li, st);\n    }\n}\n",
-        )
-        .unwrap();
-        let exe = out.join("score");
-        let o = Command::new("gcc")
-            .args(["-std=c99", "-O2", "-Wall", "-Wextra", "-Werror", "-o"])
-            .arg(&exe)
-            .arg(out.join("main.c"))
-            .arg(out.join("kp_model.c"))
-            .arg("-lm")
-            .output()
-            .unwrap();
-        assert!(
-            o.status.success(),
-            "gcc failed: {}",
-            String::from_utf8_lossy(&o.stderr)
-        );
+        let exe = gcc_build(&out, "#include <stdio.h>\n#include \"kp_model.h\"\nint main(void) {\n    float x[64], out[64];\n    int d = kp_input_dim(), k = kp_output_dim();\n    static const char *const cols[] = KP_INPUT_NAMES;\n    if (cols[0] == NULL || kp_input_name(d - 1) == NULL || kp_model_info() == NULL) return 1;\n    for (;;) {\n        for (int j = 0; j < d; j++) if (scanf(\"%f\", &x[j]) != 1) return 0;\n        int st = kp_decision_stage(x, out);\n        int li = kp_label_index(x);\n        for (int c = 0; c < k; c++) printf(\"%.9g \", out[c]);\n        printf(\"%d %d\\n\", li, st);\n    }\n}\n", &format!("C {rule}"));
         check_printed(&run_with_stdin(&exe, &input), &format!("C {rule}"));
         // Rust, calling only some of the module's items, under -D warnings.
         let dir = d.dir.join(format!("rs_g_{rule}"));
@@ -773,23 +760,7 @@ fn guarded_models_export_whole_and_answer_like_score() {
             "--out",
             s(&dir.join("model.rs")),
         ]);
-        std::fs::write(
-            dir.join("main.rs"),
-            "#[path = \"model.rs\"]\nmod model;\nuse std::io::Read;\nfn main() {\n    let mut s = String::new();\n    std::io::stdin().read_to_string(&mut s).unwrap();\n    let v: Vec<f32> = s.split_whitespace().map(|t| t.parse().unwrap()).collect();\n    let d = model::INPUT_NAMES.len();\n    let mut out = vec![0.0_f32; 64];\n    for row in v.chunks(d) {\n        let st = model::decision_stage(row, &mut out);\n        let li = model::label_index(row);\n        let cells: Vec<String> = out[..model::output_dim()].iter().map(|x| format!(\"{x:e}\")).collect();\n        println!(\"{} {li} {st}\", cells.join(\" \"));\n    }\n}\n",
-        )
-        .unwrap();
-        let exe = dir.join("score");
-        let o = Command::new("rustc")
-            .args(["--edition", "2021", "-D", "warnings", "-O", "-o"])
-            .arg(&exe)
-            .arg(dir.join("main.rs"))
-            .output()
-            .unwrap();
-        assert!(
-            o.status.success(),
-            "rustc failed: {}",
-            String::from_utf8_lossy(&o.stderr)
-        );
+        let exe = rustc_build(&dir, "#[path = \"model.rs\"]\nmod model;\nuse std::io::Read;\nfn main() {\n    let mut s = String::new();\n    std::io::stdin().read_to_string(&mut s).unwrap();\n    let v: Vec<f32> = s.split_whitespace().map(|t| t.parse().unwrap()).collect();\n    let d = model::INPUT_NAMES.len();\n    let mut out = vec![0.0_f32; 64];\n    for row in v.chunks(d) {\n        let st = model::decision_stage(row, &mut out);\n        let li = model::label_index(row);\n        let cells: Vec<String> = out[..model::output_dim()].iter().map(|x| format!(\"{x:e}\")).collect();\n        println!(\"{} {li} {st}\", cells.join(\" \"));\n    }\n}\n", &format!("Rust {rule}"));
         check_printed(&run_with_stdin(&exe, &input), &format!("Rust {rule}"));
     }
     // The compiled stage alone: an ordinary compiled export, which says where it came from.

@@ -117,22 +117,41 @@ pub(crate) fn onnxruntime(
             reference.dim()
         )));
     }
+    Ok(Some(compare(
+        format!("onnxruntime {}", v["version"].as_str().unwrap_or("?")),
+        d.view(),
+        reference,
+        rule,
+        v["single_us"].as_f64().unwrap_or(f64::NAN),
+        v["rows_per_s"].as_f64().unwrap_or(f64::NAN),
+    )))
+}
+
+/// The runtime's decisions `d` against the f64 model's, with its speed.
+fn compare(
+    runtime: String,
+    d: ArrayView2<f64>,
+    reference: ArrayView2<f64>,
+    rule: &OutputRule,
+    single_us_p50: f64,
+    batch_rows_per_s: f64,
+) -> RuntimeCheck {
     let max = d
         .iter()
         .zip(reference.iter())
         .fold(0.0f64, |m, (a, b)| m.max((a - b).abs()));
     let label_agreement = rule.task().is_classifier().then(|| {
         let a = rule.indices(reference);
-        let b = rule.indices(d.view());
+        let b = rule.indices(d);
         a.iter().zip(&b).filter(|(p, q)| p == q).count() as f64 / a.len().max(1) as f64
     });
-    Ok(Some(RuntimeCheck {
-        runtime: format!("onnxruntime {}", v["version"].as_str().unwrap_or("?")),
+    RuntimeCheck {
+        runtime,
         label_agreement,
         max_abs_decision_change: max,
-        single_us_p50: v["single_us"].as_f64().unwrap_or(f64::NAN),
-        batch_rows_per_s: v["rows_per_s"].as_f64().unwrap_or(f64::NAN),
-    }))
+        single_us_p50,
+        batch_rows_per_s,
+    }
 }
 
 /// The harness the C check builds with the export: reads `n × d` f32 rows from a file,
@@ -246,20 +265,12 @@ pub(crate) fn c_export(
         let at = 4 * (i * k + j);
         f32::from_le_bytes([bytes[at], bytes[at + 1], bytes[at + 2], bytes[at + 3]]) as f64
     });
-    let max = d
-        .iter()
-        .zip(reference.iter())
-        .fold(0.0f64, |m, (a, b)| m.max((a - b).abs()));
-    let label_agreement = rule.task().is_classifier().then(|| {
-        let a = rule.indices(reference);
-        let b = rule.indices(d.view());
-        a.iter().zip(&b).filter(|(p, q)| p == q).count() as f64 / a.len().max(1) as f64
-    });
-    Ok(Some(RuntimeCheck {
-        runtime: format!("C built with {cc} -O2"),
-        label_agreement,
-        max_abs_decision_change: max,
-        single_us_p50: us,
-        batch_rows_per_s: 1e6 / us,
-    }))
+    Ok(Some(compare(
+        format!("C built with {cc} -O2"),
+        d.view(),
+        reference,
+        rule,
+        us,
+        1e6 / us,
+    )))
 }

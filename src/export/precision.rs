@@ -317,16 +317,31 @@ pub fn check_precision(
     let q = quantize(model, precision);
     let low = dequantized_model(model, &q)?;
     let a = model.decision(x);
-    let (max, rms, agree) = changes(model.rule(), &a, &low.decision(x));
-    let (smax, _, sagree) = changes(model.rule(), &a, &low.decision_f32(x));
-    Ok(PrecisionCheck {
-        rows: x.nrows(),
+    Ok(summarise(
+        model.rule(),
+        &a,
+        &low.decision(x),
+        &low.decision_f32(x),
+    ))
+}
+
+/// The check from the f64 decisions `a`, the precision's in f64 `b64` and in f32 `b32`.
+fn summarise(
+    rule: &crate::model::OutputRule,
+    a: &ndarray::Array2<f64>,
+    b64: &ndarray::Array2<f64>,
+    b32: &ndarray::Array2<f64>,
+) -> PrecisionCheck {
+    let (max, rms, agree) = changes(rule, a, b64);
+    let (smax, _, sagree) = changes(rule, a, b32);
+    PrecisionCheck {
+        rows: a.nrows(),
         max_abs_decision_change: max,
         rms_decision_change: rms,
         label_agreement: agree,
         shipped_max_abs_decision_change: smax,
         shipped_label_agreement: sagree,
-    })
+    }
 }
 
 /// [`check_precision`] of a guarded model: its compiled stage at `precision`, its exact
@@ -351,16 +366,12 @@ pub fn check_precision_guarded(
     )?;
     let low = GuardedModel::with_rule(compact, exact, g.threshold(), g.guard_rule())?;
     let a = g.decision(x).0;
-    let (max, rms, agree) = changes(g.rule(), &a, &low.decision(x).0);
-    let (smax, _, sagree) = changes(g.rule(), &a, &low.decision_f32(x).0);
-    Ok(PrecisionCheck {
-        rows: x.nrows(),
-        max_abs_decision_change: max,
-        rms_decision_change: rms,
-        label_agreement: agree,
-        shipped_max_abs_decision_change: smax,
-        shipped_label_agreement: sagree,
-    })
+    Ok(summarise(
+        g.rule(),
+        &a,
+        &low.decision(x).0,
+        &low.decision_f32(x).0,
+    ))
 }
 
 #[cfg(test)]
