@@ -797,3 +797,106 @@ fn refine_refuses_what_it_cannot_do() {
 
     assert!(!o.exists(), "nothing is written when refinement is refused");
 }
+
+#[test]
+fn refinement_over_shards_equals_one_process() {
+    // The gradient of every minibatch and the head's statistics are sums over rows, so a
+    // refinement whose rows are split into shards (each answering for its own rows, the
+    // answers added) is the single-process refinement up to the rounding of the sums.
+    use kernelpress::fit::{refine_sharded, RefineOptions, RefineRows, Teacher};
+    use kernelpress::observe::Silent;
+    let exact = demo_exact();
+    let calib = demo_rows("pump_calib.csv");
+    let calib = calib.slice(ndarray::s![..2400, ..]).to_owned();
+    let opts = RefineOptions::new(3).unwrap();
+    let grid = RidgeGrid::standard();
+    let t = Teacher::new(&exact, calib.view(), &Silent).unwrap();
+    let xt = demo_rows("pump_test.csv");
+    let cuts = [0, 777, 778, 1500, 2400];
+    let shards = |x: &Array2<f64>| -> Vec<RefineRows<'static>> {
+        cuts.windows(2)
+            .map(|w| RefineRows::new(&exact, x.slice(ndarray::s![w[0]..w[1], ..]), w[0]).unwrap())
+            .collect()
+    };
+    for (method, features) in [(Method::Hadamard, 128), (Method::Nystrom, 64)] {
+        let mut spec = FeatureSpec::new(
+            exact.kernel().clone(),
+            method,
+            exact.input_dim(),
+            features,
+            3,
+        );
+        spec.options.landmarks = kernelpress::features::Landmarks::Support;
+        let (one, _, s1) = t
+            .distil_refined(&spec, &grid, None, &opts, &Silent)
+            .unwrap();
+        // Shards in scrambled order, one of them a single row; through bytes, as a cluster
+        // would move them.
+        let mut rows: Vec<RefineRows> = shards(&calib)
+            .into_iter()
+            .map(|r| RefineRows::from_bytes(&r.to_bytes().unwrap(), "shard").unwrap())
+            .collect();
+        rows.swap(0, 3);
+        let (many, s2) = refine_sharded(&exact, &spec, &grid, &opts, &mut rows, &Silent).unwrap();
+        assert_eq!(s1.passes_run, s2.passes_run, "{method:?}");
+        assert_eq!(s1.best_pass, s2.best_pass, "{method:?}");
+        assert!(s2.best_pass >= 1, "{method:?}: nothing refined");
+        assert_eq!(s1.audit_agreement.1, s2.audit_agreement.1, "{method:?}");
+        let (a, b) = (one.decision(xt.view()), many.decision(xt.view()));
+        let scale = a.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        let diff = (&a - &b).iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        assert!(
+            diff <= 1e-9 * scale,
+            "{method:?}: sharded differs by {diff:e} (scale {scale})"
+        );
+        assert_eq!(many.fit["refine"]["sharded"], serde_json::json!(true));
+        // The comparison can fail: another seed's refinement differs by far more.
+        let mut other = spec.clone();
+        other.seed = 4;
+        let (m4, _) = refine_sharded(&exact, &other, &grid, &opts, &mut rows, &Silent).unwrap();
+        let d4 = (&a - &m4.decision(xt.view()))
+            .iter()
+            .fold(0.0f64, |m, v| m.max(v.abs()));
+        assert!(d4 > 1e-6 * scale, "{method:?}: {d4:e}");
+        // Audit rows scrambled in every shard: the same refined numbers.
+        let mut moved = calib.clone();
+        for i in (9..moved.nrows()).step_by(10) {
+            moved.row_mut(i).mapv_inplace(|v| -3.0 * v + 1.0);
+        }
+        let (m5, _) =
+            refine_sharded(&exact, &spec, &grid, &opts, &mut shards(&moved), &Silent).unwrap();
+        let (m6, _) =
+            refine_sharded(&exact, &spec, &grid, &opts, &mut shards(&calib), &Silent).unwrap();
+        assert!(
+            all_numbers(&m5) == all_numbers(&m6),
+            "{method:?}: audit rows moved the model"
+        );
+    }
+    // Rows of another teacher, and overlapping shards, are refused.
+    let spec = FeatureSpec::new(
+        exact.kernel().clone(),
+        Method::Hadamard,
+        exact.input_dim(),
+        128,
+        3,
+    );
+    let mut twice = vec![
+        RefineRows::new(&exact, calib.slice(ndarray::s![..1000, ..]), 0).unwrap(),
+        RefineRows::new(&exact, calib.slice(ndarray::s![500..1500, ..]), 500).unwrap(),
+    ];
+    let e = refine_sharded(&exact, &spec, &grid, &opts, &mut twice, &Silent).unwrap_err();
+    assert!(e.to_string().contains("overlap"), "{e}");
+    let other = kernelpress::model::ExactModel::new(
+        "gaussian(gamma=0.3)".parse().unwrap(),
+        exact.support_vectors().to_owned(),
+        exact.coef().to_owned(),
+        exact.intercept().to_vec(),
+        exact.task(),
+        exact.labels().to_vec(),
+        exact.scaling().cloned(),
+    )
+    .unwrap();
+    let mut foreign = vec![RefineRows::new(&other, calib.view(), 0).unwrap()];
+    let e = refine_sharded(&exact, &spec, &grid, &opts, &mut foreign, &Silent).unwrap_err();
+    assert!(e.to_string().contains("another exact model"), "{e}");
+}

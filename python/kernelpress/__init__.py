@@ -16,7 +16,9 @@ exact model (a :class:`GuardedModel`), and :func:`export` writes either kind.
 
 Distillation over many rows can be sharded: :func:`shard_statistics` on each shard,
 :func:`merge_statistics`, then :func:`compile_from_statistics`;
-:mod:`kernelpress.distributed` runs the same on a Dask cluster.
+:mod:`kernelpress.distributed` runs the same on a Dask cluster. Refinement shards too:
+each shard holds its rows as :class:`RefineRows` and :func:`refine_over` drives the passes
+(``kernelpress.distributed.refine`` on a Dask cluster).
 """
 
 from ._kernelpress import (  # noqa: F401
@@ -24,6 +26,9 @@ from ._kernelpress import (  # noqa: F401
     Error,
     ExactModel,
     GuardedModel,
+    RefineGradient,
+    RefineRows,
+    RefineState,
     Statistics,
     __version__,
     compact,
@@ -33,6 +38,7 @@ from ._kernelpress import (  # noqa: F401
     guard,
     merge_statistics,
     read_data,
+    refine_over,
     report,
     shard_statistics,
 )
@@ -42,6 +48,9 @@ __all__ = [
     "Error",
     "ExactModel",
     "GuardedModel",
+    "RefineGradient",
+    "RefineRows",
+    "RefineState",
     "Statistics",
     "compact",
     "compile_from_statistics",
@@ -50,6 +59,7 @@ __all__ = [
     "guard",
     "merge_statistics",
     "read_data",
+    "refine_over",
     "report",
     "shard_statistics",
 ]

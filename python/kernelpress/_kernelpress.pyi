@@ -1,7 +1,7 @@
 """Type stubs of the compiled module (see the docstrings for the behaviour)."""
 
 from os import PathLike
-from typing import Any, Dict, List, Optional, Sequence, Tuple, Union
+from typing import Any, Callable, Dict, List, Optional, Sequence, Tuple, Union
 
 import numpy as np
 import numpy.typing as npt
@@ -126,6 +126,54 @@ class Statistics:
     ranges: List[Tuple[int, int]]
     parts: Tuple[int, int, int]
 
+class RefineState:
+    """Where a refinement stands (program and head); sent to every shard with a request."""
+
+    @staticmethod
+    def from_bytes(data: bytes) -> "RefineState": ...
+    def to_bytes(self) -> bytes: ...
+    trained: List[str]
+
+class RefineGradient:
+    """One shard's gradient of a minibatch; picklable."""
+
+    @staticmethod
+    def from_parts(values: Any, lengths: Sequence[int]) -> "RefineGradient": ...
+
+class RefineRows:
+    """Calibration rows held for a refinement (one shard, first row ``first_row``).
+
+    >>> rows = RefineRows(exact, "calib-001.npy", first_row=250_000)
+    """
+
+    def __init__(self, exact: ExactModel, x: Rows, *, first_row: int = 0) -> None: ...
+    @staticmethod
+    def from_bytes(data: bytes) -> "RefineRows": ...
+    def to_bytes(self) -> bytes: ...
+    range: Tuple[int, int]
+    def statistics(self, state: RefineState) -> Statistics: ...
+    def gradient(self, state: RefineState, batch: Sequence[int]) -> RefineGradient: ...
+    def audit(self, state: RefineState) -> Tuple[float, float]: ...
+    def answer(self, job: str, state: RefineState, batch: Optional[Sequence[int]] = None) -> Any: ...
+
+def refine_over(
+    exact: ExactModel,
+    each: Callable[[str, RefineState, Optional[List[int]]], Sequence[Any]],
+    method: str,
+    features: int,
+    *,
+    passes: int,
+    seed: int = 0,
+    landmark_rule: str = "uniform",
+    rate: float = 3e-3,
+    batch: int = 500,
+    patience: int = 2,
+    eval: Optional[Rows] = None,
+    eval_labels: Optional[Sequence[str]] = None,
+    min_agreement: float = 0.99,
+) -> CompiledModel:
+    """>>> m = refine_over(exact, lambda job, st, b: [r.answer(job, st, b) for r in shards], "hadamard", 4096, passes=10)"""
+
 def compact(
     exact: ExactModel,
     calib: Rows,
@@ -138,6 +186,7 @@ def compact(
     eval: Optional[Rows] = None,
     eval_labels: Optional[Sequence[str]] = None,
     min_agreement: float = 0.99,
+    refine: Optional[int] = None,
 ) -> CompiledModel:
     """>>> compiled = compact(exact, "models/pump_calib.csv", "hadamard", 2048, seed=1)"""
 

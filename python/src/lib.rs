@@ -8,13 +8,16 @@ use kernelpress::data::{self, Table};
 use kernelpress::export::{ExportOptions, Format, Precision};
 use kernelpress::features::{parse_landmarks, FeatureSpec, Method};
 use kernelpress::fit::shard::ShardStats;
-use kernelpress::fit::{audit_rows, compile_exact_tuned, RidgeGrid};
+use kernelpress::fit::{
+    audit_rows, compile_exact_tuned, refine_sharded, AuditTally, RefineGradient, RefineOptions,
+    RefineRows, RefineSource, RefineState, RidgeGrid,
+};
 use kernelpress::kernel::Kernel;
 use kernelpress::model::{CompiledModel, ExactModel, GuardedModel, Task};
 use kernelpress::observe::Silent;
 use kernelpress::report::{self as kreport, ReportOptions};
 use ndarray::{Array2, ArrayView2};
-use numpy::{IntoPyArray, PyArray2, PyArrayMethods, PyReadonlyArray2};
+use numpy::{IntoPyArray, PyArray1, PyArray2, PyArrayMethods, PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::exceptions::{PyException, PyTypeError, PyUserWarning};
 use pyo3::prelude::*;
 use pyo3::types::{PyBytes, PyList};
@@ -1077,6 +1080,306 @@ fn compile_from_statistics(
     })
 }
 
+/// Where a refinement stands (its current program and head), as the driver sends it to
+/// every shard with each request: picklable (`to_bytes`), nothing to build by hand.
+#[pyclass(name = "RefineState", module = "kernelpress", frozen)]
+struct PyRefineState {
+    inner: Arc<RefineState>,
+}
+
+#[pymethods]
+impl PyRefineState {
+    /// A state from bytes (as `to_bytes` gives).
+    #[staticmethod]
+    fn from_bytes(py: Python<'_>, data: &[u8]) -> Res<Self> {
+        let s = lib(py.detach(|| RefineState::from_bytes(data, "bytes")))?;
+        Ok(PyRefineState { inner: Arc::new(s) })
+    }
+    /// The state as bytes (a safetensors file).
+    fn to_bytes<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyBytes>> {
+        let b = lib(self.inner.to_bytes())?;
+        Ok(PyBytes::new(py, &b))
+    }
+    /// The program's steps that move, as `step{i}.{op}`.
+    #[getter]
+    fn trained(&self) -> Vec<String> {
+        self.inner.trained()
+    }
+    fn __reduce__<'py>(&self, py: Python<'py>) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let f = py.get_type::<PyRefineState>().getattr("from_bytes")?;
+        Ok((f, (self.to_bytes(py)?,)))
+    }
+}
+
+/// One shard's gradient of a minibatch (a vector per program step): picklable, added by
+/// the driver in shard order.
+#[pyclass(name = "RefineGradient", module = "kernelpress", frozen)]
+struct PyGradient {
+    inner: RefineGradient,
+}
+
+#[pymethods]
+impl PyGradient {
+    /// A gradient from its parts (as `__reduce__` gives them): the values end to end and
+    /// each step's length.
+    #[staticmethod]
+    fn from_parts(values: PyReadonlyArray1<'_, f64>, lengths: Vec<usize>) -> Res<Self> {
+        let v = values.as_slice().map_err(|e| PyTypeError::new_err(e.to_string()))?;
+        if lengths.iter().try_fold(0usize, |a, l| a.checked_add(*l)) != Some(v.len()) {
+            return Err(err(kernelpress::Error::input(
+                "RefineGradient.from_parts: the lengths do not add up to the values",
+            )));
+        }
+        let mut at = 0;
+        let inner = lengths
+            .iter()
+            .map(|l| {
+                at += l;
+                v[at - l..at].to_vec()
+            })
+            .collect();
+        Ok(PyGradient { inner })
+    }
+    fn __reduce__<'py>(
+        &self,
+        py: Python<'py>,
+    ) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyArray1<f64>>, Vec<usize>))> {
+        let f = py.get_type::<PyGradient>().getattr("from_parts")?;
+        let flat: Vec<f64> = self.inner.iter().flatten().copied().collect();
+        let lens = self.inner.iter().map(|g| g.len()).collect();
+        Ok((f, (flat.into_pyarray(py), lens)))
+    }
+}
+
+/// Calibration rows held for a refinement — all of them, or one shard whose first row has
+/// global index `first_row` — scaled as the exact model scales its inputs, with the exact
+/// model's decisions computed once. A driver (`refine_over`) asks it for the head's
+/// statistics, a minibatch's gradient and the audit tally; on a cluster it lives on a
+/// worker (picklable, should it have to move).
+#[pyclass(name = "RefineRows", module = "kernelpress", frozen)]
+struct PyRefineRows {
+    inner: RefineRows<'static>,
+}
+
+#[pymethods]
+impl PyRefineRows {
+    /// Rows `x` (array, or a CSV / .npy path matched to the model's columns by name).
+    #[new]
+    #[pyo3(signature = (exact, x, *, first_row=0))]
+    fn new(py: Python<'_>, exact: &PyExact, x: &Bound<'_, PyAny>, first_row: usize) -> Res<Self> {
+        let e = exact.inner.clone();
+        let (xr, _) = model_batch(py, x, "x", &e.feature_names, None)?;
+        let inner = lib(py.detach(|| RefineRows::new(&e, xr.view(), first_row)))?;
+        Ok(PyRefineRows { inner })
+    }
+    /// Rows from bytes (as `to_bytes` gives).
+    #[staticmethod]
+    fn from_bytes(py: Python<'_>, data: &[u8]) -> Res<Self> {
+        let inner = lib(py.detach(|| RefineRows::from_bytes(data, "bytes")))?;
+        Ok(PyRefineRows { inner })
+    }
+    /// The rows as bytes (scaled rows, decisions, first row).
+    fn to_bytes<'py>(&self, py: Python<'py>) -> Res<Bound<'py, PyBytes>> {
+        let b = lib(py.detach(|| self.inner.to_bytes()))?;
+        Ok(PyBytes::new(py, &b))
+    }
+    /// The global row range `(start, end)` held.
+    #[getter]
+    fn range(&self) -> (usize, usize) {
+        self.inner.range()
+    }
+    /// The head's statistics of the state's program over these rows.
+    fn statistics(&self, py: Python<'_>, state: &PyRefineState) -> Res<PyStats> {
+        let st = state.inner.clone();
+        let inner = lib(py.detach(|| self.inner.statistics(&st)))?;
+        Ok(PyStats { inner })
+    }
+    /// The gradient of minibatch `batch` (global row indices) over the rows held.
+    fn gradient(
+        &self,
+        py: Python<'_>,
+        state: &PyRefineState,
+        batch: Vec<usize>,
+    ) -> Res<PyGradient> {
+        let st = state.inner.clone();
+        let inner = lib(py.detach(|| self.inner.gradient(&st, &batch)))?;
+        Ok(PyGradient { inner })
+    }
+    /// The audit tally `(hits, count)` of the state over these rows' audit rows.
+    fn audit(&self, py: Python<'_>, state: &PyRefineState) -> Res<(f64, f64)> {
+        let st = state.inner.clone();
+        let t = lib(py.detach(|| self.inner.audit(&st)))?;
+        Ok((t.hits, t.count))
+    }
+    /// The answer to a driver's request `job` (`"statistics"`, `"gradient"` with `batch`,
+    /// or `"audit"`), as `refine_over`'s `each` callable passes them on.
+    #[pyo3(signature = (job, state, batch=None))]
+    fn answer(
+        &self,
+        py: Python<'_>,
+        job: &str,
+        state: &PyRefineState,
+        batch: Option<Vec<usize>>,
+    ) -> Res<Py<PyAny>> {
+        Ok(match (job, batch) {
+            ("statistics", None) => Py::new(py, self.statistics(py, state)?)?.into_any(),
+            ("gradient", Some(b)) => Py::new(py, self.gradient(py, state, b)?)?.into_any(),
+            ("audit", None) => self.audit(py, state)?.into_pyobject(py)?.into_any().unbind(),
+            (j, b) => {
+                return Err(err(kernelpress::Error::input(format!(
+                    "RefineRows.answer: unknown request '{j}'{} (expected statistics, gradient with a batch, or audit)",
+                    if b.is_some() { " with a batch" } else { "" }
+                ))))
+            }
+        })
+    }
+    fn __reduce__<'py>(&self, py: Python<'py>) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyBytes>,))> {
+        let f = py.get_type::<PyRefineRows>().getattr("from_bytes")?;
+        Ok((f, (self.to_bytes(py)?,)))
+    }
+    fn __repr__(&self) -> String {
+        let (a, b) = self.inner.range();
+        format!("RefineRows(rows {a}–{b})")
+    }
+}
+
+/// A refinement source whose shards are reached through a Python callable
+/// `each(job, state, batch)` that returns one answer per shard, in shard order.
+struct CallbackSource {
+    each: Py<PyAny>,
+}
+
+impl CallbackSource {
+    fn ask<T>(
+        &self,
+        job: &str,
+        state: &RefineState,
+        batch: Option<&[usize]>,
+        one: impl Fn(&Bound<'_, PyAny>) -> PyResult<T>,
+    ) -> kernelpress::Result<Vec<T>> {
+        Python::attach(|py| -> PyResult<Vec<T>> {
+            let st = Py::new(
+                py,
+                PyRefineState {
+                    inner: Arc::new(state.clone()),
+                },
+            )?;
+            let b = batch.map(|b| b.to_vec());
+            let out = self.each.bind(py).call1((job, st, b))?;
+            let mut v = Vec::new();
+            for item in out.try_iter()? {
+                v.push(one(&item?)?);
+            }
+            Ok(v)
+        })
+        .map_err(|e| {
+            kernelpress::Error::input(format!("refine_over: the shards' {job} failed: {e}"))
+        })
+        .and_then(|v| {
+            if v.is_empty() {
+                Err(kernelpress::Error::input(format!(
+                    "refine_over: no shard answered the {job} request"
+                )))
+            } else {
+                Ok(v)
+            }
+        })
+    }
+}
+
+impl RefineSource for CallbackSource {
+    fn statistics(&mut self, state: &RefineState) -> kernelpress::Result<ShardStats> {
+        let parts = self.ask("statistics", state, None, |o| {
+            Ok(o.cast::<PyStats>()?.get().inner.clone())
+        })?;
+        let mut it = parts.into_iter();
+        let mut acc = it.next().expect("checked non-empty");
+        for p in it {
+            acc.merge(&p)?;
+        }
+        Ok(acc)
+    }
+    fn gradient(
+        &mut self,
+        state: &RefineState,
+        batch: &[usize],
+    ) -> kernelpress::Result<RefineGradient> {
+        let parts = self.ask("gradient", state, Some(batch), |o| {
+            Ok(o.cast::<PyGradient>()?.get().inner.clone())
+        })?;
+        kernelpress::fit::add_gradients(&parts)
+    }
+    fn audit(&mut self, state: &RefineState) -> kernelpress::Result<AuditTally> {
+        let parts = self.ask("audit", state, None, |o| o.extract::<(f64, f64)>())?;
+        Ok(parts.iter().fold(AuditTally::default(), |t, (h, c)| AuditTally {
+            hits: t.hits + h,
+            count: t.count + c,
+        }))
+    }
+}
+
+/// Refines a `method`/`features` map of `exact` over calibration rows held elsewhere, as
+/// `compact(..., refine=passes)` does over rows in hand: `each(job, state, batch)` must
+/// ask every shard (a :class:`RefineRows`) for `job` — `"statistics"` (call
+/// `rows.statistics(state)`), `"gradient"` (`rows.gradient(state, batch)`) or `"audit"`
+/// (`rows.audit(state)`) — and return their answers as a list in a fixed shard order.
+/// The map must be the same on every shard: a data-independent method, or Nyström with
+/// `landmark_rule="support"`. `kernelpress.distributed.refine` is this over a Dask
+/// cluster. With `eval` the report is computed on those rows.
+#[pyfunction]
+#[pyo3(signature = (exact, each, method, features, *, passes, seed=0, landmark_rule="uniform", rate=3e-3, batch=500, patience=2, eval=None, eval_labels=None, min_agreement=0.99))]
+#[allow(clippy::too_many_arguments)]
+fn refine_over(
+    py: Python<'_>,
+    exact: &PyExact,
+    each: Py<PyAny>,
+    method: &str,
+    features: usize,
+    passes: usize,
+    seed: u64,
+    landmark_rule: &str,
+    rate: f64,
+    batch: usize,
+    patience: usize,
+    eval: Option<&Bound<'_, PyAny>>,
+    eval_labels: Option<Vec<String>>,
+    min_agreement: f64,
+) -> Res<PyCompiled> {
+    let e = exact.inner.clone();
+    let spec = spec_for(&e, method, features, seed, landmark_rule)?;
+    let opts = lib(RefineOptions {
+        passes,
+        rate,
+        batch,
+        patience,
+    }
+    .checked())?;
+    let mut source = CallbackSource { each };
+    let (mut model, _) = lib(py.detach(|| {
+        refine_sharded(
+            &e,
+            &spec,
+            &RidgeGrid::standard(),
+            &opts,
+            &mut source,
+            &Silent,
+        )
+    }))?;
+    if let Some(ev) = eval {
+        eval_report(
+            py,
+            &e,
+            &mut model,
+            ev,
+            eval_labels.as_deref(),
+            min_agreement,
+        )?;
+    }
+    Ok(PyCompiled {
+        inner: Arc::new(model),
+    })
+}
+
 /// The compiled part of kernelpress; import `kernelpress`, not this module.
 #[pymodule]
 fn _kernelpress(m: &Bound<'_, PyModule>) -> PyResult<()> {
@@ -1085,6 +1388,9 @@ fn _kernelpress(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<PyCompiled>()?;
     m.add_class::<PyGuarded>()?;
     m.add_class::<PyStats>()?;
+    m.add_class::<PyRefineState>()?;
+    m.add_class::<PyGradient>()?;
+    m.add_class::<PyRefineRows>()?;
     m.add_function(wrap_pyfunction!(compile, m)?)?;
     m.add_function(wrap_pyfunction!(guard, m)?)?;
     m.add_function(wrap_pyfunction!(report, m)?)?;
@@ -1094,6 +1400,7 @@ fn _kernelpress(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(shard_statistics, m)?)?;
     m.add_function(wrap_pyfunction!(merge_statistics, m)?)?;
     m.add_function(wrap_pyfunction!(compile_from_statistics, m)?)?;
+    m.add_function(wrap_pyfunction!(refine_over, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())
 }

@@ -48,3 +48,56 @@ def test_dask_local_cluster_equals_the_single_compile(root, exact, test_rows, tm
     xt = test_rows[0]
     assert np.abs(c.decision(xt) - single.decision(xt)).max() < 1e-9
     assert c.report["n_rows"] == len(xt)
+
+
+def test_refinement_over_shards_in_process_equals_one_process(root, exact, test_rows):
+    x, _, _ = kp.read_data(root / "models" / "pump_calib.csv", target="condition")
+    x = x[:3000]
+    single = kp.compact(exact, x, "hadamard", 256, seed=3, bandwidth_search=False, refine=2)
+    held = [kp.RefineRows(exact, x[a:b], first_row=a) for a, b in [(0, 1234), (1234, 3000)]]
+    # Through pickle, as a cluster would move them.
+    held = [pickle.loads(pickle.dumps(h)) for h in held]
+    asked, states = [], []
+
+    def each(job, state, batch):
+        asked.append(job)
+        states.append(state)
+        state = pickle.loads(pickle.dumps(state))
+        return [pickle.loads(pickle.dumps(h.answer(job, state, batch))) for h in held]
+
+    many = kp.refine_over(exact, each, "hadamard", 256, passes=2, seed=3)
+    xt = test_rows[0]
+    a, b = single.decision(xt), many.decision(xt)
+    assert np.abs(a - b).max() <= 1e-9 * np.abs(a).max()
+    assert many.fit["refine"]["sharded"] is True
+    assert many.fit["refine"]["passes"] == single.fit["refine"]["passes"]
+    assert {"statistics", "gradient", "audit"} <= set(asked)
+    # The comparison can fail: one shard missing changes the model.
+    part = kp.refine_over(exact, lambda j, s, r: [held[0].answer(j, s, r)], "hadamard", 256,
+                          passes=2, seed=3)
+    assert np.abs(a - part.decision(xt)).max() > 1e-6 * np.abs(a).max()
+    with pytest.raises(kp.Error, match="unknown request"):
+        held[0].answer("gradients", states[0], None)
+
+
+def test_dask_refinement_equals_one_process(root, exact, test_rows, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    from kernelpress.distributed import refine
+
+    x, _, _ = kp.read_data(root / "models" / "pump_calib.csv", target="condition")
+    x = x[:3000]
+    single = kp.compact(exact, x, "hadamard", 256, seed=3, bandwidth_search=False, refine=2)
+    np.save(tmp_path / "last.npy", x[2000:])
+    shards = [(x[:900], 0), (x[900:2000], 900), (str(tmp_path / "last.npy"), 2000)]
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  host="127.0.0.1", dashboard_address=None) as cluster:
+        with distributed.Client(cluster) as client:
+            many = refine(client, exact, shards, method="hadamard", features=256, passes=2,
+                          seed=3, eval=test_rows[0])
+            workers = list(client.scheduler_info()["workers"])
+    assert len(workers) == 2
+    xt = test_rows[0]
+    a, b = single.decision(xt), many.decision(xt)
+    assert np.abs(a - b).max() <= 1e-9 * np.abs(a).max()
+    assert many.fit["refine"]["passes"] == single.fit["refine"]["passes"]
+    assert many.report["n_rows"] == len(xt)

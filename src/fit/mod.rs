@@ -26,10 +26,14 @@
 mod compile;
 mod guard;
 mod refine;
+mod refine_rows;
 pub mod shard;
 
 pub use guard::guard_on_audit_rows;
-pub use refine::{RefineOptions, RefineSummary};
+pub use refine::{refine_sharded, RefineOptions, RefineSummary};
+pub use refine_rows::{
+    add_gradients, AuditTally, RefineGradient, RefineRows, RefineSource, RefineState,
+};
 
 pub use compile::{
     audit_row, audit_rows, check_statistics_memory, compile_exact, compile_exact_tuned,

@@ -18,20 +18,17 @@
 //! output scale before their cosines (as one factor per frequency).
 
 use super::compile::{check_spec, finish_model, landmark_pool, row_part, with_kind};
-use super::{audit_row, Distiller, HeadFit, Part, RidgeGrid, Teacher, FIT_CHUNK};
+use super::refine_rows::{RefineRows, RefineSource, RefineState};
+use super::{audit_row, HeadFit, Part, RidgeGrid, Teacher};
 use crate::features::{FeatureMap, FeatureSpec, SampleInfo};
-use crate::model::CompiledModel;
+use crate::model::{CompiledModel, ExactModel};
 use crate::observe::Observer;
 use crate::program::{steps, Program, Step};
 use crate::{Error, Result};
-use ndarray::{s, Array2, ArrayView2, Axis};
+use ndarray::{ArrayView2, Axis};
 use rand::seq::SliceRandom;
 use rand::SeedableRng;
-use rayon::prelude::*;
 use serde_json::json;
-
-/// Rows per parallel piece of a minibatch (fixed, so sums do not depend on the threads).
-const PIECE: usize = 64;
 
 /// How to refine.
 #[derive(Debug, Clone, PartialEq)]
@@ -145,22 +142,6 @@ fn loosen(p: &Program) -> Result<Program> {
     Ok(out)
 }
 
-/// Which steps move: those with parameters, except a dense projection right after a
-/// kernel block (the Nyström whitening, which the ridge head absorbs).
-fn trainable(p: &Program) -> Vec<bool> {
-    p.instrs()
-        .iter()
-        .map(|ins| {
-            let after_block = ins
-                .inputs
-                .iter()
-                .any(|v| v.0 > 0 && matches!(p.instrs()[v.0 - 1].step, Step::KernelBlock(_)));
-            let whitening = matches!(ins.step, Step::Dense(_)) && after_block;
-            !ins.step.params().is_empty() && !whitening
-        })
-        .collect()
-}
-
 /// Adam state of one tensor.
 struct Adam {
     m: Vec<f64>,
@@ -179,7 +160,6 @@ impl Teacher<'_> {
         opts: &RefineOptions,
         obs: &dyn Observer,
     ) -> Result<(CompiledModel, SampleInfo, RefineSummary)> {
-        let started = std::time::Instant::now();
         let exact = self.exact();
         check_spec(exact, spec)?;
         let opts = opts.clone().checked()?;
@@ -193,178 +173,177 @@ impl Teacher<'_> {
         let (map, info) = spec.sample(Some(
             pool.as_ref().map(|p| p.view()).unwrap_or(seen_rows.view()),
         ))?;
-        super::check_statistics_memory(map.output_dim())?;
-        let mut prog = loosen(&map.program)?;
-        let train = trainable(&prog);
-        if !train.iter().any(|t| *t) {
-            return Err(Error::input(format!(
-                "method {} has no continuous parameters to refine (its map is fixed by hashes or the kernel); drop --refine",
-                spec.method
-            )));
-        }
-        if let Some(ins) = prog.instrs().iter().find(|i| !i.step.differentiable()) {
-            return Err(Error::input(format!(
-                "refinement needs the derivative of every step; step {} ({}) has none (the arc-cosine kernel's angle); drop --refine",
-                ins.step.name(),
-                ins.step.describe()
-            )));
-        }
-        let trained: Vec<String> = prog
-            .instrs()
-            .iter()
-            .enumerate()
-            .filter(|(i, _)| train[*i])
-            .map(|(i, ins)| format!("step{i}.{}", ins.step.name()))
-            .collect();
-        let x = self.scaled();
-        let y = self.decisions();
-        let n = x.nrows();
-        let mut fit = self.fit_program(&prog, grid, obs, "fitting the head")?;
-        let audit: Vec<usize> = (0..n).filter(|&i| audit_row(i)).collect();
-        let judge = |p: &Program, f: &HeadFit| -> f64 {
-            let xa = x.select(Axis(0), &audit);
-            let ya = y.select(Axis(0), &audit);
-            agreement(self, p, f, xa.view(), ya.view())
-        };
-        let before = (choose_mse(&fit), judge(&prog, &fit));
-        let mut best = (before.0, prog.clone(), fit.clone(), 0usize);
-        let mut adam: Vec<Option<Adam>> = prog
-            .instrs()
-            .iter()
-            .zip(&train)
-            .map(|(ins, t)| {
-                t.then(|| {
-                    let p = ins.step.params();
-                    let rms = (p.iter().map(|v| v * v).sum::<f64>() / p.len() as f64).sqrt();
-                    Adam {
-                        m: vec![0.0; p.len()],
-                        v: vec![0.0; p.len()],
-                        lr: opts.rate * if rms > 0.0 { rms } else { 1.0 },
-                    }
-                })
-            })
-            .collect();
-        let fit_rows: Vec<usize> = (0..n).filter(|&i| row_part(i) == Part::Fit).collect();
-        let (k, mut t, mut bad, mut passes) = (y.ncols(), 0i32, 0usize, 0usize);
-        for pass in 1..=opts.passes {
-            passes = pass;
-            let mut order = fit_rows.clone();
-            let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(spec.seed ^ (pass as u64) << 32);
-            order.shuffle(&mut rng);
-            let batches = order.len().div_ceil(opts.batch);
-            obs.stage(
-                &format!("refining, pass {pass} of {}", opts.passes),
-                batches as u64 + 1,
-            );
-            let (head, icpt) = (fit.head.clone(), fit.intercept.clone());
-            for b in order.chunks(opts.batch) {
-                let xb = x.select(Axis(0), b);
-                let yb = y.select(Axis(0), b);
-                let scale = 2.0 / (b.len() * k) as f64;
-                let pieces: Vec<Vec<Vec<f64>>> = (0..b.len().div_ceil(PIECE))
-                    .into_par_iter()
-                    .map(|c| {
-                        let r = c * PIECE..((c + 1) * PIECE).min(b.len());
-                        let vals = prog.forward_all(xb.slice(s![r.clone(), ..]));
-                        let z = vals.last().expect("output");
-                        let mut res = crate::linalg::ab_seq(z.view(), head.view());
-                        for (mut row, yr) in res
-                            .rows_mut()
-                            .into_iter()
-                            .zip(yb.slice(s![r.clone(), ..]).rows())
-                        {
-                            for ((v, c0), yv) in row.iter_mut().zip(&icpt).zip(yr) {
-                                *v = (*v + c0 - yv) * scale;
-                            }
-                        }
-                        let gz = crate::linalg::abt_seq(res.view(), head.view());
-                        prog.backward(&vals, gz.view(), &train, false).0
-                    })
-                    .collect();
-                t += 1;
-                for (i, st) in adam.iter_mut().enumerate() {
-                    let Some(st) = st else { continue };
-                    let mut g = vec![0.0; st.m.len()];
-                    for pc in &pieces {
-                        g.iter_mut().zip(&pc[i]).for_each(|(a, v)| *a += v);
-                    }
-                    let mut theta = prog.instrs()[i].step.params();
-                    let (b1, b2, eps) = (0.9f64, 0.999f64, 1e-8);
-                    let (c1, c2) = (1.0 - b1.powi(t), 1.0 - b2.powi(t));
-                    for j in 0..theta.len() {
-                        st.m[j] = b1 * st.m[j] + (1.0 - b1) * g[j];
-                        st.v[j] = b2 * st.v[j] + (1.0 - b2) * g[j] * g[j];
-                        theta[j] -= st.lr * (st.m[j] / c1) / ((st.v[j] / c2).sqrt() + eps);
-                    }
-                    prog.set_params(i, &theta)?;
-                }
-                obs.advance(1);
-            }
-            fit = self.fit_program(&prog, grid, obs, "refitting the head")?;
-            let e = choose_mse(&fit);
-            if e < best.0 {
-                best = (e, prog.clone(), fit.clone(), pass);
-                bad = 0;
-            } else {
-                bad += 1;
-                if bad >= opts.patience {
-                    break;
-                }
-            }
-        }
-        obs.finish();
-        let (e, prog, fit, best_pass) = best;
-        let after = judge(&prog, &fit);
-        let summary = RefineSummary {
-            passes_run: passes,
-            best_pass,
-            choose_mse: (before.0, e),
-            audit_agreement: (before.1, after),
-            trained,
-            seconds: started.elapsed().as_secs_f64(),
-        };
-        let mut j = with_kind(&fit, "distill");
-        j["refine"] = summary.to_json();
-        let map = FeatureMap {
-            spec: map.spec,
-            program: prog,
-        };
-        finish_model(exact, map, fit.head, fit.intercept, j).map(|m| (m, info, summary))
+        let mut rows = vec![RefineRows::borrowed(
+            exact,
+            self.scaled(),
+            self.decisions(),
+            0,
+        )];
+        let (m, summary) = refine_with(exact, map, grid, &opts, &mut rows, obs)?;
+        Ok((m, info, summary))
     }
+}
 
-    /// The ridge head of `prog` over the calibration rows (fit rows; strength chosen on
-    /// the ridge-choice rows; audit rows skipped).
-    fn fit_program(
-        &self,
-        prog: &Program,
-        grid: &RidgeGrid,
-        obs: &dyn Observer,
-        what: &str,
-    ) -> Result<HeadFit> {
-        let x = self.scaled();
-        let y = self.decisions();
-        let n = x.nrows();
-        let chunks = n.div_ceil(FIT_CHUNK);
-        obs.stage(what, chunks as u64);
-        let mut dist = Distiller::new(prog.output_dim(), y.ncols());
-        for c in 0..chunks {
-            let r = c * FIT_CHUNK..((c + 1) * FIT_CHUNK).min(n);
-            let z = crate::linalg::map_row_chunks(
-                x.slice(s![r.clone(), ..]),
-                prog.output_dim(),
-                |xc| prog.apply_chunk(xc),
-            );
-            if let Some(i) = z.iter().position(|v| !v.is_finite()) {
-                return Err(Error::numerical(format!(
-                    "calibration row {}: a refined feature is not finite; try a smaller refinement rate",
-                    r.start + i / z.ncols().max(1) + 1
-                )));
+/// Refines `spec`'s map over calibration rows held elsewhere — shards in other processes
+/// or on other machines, reached through `source` — with the map every shard can draw
+/// ([`super::shard::shard_map`]: data-independent methods, or Nyström on the teacher's
+/// support vectors). Each pass's gradients and statistics are the sums of the shards'
+/// answers, so the result equals [`Teacher::distil_refined`] over the same rows up to the
+/// rounding of those sums.
+pub fn refine_sharded(
+    exact: &ExactModel,
+    spec: &FeatureSpec,
+    grid: &RidgeGrid,
+    opts: &RefineOptions,
+    source: &mut dyn RefineSource,
+    obs: &dyn Observer,
+) -> Result<(CompiledModel, RefineSummary)> {
+    let map = super::shard::shard_map(exact, spec)?;
+    let opts = opts.clone().checked()?;
+    let (mut m, summary) = refine_with(exact, map, grid, &opts, source, obs)?;
+    m.fit["refine"]["sharded"] = json!(true);
+    Ok((m, summary))
+}
+
+/// The refinement driver: refines `map` against the teacher whose rows `source` holds.
+pub(crate) fn refine_with(
+    exact: &ExactModel,
+    map: FeatureMap,
+    grid: &RidgeGrid,
+    opts: &RefineOptions,
+    source: &mut dyn RefineSource,
+    obs: &dyn Observer,
+) -> Result<(CompiledModel, RefineSummary)> {
+    let started = std::time::Instant::now();
+    super::check_statistics_memory(map.output_dim())?;
+    let spec = map.spec.clone();
+    let prog = loosen(&map.program)?;
+    let mut state = RefineState::new(spec.clone(), exact.fingerprint(), prog, exact.n_outputs());
+    if !state.train.iter().any(|t| *t) {
+        return Err(Error::input(format!(
+            "method {} has no continuous parameters to refine (its map is fixed by hashes or the kernel); drop --refine",
+            spec.method
+        )));
+    }
+    if let Some(ins) = state
+        .program
+        .instrs()
+        .iter()
+        .find(|i| !i.step.differentiable())
+    {
+        return Err(Error::input(format!(
+            "refinement needs the derivative of every step; step {} ({}) has none (the arc-cosine kernel's angle); drop --refine",
+            ins.step.name(),
+            ins.step.describe()
+        )));
+    }
+    let trained = state.trained();
+    obs.stage("fitting the head", 0);
+    let stats = source.statistics(&state)?;
+    // The head-fitting rows, from the rows the source covers.
+    let fit_rows: Vec<usize> = stats
+        .ranges()
+        .iter()
+        .flat_map(|&(a, b)| a..b)
+        .filter(|&i| row_part(i) == Part::Fit)
+        .collect();
+    let mut fit = stats.distiller().solve(grid)?;
+    state.head = fit.head.clone();
+    state.intercept = fit.intercept.clone();
+    let before = (choose_mse(&fit), source.audit(&state)?.figure());
+    let mut best = (before.0, state.program.clone(), fit.clone(), 0usize);
+    let mut adam: Vec<Option<Adam>> = state
+        .program
+        .instrs()
+        .iter()
+        .zip(&state.train)
+        .map(|(ins, t)| {
+            t.then(|| {
+                let p = ins.step.params();
+                let rms = (p.iter().map(|v| v * v).sum::<f64>() / p.len() as f64).sqrt();
+                Adam {
+                    m: vec![0.0; p.len()],
+                    v: vec![0.0; p.len()],
+                    lr: opts.rate * if rms > 0.0 { rms } else { 1.0 },
+                }
+            })
+        })
+        .collect();
+    let (mut t, mut bad, mut passes) = (0i32, 0usize, 0usize);
+    for pass in 1..=opts.passes {
+        passes = pass;
+        let mut order = fit_rows.clone();
+        let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(spec.seed ^ (pass as u64) << 32);
+        order.shuffle(&mut rng);
+        let batches = order.len().div_ceil(opts.batch);
+        obs.stage(
+            &format!("refining, pass {pass} of {}", opts.passes),
+            batches as u64 + 1,
+        );
+        for b in order.chunks(opts.batch) {
+            let g = source.gradient(&state, b)?;
+            if g.len() != adam.len() {
+                return Err(Error::input(
+                    "a refinement gradient does not match the program (a shard answered for another program)",
+                ));
             }
-            dist.add(z.view(), y.slice(s![r, ..]), row_part);
+            t += 1;
+            for (i, st) in adam.iter_mut().enumerate() {
+                let Some(st) = st else { continue };
+                let g = &g[i];
+                if g.len() != st.m.len() {
+                    return Err(Error::input(
+                        "a refinement gradient does not match the program (a shard answered for another program)",
+                    ));
+                }
+                let mut theta = state.program.instrs()[i].step.params();
+                let (b1, b2, eps) = (0.9f64, 0.999f64, 1e-8);
+                let (c1, c2) = (1.0 - b1.powi(t), 1.0 - b2.powi(t));
+                for j in 0..theta.len() {
+                    st.m[j] = b1 * st.m[j] + (1.0 - b1) * g[j];
+                    st.v[j] = b2 * st.v[j] + (1.0 - b2) * g[j] * g[j];
+                    theta[j] -= st.lr * (st.m[j] / c1) / ((st.v[j] / c2).sqrt() + eps);
+                }
+                state.program.set_params(i, &theta)?;
+            }
             obs.advance(1);
         }
-        dist.solve(grid)
+        fit = source.statistics(&state)?.distiller().solve(grid)?;
+        state.head = fit.head.clone();
+        state.intercept = fit.intercept.clone();
+        obs.advance(1);
+        let e = choose_mse(&fit);
+        if e < best.0 {
+            best = (e, state.program.clone(), fit.clone(), pass);
+            bad = 0;
+        } else {
+            bad += 1;
+            if bad >= opts.patience {
+                break;
+            }
+        }
     }
+    obs.finish();
+    let (e, prog, fit, best_pass) = best;
+    state.program = prog;
+    state.head = fit.head.clone();
+    state.intercept = fit.intercept.clone();
+    let after = source.audit(&state)?.figure();
+    let summary = RefineSummary {
+        passes_run: passes,
+        best_pass,
+        choose_mse: (before.0, e),
+        audit_agreement: (before.1, after),
+        trained,
+        seconds: started.elapsed().as_secs_f64(),
+    };
+    let mut j = with_kind(&fit, "distill");
+    j["refine"] = summary.to_json();
+    let map = FeatureMap {
+        spec: map.spec,
+        program: state.program,
+    };
+    finish_model(exact, map, fit.head, fit.intercept, j).map(|m| (m, summary))
 }
 
 /// The ridge-choice error of a head fit (the smallest over its ridge grid).
@@ -373,26 +352,4 @@ fn choose_mse(f: &HeadFit) -> f64 {
         .iter()
         .map(|(_, m)| *m)
         .fold(f64::INFINITY, f64::min)
-}
-
-/// Label agreement with the teacher (regression: minus the mean squared error) of the
-/// program and head on rows `x` (scaled) with teacher decisions `y`.
-fn agreement(t: &Teacher, p: &Program, f: &HeadFit, x: ArrayView2<f64>, y: ArrayView2<f64>) -> f64 {
-    if x.nrows() == 0 {
-        return f64::NAN;
-    }
-    let z = p.apply_chunk(x);
-    let mut d: Array2<f64> = crate::linalg::ab_seq(z.view(), f.head.view());
-    for mut r in d.rows_mut() {
-        r.iter_mut().zip(&f.intercept).for_each(|(v, c)| *v += c);
-    }
-    let task = t.exact().task();
-    if task.is_classifier() {
-        let kk = t.exact().labels().len();
-        let a = crate::model::label_indices(task, kk, d.view());
-        let b = crate::model::label_indices(task, kk, y);
-        a.iter().zip(&b).filter(|(u, v)| u == v).count() as f64 / a.len() as f64
-    } else {
-        -(&d - &y).mapv(|v| v * v).mean().unwrap_or(0.0)
-    }
 }

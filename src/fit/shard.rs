@@ -116,6 +116,46 @@ impl ShardStats {
         Ok((stats, map))
     }
 
+    /// Empty statistics of a program identified by `fingerprint` (a refinement's current
+    /// program, whose map no spec reproduces).
+    pub(crate) fn for_program(
+        spec: &FeatureSpec,
+        fingerprint: String,
+        teacher: String,
+        p: usize,
+        k: usize,
+    ) -> ShardStats {
+        ShardStats {
+            spec: spec.clone(),
+            map_fingerprint: fingerprint,
+            teacher,
+            ranges: Vec::new(),
+            audit_rows: 0,
+            dist: Distiller::new(p, k),
+        }
+    }
+
+    /// Adds features `z` and teacher decisions `y` of rows `first …` (global indices).
+    pub(crate) fn add_features(
+        &mut self,
+        first: usize,
+        z: ArrayView2<f64>,
+        y: ArrayView2<f64>,
+    ) -> Result<()> {
+        let end = first
+            .checked_add(z.nrows())
+            .ok_or_else(|| Error::input(format!("first row {first} is too large")))?;
+        self.claim(first, end)?;
+        self.audit_rows += (first..end).filter(|&i| super::audit_row(i)).count();
+        self.dist.add_at(first, z, y, row_part);
+        Ok(())
+    }
+
+    /// The summed statistics.
+    pub(crate) fn distiller(&self) -> &Distiller {
+        &self.dist
+    }
+
     /// The statistics of the raw calibration rows `x`, whose first row has global index
     /// `first_row` in the whole calibration set.
     pub fn compute(
