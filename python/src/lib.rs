@@ -1124,7 +1124,9 @@ impl PyGradient {
     /// each step's length.
     #[staticmethod]
     fn from_parts(values: PyReadonlyArray1<'_, f64>, lengths: Vec<usize>) -> Res<Self> {
-        let v = values.as_slice().map_err(|e| PyTypeError::new_err(e.to_string()))?;
+        let v = values
+            .as_slice()
+            .map_err(|e| PyTypeError::new_err(e.to_string()))?;
         if lengths.iter().try_fold(0usize, |a, l| a.checked_add(*l)) != Some(v.len()) {
             return Err(err(kernelpress::Error::input(
                 "RefineGradient.from_parts: the lengths do not add up to the values",
@@ -1311,10 +1313,12 @@ impl RefineSource for CallbackSource {
     }
     fn audit(&mut self, state: &RefineState) -> kernelpress::Result<AuditTally> {
         let parts = self.ask("audit", state, None, |o| o.extract::<(f64, f64)>())?;
-        Ok(parts.iter().fold(AuditTally::default(), |t, (h, c)| AuditTally {
-            hits: t.hits + h,
-            count: t.count + c,
-        }))
+        Ok(parts
+            .iter()
+            .fold(AuditTally::default(), |t, (h, c)| AuditTally {
+                hits: t.hits + h,
+                count: t.count + c,
+            }))
     }
 }
 
@@ -1352,6 +1356,7 @@ fn refine_over(
         rate,
         batch,
         patience,
+        margin: 0.0,
     }
     .checked())?;
     let mut source = CallbackSource { each };

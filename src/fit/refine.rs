@@ -41,6 +41,12 @@ pub struct RefineOptions {
     pub batch: usize,
     /// Passes without improvement on the ridge-choice rows before stopping.
     pub patience: usize,
+    /// Margin weighting of the gradient for classifiers (0: plain squared error): a
+    /// decision value the label depends on — under one-vs-one a pair that involves the
+    /// teacher's class, under one-vs-rest the teacher's class and its rivals, binary
+    /// every value — weighs `1 + margin · exp(−gap / 0.5)`, where `gap` is how far the
+    /// teacher's decision is from changing the label. The head's refits stay plain ridge.
+    pub margin: f64,
 }
 
 impl RefineOptions {
@@ -52,6 +58,7 @@ impl RefineOptions {
             rate: 3e-3,
             batch: 500,
             patience: 2,
+            margin: 0.0,
         }
         .checked()
     }
@@ -68,6 +75,12 @@ impl RefineOptions {
             return Err(Error::input(format!(
                 "refinement rate {}: expected a number in (0, 1]",
                 self.rate
+            )));
+        }
+        if !(self.margin >= 0.0 && self.margin <= 1e6) {
+            return Err(Error::input(format!(
+                "refinement margin weight {}: expected a number from 0 to 1000000",
+                self.margin
             )));
         }
         if !(1..=1_000_000).contains(&self.batch) || self.patience == 0 {
