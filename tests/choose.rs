@@ -75,6 +75,7 @@ fn search_builds_each_map_size_once() {
         reps: 20,
         guard: false,
         refine: None,
+        head_rank: None,
     };
     // Smaller than the exact model, and a fidelity bound nothing meets: every rung whose
     // prediction fits is built, smallest first.
@@ -112,6 +113,7 @@ fn search_returns_the_exhaustive_grid_choice() {
         reps: 20,
         guard: false,
         refine: None,
+        head_rank: None,
     };
     let budget = Budget {
         max_bytes: Some(max_bytes),

@@ -900,3 +900,106 @@ fn refinement_over_shards_equals_one_process() {
     let e = refine_sharded(&exact, &spec, &grid, &opts, &mut foreign, &Silent).unwrap_err();
     assert!(e.to_string().contains("another exact model"), "{e}");
 }
+
+#[test]
+fn factored_heads_are_numpys_best_low_rank_fit() {
+    // Reduced-rank regression (Izenman 1975) with Eckart–Young 1936: the factored head's
+    // decisions are the full head's fitted values projected on the leading right singular
+    // vectors of the centred fitted values on the head-fitting rows. numpy's SVD computes
+    // that projection independently of the library's eigen-decomposition.
+    use kernelpress::data::{read_npy, write_npy_f64};
+    use kernelpress::fit::{row_part, HeadRank, Part, Teacher};
+    use kernelpress::observe::Silent;
+    let dir = tmpdir("factored_heads_are_numpys_best_low_rank_fit");
+    let exact = demo_exact();
+    let calib = demo_rows("pump_calib.csv");
+    let calib = calib.slice(ndarray::s![..3000, ..]).to_owned();
+    let test = demo_rows("pump_test.csv");
+    let t = Teacher::new(&exact, calib.view(), &Silent).unwrap();
+    let spec = FeatureSpec::new(
+        exact.kernel().clone(),
+        Method::Hadamard,
+        exact.input_dim(),
+        256,
+        2,
+    );
+    let (full, _) = t
+        .distil(&spec, &RidgeGrid::standard(), None, &Silent)
+        .unwrap();
+    let k = full.n_outputs();
+    assert_eq!(k, 6, "the demo is one-vs-one over 4 classes");
+    let (fact, sum) = t.factor_head(&full, HeadRank::Fixed(2)).unwrap();
+    assert_eq!(sum.rank, Some(2));
+    assert_eq!(sum.weights, (256 * 6, 256 * 2 + 2 * 6));
+    assert!(fact.parameter_bytes() < full.parameter_bytes());
+    let b = ndarray::Array1::from(full.intercept().to_vec());
+    let fit_rows: Vec<usize> = (0..calib.nrows())
+        .filter(|&i| row_part(i) == Part::Fit)
+        .collect();
+    let yf = full.decision(calib.select(ndarray::Axis(0), &fit_rows).view()) - &b;
+    let yt = full.decision(test.view()) - &b;
+    let (pf, pt, po) = (
+        dir.join("fit.npy"),
+        dir.join("test.npy"),
+        dir.join("out.npy"),
+    );
+    write_npy_f64(&pf, &[yf.nrows(), k], yf.as_slice().unwrap()).unwrap();
+    write_npy_f64(&pt, &[yt.nrows(), k], yt.as_slice().unwrap()).unwrap();
+    py_inline(
+        "import sys, numpy as np\n\
+         f = np.load(sys.argv[1]); t = np.load(sys.argv[2])\n\
+         _, _, vt = np.linalg.svd(f - f.mean(axis=0), full_matrices=False)\n\
+         v = vt[:2].T\n\
+         np.save(sys.argv[3], t @ v @ v.T)\n",
+        &[s(&pf), s(&pt), s(&po)],
+    );
+    let want = read_npy(&po).unwrap().into_2d("out").unwrap() + &b;
+    let got = fact.decision(test.view());
+    let scale = want.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    let diff = (&got - &want).iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    assert!(
+        diff <= 1e-9 * scale,
+        "factored head differs from numpy's projection by {diff:e}"
+    );
+    // The check can fail: another rank is another projection.
+    let (other, _) = t.factor_head(&full, HeadRank::Fixed(3)).unwrap();
+    let d3 = (&other.decision(test.view()) - &want)
+        .iter()
+        .fold(0.0f64, |m, v| m.max(v.abs()));
+    assert!(d3 > 1e-6 * scale, "{d3:e}");
+    // The f32 single row runs the trailing projection in f32 too.
+    assert!(fact.program().runs_in_f32());
+    for i in (0..test.nrows()).step_by(97) {
+        let row = test.row(i).to_vec();
+        let (a, c) = (fact.decision_one(&row), fact.decision_one_f32(&row));
+        for (x, y) in a.iter().zip(&c) {
+            assert!(
+                (x - y).abs() <= 1e-4 * (1.0 + x.abs()),
+                "row {i}: {x} vs {y}"
+            );
+        }
+    }
+    // Auto: the smallest rank of its ladder within the tolerance on the ridge-choice rows.
+    let (_, auto) = t
+        .factor_head(&full, HeadRank::Auto { tolerance: 0.002 })
+        .unwrap();
+    if let Some(r) = auto.rank {
+        let f = auto.tried.iter().find(|(q, _)| *q == r).unwrap().1;
+        assert!(f >= auto.full - 0.002);
+        assert!(auto
+            .tried
+            .iter()
+            .filter(|(q, _)| *q < r)
+            .all(|(_, g)| *g < auto.full - 0.002));
+    } else {
+        assert!(auto.tried.iter().all(|(_, g)| *g < auto.full - 0.002));
+    }
+    // A saved factored model reads back with the same decisions.
+    let path = dir.join("factored.safetensors");
+    fact.save(&path).unwrap();
+    let back = kernelpress::model::CompiledModel::load(&path).unwrap();
+    assert_eq!(back.decision(test.view()), got);
+    assert!(back.fit["factored_head"]["rank"] == serde_json::json!(2));
+    // Refused: a rank of zero, a single-output model.
+    assert!(HeadRank::Fixed(0).checked().is_err());
+}

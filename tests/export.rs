@@ -51,9 +51,13 @@ fn build_models(d: &Data) -> Vec<(String, PathBuf)> {
         // Refined maps (continuous diagonals, moved landmarks) export like any other.
         ("hadamard", "128", vec!["--refine", "2"]),
         ("nystrom", "96", vec!["--refine", "2"]),
+        // A factored head: a trailing D × r projection, then an r × outputs head.
+        ("hadamard", "128", vec!["--head-rank", "3"]),
     ] {
         let name = if extra.contains(&"--refine") {
             format!("{method}_refined")
+        } else if extra.contains(&"--head-rank") {
+            format!("{method}_factored")
         } else {
             method.to_string()
         };

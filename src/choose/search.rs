@@ -66,6 +66,9 @@ pub struct SearchOptions {
     /// ([`Teacher::distil_refined`]; methods without continuous parameters are distilled as
     /// usual, with a note). The audit rows that judge candidates are never refined on.
     pub refine: Option<crate::fit::RefineOptions>,
+    /// Factor every candidate's head ([`Teacher::factor_head`]) before timing and judging
+    /// it; candidates whose head no rank shrinks stay as they are.
+    pub head_rank: Option<crate::fit::HeadRank>,
 }
 
 impl SearchOptions {
@@ -286,6 +289,19 @@ pub fn search(
                     notes.push(format!("{m} at {f} features: {}", e.message()));
                     continue;
                 }
+            };
+            let model = match opts.head_rank {
+                Some(r) if !model.is_folded() && model.n_outputs() > 1 => {
+                    let (mdl, sum) = teacher.factor_head(&model, r)?;
+                    if let Some(rank) = sum.rank {
+                        notes.push(format!(
+                            "{m} at {f} features: head factored to rank {rank} ({} weights instead of {})",
+                            sum.weights.1, sum.weights.0
+                        ));
+                    }
+                    mdl
+                }
+                _ => model,
             };
             let compile_s = t0.elapsed().as_secs_f64();
             let s = model.decision(xv.view());

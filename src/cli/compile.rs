@@ -6,7 +6,7 @@ use clap::ValueEnum;
 use kernelpress::choose::{search, Budget, Choice, SearchOptions};
 use kernelpress::data::{check_batch, read_table, write_all_atomic};
 use kernelpress::fit::{
-    audit_row, audit_rows, compile_exact, compile_exact_tuned, compile_labels, HeadKind,
+    audit_row, audit_rows, compile_exact, compile_exact_tuned, compile_labels, HeadKind, HeadRank,
     RefineOptions, RidgeGrid, Teacher,
 };
 use kernelpress::model::ExactModel;
@@ -147,6 +147,13 @@ pub(crate) struct Args {
     /// Refinement step size, relative to each parameter tensor's size.
     #[arg(long, value_name = "R", requires = "refine")]
     refine_rate: Option<f64>,
+    /// Factor the head of a model with many outputs into a D × r projection and an
+    /// r × outputs head (reduced-rank: the leading directions of its fitted values on the
+    /// head-fitting rows). `auto` keeps the smallest rank whose label agreement on the
+    /// ridge-choice rows is within 0.002 of the full head's; a number fixes the rank. With
+    /// a budget, every candidate is factored before it is timed. See docs/choosing.md.
+    #[arg(long, value_name = "R|auto")]
+    head_rank: Option<String>,
     /// Budget search: measure this machine again instead of using the cached profile.
     #[arg(long)]
     recalibrate: bool,
@@ -342,8 +349,34 @@ pub(crate) fn run(a: Args) -> Result<()> {
         }
         None => None,
     };
+    let head_rank = match a.head_rank.as_deref() {
+        None => None,
+        Some(v) => {
+            let r = if v == "auto" {
+                HeadRank::Auto { tolerance: 0.002 }
+            } else {
+                match v.parse::<usize>() {
+                    Ok(n) => HeadRank::Fixed(n),
+                    Err(_) => {
+                        return Err(Error::input(format!(
+                            "--head-rank {v}: expected a whole number ≥ 1 or 'auto'"
+                        )))
+                    }
+                }
+            };
+            let r = r
+                .checked()
+                .map_err(|e| Error::input(format!("--head-rank {v}: {}", e.message())))?;
+            if kind != HeadKind::Distill || calib.is_none() {
+                return Err(Error::input(
+                    "--head-rank chooses directions on the calibration rows: it needs --head distill and --calib",
+                ));
+            }
+            Some(r)
+        }
+    };
     if a.budget_us.is_some() || a.max_bytes.is_some() || a.max_disagreement.is_some() {
-        return run_budget(&a, &exact, calib, &grid, refine);
+        return run_budget(&a, &exact, calib, &grid, refine, head_rank);
     }
     if !a.methods.is_empty() {
         return Err(Error::input(
@@ -394,8 +427,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
         super::progress::warn(n);
     }
     let mut model = model;
-    if let (Some(o), Some(c)) = (&refine, &calib) {
-        let teacher = Teacher::new(&exact, c.x.view(), &bars)?;
+    let teacher = match (&calib, refine.is_some() || head_rank.is_some()) {
+        (Some(c), true) => Some(Teacher::new(&exact, c.x.view(), &bars)?),
+        _ => None,
+    };
+    if let (Some(o), Some(teacher)) = (&refine, &teacher) {
         let spec = model.spec().clone();
         let (m, _, sum) =
             teacher.distil_refined(&spec, &grid, lm.as_ref().map(|l| l.view()), o, &bars)?;
@@ -411,6 +447,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
             sum.choose_mse.1,
             sum.seconds
         ));
+        model = m;
+    }
+    if let (Some(r), Some(teacher)) = (head_rank, &teacher) {
+        let (m, sum) = teacher.factor_head(&model, r)?;
+        super::progress::note(factor_note(&sum, model.features()));
         model = m;
     }
     warn_fit_notes(&model);
@@ -432,6 +473,27 @@ pub(crate) fn run(a: Args) -> Result<()> {
         return run_guard(&a, &exact, calib.as_ref(), model);
     }
     evaluate_and_finish(&a, &exact, calib.as_ref().map(audit_of), model, None)
+}
+
+/// One line on what factoring the head did.
+fn factor_note(sum: &kernelpress::fit::FactorSummary, features: usize) -> String {
+    let tried = sum
+        .tried
+        .iter()
+        .map(|(r, f)| format!("{r} → {f:.4}"))
+        .collect::<Vec<_>>()
+        .join(", ");
+    match sum.rank {
+        Some(r) => format!(
+            "head factored: {features} features → rank {r} → outputs, {} weights instead of {} (ridge-choice rows: full head {:.4}; tried {tried})",
+            sum.weights.1, sum.weights.0, sum.full
+        ),
+        None => format!(
+            "head not factored: no rank saved weights within the tolerance (ridge-choice rows: full head {:.4}; tried {})",
+            sum.full,
+            if tried.is_empty() { "none".to_string() } else { tried }
+        ),
+    }
 }
 
 fn run_guard(
@@ -603,6 +665,7 @@ fn run_budget(
     calib: Option<kernelpress::data::Table>,
     grid: &RidgeGrid,
     refine: Option<RefineOptions>,
+    head_rank: Option<HeadRank>,
 ) -> Result<()> {
     let calib = calib.ok_or_else(|| Error::input("a budget search needs --calib FILE"))?;
     let max_bytes = match &a.max_bytes {
@@ -644,6 +707,7 @@ fn run_budget(
         reps: 300,
         guard: a.allow_guard,
         refine,
+        head_rank,
     };
     let res = search(&teacher, &profile, budget, &opts, &bars)?;
     for n in &res.notes {
@@ -917,7 +981,12 @@ fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
     use kernelpress::fit::shard::ShardStats;
     if a.refine.is_some() {
         return Err(Error::input(
-            "a sharded distillation does not refine yet: refine in one process (compile MODEL --calib FILE --refine N)",
+            "a sharded distillation does not refine from the command line: refine in one process (compile MODEL --calib FILE --refine N), or sharded from Python (kernelpress.distributed.refine, docs/scaling-out.md)",
+        ));
+    }
+    if a.head_rank.is_some() {
+        return Err(Error::input(
+            "a sharded distillation does not factor the head: compile in one process with --head-rank",
         ));
     }
     if a.budget_or_guard() || a.map.landmarks.is_some() || !matches!(a.head, Head::Distill) {
@@ -1018,6 +1087,7 @@ fn try_streamed(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<Option
         || a.map.landmarks.is_some()
         || !a.methods.is_empty()
         || a.refine.is_some()
+        || a.head_rank.is_some()
     {
         return Ok(None);
     }

@@ -24,11 +24,13 @@
 //! ```
 
 mod compile;
+mod factor;
 mod guard;
 mod refine;
 mod refine_rows;
 pub mod shard;
 
+pub use factor::{FactorSummary, HeadRank};
 pub use guard::guard_on_audit_rows;
 pub use refine::{refine_sharded, RefineOptions, RefineSummary};
 pub use refine_rows::{

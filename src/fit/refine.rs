@@ -232,6 +232,7 @@ pub(crate) fn refine_with(
     let spec = map.spec.clone();
     let prog = loosen(&map.program)?;
     let mut state = RefineState::new(spec.clone(), exact.fingerprint(), prog, exact.n_outputs());
+    state.margin = opts.margin;
     if !state.train.iter().any(|t| *t) {
         return Err(Error::input(format!(
             "method {} has no continuous parameters to refine (its map is fixed by hashes or the kernel); drop --refine",

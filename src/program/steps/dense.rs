@@ -9,6 +9,9 @@ use ndarray::{Array2, ArrayView2};
 #[derive(Debug, Clone)]
 pub struct Dense {
     w: Array2<f64>,
+    /// `Wᵀ` in f32, packed for single-row products, made on first use (a refinement
+    /// replaces the matrix every minibatch and never scores in f32).
+    w32: std::sync::OnceLock<linalg::NarrowF32>,
 }
 
 impl Dense {
@@ -22,7 +25,10 @@ impl Dense {
                 "dense step: the matrix has a non-finite entry",
             ));
         }
-        Ok(Dense { w })
+        Ok(Dense {
+            w,
+            w32: std::sync::OnceLock::new(),
+        })
     }
     /// `W`.
     pub fn matrix(&self) -> &Array2<f64> {
@@ -44,6 +50,14 @@ impl Op for Dense {
     }
     fn apply(&self, x: Array2<f64>) -> Array2<f64> {
         linalg::abt_seq(x.view(), self.w.view())
+    }
+    const F32: bool = true;
+    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+        let w32 = self.w32.get_or_init(|| {
+            let wt: Vec<f32> = self.w.t().iter().map(|v| *v as f32).collect();
+            linalg::NarrowF32::from_k_by_n(&wt, self.w.ncols(), self.w.nrows())
+        });
+        w32.product(x, y);
     }
     fn backward(
         &self,
