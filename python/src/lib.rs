@@ -1111,6 +1111,9 @@ impl PyRefineState {
     }
 }
 
+/// How a gradient pickles: `(from_parts, (values, lengths))`.
+type GradientParts<'py> = (Bound<'py, PyAny>, (Bound<'py, PyArray1<f64>>, Vec<usize>));
+
 /// One shard's gradient of a minibatch (a vector per program step): picklable, added by
 /// the driver in shard order.
 #[pyclass(name = "RefineGradient", module = "kernelpress", frozen)]
@@ -1145,7 +1148,7 @@ impl PyGradient {
     fn __reduce__<'py>(
         &self,
         py: Python<'py>,
-    ) -> Res<(Bound<'py, PyAny>, (Bound<'py, PyArray1<f64>>, Vec<usize>))> {
+    ) -> Res<GradientParts<'py>> {
         let f = py.get_type::<PyGradient>().getattr("from_parts")?;
         let flat: Vec<f64> = self.inner.iter().flatten().copied().collect();
         let lens = self.inner.iter().map(|g| g.len()).collect();
