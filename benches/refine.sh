@@ -8,7 +8,7 @@
 # both models at agreement 0.995 and measures their mean speedup). KP_FASHION_TEACHER=60000
 # uses the 60,000-image teacher calibrated on its own training images.
 #
-# Usage: bash benches/refine.sh [--out FILE.json] [--runs method:features:passes[:rate[:P[:margin]]],...]
+# Usage: bash benches/refine.sh [--out FILE.json] [--runs method:features:passes[:rate[:P]],...]
 set -euo pipefail
 cd "$(dirname "$0")/.."
 OUT=target/fashion/refine.json
@@ -17,7 +17,7 @@ while [ $# -gt 0 ]; do
   case "$1" in
     --out) OUT="$2"; shift 2 ;;
     --runs) RUNS="$2"; shift 2 ;;
-    *) echo "usage: bash benches/refine.sh [--out FILE.json] [--runs method:features:passes[:rate[:P[:margin]]],...]" >&2; exit 2 ;;
+    *) echo "usage: bash benches/refine.sh [--out FILE.json] [--runs method:features:passes[:rate[:P]],...]" >&2; exit 2 ;;
   esac
 done
 if [ ! -f /usr/share/datasets/fashion-mnist/train-images-idx3-ubyte.gz ]; then

@@ -13,10 +13,9 @@
 //!
 //! With a fifth field (`method:features:passes:rate:P`), both models are also guarded at
 //! agreement P and measured on the test images (mean single-row speedup over the exact
-//! model, agreement, stage shares). A sixth field is the margin weight of the refinement's
-//! loss (`RefineOptions::margin`; fields may be left empty: `hadamard:4096:12:0.01::4`).
+//! model, agreement, stage shares). Fields may be left empty (`hadamard:4096:12::0.995`).
 //!
-//! Run: `cargo run --release --example fashion_refine -- [OUT.json] [method:features:passes[:rate[:P[:margin]]],...]`
+//! Run: `cargo run --release --example fashion_refine -- [OUT.json] [method:features:passes[:rate[:P]],...]`
 //! (default `nystrom:1024:8,hadamard:4096:4`; benches/refine.sh runs `nystrom:1024:48:0.004,hadamard:4096:12:0.01:0.995`).
 
 #[path = "common/fashion.rs"]
@@ -53,8 +52,8 @@ fn latency_us(m: &CompiledModel, x: ArrayView2<f64>) -> f64 {
     t[t.len() / 2]
 }
 
-/// One run: method, features, passes, step size, guard target, margin weight.
-type Run = (String, usize, usize, Option<f64>, Option<f64>, Option<f64>);
+/// One run: method, features, passes, step size, guard target.
+type Run = (String, usize, usize, Option<f64>, Option<f64>);
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
     let args: Vec<String> = std::env::args().collect();
@@ -77,9 +76,6 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                     .filter(|r| !r.is_empty())
                     .map(|r| r.parse().unwrap()),
                 v.get(4)
-                    .filter(|r| !r.is_empty())
-                    .map(|r| r.parse().unwrap()),
-                v.get(5)
                     .filter(|r| !r.is_empty())
                     .map(|r| r.parse().unwrap()),
             )
@@ -148,7 +144,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let t = Teacher::new(&teacher, calib, &Silent)?;
     let grid = RidgeGrid::standard();
     let mut results = Vec::new();
-    for (method, features, passes, rate, guard, margin) in runs {
+    for (method, features, passes, rate, guard) in runs {
         let mut spec = FeatureSpec::new(
             teacher.kernel().clone(),
             Method::parse(&method)?,
@@ -164,9 +160,6 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         let mut opts = RefineOptions::new(passes)?;
         if let Some(r) = rate {
             opts.rate = r;
-        }
-        if let Some(m) = margin {
-            opts.margin = m;
         }
         let opts = opts.checked()?;
         let t0 = Instant::now();
@@ -213,7 +206,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         };
         let r = json!({
             "guarded": guarded,
-            "method": method, "features": features, "passes_max": passes, "rate": opts.rate, "margin": opts.margin,
+            "method": method, "features": features, "passes_max": passes, "rate": opts.rate,
             "passes_run": sum.passes_run, "best_pass": sum.best_pass,
             "agreement_test_before": a0, "agreement_test_after": a1,
             "decision_rmse_before": rmse(&d0), "decision_rmse_after": rmse(&d1),

@@ -1003,3 +1003,61 @@ fn factored_heads_are_numpys_best_low_rank_fit() {
     // Refused: a rank of zero, a single-output model.
     assert!(HeadRank::Fixed(0).checked().is_err());
 }
+
+#[test]
+fn head_rank_flags_are_checked_and_the_factoring_is_reported() {
+    let model = root().join("models/pump_svm.safetensors");
+    let calib = dir_calib("head_rank_flags", 1500);
+    let dir = tmpdir("head_rank_flags_out");
+    let o = dir.join("m.safetensors");
+    let run_with = |extra: &[&str]| -> std::process::Output {
+        let mut v = vec![
+            "compile",
+            s(&model),
+            "--calib",
+            s(&calib),
+            "--target",
+            "condition",
+            "--method",
+            "hadamard",
+            "--features",
+            "128",
+            "--no-bandwidth-search",
+            "--no-timing",
+            "--out",
+            s(&o),
+        ];
+        v.extend_from_slice(extra);
+        run(&v)
+    };
+    for (flag, says) in [("0", "--head-rank 0"), ("many", "--head-rank many")] {
+        let out = run_with(&["--head-rank", flag]);
+        assert_eq!(out.status.code(), Some(2), "{flag}");
+        assert!(
+            String::from_utf8_lossy(&out.stderr).contains(says),
+            "{flag}"
+        );
+        assert!(!o.exists(), "nothing is written when the rank is refused");
+    }
+    let out = run_with(&["--head-rank", "2"]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("head factored: 128 features → rank 2"),
+        "{err}"
+    );
+    let m = kernelpress::model::CompiledModel::load(&o).unwrap();
+    assert_eq!(m.head().dim(), (2, 6));
+    assert_eq!(m.fit["factored_head"]["rank"], serde_json::json!(2));
+}
+
+/// The header and first `n` rows of the demo's calibration file, in a folder of its own.
+fn dir_calib(name: &str, n: usize) -> std::path::PathBuf {
+    let p = tmpdir(name).join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &p, n);
+    p
+}

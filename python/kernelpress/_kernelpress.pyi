@@ -187,6 +187,7 @@ def compact(
     eval_labels: Optional[Sequence[str]] = None,
     min_agreement: float = 0.99,
     refine: Optional[int] = None,
+    head_rank: Union[int, str, None] = None,
 ) -> CompiledModel:
     """>>> compiled = compact(exact, "models/pump_calib.csv", "hadamard", 2048, seed=1)"""
 

@@ -9,8 +9,8 @@ use kernelpress::export::{ExportOptions, Format, Precision};
 use kernelpress::features::{parse_landmarks, FeatureSpec, Method};
 use kernelpress::fit::shard::ShardStats;
 use kernelpress::fit::{
-    audit_rows, compile_exact_tuned, refine_sharded, AuditTally, RefineGradient, RefineOptions,
-    RefineRows, RefineSource, RefineState, RidgeGrid,
+    audit_rows, compile_exact_tuned, refine_sharded, AuditTally, HeadRank, RefineGradient,
+    RefineOptions, RefineRows, RefineSource, RefineState, RidgeGrid,
 };
 use kernelpress::kernel::Kernel;
 use kernelpress::model::{CompiledModel, ExactModel, GuardedModel, Task};
@@ -839,11 +839,13 @@ fn eval_report(
 /// label agreement is below `min_agreement`. As `kernelpress compile MODEL --calib FILE
 /// --method M --features D` does, including the map bandwidth search unless
 /// `bandwidth_search=False`. With `refine=N`, the map is then refined against the exact
-/// model for up to N passes, as `compile --refine N` does (docs/refining.md).
+/// model for up to N passes, as `compile --refine N` does (docs/refining.md). With
+/// `head_rank` (a rank, or `"auto"`) the head is factored as `compile --head-rank` does
+/// (docs/choosing.md).
 ///
 /// >>> compiled = kp.compact(exact, "models/pump_calib.csv", method="nystrom", features=1024)
 #[pyfunction]
-#[pyo3(name = "compact", signature = (exact, calib, method, features, *, seed=0, landmark_rule="uniform", bandwidth_search=true, eval=None, eval_labels=None, min_agreement=0.99, refine=None))]
+#[pyo3(name = "compact", signature = (exact, calib, method, features, *, seed=0, landmark_rule="uniform", bandwidth_search=true, eval=None, eval_labels=None, min_agreement=0.99, refine=None, head_rank=None))]
 #[allow(clippy::too_many_arguments)]
 fn compile(
     py: Python<'_>,
@@ -858,6 +860,7 @@ fn compile(
     eval_labels: Option<Vec<String>>,
     min_agreement: f64,
     refine: Option<usize>,
+    head_rank: Option<&Bound<'_, PyAny>>,
 ) -> Res<PyCompiled> {
     let e = exact.inner.clone();
     let spec = spec_for(&e, method, features, seed, landmark_rule)?;
@@ -865,6 +868,19 @@ fn compile(
     let opts = match refine {
         Some(n) => Some(lib(kernelpress::fit::RefineOptions::new(n))?),
         None => None,
+    };
+    let rank = match head_rank {
+        None => None,
+        Some(v) if v.is_none() => None,
+        Some(v) => Some(lib(if let Ok(n) = v.extract::<usize>() {
+            HeadRank::Fixed(n).checked()
+        } else if v.extract::<String>().is_ok_and(|t| t == "auto") {
+            Ok(HeadRank::Auto { tolerance: 0.002 })
+        } else {
+            Err(kernelpress::Error::input(format!(
+                "compact: head_rank {v}: expected a whole number ≥ 1 or 'auto'"
+            )))
+        })?),
     };
     let (mut model, _) = lib(py.detach(|| {
         let (m, info) = compile_exact_tuned(
@@ -876,14 +892,21 @@ fn compile(
             None,
             &Silent,
         )?;
-        match &opts {
+        if opts.is_none() && rank.is_none() {
+            return Ok((m, info));
+        }
+        let t = kernelpress::fit::Teacher::new(&e, x.view(), &Silent)?;
+        let (m, info) = match &opts {
             Some(o) => {
-                let t = kernelpress::fit::Teacher::new(&e, x.view(), &Silent)?;
                 let chosen = m.spec().clone();
                 let (m, info, _) =
                     t.distil_refined(&chosen, &RidgeGrid::standard(), None, o, &Silent)?;
-                Ok((m, info))
+                (m, info)
             }
+            None => (m, info),
+        };
+        match rank {
+            Some(r) => Ok((t.factor_head(&m, r)?.0, info)),
             None => Ok((m, info)),
         }
     }))?;
@@ -1145,10 +1168,7 @@ impl PyGradient {
             .collect();
         Ok(PyGradient { inner })
     }
-    fn __reduce__<'py>(
-        &self,
-        py: Python<'py>,
-    ) -> Res<GradientParts<'py>> {
+    fn __reduce__<'py>(&self, py: Python<'py>) -> Res<GradientParts<'py>> {
         let f = py.get_type::<PyGradient>().getattr("from_parts")?;
         let flat: Vec<f64> = self.inner.iter().flatten().copied().collect();
         let lens = self.inner.iter().map(|g| g.len()).collect();
@@ -1359,7 +1379,6 @@ fn refine_over(
         rate,
         batch,
         patience,
-        margin: 0.0,
     }
     .checked())?;
     let mut source = CallbackSource { each };

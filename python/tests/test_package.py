@@ -255,6 +255,26 @@ def test_refined_compact_equals_cli_refine(root, cli, tmp_path, exact):
         kp.compact(exact, str(calib), "hadamard", 128, refine=0)
 
 
+def test_factored_compact_equals_cli_head_rank(root, cli, tmp_path, exact):
+    # compact(head_rank=R) factors the head as `compile --head-rank R` does.
+    calib = tmp_path / "calib.csv"
+    calib.write_text("\n".join((root / "models" / "pump_calib.csv").read_text().splitlines()[:1501]) + "\n")
+    c = kp.compact(exact, str(calib), "hadamard", 128, seed=2, bandwidth_search=False, head_rank=2)
+    assert c.fit["factored_head"]["rank"] == 2
+    out = tmp_path / "cli.safetensors"
+    cli("compile", root / "models" / "pump_svm.safetensors", "--calib", calib, "--target", "condition",
+        "--method", "hadamard", "--features", 128, "--seed", 2, "--no-bandwidth-search",
+        "--head-rank", 2, "--no-timing", "--out", out)
+    other = kp.CompiledModel.load(out)
+    x, _, _ = kp.read_data(root / "models" / "pump_test.csv", target="condition")
+    assert np.abs(other.decision(x) - c.decision(x)).max() <= 1e-12 * max(1.0, np.abs(c.decision(x)).max())
+    auto = kp.compact(exact, str(calib), "hadamard", 128, seed=2, bandwidth_search=False, head_rank="auto")
+    assert "factored_head" in auto.fit
+    for bad in (0, "some"):
+        with pytest.raises(kp.Error, match="head_rank|head rank"):
+            kp.compact(exact, str(calib), "hadamard", 128, head_rank=bad)
+
+
 def test_guard_equals_cli_guard_and_scores_like_score(root, cli, tmp_path, exact):
     # kp.guard chooses the threshold as `compile --guard-agreement` does (the library's
     # guard_on_audit_rows); the guarded model scores, stages and pickles like the file the

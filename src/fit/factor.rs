@@ -79,8 +79,8 @@ impl Teacher<'_> {
     /// Replaces `model`'s head by a factored one (see the module documentation), the rank
     /// chosen by `rank`. A model whose head is already folded into a projection, or with a
     /// single output, is refused; when no rank saves weights (or, with
-    /// [`HeadRank::Auto`], none meets the tolerance) the model comes back unchanged with
-    /// `rank: None`.
+    /// [`HeadRank::Auto`], none meets the tolerance) the model comes back unchanged but
+    /// for its fit record (`factored_head` with `rank: null` and the ranks tried).
     pub fn factor_head(
         &self,
         model: &CompiledModel,
@@ -182,15 +182,15 @@ impl Teacher<'_> {
         }
         let before = d * k;
         let Some(r) = chosen else {
-            return Ok((
-                model.clone(),
-                FactorSummary {
-                    rank: None,
-                    weights: (before, before),
-                    full,
-                    tried,
-                },
-            ));
+            let summary = FactorSummary {
+                rank: None,
+                weights: (before, before),
+                full,
+                tried,
+            };
+            let mut m = model.clone();
+            m.fit["factored_head"] = summary.to_json();
+            return Ok((m, summary));
         };
         let vr = v.slice(s![.., ..r]).to_owned();
         let wv = crate::linalg::ab(model.head(), vr.view());

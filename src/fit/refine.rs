@@ -41,12 +41,6 @@ pub struct RefineOptions {
     pub batch: usize,
     /// Passes without improvement on the ridge-choice rows before stopping.
     pub patience: usize,
-    /// Margin weighting of the gradient for classifiers (0: plain squared error): a
-    /// decision value the label depends on — under one-vs-one a pair that involves the
-    /// teacher's class, under one-vs-rest the teacher's class and its rivals, binary
-    /// every value — weighs `1 + margin · exp(−gap / 0.5)`, where `gap` is how far the
-    /// teacher's decision is from changing the label. The head's refits stay plain ridge.
-    pub margin: f64,
 }
 
 impl RefineOptions {
@@ -58,7 +52,6 @@ impl RefineOptions {
             rate: 3e-3,
             batch: 500,
             patience: 2,
-            margin: 0.0,
         }
         .checked()
     }
@@ -75,12 +68,6 @@ impl RefineOptions {
             return Err(Error::input(format!(
                 "refinement rate {}: expected a number in (0, 1]",
                 self.rate
-            )));
-        }
-        if !(self.margin >= 0.0 && self.margin <= 1e6) {
-            return Err(Error::input(format!(
-                "refinement margin weight {}: expected a number from 0 to 1000000",
-                self.margin
             )));
         }
         if !(1..=1_000_000).contains(&self.batch) || self.patience == 0 {
@@ -232,7 +219,6 @@ pub(crate) fn refine_with(
     let spec = map.spec.clone();
     let prog = loosen(&map.program)?;
     let mut state = RefineState::new(spec.clone(), exact.fingerprint(), prog, exact.n_outputs());
-    state.margin = opts.margin;
     if !state.train.iter().any(|t| *t) {
         return Err(Error::input(format!(
             "method {} has no continuous parameters to refine (its map is fixed by hashes or the kernel); drop --refine",

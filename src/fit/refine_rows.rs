@@ -66,8 +66,6 @@ pub struct RefineState {
     pub(crate) head: Array2<f64>,
     pub(crate) intercept: Vec<f64>,
     pub(crate) train: Vec<bool>,
-    /// Margin weighting of the gradient ([`super::RefineOptions::margin`]).
-    pub(crate) margin: f64,
 }
 
 impl RefineState {
@@ -81,7 +79,6 @@ impl RefineState {
             head,
             intercept: vec![0.0; k],
             train,
-            margin: 0.0,
         }
     }
 
@@ -108,7 +105,6 @@ impl RefineState {
         m.insert("spec".into(), self.spec.to_json());
         m.insert("teacher_fingerprint".into(), json!(self.teacher));
         m.insert("input_dim".into(), json!(self.program.input_dim()));
-        m.insert("margin".into(), json!(self.margin));
         m.insert("program".into(), prog);
         f
     }
@@ -150,11 +146,6 @@ impl RefineState {
             program,
             head,
             intercept,
-            margin: f
-                .manifest
-                .get("margin")
-                .and_then(|v| v.as_f64())
-                .unwrap_or(0.0),
         })
     }
 
@@ -424,17 +415,13 @@ impl<'a> RefineRows<'a> {
                 let vals = prog.forward_all(xb.slice(s![r.clone(), ..]));
                 let z = vals.last().expect("output");
                 let mut res = crate::linalg::ab_seq(z.view(), head.view());
-                let mut w = vec![1.0; k];
                 for (mut row, yr) in res
                     .rows_mut()
                     .into_iter()
                     .zip(yb.slice(s![r.clone(), ..]).rows())
                 {
-                    if state.margin > 0.0 {
-                        margin_weights(self.task, self.labels, yr, state.margin, &mut w);
-                    }
-                    for (((v, c0), yv), wv) in row.iter_mut().zip(icpt).zip(yr).zip(&w) {
-                        *v = (*v + c0 - yv) * scale * wv;
+                    for ((v, c0), yv) in row.iter_mut().zip(icpt).zip(yr) {
+                        *v = (*v + c0 - yv) * scale;
                     }
                 }
                 let gz = crate::linalg::abt_seq(res.view(), head.view());
@@ -480,50 +467,6 @@ impl<'a> RefineRows<'a> {
                 count: d.len() as f64,
             }
         })
-    }
-}
-
-/// The margin weights of one row's decision values `y` (see
-/// [`super::RefineOptions::margin`]): `1 + margin · exp(−gap / 0.5)` for the values the
-/// label depends on, 1 for the others.
-fn margin_weights(
-    task: Task,
-    labels: usize,
-    y: ndarray::ArrayView1<f64>,
-    margin: f64,
-    w: &mut [f64],
-) {
-    const WIDTH: f64 = 0.5;
-    let bump = |gap: f64| 1.0 + margin * (-gap.abs() / WIDTH).exp();
-    w.iter_mut().for_each(|v| *v = 1.0);
-    match task {
-        Task::Regression => {}
-        Task::Binary => w[0] = bump(y[0]),
-        Task::Ovr => {
-            let win = (0..y.len()).fold(0, |b, j| if y[j] > y[b] { j } else { b });
-            let second = (0..y.len())
-                .filter(|&j| j != win)
-                .fold(f64::NEG_INFINITY, |m, j| m.max(y[j]));
-            for j in 0..y.len() {
-                w[j] = if j == win {
-                    bump(y[win] - second)
-                } else {
-                    bump(y[win] - y[j])
-                };
-            }
-        }
-        Task::Ovo => {
-            let win = crate::model::label_indices(task, labels, y.insert_axis(Axis(0)))[0];
-            let mut p = 0;
-            for i in 0..labels {
-                for j in i + 1..labels {
-                    if i == win || j == win {
-                        w[p] = bump(y[p]);
-                    }
-                    p += 1;
-                }
-            }
-        }
     }
 }
 
