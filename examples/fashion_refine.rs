@@ -194,6 +194,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                         name.into(),
                         json!({"target": p, "agreement": rep.agreement,
                                "speedup_mean": rep.timing.speedup_mean,
+                               "speedup_mean_f32": rep.timing.speedup_mean_f32,
                                "latency_us_exact_mean": rep.timing.latency_us_exact_mean,
                                "latency_us_guarded_mean": rep.timing.latency_us_compiled_mean,
                                "stage_shares": rep.stage_shares,

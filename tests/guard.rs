@@ -742,3 +742,59 @@ fn f32_rows_and_batches_agree_under_both_rules() {
         assert!(st64.iter().any(|&s| s != 0), "{rule:?}: the guard has work");
     }
 }
+
+/// The f32 partial rows (the pairs rule's completion when scoring in f32) read the f32 copy
+/// of the grouped support vectors: on the marked outputs they equal the exact model's full
+/// f64 row to f32 rounding, for the Gaussian, Laplacian and a sum kernel (the Euclidean,
+/// L1 and composite paths); the unmarked outputs are NaN.
+#[test]
+fn f32_partial_rows_match_the_full_rows_to_f32_rounding() {
+    let (demo, _, test) = demo();
+    for kernel in [
+        "gaussian(gamma=0.2)",
+        "laplacian(gamma=0.3)",
+        "gaussian(gamma=0.1) + 0.5 * laplacian(gamma=0.2)",
+    ] {
+        let exact = ExactModel::new(
+            kernel.parse().unwrap(),
+            demo.support_vectors().to_owned(),
+            demo.coef().to_owned(),
+            demo.intercept().to_vec(),
+            demo.task(),
+            demo.labels().to_vec(),
+            demo.scaling().cloned(),
+        )
+        .unwrap();
+        let k = exact.n_outputs();
+        let mass: f64 = exact.coef().iter().map(|c| c.abs()).sum();
+        let mut worst: f64 = 0.0;
+        for (r, mask) in [0b000001usize, 0b100010, 0b011100, 0b110101]
+            .iter()
+            .enumerate()
+        {
+            let needed: Vec<bool> = (0..k).map(|j| mask >> j & 1 == 1).collect();
+            for i in (r..test.nrows()).step_by(97) {
+                let row = test.row(i);
+                let row = row.as_slice().unwrap();
+                let full = exact.decision_one(row);
+                let some = exact.decision_some_one_f32(row, &needed);
+                for j in 0..k {
+                    if needed[j] {
+                        let e = (some[j] - full[j]).abs();
+                        worst = worst.max(e / mass);
+                        assert!(
+                            e <= 1e-5 * mass,
+                            "{kernel} row {i} output {j}: {} vs {}",
+                            some[j],
+                            full[j]
+                        );
+                    } else {
+                        assert!(some[j].is_nan());
+                    }
+                }
+            }
+        }
+        // f32 rounding shows (the f32 copy is read, not the f64 one).
+        assert!(worst > 0.0, "{kernel}: no f32 rounding at all");
+    }
+}

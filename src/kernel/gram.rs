@@ -397,7 +397,100 @@ fn row32(k: &Kernel, x: &[f64], b: &Node32, out: &mut [f64]) {
     }
 }
 
+/// [`row32`] for the rows `idx` of `b` only (ascending): runs of consecutive rows through
+/// the vectorised row products in one call each.
+fn row32_some(k: &Kernel, x: &[f64], b: &Node32, idx: &[usize], out: &mut [f64]) {
+    let d = x.len();
+    match (k, b) {
+        (Kernel::Sum(ks), Node32::Many(nb)) => {
+            row32_some(&ks[0], x, &nb[0], idx, out);
+            let mut tmp = vec![0.0; out.len()];
+            for i in 1..ks.len() {
+                row32_some(&ks[i], x, &nb[i], idx, &mut tmp);
+                out.iter_mut().zip(&tmp).for_each(|(o, t)| *o += t);
+            }
+        }
+        (Kernel::Product(ks), Node32::Many(nb)) => {
+            row32_some(&ks[0], x, &nb[0], idx, out);
+            let mut tmp = vec![0.0; out.len()];
+            for i in 1..ks.len() {
+                row32_some(&ks[i], x, &nb[i], idx, &mut tmp);
+                out.iter_mut().zip(&tmp).for_each(|(o, t)| *o *= t);
+            }
+        }
+        (Kernel::Scaled(c, inner), Node32::One(nb)) => {
+            row32_some(inner, x, nb, idx, out);
+            out.iter_mut().for_each(|v| *v *= c);
+        }
+        (k, Node32::Euclid { scaled, sq, .. }) => {
+            let s = k.inverse_scale(d).expect("shift-invariant");
+            let xs: Vec<f32> = x.iter().zip(&s).map(|(v, f)| (v * f) as f32).collect();
+            let qa: f64 = xs.iter().map(|&v| v as f64 * v as f64).sum();
+            dots32(scaled, &xs, idx, out);
+            let qb: Vec<f64> = idx.iter().map(|&i| sq[i]).collect();
+            if matches!(k, Kernel::Gaussian { .. }) {
+                crate::transform::expo::gaussian_row(out, qa, &qb, 0.5);
+                return;
+            }
+            for (v, qb) in out.iter_mut().zip(&qb) {
+                let r2 = (qa + qb - 2.0 * *v).max(0.0);
+                *v = k.euclidean_profile(r2).unwrap();
+            }
+        }
+        (k, Node32::L1 { scaled }) => {
+            let s = k.inverse_scale(d).expect("laplacian");
+            let xs: Vec<f32> = x.iter().zip(&s).map(|(v, f)| (v * f) as f32).collect();
+            for (v, &i) in out.iter_mut().zip(idx) {
+                let r = &scaled[i * d..(i + 1) * d];
+                let l1: f32 = r.iter().zip(&xs).map(|(a, b)| (a - b).abs()).sum();
+                *v = (-(l1 as f64)).exp();
+            }
+        }
+        (k, Node32::Dot { data, norms }) => {
+            let xs: Vec<f32> = x.iter().map(|&v| v as f32).collect();
+            let na = x.iter().map(|v| v * v).sum::<f64>().sqrt();
+            dots32(data, &xs, idx, out);
+            for (v, &i) in out.iter_mut().zip(idx) {
+                *v = k.dot_profile(*v, na, norms[i]).unwrap();
+            }
+        }
+        _ => unreachable!("Prepared32 built for a different kernel"),
+    }
+}
+
+/// Row products of the rows `idx` (ascending) of the row-major f32 matrix `all` (rows of
+/// `x.len()` values) with `x`, consecutive rows in one call.
+fn dots32(all: &[f32], x: &[f32], idx: &[usize], out: &mut [f64]) {
+    let d = x.len();
+    let mut t = 0;
+    while t < idx.len() {
+        let mut e = t + 1;
+        while e < idx.len() && idx[e] == idx[e - 1] + 1 {
+            e += 1;
+        }
+        let (lo, hi) = (idx[t], idx[e - 1] + 1);
+        linalg::dot_rows(&all[lo * d..hi * d], x, &mut out[t..e]);
+        t = e;
+    }
+}
+
 impl Kernel {
+    /// [`Kernel::row_f32`] for the rows `idx` of `b` only (ascending indices), into `out`
+    /// (`idx.len()` values): reads only those rows. Agrees with [`Kernel::row_f32`] on
+    /// them.
+    ///
+    /// # Panics
+    /// If `out` and `idx` differ in length, or an index is out of range or out of order.
+    #[track_caller]
+    pub fn row_some_f32(&self, x: &[f64], b: &Prepared32, idx: &[usize], out: &mut [f64]) {
+        assert_eq!(out.len(), idx.len(), "row_some_f32: output length");
+        assert!(
+            idx.windows(2).all(|w| w[0] < w[1]) && idx.last().is_none_or(|&i| i < b.rows),
+            "row_some_f32: indices must ascend within the rows"
+        );
+        row32_some(self, x, &b.node, idx, out)
+    }
+
     /// One kernel row `k(x, b_j)` for all rows of `b` (f32 products, f64 profiles), into
     /// `out` (`b.rows()` values).
     ///

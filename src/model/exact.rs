@@ -319,6 +319,42 @@ impl ExactModel {
         out
     }
 
+    /// [`Self::decision_some_one`] as a single-precision server runs it: the kernel row
+    /// from an f32 copy of the grouped support vectors (half the bytes; made on first
+    /// use), f64 profiles and coefficient sums. Marked outputs agree with
+    /// [`Self::decision_one_f32`] to f32 rounding.
+    ///
+    /// # Panics
+    /// If `needed` does not have [`Self::n_outputs`] entries or `x` the model's width.
+    #[track_caller]
+    pub fn decision_some_one_f32(&self, x: &[f64], needed: &[bool]) -> Vec<f64> {
+        assert_eq!(
+            needed.len(),
+            self.n_outputs(),
+            "decision_some_one_f32: outputs"
+        );
+        assert_eq!(
+            x.len(),
+            self.input_dim(),
+            "decision_some_one_f32: wrong width"
+        );
+        let row = ndarray::ArrayView2::from_shape((1, x.len()), x).expect("one row");
+        let xs = self.scale_inputs(row);
+        let mut out: Vec<f64> = self
+            .intercept
+            .iter()
+            .zip(needed)
+            .map(|(&b, &n)| if n { b } else { f64::NAN })
+            .collect();
+        self.parts().add_into_f32(
+            &self.kernel,
+            xs.as_slice().expect("a fresh row"),
+            needed,
+            &mut out,
+        );
+        out
+    }
+
     /// Share of the support vectors [`Self::decision_some_one`] reads for `needed`.
     #[track_caller]
     pub fn support_share(&self, needed: &[bool]) -> f64 {

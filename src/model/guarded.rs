@@ -247,12 +247,16 @@ impl GuardedModel {
     }
 
     /// One row: the compiled decisions `s` completed by the exact model as planned.
-    fn finish_one(&self, x: &[f64], mut s: Vec<f64>) -> (Vec<f64>, u8) {
+    fn finish_one(&self, x: &[f64], mut s: Vec<f64>, f32: bool) -> (Vec<f64>, u8) {
         match self.plan(&s) {
             None => (s, 0),
             Some(_) if self.rule == GuardRule::Row => (self.exact.decision_one(x), 1),
             Some(m) => {
-                let e = self.exact.decision_some_one(x, &m);
+                let e = if f32 {
+                    self.exact.decision_some_one_f32(x, &m)
+                } else {
+                    self.exact.decision_some_one(x, &m)
+                };
                 let all = m.iter().all(|&b| b);
                 for ((v, &b), ev) in s.iter_mut().zip(&m).zip(e) {
                     if b {
@@ -366,20 +370,20 @@ impl GuardedModel {
     /// Decision values of one row (sequential) and the stage that answered it.
     pub fn decision_one(&self, x: &[f64]) -> (Vec<f64>, u8) {
         let s = self.compact.decision_one(x);
-        self.finish_one(x, s)
+        self.finish_one(x, s, false)
     }
 
     /// [`Self::decision_one`] in f32: the compiled stage's f32 row
     /// ([`CompiledModel::decision_one_f32`]), the threshold compared with those f32
     /// decisions (as the exports do), and the exact model's f32 row
     /// ([`ExactModel::decision_one_f32`]) for a row sent whole; the pairs rule completes its
-    /// marked pairs from the grouped f64 copy ([`ExactModel::decision_some_one`]).
+    /// marked pairs from the grouped f32 copy ([`ExactModel::decision_some_one_f32`]).
     pub fn decision_one_f32(&self, x: &[f64]) -> (Vec<f64>, u8) {
         let s = self.compact.decision_one_f32(x);
         match self.plan(&s) {
             None => (s, 0),
             Some(m) if m.iter().all(|&b| b) => (self.exact.decision_one_f32(x), 1),
-            Some(_) => self.finish_one(x, s),
+            Some(_) => self.finish_one(x, s, true),
         }
     }
 

@@ -4,7 +4,7 @@
 //! support vectors are copied once, ordered by the outputs they feed, so that the ones a
 //! set of outputs needs lie in long runs that stream well.
 
-use crate::kernel::{Kernel, Prepared};
+use crate::kernel::{Kernel, Prepared, Prepared32};
 use ndarray::{Array2, ArrayView2};
 
 /// Support vectors ordered by their outputs of nonzero coefficient.
@@ -18,6 +18,8 @@ pub(crate) struct Parts {
     patterns: Vec<(Vec<u64>, usize)>,
     /// The support vectors in the new order, prepared for the kernel.
     prep: Prepared,
+    /// Their f32 copy, made on first use by the f32 single-row path.
+    prep32: std::sync::OnceLock<Prepared32>,
     /// Their coefficients (`n × k`, row-major), in the new order.
     coef: Vec<f64>,
     k: usize,
@@ -76,6 +78,7 @@ impl Parts {
             bits,
             patterns,
             prep: Prepared::new(kernel, x.view()),
+            prep32: std::sync::OnceLock::new(),
             coef: c,
             k,
         }
@@ -96,13 +99,34 @@ impl Parts {
     /// Adds to `out[j]`, for every output `j` marked in `needed`, the kernel sum over the
     /// support vectors that feed one of the marked outputs; `xs` is one scaled input row.
     pub(crate) fn add_into(&self, kernel: &Kernel, xs: &[f64], needed: &[bool], out: &mut [f64]) {
+        self.add(kernel, xs, needed, out, false)
+    }
+
+    /// [`Self::add_into`] with the kernel row from the f32 copy of the support vectors
+    /// ([`Kernel::row_some_f32`]), as a single-precision server runs it.
+    pub(crate) fn add_into_f32(
+        &self,
+        kernel: &Kernel,
+        xs: &[f64],
+        needed: &[bool],
+        out: &mut [f64],
+    ) {
+        self.add(kernel, xs, needed, out, true)
+    }
+
+    fn add(&self, kernel: &Kernel, xs: &[f64], needed: &[bool], out: &mut [f64], f32: bool) {
         let n = to_bits(needed, self.words);
         let w = self.words;
         let idx: Vec<usize> = (0..self.prep.rows())
             .filter(|&i| meets(&self.bits[i * w..(i + 1) * w], &n))
             .collect();
         let mut kr = vec![0.0; idx.len()];
-        kernel.row_some(xs, &self.prep, &idx, &mut kr);
+        if f32 {
+            let p32 = self.prep32.get_or_init(|| Prepared32::new(&self.prep));
+            kernel.row_some_f32(xs, p32, &idx, &mut kr);
+        } else {
+            kernel.row_some(xs, &self.prep, &idx, &mut kr);
+        }
         let k = self.k;
         for (&i, &kv) in idx.iter().zip(&kr) {
             let row = &self.coef[i * k..(i + 1) * k];
