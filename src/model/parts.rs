@@ -11,10 +11,8 @@ use ndarray::{Array2, ArrayView2};
 #[derive(Debug, Clone)]
 pub(crate) struct Parts {
     words: usize,
-    /// `n × words` bits, in the new order: bit j of row i is set when coefficient (i, j)
-    /// is nonzero.
-    bits: Vec<u64>,
-    /// The distinct bit sets and how many support vectors have each (for shares).
+    /// The distinct bit sets in the order of the support vectors (each set's vectors
+    /// consecutive) and how many support vectors have each.
     patterns: Vec<(Vec<u64>, usize)>,
     /// The support vectors in the new order, prepared for the kernel.
     prep: Prepared,
@@ -62,12 +60,10 @@ impl Parts {
         order.sort_by(|&a, &b| pats[a].cmp(&pats[b]));
         let mut x = Array2::<f64>::zeros((n, sv.ncols()));
         let mut c = Vec::with_capacity(n * k);
-        let mut bits = Vec::with_capacity(n * words);
         let mut patterns: Vec<(Vec<u64>, usize)> = Vec::new();
         for (r, &i) in order.iter().enumerate() {
             x.row_mut(r).assign(&sv.row(i));
             c.extend(coef.row(i).iter());
-            bits.extend(&pats[i]);
             match patterns.last_mut() {
                 Some((p, cnt)) if *p == pats[i] => *cnt += 1,
                 _ => patterns.push((pats[i].clone(), 1)),
@@ -75,7 +71,6 @@ impl Parts {
         }
         Parts {
             words,
-            bits,
             patterns,
             prep: Prepared::new(kernel, x.view()),
             prep32: std::sync::OnceLock::new(),
@@ -116,10 +111,15 @@ impl Parts {
 
     fn add(&self, kernel: &Kernel, xs: &[f64], needed: &[bool], out: &mut [f64], f32: bool) {
         let n = to_bits(needed, self.words);
-        let w = self.words;
-        let idx: Vec<usize> = (0..self.prep.rows())
-            .filter(|&i| meets(&self.bits[i * w..(i + 1) * w], &n))
-            .collect();
+        // The support vectors are grouped by pattern: whole groups are read or skipped.
+        let mut idx: Vec<usize> = Vec::new();
+        let mut at = 0;
+        for (p, count) in &self.patterns {
+            if meets(p, &n) {
+                idx.extend(at..at + count);
+            }
+            at += count;
+        }
         let mut kr = vec![0.0; idx.len()];
         if f32 {
             let p32 = self.prep32.get_or_init(|| Prepared32::new(&self.prep));
@@ -128,12 +128,12 @@ impl Parts {
             kernel.row_some(xs, &self.prep, &idx, &mut kr);
         }
         let k = self.k;
+        // Only the marked outputs' coefficients are read (a pair set is a few of many).
+        let js: Vec<usize> = (0..k).filter(|&j| needed[j]).collect();
         for (&i, &kv) in idx.iter().zip(&kr) {
             let row = &self.coef[i * k..(i + 1) * k];
-            for ((o, &c), &m) in out.iter_mut().zip(row).zip(needed) {
-                if m {
-                    *o += kv * c;
-                }
+            for &j in &js {
+                out[j] += kv * row[j];
             }
         }
     }
