@@ -516,9 +516,10 @@ fn the_f32_head_matches_the_f64_head_to_f32_rounding() {
 }
 
 /// The structured maps run in f32 throughout (scale, pad, tile, signs, Walsh–Hadamard,
-/// gather, cos/sin all have f32 forms): their features agree with the f64 program to f32
-/// rounding of the cosine arguments; maps with a dense projection or a kernel block have
-/// no f32 program and say so.
+/// gather, cos/sin all have f32 forms), and so do dense projections followed by cos/sin
+/// (Fourier): their features agree with the f64 program to f32 rounding of the cosine
+/// arguments; maps with a kernel block have no f32 program and say so. Batches run dense
+/// projections as one matrix product, not row by row.
 #[test]
 fn structured_programs_run_in_f32_to_rounding() {
     let exact = demo_exact();
@@ -527,13 +528,18 @@ fn structured_programs_run_in_f32_to_rounding() {
     for (method, f32_form) in [
         (Method::Hadamard, true),
         (Method::Fastfood, true),
-        (Method::Fourier, false),
+        (Method::Fourier, true),
         (Method::Nystrom, false),
     ] {
         let spec = FeatureSpec::new(exact.kernel().clone(), method, exact.input_dim(), 512, 9);
         let (map, _) = spec.sample(Some(xs.view())).unwrap();
         let p = &map.program;
         assert_eq!(p.runs_in_f32(), f32_form, "{method:?}");
+        assert_eq!(
+            p.batches_in_f32(),
+            f32_form && method != Method::Fourier,
+            "{method:?}"
+        );
         let mut worst: f64 = 0.0;
         for i in (0..xs.nrows()).step_by(29) {
             let row = xs.row(i).to_vec();

@@ -392,7 +392,7 @@ impl CompiledModel {
             for (b, xb) in c.axis_chunks_iter(Axis(0), BLOCK).enumerate() {
                 let mb = xb.nrows();
                 let zb = &mut z[..mb * dz];
-                if self.program.runs_in_f32() {
+                if self.program.batches_in_f32() {
                     for (i, (r, zr)) in xb
                         .rows()
                         .into_iter()

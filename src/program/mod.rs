@@ -98,6 +98,10 @@ macro_rules! step_enum {
             pub fn has_f32(&self) -> bool {
                 match self { $(Step::$variant(_) => <$ty as Op>::F32),* }
             }
+            /// Whether batches should run the step's f32 row form row by row.
+            pub fn batches_in_f32(&self) -> bool {
+                match self { $(Step::$variant(_) => <$ty as Op>::F32_BATCH),* }
+            }
             #[inline(always)]
             fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
                 match self { $(Step::$variant(s) => s.apply_row32(x, y)),* }
@@ -584,6 +588,12 @@ impl Program {
     pub fn apply_one(&self, x: &[f64]) -> Vec<f64> {
         let row = ArrayView2::from_shape((1, x.len()), x).expect("one row");
         self.apply_chunk(row).into_raw_vec_and_offset().0
+    }
+
+    /// True when batches should run [`Self::runs_in_f32`]'s row form row by row: no step
+    /// (a dense projection) batches better as one matrix product.
+    pub fn batches_in_f32(&self) -> bool {
+        self.runs_in_f32() && self.instrs.iter().all(|ins| ins.step.batches_in_f32())
     }
 
     /// True when the program is a chain of steps that all have an f32 form (the structured

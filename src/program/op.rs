@@ -78,6 +78,11 @@ pub(crate) trait Op: Sized {
     /// Whether the step has an f32 single-row form ([`Op::apply_row32`]).
     const F32: bool = false;
 
+    /// Whether batches of rows should run the f32 row form row by row (structured steps);
+    /// false where one matrix product over the batch is cheaper than a product per row
+    /// (dense projections).
+    const F32_BATCH: bool = true;
+
     /// One row in f32 (steps with [`Op::F32`]): reads `x` (the input width), writes all of
     /// `y` (the output width), allocating nothing. Arithmetic in f32; parameters stored in
     /// f64 are rounded to f32 as they are read.

@@ -52,6 +52,7 @@ impl Op for Dense {
         linalg::abt_seq(x.view(), self.w.view())
     }
     const F32: bool = true;
+    const F32_BATCH: bool = false;
     fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
         let w32 = self.w32.get_or_init(|| {
             let wt: Vec<f32> = self.w.t().iter().map(|v| *v as f32).collect();
