@@ -15,7 +15,9 @@
 //! single row in the same run. Writes one JSON object.
 //!
 //! Run: `cargo run --release --example many_classes -- [OUT.json] [FEATURES,...]`
-//! (default `target/many/many_classes.json 4096`).
+//! (default `target/many/many_classes.json 4096`). With `KP_MANY_CSV=1` it also writes
+//! `target/many/calib.csv` (15,000 calibration rows) and `target/many/test.csv` for
+//! `kernelpress sweep`.
 
 use kernelpress::data::Standardizer;
 use kernelpress::exact::{fit_svm, SmoOptions};
@@ -86,8 +88,35 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let spread = Normal::new(0.0, 1.6)?;
     let centres = Array2::from_shape_fn((CLASSES * 3, COLS), |_| spread.sample(&mut rng));
     let (train_x, train_y) = draw(&mut rng, &centres, 15_000);
-    let (calib, _) = draw(&mut rng, &centres, 30_000);
-    let (test, _) = draw(&mut rng, &centres, 5_000);
+    let (calib, calib_y) = draw(&mut rng, &centres, 30_000);
+    let (test, test_y) = draw(&mut rng, &centres, 5_000);
+    if std::env::var("KP_MANY_CSV").is_ok() {
+        // For `kernelpress sweep`: the first 15,000 calibration rows and the test rows, with
+        // the code as the target column.
+        let mut header: Vec<String> = (1..=COLS).map(|j| format!("m{j}")).collect();
+        header.push("code".into());
+        let rows = |x: ArrayView2<f64>, y: &[String]| -> Vec<Vec<String>> {
+            x.rows()
+                .into_iter()
+                .zip(y)
+                .map(|(r, l)| {
+                    let mut v: Vec<String> = r.iter().map(|v| format!("{v:?}")).collect();
+                    v.push(l.clone());
+                    v
+                })
+                .collect()
+        };
+        kernelpress::data::write_csv(
+            std::path::Path::new("target/many/calib.csv"),
+            &header,
+            &rows(calib.slice(s![..15_000, ..]), &calib_y[..15_000]),
+        )?;
+        kernelpress::data::write_csv(
+            std::path::Path::new("target/many/test.csv"),
+            &header,
+            &rows(test.view(), &test_y),
+        )?;
+    }
     let cache = std::path::Path::new("target/many/teacher.safetensors");
     let teacher = if cache.exists() {
         ExactModel::load(cache)?

@@ -20,7 +20,7 @@ mod sweep;
 pub use page::render_page;
 pub use plot::render_svg;
 pub use search::{search, Budget, Choice, SearchOptions, SearchResult, PREDICTION_SLACK};
-pub use sweep::{run_sweep, Sweep, SweepOptions};
+pub use sweep::{estimate_sweep_seconds, run_sweep, Sweep, SweepOptions};
 
 use crate::cost::Prediction;
 use crate::report::Report;

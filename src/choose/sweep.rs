@@ -233,6 +233,53 @@ pub fn run_sweep(
 
 /// The work of distilling one candidate with `f` features from `n` calibration rows of `d`
 /// columns, in millions of multiply-adds (at least 1): `n·(f² + d·f) + f³`.
+/// Multiply-adds of distilling one candidate of `f` features over `n` rows of `d` columns
+/// with `k` outputs and `solves` ridge solves: the statistics (`ZᵀZ`, `Zᵀy`) and a dense
+/// map's projection per row, then per solve a Cholesky factorisation (`f³/3`) and `k`
+/// right-hand sides (`2·f²·k`).
+fn distil_madds(n: usize, d: usize, k: usize, f: usize, solves: usize) -> f64 {
+    let (n, d, k, f, sv) = (n as f64, d as f64, k as f64, f as f64, solves as f64);
+    n * (f * f + d * f + f * k) + sv * (f * f * f / 3.0 + 2.0 * f * f * k)
+}
+
+/// The cost model's estimate, in seconds, of the distillations of a sweep of `methods`
+/// methods over `features` on `n` calibration rows of `d` columns with `k` outputs: the
+/// multiply-adds of [`distil_madds`] (one solve per ridge strength of `grid`, and the
+/// final refit) at the machine's measured matrix-product rate on `threads` threads. It
+/// leaves out the timing of each candidate and the work of maps cheaper than a dense
+/// projection, so it errs long for structured maps and short where timing dominates
+/// (`sweep` prints the estimate before it starts and the time taken at the end).
+///
+/// ```
+/// use kernelpress::choose::estimate_sweep_seconds;
+/// use kernelpress::cost::MachineProfile;
+/// use kernelpress::fit::RidgeGrid;
+/// let p = MachineProfile::nominal();
+/// let a = estimate_sweep_seconds(10_000, 16, 325, &[1024], 1, &RidgeGrid::standard(), &p, 2);
+/// let b = estimate_sweep_seconds(10_000, 16, 325, &[1024, 4096], 7, &RidgeGrid::standard(), &p, 2);
+/// assert!(a > 0.0 && b > 50.0 * a);
+/// ```
+#[allow(clippy::too_many_arguments)]
+pub fn estimate_sweep_seconds(
+    n: usize,
+    d: usize,
+    k: usize,
+    features: &[usize],
+    methods: usize,
+    grid: &RidgeGrid,
+    profile: &MachineProfile,
+    threads: usize,
+) -> f64 {
+    let solves = grid.relative.len() + 1;
+    let madds: f64 = features
+        .iter()
+        .map(|&f| distil_madds(n, d, k, f, solves))
+        .sum::<f64>()
+        * methods as f64;
+    let per_ns = profile.gemm_flops_per_ns.max(1e-3) * threads.max(1) as f64;
+    2.0 * madds / per_ns * 1e-9
+}
+
 fn pair_work(n: usize, d: usize, f: usize) -> u64 {
     let (n, d, f) = (n as f64, d as f64, f as f64);
     ((n * (f * f + d * f) + f * f * f) / 1e6).max(1.0) as u64
@@ -240,6 +287,29 @@ fn pair_work(n: usize, d: usize, f: usize) -> u64 {
 
 #[cfg(test)]
 mod work_tests {
+    #[test]
+    fn the_estimate_counts_the_outputs_and_the_solves() {
+        // By hand: 1,000 rows, 10 columns, 2 outputs, 100 features, 8 solves:
+        // statistics 1000·(100² + 10·100 + 100·2) = 11.2 M; solves 8·(100³/3 + 2·100²·2)
+        // = 8·(333,333.3 + 40,000) = 2.987 M multiply-adds.
+        let m = super::distil_madds(1000, 10, 2, 100, 8);
+        assert!(
+            (m - (11_200_000.0 + 8.0 * (1e6 / 3.0 + 40_000.0))).abs() < 1e-3,
+            "{m}"
+        );
+        // Hundreds of outputs weigh (the ridge solve's right-hand sides): 325 one-vs-one
+        // outputs at 1,024 features on 15,000 rows cost about half as much again as one
+        // output (1.55×).
+        let p = crate::cost::MachineProfile::nominal();
+        let g = crate::fit::RidgeGrid::standard();
+        let one = super::estimate_sweep_seconds(15_000, 16, 1, &[1024], 1, &g, &p, 1);
+        let many = super::estimate_sweep_seconds(15_000, 16, 325, &[1024], 1, &g, &p, 1);
+        assert!(many > 1.5 * one && many < 1.6 * one, "{one} {many}");
+        // Twice the threads, half the time.
+        let two = super::estimate_sweep_seconds(15_000, 16, 325, &[1024], 1, &g, &p, 2);
+        assert!((two * 2.0 - many).abs() < 1e-9 * many);
+    }
+
     #[test]
     fn larger_candidates_weigh_more() {
         // 8,000 rows of 8 columns: 4,096 features weigh about 21× 1,024 (16× from the D²

@@ -3,7 +3,9 @@
 //! `report.html` into a folder.
 
 use super::progress;
-use kernelpress::choose::{recommend, render_page, render_svg, run_sweep, SweepOptions};
+use kernelpress::choose::{
+    estimate_sweep_seconds, recommend, render_page, render_svg, run_sweep, SweepOptions,
+};
 use kernelpress::data::write_all_atomic;
 use kernelpress::fit::{RidgeGrid, Teacher};
 use kernelpress::model::ExactModel;
@@ -131,6 +133,23 @@ pub(crate) fn run(a: Args) -> Result<()> {
         },
         guard_agreement: a.guard_agreement,
     };
+    let estimate = estimate_sweep_seconds(
+        calib.x.nrows(),
+        exact.input_dim(),
+        exact.n_outputs(),
+        &opts.features,
+        opts.methods.len(),
+        &opts.grid,
+        &profile,
+        rayon::current_num_threads(),
+    );
+    progress::note(format!(
+        "{} candidates; the cost model estimates their distillation at about {} on {} threads (the timing of each candidate comes on top)",
+        opts.features.len() * opts.methods.len(),
+        human_seconds(estimate),
+        rayon::current_num_threads()
+    ));
+    let started = std::time::Instant::now();
     let s = run_sweep(
         &teacher,
         eval.x.view(),
@@ -139,6 +158,11 @@ pub(crate) fn run(a: Args) -> Result<()> {
         &opts,
         &bars,
     )?;
+    progress::note(format!(
+        "sweep took {} (estimated {} for the distillations)",
+        human_seconds(started.elapsed().as_secs_f64()),
+        human_seconds(estimate)
+    ));
     for (m, f, why) in &s.skipped {
         progress::warn(format!("{m} at {f} features was not built: {why}"));
     }
@@ -248,4 +272,17 @@ pub(crate) fn run(a: Args) -> Result<()> {
         files[2].display()
     ));
     super::print_stdout(&text)
+}
+
+/// Seconds as a person reads them: "2.5 s", "40 s", "3.5 min", "1.2 h".
+fn human_seconds(t: f64) -> String {
+    if t < 10.0 {
+        format!("{t:.1} s")
+    } else if t < 90.0 {
+        format!("{t:.0} s")
+    } else if t < 5400.0 {
+        format!("{:.1} min", t / 60.0)
+    } else {
+        format!("{:.1} h", t / 3600.0)
+    }
 }
