@@ -29,7 +29,14 @@
 //!
 //! - `fmnist60k`: the big teacher (all 60,000 training images, about 20,500 support
 //!   vectors, 64 MB in f32, larger than the caches) and its Hadamard 4,096 model distilled
-//!   on those images: single row and batch, both in f32, and their ratios.
+//!   on those images: single row and batch, both in f32, and their ratios; the same with
+//!   bf16 and int8 heads (`low_precision`), and the headline keys `fmnist60k_speedup_single`,
+//!   `fmnist60k_speedup_batch`, `fmnist60k_agreement` for the head precision the library
+//!   keeps (`fmnist60k_head_precision`: the smallest whose label agreement with the teacher
+//!   on the ridge-choice rows of the first 5,000 training images is within 0.002 of the
+//!   f32 head's; the test images never take part in the choice).
+//! - `fmnist_lowp`, `fmnist_speedup_single_lowp`, `fmnist_agreement_lowp`: the 10,000-image
+//!   teacher's Hadamard model with bf16 and int8 heads, the same rule.
 //!
 //! The teacher: an exact Gaussian C-SVM (γ = 1/784 on pixels standardised on the training
 //! subset, C = 10, one-vs-one) trained here on the first 10,000 training images of
@@ -46,7 +53,8 @@ mod fashion;
 use kernelpress::data::Standardizer;
 use kernelpress::exact::{fit_svm, SmoOptions};
 use kernelpress::features::{FeatureSpec, Method};
-use kernelpress::fit::{compile_exact, HeadKind, RidgeGrid};
+use kernelpress::fit::{compile_exact, HeadKind, HeadPrecisionRule, RidgeGrid, Teacher};
+use kernelpress::linalg::HeadPrecision;
 use kernelpress::observe::Silent;
 use kernelpress::program::{steps::Dense, Builder};
 use kernelpress::report::{build, measure_single, ReportOptions};
@@ -310,6 +318,33 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     res.insert("fmnist_speedup_batch".into(), json!(batch));
     res.insert("fmnist_speedup_batch_f64".into(), json!(batch_f64));
     res.insert("fmnist_agreement".into(), json!(agree));
+    // 6b. The Hadamard model with a low-precision head (bf16, int8: `--head-precision`),
+    //     against one measurement of the exact model; the precision the library's rule
+    //     keeps, judged on training images.
+    let had_r = &res["fmnist_hadamard"];
+    let had_agree = had_r["agreement_f32_single"]
+        .as_f64()
+        .unwrap_or(f64::NAN)
+        .min(had_r["agreement_f32_batch"].as_f64().unwrap_or(f64::NAN));
+    let had_c32 = had_r["latency_us_compiled_f32_p50"]
+        .as_f64()
+        .unwrap_or(f64::NAN);
+    let (lowp, best_lowp) = low_precision(
+        &had,
+        &exact,
+        xtr.slice(s![..5_000, ..]),
+        xte.view(),
+        had_agree,
+        &ropts,
+        &say,
+    )?;
+    res.insert("fmnist_lowp".into(), lowp);
+    if let Some((p, single, agree, c)) = best_lowp {
+        res.insert("fmnist_lowp_precision".into(), json!(p));
+        res.insert("fmnist_speedup_single_lowp".into(), json!(single));
+        res.insert("fmnist_agreement_lowp".into(), json!(agree));
+        res.insert("fmnist_lowp_vs_f32_head_single".into(), json!(had_c32 / c));
+    }
     // The exact model's f32 single-row path reads its support vectors and its (packed)
     // coefficients in f32.
     let bytes = exact.bytes_per_prediction(true) as f64;
@@ -365,6 +400,19 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         &Silent,
     )?;
     let r60 = build(&h60, &big, xte.view(), None, None, &ropts)?;
+    let agree60 = r60
+        .agreement_f32
+        .unwrap_or(f64::NAN)
+        .min(r60.agreement_f32_batch.unwrap_or(f64::NAN));
+    let (lowp60, best60) = low_precision(
+        &h60,
+        &big,
+        xtr.slice(s![..5_000, ..]),
+        xte.view(),
+        agree60,
+        &ropts,
+        &say,
+    )?;
     let t = &r60.timing;
     let nan = f64::NAN;
     let (e1, c1) = (
@@ -390,12 +438,96 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                "exact_f32_single_us_p50": e1, "exact_f32_batch_rows_per_s": eb,
                "hadamard4096_f32_single_us_p50": c1, "hadamard4096_f32_batch_rows_per_s": cb,
                "speedup_single_f32": e1 / c1, "speedup_batch_f32": cb / eb,
-               "agreement_f64": r60.agreement, "agreement_f32_single": r60.agreement_f32}),
+               "agreement_f64": r60.agreement, "agreement_f32_single": r60.agreement_f32,
+               "low_precision": lowp60}),
     );
+    // The headline keys: the head precision the library's rule keeps (f32 when it keeps
+    // the f32 head).
+    let (p60, s60, b60, a60) = match &best60 {
+        Some((p, single, agree, _)) => {
+            let b = res["fmnist60k"]["low_precision"][p.as_str()]["speedup_batch_f32"]
+                .as_f64()
+                .unwrap_or(f64::NAN);
+            (p.clone(), *single, b, *agree)
+        }
+        None => ("f32".to_string(), e1 / c1, cb / eb, agree60),
+    };
+    res.insert("fmnist60k_head_precision".into(), json!(p60));
+    res.insert("fmnist60k_speedup_single".into(), json!(s60));
+    res.insert("fmnist60k_speedup_batch".into(), json!(b60));
+    res.insert("fmnist60k_agreement".into(), json!(a60));
     let text = serde_json::to_string_pretty(&serde_json::Value::Object(res))?;
     std::fs::write(&out, format!("{text}\n"))?;
     say(&format!("wrote {out}"));
     Ok(())
+}
+
+/// The model with each low-precision head: its report on the test images (timed, the exact
+/// model measured once for all), as JSON per precision, and the precision the library's
+/// rule keeps ([`HeadPrecisionRule::Smallest`], tolerance 0.002), judged on the
+/// ridge-choice rows of `choose_on` (training images, never the test images whose figures
+/// are reported): (precision, single-row speedup, agreement, latency µs), `None` when it
+/// keeps f32.
+#[allow(clippy::type_complexity)]
+fn low_precision(
+    m: &kernelpress::model::CompiledModel,
+    exact: &kernelpress::model::ExactModel,
+    choose_on: ndarray::ArrayView2<f64>,
+    x: ndarray::ArrayView2<f64>,
+    f32_agreement: f64,
+    ropts: &ReportOptions,
+    say: &dyn Fn(&str),
+) -> Result<(serde_json::Value, Option<(String, f64, f64, f64)>), Box<dyn std::error::Error>> {
+    let teacher = Teacher::new(exact, choose_on, &Silent)?;
+    let (_, summary) =
+        teacher.set_head_precision(m, HeadPrecisionRule::Smallest { tolerance: 0.002 })?;
+    let et = kernelpress::report::measure_exact(exact, x, ropts);
+    let shared = ReportOptions {
+        exact_timing: Some(et),
+        ..ropts.clone()
+    };
+    let mut out = serde_json::Map::new();
+    out.insert("kept".into(), json!(summary.chosen.name()));
+    out.insert("kept_by".into(), summary.to_json());
+    let mut kept: Option<(String, f64, f64, f64)> = None;
+    for p in [HeadPrecision::Bf16, HeadPrecision::Int8] {
+        let mut mp = m.clone();
+        mp.set_head_precision(p);
+        let r = build(&mp, exact, x, None, None, &shared)?;
+        let t = &r.timing;
+        let nan = f64::NAN;
+        let single = t.speedup_single_f32.unwrap_or(nan);
+        let agree = r
+            .agreement_f32
+            .unwrap_or(nan)
+            .min(r.agreement_f32_batch.unwrap_or(nan));
+        let c = t.latency_us_compiled_f32_p50.unwrap_or(nan);
+        say(&format!(
+            "  head {}: single {single:.1}× ({c:.2} µs), batch {:.1}×, agreement {agree:.4} (f32 head {f32_agreement:.4}); labels equal to its f64 path {:.4}",
+            p.name(),
+            t.speedup_batch_f32.unwrap_or(nan),
+            r.agreement_f32_with_f64.unwrap_or(nan)
+        ));
+        out.insert(
+            p.name().into(),
+            json!({"path": p.path_name(), "speedup_single_f32": single,
+                   "speedup_batch_f32": t.speedup_batch_f32,
+                   "latency_us_compiled_f32_p50": c,
+                   "latency_us_exact_f32_p50": t.latency_us_exact_f32_p50,
+                   "throughput_rows_per_s_compiled_f32": t.throughput_rows_per_s_compiled_f32,
+                   "agreement_f32_single": r.agreement_f32,
+                   "agreement_f32_batch": r.agreement_f32_batch,
+                   "agreement_f32_with_f64": r.agreement_f32_with_f64}),
+        );
+        if p == summary.chosen {
+            kept = Some((p.name().to_string(), single, agree, c));
+        }
+    }
+    say(&format!(
+        "  head precision kept on training rows' ridge-choice rows: {}",
+        summary.chosen.name()
+    ));
+    Ok((serde_json::Value::Object(out), kept))
 }
 
 /// Median time (µs) of the compiled model's own packed f32 head product on one row of its

@@ -1067,3 +1067,162 @@ fn dir_calib(name: &str, n: usize) -> std::path::PathBuf {
     head_lines(&root().join("models/pump_calib.csv"), &p, n);
     p
 }
+
+/// `compile --head-precision bf16|int8`: `score --f32` multiplies the head at that
+/// precision, as numpy recomputes it from the model file by the rule in docs/format.md
+/// (tests/reference/head_precision_check.py: decisions within the features' f32 rounding,
+/// labels equal, and different from the f64 path's, so the low-precision path ran); the
+/// precision survives the file, `score --head-precision` sets it on a model compiled
+/// without it (the same scores), `auto` keeps the smallest precision within 0.002 of the
+/// f32 head's ridge-choice agreement (recomputed from the figures it stored) and gives
+/// bit-identical files twice; bad values exit 2.
+#[test]
+fn low_precision_heads_score_as_numpy_recomputes_them() {
+    let dir = tmpdir("low_precision_heads_score_as_numpy_recomputes_them");
+    let calib = dir.join("calib.csv");
+    head_lines(&root().join("models/pump_calib.csv"), &calib, 3000);
+    let test = dir.join("test.csv");
+    head_lines(&root().join("models/pump_test.csv"), &test, 500);
+    let exact = root().join("models/pump_svm.safetensors");
+    let compile = |out: &std::path::Path, prec: Option<&str>| {
+        let mut args = vec![
+            "compile",
+            s(&exact),
+            "--calib",
+            s(&calib),
+            "--target",
+            "condition",
+            "--method",
+            "hadamard",
+            "--features",
+            "512",
+            "--no-bandwidth-search",
+            "--no-timing",
+            "--out",
+            s(out),
+        ];
+        if let Some(p) = prec {
+            args.extend(["--head-precision", p]);
+        }
+        ok(&args)
+    };
+    let score = |model: &std::path::Path, out: &std::path::Path, extra: &[&str]| {
+        let mut args = vec![
+            "score",
+            "--decisions",
+            s(model),
+            "--data",
+            s(&test),
+            "--target",
+            "condition",
+            "--out",
+            s(out),
+        ];
+        args.extend(extra);
+        ok(&args);
+        std::fs::read_to_string(out).unwrap()
+    };
+    let plain = dir.join("plain.safetensors");
+    compile(&plain, None);
+    for prec in ["int8", "bf16"] {
+        let m = dir.join(format!("{prec}.safetensors"));
+        compile(&m, Some(prec));
+        let loaded = kernelpress::model::CompiledModel::load(&m).unwrap();
+        assert_eq!(loaded.head_precision().name(), prec);
+        let s32 = dir.join(format!("{prec}_f32.csv"));
+        let s64 = dir.join(format!("{prec}_f64.csv"));
+        let a = score(&m, &s32, &["--f32"]);
+        score(&m, &s64, &[]);
+        let summary = py(
+            "head_precision_check.py",
+            &[s(&m), s(&test), "condition", s(&s32), s(&s64)],
+        );
+        assert!(
+            summary.contains(&format!("\"precision\": \"{prec}\"")),
+            "{summary}"
+        );
+        // The same precision set at score time on the model compiled without it.
+        let b = score(
+            &plain,
+            &dir.join(format!("{prec}_set.csv")),
+            &["--f32", "--head-precision", prec],
+        );
+        assert_eq!(
+            a, b,
+            "{prec}: score --head-precision differs from the compiled precision"
+        );
+        // The report names the precision and what it changes against the f64 path.
+        let rep = dir.join(format!("{prec}_report.json"));
+        ok(&[
+            "report",
+            s(&m),
+            "--exact",
+            s(&exact),
+            "--data",
+            s(&test),
+            "--target",
+            "condition",
+            "--no-timing",
+            "--json",
+            s(&rep),
+        ]);
+        let r: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+        assert_eq!(r["head_precision"], prec);
+        let same = r["agreement_f32_with_f64"].as_f64().unwrap();
+        assert!(same > 0.97 && same <= 1.0, "{prec}: {same}");
+    }
+    // auto: the rule recomputed from the stored figures; bit-identical twice.
+    let (a1, a2) = (dir.join("auto1.safetensors"), dir.join("auto2.safetensors"));
+    compile(&a1, Some("auto"));
+    compile(&a2, Some("auto"));
+    assert_eq!(std::fs::read(&a1).unwrap(), std::fs::read(&a2).unwrap());
+    let m = kernelpress::model::CompiledModel::load(&a1).unwrap();
+    let rec = &m.fit["head_precision"];
+    let tried = rec["tried"].as_array().unwrap();
+    let fig = |p: &str| {
+        tried
+            .iter()
+            .find(|t| t["precision"] == p)
+            .and_then(|t| t["choose_figure"].as_f64())
+            .unwrap()
+    };
+    let full = fig("f32");
+    let want = ["int8", "bf16", "f32"]
+        .into_iter()
+        .find(|p| fig(p) >= full - 0.002)
+        .unwrap();
+    assert_eq!(rec["chosen"], want);
+    assert_eq!(m.head_precision().name(), want);
+    // Bad values.
+    let e = bad(&[
+        "compile",
+        s(&exact),
+        "--calib",
+        s(&calib),
+        "--target",
+        "condition",
+        "--method",
+        "hadamard",
+        "--features",
+        "64",
+        "--head-precision",
+        "int4",
+        "--out",
+        s(&dir.join("never.safetensors")),
+    ]);
+    assert!(e.contains("int4") && e.contains("bf16"), "{e}");
+    assert!(!dir.join("never.safetensors").exists());
+    let e = bad(&[
+        "score",
+        s(&exact),
+        "--data",
+        s(&test),
+        "--target",
+        "condition",
+        "--f32",
+        "--head-precision",
+        "int8",
+    ]);
+    assert!(e.contains("exact model has no head"), "{e}");
+}

@@ -840,12 +840,13 @@ fn eval_report(
 /// --method M --features D` does, including the map bandwidth search unless
 /// `bandwidth_search=False`. With `refine=N`, the map is then refined against the exact
 /// model for up to N passes, as `compile --refine N` does (docs/refining.md). With
-/// `head_rank` (a rank, or `"auto"`) the head is factored as `compile --head-rank` does
-/// (docs/choosing.md).
+/// `head_rank` (a rank, or `"auto"`) the head is factored as `compile --head-rank` does;
+/// with `head_precision` (`"f32"`, `"bf16"`, `"int8"` or `"auto"`) its f32 paths multiply
+/// at that precision, as `compile --head-precision` sets it (docs/choosing.md).
 ///
 /// >>> compiled = kp.compact(exact, "models/pump_calib.csv", method="nystrom", features=1024)
 #[pyfunction]
-#[pyo3(name = "compact", signature = (exact, calib, method, features, *, seed=0, landmark_rule="uniform", bandwidth_search=true, eval=None, eval_labels=None, min_agreement=0.99, refine=None, head_rank=None))]
+#[pyo3(name = "compact", signature = (exact, calib, method, features, *, seed=0, landmark_rule="uniform", bandwidth_search=true, eval=None, eval_labels=None, min_agreement=0.99, refine=None, head_rank=None, head_precision=None))]
 #[allow(clippy::too_many_arguments)]
 fn compile(
     py: Python<'_>,
@@ -861,6 +862,7 @@ fn compile(
     min_agreement: f64,
     refine: Option<usize>,
     head_rank: Option<&Bound<'_, PyAny>>,
+    head_precision: Option<String>,
 ) -> Res<PyCompiled> {
     let e = exact.inner.clone();
     let spec = spec_for(&e, method, features, seed, landmark_rule)?;
@@ -882,6 +884,15 @@ fn compile(
             )))
         })?),
     };
+    let precision = match head_precision.as_deref() {
+        None => None,
+        Some("auto") => Some(kernelpress::fit::HeadPrecisionRule::Smallest { tolerance: 0.002 }),
+        Some(v) => Some(kernelpress::fit::HeadPrecisionRule::Fixed(lib(v
+            .parse()
+            .map_err(|e: kernelpress::Error| {
+                kernelpress::Error::input(format!("compact: head_precision: {}", e.message()))
+            }))?)),
+    };
     let (mut model, _) = lib(py.detach(|| {
         let (m, info) = compile_exact_tuned(
             &e,
@@ -892,7 +903,7 @@ fn compile(
             None,
             &Silent,
         )?;
-        if opts.is_none() && rank.is_none() {
+        if opts.is_none() && rank.is_none() && precision.is_none() {
             return Ok((m, info));
         }
         let t = kernelpress::fit::Teacher::new(&e, x.view(), &Silent)?;
@@ -905,8 +916,12 @@ fn compile(
             }
             None => (m, info),
         };
-        match rank {
-            Some(r) => Ok((t.factor_head(&m, r)?.0, info)),
+        let m = match rank {
+            Some(r) => t.factor_head(&m, r)?.0,
+            None => m,
+        };
+        match precision {
+            Some(p) => Ok((t.set_head_precision(&m, p)?.0, info)),
             None => Ok((m, info)),
         }
     }))?;

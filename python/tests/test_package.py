@@ -275,6 +275,36 @@ def test_factored_compact_equals_cli_head_rank(root, cli, tmp_path, exact):
             kp.compact(exact, str(calib), "hadamard", 128, head_rank=bad)
 
 
+def test_low_precision_head_equals_cli_head_precision(root, cli, tmp_path, exact):
+    # compact(head_precision=P) sets the head precision as `compile --head-precision P`
+    # does: the two files score the same with `score --f32`, and differently from the f32
+    # head (so the precision was taken).
+    calib = tmp_path / "calib.csv"
+    calib.write_text("\n".join((root / "models" / "pump_calib.csv").read_text().splitlines()[:1501]) + "\n")
+    test = root / "models" / "pump_test.csv"
+    scores = {}
+    for prec in ("f32", "int8", "bf16"):
+        c = kp.compact(exact, str(calib), "hadamard", 256, seed=2, bandwidth_search=False, head_precision=prec)
+        mine = tmp_path / f"py_{prec}.safetensors"
+        c.save(mine)
+        out = tmp_path / f"cli_{prec}.safetensors"
+        cli("compile", root / "models" / "pump_svm.safetensors", "--calib", calib, "--target", "condition",
+            "--method", "hadamard", "--features", 256, "--seed", 2, "--no-bandwidth-search",
+            "--head-precision", prec, "--no-timing", "--out", out)
+        texts = []
+        for f in (mine, out):
+            sc = tmp_path / f"score_{f.stem}.csv"
+            cli("score", "--decisions", f, "--data", test, "--target", "condition", "--f32", "--out", sc)
+            texts.append(sc.read_text())
+        assert texts[0] == texts[1], prec
+        scores[prec] = texts[0]
+    assert scores["int8"] != scores["f32"] and scores["bf16"] != scores["f32"]
+    auto = kp.compact(exact, str(calib), "hadamard", 256, seed=2, bandwidth_search=False, head_precision="auto")
+    assert auto.fit["head_precision"]["chosen"] in ("f32", "bf16", "int8")
+    with pytest.raises(kp.Error, match="head_precision"):
+        kp.compact(exact, str(calib), "hadamard", 256, head_precision="int4")
+
+
 def test_guard_equals_cli_guard_and_scores_like_score(root, cli, tmp_path, exact):
     # kp.guard chooses the threshold as `compile --guard-agreement` does (the library's
     # guard_on_audit_rows); the guarded model scores, stages and pickles like the file the

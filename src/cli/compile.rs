@@ -6,8 +6,8 @@ use clap::ValueEnum;
 use kernelpress::choose::{search, Budget, Choice, SearchOptions};
 use kernelpress::data::{check_batch, read_table, write_all_atomic};
 use kernelpress::fit::{
-    audit_row, audit_rows, compile_exact, compile_exact_tuned, compile_labels, HeadKind, HeadRank,
-    RefineOptions, RidgeGrid, Teacher,
+    audit_row, audit_rows, compile_exact, compile_exact_tuned, compile_labels, HeadKind,
+    HeadPrecisionRule, HeadRank, RefineOptions, RidgeGrid, Teacher,
 };
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
@@ -154,6 +154,13 @@ pub(crate) struct Args {
     /// a budget, every candidate is factored before it is timed. See docs/choosing.md.
     #[arg(long, value_name = "R|auto")]
     head_rank: Option<String>,
+    /// Precision of the head's products when the model scores in f32 (`score --f32`, the
+    /// f32 single row): f32, bf16 (bfloat16 weights and features, f32 sums) or int8 (int8
+    /// weights per output and features per row, integer sums). `auto` keeps the smallest
+    /// whose label agreement on the ridge-choice rows is within 0.002 of the f32 head's
+    /// (needs --calib). The f64 paths keep the f64 head. See docs/choosing.md.
+    #[arg(long, value_name = "P|auto")]
+    head_precision: Option<String>,
     /// Budget search: measure this machine again instead of using the cached profile.
     #[arg(long)]
     recalibrate: bool,
@@ -375,7 +382,26 @@ pub(crate) fn run(a: Args) -> Result<()> {
             Some(r)
         }
     };
+    let head_precision = match a.head_precision.as_deref() {
+        None => None,
+        Some("auto") => {
+            if kind != HeadKind::Distill || calib.is_none() {
+                return Err(Error::input(
+                    "--head-precision auto judges each precision on the calibration rows: it needs --head distill and --calib (or name a precision: f32, bf16, int8)",
+                ));
+            }
+            Some(HeadPrecisionRule::Smallest { tolerance: 0.002 })
+        }
+        Some(v) => Some(HeadPrecisionRule::Fixed(v.parse().map_err(
+            |e: Error| Error::input(format!("--head-precision: {}", e.message())),
+        )?)),
+    };
     if a.budget_us.is_some() || a.max_bytes.is_some() || a.max_disagreement.is_some() {
+        if head_precision.is_some() {
+            return Err(Error::input(
+                "--head-precision does not combine with a budget search yet (its latencies are those of f32 heads): compile the chosen method and size again with --head-precision",
+            ));
+        }
         return run_budget(&a, &exact, calib, &grid, refine, head_rank);
     }
     if !a.methods.is_empty() {
@@ -427,7 +453,10 @@ pub(crate) fn run(a: Args) -> Result<()> {
         super::progress::warn(n);
     }
     let mut model = model;
-    let teacher = match (&calib, refine.is_some() || head_rank.is_some()) {
+    let teacher = match (
+        &calib,
+        refine.is_some() || head_rank.is_some() || head_precision.is_some(),
+    ) {
         (Some(c), true) => Some(Teacher::new(&exact, c.x.view(), &bars)?),
         _ => None,
     };
@@ -454,6 +483,16 @@ pub(crate) fn run(a: Args) -> Result<()> {
         super::progress::note(factor_note(&sum, model.features()));
         model = m;
     }
+    match (head_precision, &teacher) {
+        (Some(rule), Some(teacher)) => {
+            let (m, sum) = teacher.set_head_precision(&model, rule)?;
+            super::progress::note(precision_note(&sum));
+            model = m;
+        }
+        (Some(HeadPrecisionRule::Fixed(p)), None) => model.set_head_precision(p),
+        _ => {}
+    }
+    super::warn_slow_head(model.head_precision());
     warn_fit_notes(&model);
     if let Some(Some(y)) = calib.as_ref().map(|c| c.target.as_ref()) {
         if model.task().is_classifier() {
@@ -473,6 +512,33 @@ pub(crate) fn run(a: Args) -> Result<()> {
         return run_guard(&a, &exact, calib.as_ref(), model);
     }
     evaluate_and_finish(&a, &exact, calib.as_ref().map(audit_of), model, None)
+}
+
+/// One line on what choosing the head precision measured.
+fn precision_note(sum: &kernelpress::fit::HeadPrecisionSummary) -> String {
+    let tried = sum
+        .tried
+        .iter()
+        .map(|t| {
+            format!(
+                "{} ({}) {:.4}, {:.2} µs per row",
+                t.precision.name(),
+                t.path,
+                t.figure,
+                t.latency_us
+            )
+        })
+        .collect::<Vec<_>>()
+        .join("; ");
+    format!(
+        "head precision {} (ridge-choice rows, {}: {tried})",
+        sum.chosen.name(),
+        if sum.tried.first().is_some_and(|t| t.figure <= 0.0) {
+            "minus mean squared error"
+        } else {
+            "agreement with the exact model"
+        }
+    )
 }
 
 /// One line on what factoring the head did.
@@ -984,9 +1050,9 @@ fn run_shards(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<()> {
             "a sharded distillation does not refine from the command line: refine in one process (compile MODEL --calib FILE --refine N), or sharded from Python (kernelpress.distributed.refine, docs/scaling-out.md)",
         ));
     }
-    if a.head_rank.is_some() {
+    if a.head_rank.is_some() || a.head_precision.is_some() {
         return Err(Error::input(
-            "a sharded distillation does not factor the head: compile in one process with --head-rank",
+            "a sharded distillation does not factor the head or set its precision: compile in one process with --head-rank or --head-precision",
         ));
     }
     if a.budget_or_guard() || a.map.landmarks.is_some() || !matches!(a.head, Head::Distill) {
@@ -1088,6 +1154,7 @@ fn try_streamed(a: &Args, exact: &ExactModel, grid: &RidgeGrid) -> Result<Option
         || !a.methods.is_empty()
         || a.refine.is_some()
         || a.head_rank.is_some()
+        || a.head_precision.is_some()
     {
         return Ok(None);
     }

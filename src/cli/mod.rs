@@ -219,6 +219,18 @@ pub(crate) fn note_unverified(path: &std::path::Path) {
     }
 }
 
+/// A warning when the head precision has no fast instructions on this CPU: the portable
+/// loops give the same decisions, more slowly than the f32 head.
+pub(crate) fn warn_slow_head(p: kernelpress::linalg::HeadPrecision) {
+    if !p.fast_here() {
+        progress::warn(format!(
+            "this CPU has no {} instructions for the {} head: its f32 paths use the portable loops, which give the same decisions more slowly than the f32 head (--head-precision f32 is faster here)",
+            if p == kernelpress::linalg::HeadPrecision::Int8 { "AVX-512 VNNI" } else { "AVX-512 BF16" },
+            p.name()
+        ));
+    }
+}
+
 /// Writes `text` to stdout, treating a closed pipe as success.
 pub(crate) fn print_stdout(text: &str) -> Result<()> {
     use std::io::Write;

@@ -40,6 +40,10 @@ pub(crate) struct Args {
     /// (`agreement_f32_batch`, `agreement_exact_f32_batch`).
     #[arg(long)]
     f32: bool,
+    /// With --f32: the precision of a compiled model's head products (f32, bf16 or int8),
+    /// in place of the one it was compiled with (`compile --head-precision`).
+    #[arg(long, value_name = "P", requires = "f32")]
+    head_precision: Option<String>,
     /// Also write the raw decision values, after the class columns, one per output, named
     /// so that a positive value favours the class named first: `decision_A_vs_B`. Binary
     /// models: one column, A the second label. One-vs-one models: one per class pair in
@@ -60,7 +64,20 @@ pub(crate) fn run(a: Args) -> Result<()> {
     if let Some(o) = &a.out {
         super::guard_outputs(&[&a.model, &a.data], &[(o, false)])?;
     }
-    let (model, _) = AnyModel::load(&a.model)?;
+    let (mut model, _) = AnyModel::load(&a.model)?;
+    if let Some(p) = &a.head_precision {
+        let p = p.parse().map_err(|e: kernelpress::Error| {
+            kernelpress::Error::input(format!("--head-precision: {}", e.message()))
+        })?;
+        model.set_head_precision(p).map_err(|e| {
+            kernelpress::Error::input(format!("{}: {}", a.model.display(), e.message()))
+        })?;
+    }
+    if a.f32 {
+        if let Some(p) = model.head_precision() {
+            super::warn_slow_head(p);
+        }
+    }
     super::note_unverified(&a.model);
     let t = super::read_for(
         &a.data,

@@ -183,26 +183,12 @@ pub fn f16_to_f32(h: u16) -> f32 {
     f32::from_bits(bits)
 }
 
+/// The int8 quantization shared with the native int8 head ([`crate::linalg::quantize_i8`]),
+/// so an exported int8 head holds the weights `score --f32` multiplies by under
+/// `--head-precision int8`.
 fn int8(v: &[f64], shape: &[usize], axis: usize) -> Quant {
     let (rows, cols) = (shape[0], shape.get(1).copied().unwrap_or(1));
-    let n_scales = if axis == 0 { rows } else { cols };
-    let mut amax = vec![0.0f64; n_scales];
-    for (i, x) in v.iter().enumerate() {
-        let s = if axis == 0 { i / cols } else { i % cols };
-        amax[s] = amax[s].max(x.abs());
-    }
-    let scale: Vec<f32> = amax
-        .iter()
-        .map(|m| if *m > 0.0 { (*m / 127.0) as f32 } else { 1.0 })
-        .collect();
-    let q = v
-        .iter()
-        .enumerate()
-        .map(|(i, x)| {
-            let s = if axis == 0 { i / cols } else { i % cols };
-            (x / scale[s] as f64).round().clamp(-127.0, 127.0) as i8
-        })
-        .collect();
+    let (q, scale) = crate::linalg::quantize_i8(v, rows, cols, axis);
     Quant::I8 { q, scale, axis }
 }
 

@@ -26,12 +26,14 @@
 mod compile;
 mod factor;
 mod guard;
+mod head_precision;
 mod refine;
 mod refine_rows;
 pub mod shard;
 
 pub use factor::{FactorSummary, HeadRank};
 pub use guard::guard_on_audit_rows;
+pub use head_precision::{HeadPrecisionRule, HeadPrecisionSummary, PrecisionTrial};
 pub use refine::{refine_sharded, RefineOptions, RefineSummary};
 pub use refine_rows::{
     add_gradients, AuditTally, RefineGradient, RefineRows, RefineSource, RefineState,

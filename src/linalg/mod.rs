@@ -13,9 +13,15 @@ use rayon::prelude::*;
 use crate::{Error, Result};
 
 mod aligned;
+mod head;
 mod narrow;
+mod narrow_bf16;
+mod narrow_i8;
 pub use aligned::AlignedF32;
+pub use head::{HeadPrecision, LowHead};
 pub use narrow::NarrowF32;
+pub use narrow_bf16::{bf16_bits, bf16_value, Bf16Path, NarrowBf16};
+pub use narrow_i8::{quantize_i8, I8Path, NarrowI8};
 
 /// Rows per parallel chunk of a product. Fixed so results never depend on the thread count.
 pub const CHUNK_ROWS: usize = 256;

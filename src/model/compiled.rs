@@ -36,6 +36,9 @@ pub struct CompiledModel {
     /// The head in f32 (converted once at construction), packed for the f32 products of
     /// single rows and batches.
     head_narrow: linalg::NarrowF32,
+    /// The head packed for a low-precision product on the f32 paths, when the model's head
+    /// precision is not f32 (`head.precision` in the manifest).
+    head_low: Option<linalg::LowHead>,
     /// The reciprocals of the scaling's scales (the f32 paths multiply).
     inv_scale: Vec<f64>,
     intercept: Vec<f64>,
@@ -143,6 +146,7 @@ impl CompiledModel {
             program,
             head,
             head_narrow,
+            head_low: None,
             inv_scale,
             intercept,
             rule,
@@ -180,6 +184,49 @@ impl CompiledModel {
     /// once when the model was built).
     pub fn head_f32(&self) -> &linalg::NarrowF32 {
         &self.head_narrow
+    }
+    /// The precision of the head's products on the f32 paths ([`Self::decision_f32`],
+    /// [`Self::decision_one_f32`]); the f64 paths always use the f64 head.
+    pub fn head_precision(&self) -> linalg::HeadPrecision {
+        self.head_low
+            .as_ref()
+            .map(|h| h.precision())
+            .unwrap_or_default()
+    }
+    /// Sets the precision of the head's products on the f32 paths (stored in the model
+    /// file; the f64 head stays as it is, so it can be set back). bfloat16 rounds weights
+    /// and features to 8 significant bits and sums in f32; int8 quantizes the weights per
+    /// output (as `export --precision int8` does) and each row's features per row, and
+    /// sums in integers.
+    ///
+    /// ```
+    /// # use kernelpress::features::{FeatureSpec, Method};
+    /// # use kernelpress::model::{CompiledModel, Task};
+    /// # use kernelpress::linalg::HeadPrecision;
+    /// # use ndarray::{array, Array2};
+    /// let spec = FeatureSpec::new("gaussian(gamma=1)".parse().unwrap(), Method::Fourier, 1, 64, 3);
+    /// let (map, _) = spec.sample(None).unwrap();
+    /// let head = Array2::from_shape_fn((64, 1), |(i, _)| (i as f64 * 0.3).sin());
+    /// let mut m = CompiledModel::new(map, head, vec![0.0], Task::Regression, vec![], None).unwrap();
+    /// let x = array![[0.5]];
+    /// let f32_head = m.decision_f32(x.view())[[0, 0]];
+    /// m.set_head_precision(HeadPrecision::Int8);
+    /// assert!((m.decision_f32(x.view())[[0, 0]] - f32_head).abs() < 0.05);
+    /// assert_eq!(m.decision(x.view())[[0, 0]], m.decision(x.view())[[0, 0]]);
+    /// ```
+    pub fn set_head_precision(&mut self, precision: linalg::HeadPrecision) {
+        let w = self
+            .head
+            .as_slice()
+            .expect("the head is kept in standard layout");
+        self.head_low = linalg::LowHead::new(precision, w, self.head.nrows(), self.head.ncols());
+    }
+    /// The f32 paths' head product: `out = z · H` at the head's precision.
+    fn head_product_f32(&self, z: &[f32], out: &mut [f32]) {
+        match &self.head_low {
+            Some(h) => h.product(z, out),
+            None => self.head_narrow.product(z, out),
+        }
     }
     /// Intercepts.
     pub fn intercept(&self) -> &[f64] {
@@ -334,7 +381,7 @@ impl CompiledModel {
             .program
             .apply_row_f32_at(crate::simd::level(), x, self.input_map(), ps)
         {
-            Some(z) => self.head_narrow.product(z, s32),
+            Some(z) => self.head_product_f32(z, s32),
             None => {
                 let z: Vec<f32> = self
                     .program
@@ -342,7 +389,7 @@ impl CompiledModel {
                     .iter()
                     .map(|v| *v as f32)
                     .collect();
-                self.head_narrow.product(&z, s32);
+                self.head_product_f32(&z, s32);
             }
         }
         for ((o, s), b) in out.iter_mut().zip(s32.iter()).zip(&self.intercept) {
@@ -430,7 +477,7 @@ impl CompiledModel {
                         .for_each(|(o, v)| *o = *v as f32);
                 }
                 let sb = &mut s[..mb * k];
-                self.head_narrow.product(zb, sb);
+                self.head_product_f32(zb, sb);
                 for (i, srow) in sb.chunks_exact(k).enumerate() {
                     for (j, v) in srow.iter().enumerate() {
                         out[[b * BLOCK + i, j]] = *v as f64 + self.intercept[j];
@@ -496,7 +543,11 @@ impl CompiledModel {
             "output": write_output(&self.rule),
             "source": source,
             "program": program,
-            "head": {"folded": self.folded},
+            "head": if self.head_low.is_some() {
+                json!({"folded": self.folded, "precision": self.head_precision().name()})
+            } else {
+                json!({"folded": self.folded})
+            },
             "fit": self.fit,
             "report": self.report,
         });
@@ -598,6 +649,18 @@ impl CompiledModel {
         m.fit = f.manifest.get("fit").cloned().unwrap_or(json!({}));
         m.report = f.manifest.get("report").cloned().unwrap_or(json!({}));
         m.probabilities = super::io::read_probabilities(f, m.rule(), src)?;
+        if let Some(p) = f.manifest.get("head").and_then(|h| h.get("precision")) {
+            let p: linalg::HeadPrecision = p
+                .as_str()
+                .ok_or_else(|| {
+                    Error::file(format!("{src}: manifest 'head.precision' must be a string"))
+                })?
+                .parse()
+                .map_err(|e: Error| {
+                    Error::file(format!("{src}: manifest 'head.precision': {}", e.message()))
+                })?;
+            m.set_head_precision(p);
+        }
         Ok(m)
     }
 

@@ -298,6 +298,14 @@ impl GuardedModel {
         &self.compact
     }
 
+    /// Sets the head precision of the compiled stage's f32 paths
+    /// ([`CompiledModel::set_head_precision`]). The guard's threshold was set on the
+    /// compiled stage's decisions at compile time; `report` measures what another
+    /// precision does to the guarded labels.
+    pub fn set_head_precision(&mut self, precision: crate::linalg::HeadPrecision) {
+        self.compact.set_head_precision(precision);
+    }
+
     /// The exact fallback.
     pub fn exact(&self) -> &ExactModel {
         &self.exact

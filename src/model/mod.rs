@@ -125,6 +125,37 @@ impl AnyModel {
         }
     }
 
+    /// The precision of the head's products on the f32 paths (a guarded model's compiled
+    /// stage's; `None` for an exact model, which has no head).
+    pub fn head_precision(&self) -> Option<crate::linalg::HeadPrecision> {
+        match self {
+            AnyModel::Exact(_) => None,
+            AnyModel::Compiled(m) => Some(m.head_precision()),
+            AnyModel::Guarded(m) => Some(m.compact().head_precision()),
+        }
+    }
+
+    /// Sets the precision of the head's products on the f32 paths of a compiled model or
+    /// of a guarded model's compiled stage; an exact model has no head, so it is refused.
+    pub fn set_head_precision(
+        &mut self,
+        precision: crate::linalg::HeadPrecision,
+    ) -> crate::Result<()> {
+        match self {
+            AnyModel::Exact(_) => Err(crate::Error::input(
+                "an exact model has no head to score at another precision",
+            )),
+            AnyModel::Compiled(m) => {
+                m.set_head_precision(precision);
+                Ok(())
+            }
+            AnyModel::Guarded(m) => {
+                m.set_head_precision(precision);
+                Ok(())
+            }
+        }
+    }
+
     /// Decision values computed in f32 ([`ExactModel::decision_f32`],
     /// [`CompiledModel::decision_f32`], [`GuardedModel::decision_f32`], which compares its
     /// threshold with f32 decisions as the exports do) and, for a guarded model, the stage

@@ -163,6 +163,14 @@ pub struct Report {
     /// Largest decision-value difference between the f32-head and the f64 compiled paths.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub f32_max_abs_difference: Option<f64>,
+    /// The precision of the head's products on the f32 paths, when it is not f32
+    /// (`bf16`, `int8`: `compile --head-precision`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub head_precision: Option<String>,
+    /// Label agreement of the f32 path (at the head's precision) with the compiled
+    /// model's own f64 path (classifiers): what the precision alone changes.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub agreement_f32_with_f64: Option<f64>,
     /// Label agreement of the exact model's single-row f32 path with its f64 path
     /// (classifiers; measured with the timings).
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -284,6 +292,8 @@ pub fn build_guarded(
     let (sg, stage) = g.decision(x);
     // The f32-head figures describe a compiled model alone, not the guard.
     r.agreement_f32 = None;
+    r.agreement_f32_with_f64 = None;
+    r.head_precision = None;
     r.f32_max_abs_difference = None;
     let (rmse, r2, maxe) = decision_errors(se.view(), sg.view());
     r.decision_rmse = rmse;
@@ -560,6 +570,9 @@ pub fn build(
         agreement_f32_batch: None,
         agreement_exact_f32_batch: None,
         f32_max_abs_difference: None,
+        head_precision: (compiled.head_precision() != crate::linalg::HeadPrecision::F32)
+            .then(|| compiled.head_precision().name().to_string()),
+        agreement_f32_with_f64: None,
         stage_shares: None,
         exact_work_share: None,
         stage_agreement: None,
@@ -600,6 +613,9 @@ pub fn build(
         let l32 = label_indices(exact.task(), k, s32.view());
         r.agreement_f32 =
             Some(le.iter().zip(&l32).filter(|(a, b)| a == b).count() as f64 / n.max(1) as f64);
+        let lc = label_indices(exact.task(), k, sc.view());
+        r.agreement_f32_with_f64 =
+            Some(lc.iter().zip(&l32).filter(|(a, b)| a == b).count() as f64 / n.max(1) as f64);
     }
     if opts.timing {
         let et = opts

@@ -127,8 +127,13 @@ pub fn render_text(r: &Report) -> String {
         ));
     }
     if let (Some(a), Some(d)) = (r.agreement_f32, r.f32_max_abs_difference) {
+        let p = r.head_precision.as_deref().unwrap_or("f32");
+        let same = r
+            .agreement_f32_with_f64
+            .map(|v| format!("; {v:.4} of the labels equal the f64 path's"))
+            .unwrap_or_default();
         s.push_str(&format!(
-            "  with the head in f32            agreement {a:.4}; decisions move by at most {} from the f64 path\n",
+            "  with the head in {p:<15}agreement {a:.4}; decisions move by at most {} from the f64 path{same}\n",
             sig3(d)
         ));
     }
