@@ -151,6 +151,36 @@ fn overflow_and_absurd_values_are_bad_input() {
         s(&out),
     ]);
     assert!(e.contains("--ridge-rel"), "{e}");
+    // Values the library's checked constructors refuse, named by their flag.
+    for (flag, value) in [
+        ("--ridge-rel", "-1"),
+        ("--guard-agreement", "1.5"),
+        ("--guard-rate", "-0.1"),
+        ("--budget-us", "-3"),
+        ("--max-disagreement", "1"),
+    ] {
+        let given = format!("{flag}={value}");
+        let model = demo();
+        let mut args = vec![
+            "compile",
+            s(&model),
+            "--calib",
+            "models/pump_calib.csv",
+            "--target",
+            "condition",
+            &given,
+            "--out",
+            s(&out),
+        ];
+        if !flag.starts_with("--budget") && !flag.starts_with("--max") {
+            args.extend(["--method", "fourier", "--features", "16"]);
+        }
+        let e = bad(&args);
+        assert!(
+            e.contains(&format!("{flag}: ")) && e.contains(value),
+            "{flag}: {e}"
+        );
+    }
     let e = bad(&["score", "--decisions", s(&demo()), "--data", "/dev/zero"]);
     assert!(e.contains("not a regular file"), "{e}");
     assert!(!out.exists());

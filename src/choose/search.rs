@@ -31,6 +31,37 @@ pub struct Budget {
 pub const PREDICTION_SLACK: f64 = 1.3;
 
 impl Budget {
+    /// The budget, or what is wrong with it: at least one bound, a latency that is a
+    /// positive number of microseconds, a largest loss in [0, 1) for classifiers (any
+    /// non-negative loss otherwise is checked by the caller's task).
+    ///
+    /// ```
+    /// use kernelpress::choose::Budget;
+    /// let b = Budget { latency_us: Some(10.0), ..Budget::default() };
+    /// assert!(b.checked().is_ok());
+    /// assert!(Budget::default().checked().is_err());
+    /// assert!(Budget { latency_us: Some(-1.0), ..b }.checked().is_err());
+    /// assert!(Budget { max_loss: Some(1.0), ..b }.checked().is_err());
+    /// ```
+    pub fn checked(self) -> Result<Budget> {
+        if self == Budget::default() {
+            return Err(Error::input(
+                "a search needs a budget: a latency, a size or a fidelity bound",
+            ));
+        }
+        if let Some(b) = self.latency_us.filter(|b| !(*b > 0.0 && b.is_finite())) {
+            return Err(Error::input(format!(
+                "the latency budget {b} must be a positive number of microseconds"
+            )));
+        }
+        if let Some(p) = self.max_loss.filter(|p| !(0.0..1.0).contains(p)) {
+            return Err(Error::input(format!(
+                "the largest disagreement {p} must be in [0, 1)"
+            )));
+        }
+        Ok(self)
+    }
+
     fn fits_prediction(&self, p: &Prediction) -> bool {
         self.latency_us
             .is_none_or(|b| p.latency_us <= b * PREDICTION_SLACK)
@@ -169,11 +200,7 @@ pub fn search(
     opts: &SearchOptions,
     obs: &dyn Observer,
 ) -> Result<SearchResult> {
-    if budget == Budget::default() {
-        return Err(Error::input(
-            "a search needs a budget: a latency, a size or a fidelity bound",
-        ));
-    }
+    let budget = budget.checked()?;
     let exact = teacher.exact();
     let classifier = exact.task().is_classifier();
     let k = exact.labels().len();

@@ -9,6 +9,7 @@ use kernelpress::fit::{
     audit_row, audit_rows, compile_exact, compile_exact_tuned, compile_labels, HeadKind,
     HeadPrecisionRule, HeadRank, RefineOptions, RidgeGrid, Teacher,
 };
+use kernelpress::model::guarded::GuardTarget;
 use kernelpress::model::ExactModel;
 use kernelpress::report::{self, ReportOptions};
 use kernelpress::{Error, ErrorKind, Result};
@@ -227,12 +228,7 @@ pub(crate) fn run(a: Args) -> Result<()> {
         super::guard_outputs(&ins, &outs)?;
     }
     let grid = match a.ridge_rel {
-        Some(r) if r > 0.0 && r <= 1e6 => RidgeGrid::fixed(r),
-        Some(r) => {
-            return Err(Error::input(format!(
-                "--ridge-rel {r} must be in (0, 1e6]: it is relative to the mean feature variance"
-            )))
-        }
+        Some(r) => RidgeGrid::try_fixed(r).map_err(|e| flag_error("--ridge-rel", e))?,
         None => RidgeGrid::standard(),
     };
     a.gate.validate()?;
@@ -242,13 +238,15 @@ pub(crate) fn run(a: Args) -> Result<()> {
                 "give --guard-agreement P or --guard-rate R, not both",
             ))
         }
-        (Some(p), None) if !(p > 0.0 && p < 1.0) => {
-            return Err(Error::input(format!(
-                "--guard-agreement {p} must be in (0, 1)"
-            )))
+        (Some(p), None) => {
+            GuardTarget::Agreement(p)
+                .checked()
+                .map_err(|e| flag_error("--guard-agreement", e))?;
         }
-        (None, Some(r)) if !(0.0..=1.0).contains(&r) => {
-            return Err(Error::input(format!("--guard-rate {r} must be in [0, 1]")))
+        (None, Some(r)) => {
+            GuardTarget::Rate(r)
+                .checked()
+                .map_err(|e| flag_error("--guard-rate", e))?;
         }
         _ => {}
     }
@@ -570,7 +568,7 @@ fn run_guard(
 ) -> Result<()> {
     let calib =
         calib.ok_or_else(|| Error::input("a guard is chosen on calibration rows: give --calib"))?;
-    use kernelpress::model::guarded::{GuardRule, GuardTarget};
+    use kernelpress::model::guarded::GuardRule;
     let target = match (a.guard_agreement, a.guard_rate) {
         (Some(p), None) => GuardTarget::Agreement(p),
         (None, Some(r)) => GuardTarget::Rate(r),
@@ -741,19 +739,21 @@ fn run_budget(
         ),
         None => None,
     };
+    // Each bound checked by the library alone, so the error names its flag.
     if let Some(b) = a.budget_us {
-        if !(b > 0.0 && b.is_finite()) {
-            return Err(Error::input(format!(
-                "--budget-us {b} must be a positive number of microseconds"
-            )));
-        }
+        let one = Budget {
+            latency_us: Some(b),
+            ..Budget::default()
+        };
+        one.checked().map_err(|e| flag_error("--budget-us", e))?;
     }
     if let Some(p) = a.max_disagreement {
-        if !(0.0..1.0).contains(&p) {
-            return Err(Error::input(format!(
-                "--max-disagreement {p} must be in [0, 1)"
-            )));
-        }
+        let one = Budget {
+            max_loss: Some(p),
+            ..Budget::default()
+        };
+        one.checked()
+            .map_err(|e| flag_error("--max-disagreement", e))?;
     }
     let kernel = exact.kernel().clone();
     let methods = super::methods_arg(&a.methods, &kernel)?;
@@ -1210,4 +1210,9 @@ fn warn_fit_notes(model: &kernelpress::model::CompiledModel) {
     {
         super::progress::warn(n.as_str().unwrap_or(""));
     }
+}
+
+/// A library error about a value the user gave with `flag`, naming the flag.
+fn flag_error(flag: &str, e: Error) -> Error {
+    Error::input(format!("{flag}: {}", e.message()))
 }

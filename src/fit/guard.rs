@@ -40,19 +40,7 @@ pub fn guard_on_audit_rows(
     target: GuardTarget,
     rule: Option<GuardRule>,
 ) -> Result<GuardedModel> {
-    match target {
-        GuardTarget::Agreement(p) if !(p > 0.0 && p < 1.0) => {
-            return Err(Error::input(format!(
-                "the guard's agreement target {p} must be in (0, 1)"
-            )))
-        }
-        GuardTarget::Rate(r) if !(0.0..=1.0).contains(&r) => {
-            return Err(Error::input(format!(
-                "the guard's fallback rate {r} must be in [0, 1]"
-            )))
-        }
-        _ => {}
-    }
+    let target = target.checked()?;
     if !exact.task().is_classifier() {
         return Err(Error::input(
             "a guard needs a classifier: regression models have no margin to judge confidence by",

@@ -140,11 +140,39 @@ impl RidgeGrid {
             relative: vec![1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 1e-1],
         }
     }
-    /// One fixed relative strength.
+    /// One fixed relative strength, unchecked (see [`RidgeGrid::try_fixed`] for a value a
+    /// user gave).
     pub fn fixed(rel: f64) -> Self {
         RidgeGrid {
             relative: vec![rel],
         }
+    }
+
+    /// One fixed relative strength given by a user: in (0, 1e6], relative to the mean
+    /// feature variance.
+    ///
+    /// ```
+    /// use kernelpress::fit::RidgeGrid;
+    /// assert!(RidgeGrid::try_fixed(1e-4).is_ok());
+    /// assert!(RidgeGrid::try_fixed(-1.0).is_err() && RidgeGrid::try_fixed(f64::NAN).is_err());
+    /// ```
+    pub fn try_fixed(rel: f64) -> crate::Result<Self> {
+        RidgeGrid::try_relative(vec![rel])
+    }
+
+    /// A grid of relative strengths given by a user: at least one, each in (0, 1e6].
+    pub fn try_relative(relative: Vec<f64>) -> crate::Result<Self> {
+        if relative.is_empty() {
+            return Err(crate::Error::input(
+                "a ridge grid needs at least one strength",
+            ));
+        }
+        if let Some(r) = relative.iter().find(|&&r| !(r > 0.0 && r <= 1e6)) {
+            return Err(crate::Error::input(format!(
+                "ridge strength {r} must be in (0, 1e6]: it is relative to the mean feature variance"
+            )));
+        }
+        Ok(RidgeGrid { relative })
     }
 }
 

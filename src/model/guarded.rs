@@ -624,6 +624,28 @@ pub enum GuardTarget {
     Rate(f64),
 }
 
+impl GuardTarget {
+    /// The target, or what is wrong with it: an agreement in (0, 1), a rate in [0, 1].
+    ///
+    /// ```
+    /// use kernelpress::model::GuardTarget;
+    /// assert!(GuardTarget::Agreement(0.995).checked().is_ok());
+    /// assert!(GuardTarget::Agreement(1.5).checked().is_err());
+    /// assert!(GuardTarget::Rate(1.0).checked().is_ok() && GuardTarget::Rate(-0.1).checked().is_err());
+    /// ```
+    pub fn checked(self) -> crate::Result<GuardTarget> {
+        match self {
+            GuardTarget::Agreement(p) if !(p > 0.0 && p < 1.0) => Err(crate::Error::input(
+                format!("the guard's agreement target {p} must be in (0, 1)"),
+            )),
+            GuardTarget::Rate(r) if !(0.0..=1.0).contains(&r) => Err(crate::Error::input(format!(
+                "the guard's fallback rate {r} must be in [0, 1]"
+            ))),
+            t => Ok(t),
+        }
+    }
+}
+
 /// Chooses the guard with the least exact work (mean share of support vectors read per
 /// row) for `target` among the rules that apply to the task ([`GuardRule::candidates`];
 /// ties go to the row rule). Which rule is cheaper depends on the model: on a one-vs-one

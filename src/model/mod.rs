@@ -37,7 +37,7 @@ mod v1;
 pub use crate::format::{TensorFile, FORMAT_VERSION, MANIFEST_KEY, MAX_FILE_BYTES};
 pub use compiled::CompiledModel;
 pub use exact::ExactModel;
-pub use guarded::GuardedModel;
+pub use guarded::{GuardRule, GuardTarget, GuardedModel};
 pub use output::{label_indices, OutputRule, Task};
 pub use probability::{couple, platt_fit, sigmoid, Probabilities};
 
