@@ -411,36 +411,72 @@ fn compiled_files_are_bit_identical_across_thread_counts() {
     let calib = dir.join("calib.csv");
     head_lines(&root().join("models/pump_calib.csv"), &calib, 3000);
     let exact = root().join("models/pump_svm.safetensors");
-    for method in ["orthogonal", "fastfood", "nystrom"] {
-        let mut files = Vec::new();
-        for threads in ["1", "2"] {
-            let out = dir.join(format!("{method}_{threads}.safetensors"));
+    let compile =
+        |method: &str, extra: &[&str], seed: &str, threads: &str, out: &std::path::Path| {
+            let mut args = vec![
+                "compile",
+                s(&exact),
+                "--calib",
+                s(&calib),
+                "--target",
+                "condition",
+                "--method",
+                method,
+                "--features",
+                "300",
+                "--seed",
+                seed,
+                "--no-timing",
+                "--out",
+                s(out),
+            ];
+            args.extend(extra);
             let o = std::process::Command::new(bin())
-                .args([
-                    "compile",
-                    s(&exact),
-                    "--calib",
-                    s(&calib),
-                    "--target",
-                    "condition",
-                    "--method",
-                    method,
-                    "--features",
-                    "300",
-                    "--seed",
-                    "5",
-                    "--out",
-                    s(&out),
-                ])
+                .args(&args)
                 .env("RAYON_NUM_THREADS", threads)
                 .output()
                 .unwrap();
             assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-            files.push(std::fs::read(&out).unwrap());
-        }
+            std::fs::read(out).unwrap()
+        };
+    // Orthogonal with its bandwidth search (three fits, one kept); Fastfood without it but
+    // with its head precision chosen on the ridge-choice rows (chosen by size, never by a
+    // timing); Nyström's landmarks.
+    for (method, extra) in [
+        ("orthogonal", &[][..]),
+        (
+            "fastfood",
+            &["--no-bandwidth-search", "--head-precision", "auto"][..],
+        ),
+        ("nystrom", &[][..]),
+    ] {
+        let files: Vec<Vec<u8>> = ["1", "2"]
+            .iter()
+            .map(|t| {
+                compile(
+                    method,
+                    extra,
+                    "5",
+                    t,
+                    &dir.join(format!("{method}_{t}.safetensors")),
+                )
+            })
+            .collect();
         assert_eq!(
             files[0], files[1],
             "{method}: compiled files differ between 1 and 2 threads"
+        );
+        // The comparison can fail: another seed gives another file.
+        let other = compile(
+            method,
+            extra,
+            "6",
+            "2",
+            &dir.join(format!("{method}_seed6.safetensors")),
+        );
+        assert_ne!(
+            other, files[0],
+            "{method}: another seed gives the same file"
         );
         // Reading and writing again gives the same bytes.
         let m =
