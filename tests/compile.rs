@@ -637,14 +637,17 @@ fn f32_batches_match_the_f64_path_to_f32_rounding() {
     }
 }
 
-/// The f32 program's steps and its input map are compiled once per instruction-set level;
-/// every level this CPU runs gives features within f32 rounding of the f64 program on the
-/// standardised row (a wrong vectorised copy fails here).
+/// The f32 program's steps and its input map are compiled once per instruction-set level,
+/// and the level is passed down to every kernel the steps call (transform, sine/cosine,
+/// gather, dense product); every level this CPU runs gives features within f32 rounding of
+/// the f64 program on the standardised row. A wrong copy of one level fails here: checked
+/// on an AVX-512 machine by hand with a fault in the scalar WHT (caught: "fastfood at
+/// scalar") and one in the AVX2 f32 sine/cosine (caught: "fastfood at avx2").
 #[test]
 fn f32_programs_at_every_level_match_the_f64_program() {
     use kernelpress::program::InputMap;
     let test = demo_rows("pump_test.csv");
-    for method in [Method::Fastfood, Method::Hadamard] {
+    for method in [Method::Fastfood, Method::Hadamard, Method::Fourier] {
         let m = demo_compiled(method, 256, 4);
         let sc = m.scaling().unwrap();
         let inv: Vec<f64> = sc.scale.iter().map(|v| 1.0 / v).collect();

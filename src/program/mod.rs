@@ -103,16 +103,16 @@ macro_rules! step_enum {
                 match self { $(Step::$variant(_) => <$ty as Op>::F32_BATCH),* }
             }
             #[inline(always)]
-            fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
-                match self { $(Step::$variant(s) => s.apply_row32(x, y)),* }
+            fn apply_row32(&self, level: crate::simd::Level, x: &[f32], y: &mut [f32]) {
+                match self { $(Step::$variant(s) => s.apply_row32(level, x, y)),* }
             }
             #[inline(always)]
             fn in_place32(&self) -> bool {
                 match self { $(Step::$variant(_) => <$ty as Op>::IN_PLACE32),* }
             }
             #[inline(always)]
-            fn apply_row32_in_place(&self, x: &mut [f32]) {
-                match self { $(Step::$variant(s) => s.apply_row32_in_place(x)),* }
+            fn apply_row32_in_place(&self, level: crate::simd::Level, x: &mut [f32]) {
+                match self { $(Step::$variant(s) => s.apply_row32_in_place(level, x)),* }
             }
             fn backward(
                 &self,
@@ -698,7 +698,13 @@ impl Program {
     /// first written from `x` when given (the callers checked [`Self::runs_in_f32`] and
     /// every length); inlined into the level-specific copies below.
     #[inline(always)]
-    fn run_f32<'a>(&self, x: RowIn, scratch: &'a mut [f32], out: Option<&mut [f32]>) -> &'a [f32] {
+    fn run_f32<'a>(
+        &self,
+        level: crate::simd::Level,
+        x: RowIn,
+        scratch: &'a mut [f32],
+        out: Option<&mut [f32]>,
+    ) -> &'a [f32] {
         let half = self.f32_scratch_len() / 2;
         let (mut a, mut b) = scratch[..2 * half].split_at_mut(half);
         match x {
@@ -714,9 +720,9 @@ impl Program {
         for (i, ins) in self.instrs[..last].iter().enumerate() {
             let (din, dout) = (self.dims[i], self.dims[i + 1]);
             if ins.step.in_place32() {
-                ins.step.apply_row32_in_place(&mut a[..din]);
+                ins.step.apply_row32_in_place(level, &mut a[..din]);
             } else {
-                ins.step.apply_row32(&a[..din], &mut b[..dout]);
+                ins.step.apply_row32(level, &a[..din], &mut b[..dout]);
                 std::mem::swap(&mut a, &mut b);
             }
         }
@@ -729,11 +735,11 @@ impl Program {
         let (din, dout) = (self.dims[last], self.dims[last + 1]);
         match out {
             Some(o) => {
-                ins.step.apply_row32(&a[..din], o);
+                ins.step.apply_row32(level, &a[..din], o);
                 &[]
             }
             None => {
-                ins.step.apply_row32(&a[..din], &mut b[..dout]);
+                ins.step.apply_row32(level, &a[..din], &mut b[..dout]);
                 &b[..dout]
             }
         }
@@ -931,7 +937,7 @@ unsafe fn run_f32_avx2<'a>(
     s: &'a mut [f32],
     out: Option<&mut [f32]>,
 ) -> &'a [f32] {
-    p.run_f32(x, s, out)
+    p.run_f32(crate::simd::Level::Avx2, x, s, out)
 }
 
 #[cfg(target_arch = "x86_64")]
@@ -942,7 +948,7 @@ unsafe fn run_f32_avx512<'a>(
     s: &'a mut [f32],
     out: Option<&mut [f32]>,
 ) -> &'a [f32] {
-    p.run_f32(x, s, out)
+    p.run_f32(crate::simd::Level::Avx512, x, s, out)
 }
 
 fn run_f32_at<'a>(
@@ -963,7 +969,7 @@ fn run_f32_at<'a>(
         crate::simd::Level::Avx512 => unsafe { run_f32_avx512(p, x, s, out) },
         #[cfg(target_arch = "x86_64")]
         crate::simd::Level::Avx2 => unsafe { run_f32_avx2(p, x, s, out) },
-        _ => p.run_f32(x, s, out),
+        _ => p.run_f32(level, x, s, out),
     }
 }
 

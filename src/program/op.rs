@@ -84,9 +84,10 @@ pub(crate) trait Op: Sized {
     const F32_BATCH: bool = true;
 
     /// One row in f32 (steps with [`Op::F32`]): reads `x` (the input width), writes all of
-    /// `y` (the output width), allocating nothing. Arithmetic in f32; parameters stored in
+    /// `y` (the output width), allocating nothing. Every SIMD kernel it calls runs at
+    /// `level` (resolved once by the caller, so a forced level runs that level's copies). Arithmetic in f32; parameters stored in
     /// f64 are rounded to f32 as they are read.
-    fn apply_row32(&self, _x: &[f32], _y: &mut [f32]) {
+    fn apply_row32(&self, _level: crate::simd::Level, _x: &[f32], _y: &mut [f32]) {
         unreachable!("{} has no f32 form", Self::NAME)
     }
 
@@ -95,7 +96,7 @@ pub(crate) trait Op: Sized {
 
     /// [`Op::apply_row32`] over its own input (steps with [`Op::IN_PLACE32`]): the row
     /// runner uses it between steps, saving a copy into the other scratch half.
-    fn apply_row32_in_place(&self, _x: &mut [f32]) {
+    fn apply_row32_in_place(&self, _level: crate::simd::Level, _x: &mut [f32]) {
         unreachable!("{} has no in-place f32 form", Self::NAME)
     }
 

@@ -37,7 +37,7 @@ impl Op for ConstScale {
     }
     const F32: bool = true;
     #[inline(always)]
-    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+    fn apply_row32(&self, _level: crate::simd::Level, x: &[f32], y: &mut [f32]) {
         let c = self.c as f32;
         y.iter_mut().zip(x).for_each(|(o, a)| *o = a * c);
     }

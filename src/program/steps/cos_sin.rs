@@ -1,7 +1,7 @@
 //! `cos_sin`: the paired Fourier output `y = c·[cos x, sin x]` (width doubles).
 
 use crate::program::op::{check_finite, rows_map, Cost, Op, Reader, Writer};
-use crate::transform::trig::{scaled_sin_cos, scaled_sin_cos_f32};
+use crate::transform::trig::scaled_sin_cos;
 use crate::Result;
 use ndarray::{Array2, ArrayView2};
 
@@ -40,9 +40,9 @@ impl Op for CosSin {
     }
     const F32: bool = true;
     #[inline(always)]
-    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+    fn apply_row32(&self, level: crate::simd::Level, x: &[f32], y: &mut [f32]) {
         let (co, so) = y.split_at_mut(x.len());
-        scaled_sin_cos_f32(x, self.c as f32, co, so);
+        crate::transform::trig::scaled_sin_cos_f32_at(level, x, self.c as f32, co, so);
     }
     fn backward(
         &self,

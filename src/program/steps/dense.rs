@@ -53,12 +53,12 @@ impl Op for Dense {
     }
     const F32: bool = true;
     const F32_BATCH: bool = false;
-    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+    fn apply_row32(&self, level: crate::simd::Level, x: &[f32], y: &mut [f32]) {
         let w32 = self.w32.get_or_init(|| {
             let wt: Vec<f32> = self.w.t().iter().map(|v| *v as f32).collect();
             linalg::NarrowF32::from_k_by_n(&wt, self.w.ncols(), self.w.nrows())
         });
-        w32.product(x, y);
+        w32.product_at(level, x, y);
     }
     fn backward(
         &self,

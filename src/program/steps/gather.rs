@@ -59,10 +59,9 @@ impl Op for Gather {
     }
     const F32: bool = true;
     #[inline(always)]
-    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+    fn apply_row32(&self, level: crate::simd::Level, x: &[f32], y: &mut [f32]) {
         // One check for the whole row (the largest index is known), then the gather for
-        // the CPU's level.
-        let level = crate::simd::level();
+        // the level the program runs at.
         crate::transform::gather::check(level, x.len(), self.idx.len(), y.len(), self.top);
         // SAFETY: checked just above.
         unsafe { crate::transform::gather::gather_unchecked(level, x, &self.idx, y) }

@@ -43,7 +43,7 @@ impl Op for Pad {
     }
     const F32: bool = true;
     #[inline(always)]
-    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+    fn apply_row32(&self, _level: crate::simd::Level, x: &[f32], y: &mut [f32]) {
         let n = x.len();
         y[..n].copy_from_slice(x);
         y[n..].iter_mut().for_each(|o| *o = 0.0);

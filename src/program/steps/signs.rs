@@ -40,7 +40,7 @@ impl Op for Signs {
     }
     const F32: bool = true;
     #[inline(always)]
-    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+    fn apply_row32(&self, _level: crate::simd::Level, x: &[f32], y: &mut [f32]) {
         for ((o, a), s) in y.iter_mut().zip(x).zip(&self.s) {
             *o = a * *s as f32;
         }

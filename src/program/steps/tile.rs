@@ -46,7 +46,7 @@ impl Op for Tile {
     }
     const F32: bool = true;
     #[inline(always)]
-    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+    fn apply_row32(&self, _level: crate::simd::Level, x: &[f32], y: &mut [f32]) {
         y.chunks_exact_mut(x.len().max(1))
             .for_each(|c| c.copy_from_slice(x));
     }

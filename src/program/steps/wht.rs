@@ -46,14 +46,15 @@ impl Op for Wht {
     }
     const F32: bool = true;
     #[inline(always)]
-    fn apply_row32(&self, x: &[f32], y: &mut [f32]) {
+    fn apply_row32(&self, level: crate::simd::Level, x: &[f32], y: &mut [f32]) {
         y.copy_from_slice(x);
-        self.apply_row32_in_place(y);
+        self.apply_row32_in_place(level, y);
     }
     const IN_PLACE32: bool = true;
     #[inline(always)]
-    fn apply_row32_in_place(&self, x: &mut [f32]) {
-        x.chunks_exact_mut(self.block).for_each(wht_in_place);
+    fn apply_row32_in_place(&self, level: crate::simd::Level, x: &mut [f32]) {
+        x.chunks_exact_mut(self.block)
+            .for_each(|b| crate::transform::wht_in_place_at(level, b));
     }
     fn backward(
         &self,
