@@ -36,8 +36,14 @@ impl Level {
     }
 }
 
-/// What this CPU supports, ignoring `KERNELPRESS_NO_SIMD`.
+/// What this CPU supports, ignoring `KERNELPRESS_NO_SIMD` (detected once: the kernels'
+/// `_at(level)` forms check their level against it on every call).
 pub fn detected() -> Level {
+    static DETECTED: OnceLock<Level> = OnceLock::new();
+    *DETECTED.get_or_init(detect)
+}
+
+fn detect() -> Level {
     #[cfg(target_arch = "x86_64")]
     {
         let avx2 = std::arch::is_x86_feature_detected!("avx2")
