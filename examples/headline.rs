@@ -35,6 +35,10 @@
 //!   keeps (`fmnist60k_head_precision`: the smallest whose label agreement with the teacher
 //!   on the ridge-choice rows of the first 5,000 training images is within 0.002 of the
 //!   f32 head's; the test images never take part in the choice).
+//! - `exact_f32_over_f64` and `exact_f32_over_f64_min`: the exact model's f64 single row
+//!   ÷ its f32 single row (medians) on the shipped 8-column demo, an invented 20-column
+//!   scenario (`narrow_scenario`), and the two Fashion-MNIST teachers; the smallest of them
+//!   (below 1, the f32 row is slower than the f64 one somewhere).
 //! - `fmnist_lowp`, `fmnist_speedup_single_lowp`, `fmnist_agreement_lowp`: the 10,000-image
 //!   teacher's Hadamard model with bf16 and int8 heads, the same rule.
 //!
@@ -452,6 +456,62 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         }
         None => ("f32".to_string(), e1 / c1, cb / eb, agree60),
     };
+    // 8. The exact model's f32 single row against its f64 one on three scenarios: the
+    //    shipped 8-column demo, an invented 20-column one, Fashion-MNIST (10,000 and
+    //    60,000 images, from the measurements above).
+    let mut ratios = serde_json::Map::new();
+    let demo =
+        kernelpress::model::ExactModel::load(std::path::Path::new("models/pump_svm.safetensors"))?;
+    let demo_rows = kernelpress::data::read_table(
+        std::path::Path::new("models/pump_test.csv"),
+        Some("condition"),
+        false,
+    )?;
+    let (narrow, narrow_rows) = narrow_scenario()?;
+    for (name, m, x) in [
+        ("demo8", &demo, demo_rows.x.view()),
+        ("narrow20", &narrow, narrow_rows.view()),
+    ] {
+        let t = kernelpress::report::measure_exact(m, x, &ropts);
+        let r = t.single.p50_us / t.single_f32.p50_us;
+        say(&format!(
+            "exact {name} ({} columns, {} SVs): single row f64 {:.1} µs, f32 {:.1} µs ({r:.2}×)",
+            m.input_dim(),
+            m.n_support_vectors(),
+            t.single.p50_us,
+            t.single_f32.p50_us
+        ));
+        ratios.insert(
+            name.into(),
+            json!({"f64_us": t.single.p50_us, "f32_us": t.single_f32.p50_us, "ratio": r}),
+        );
+    }
+    let had_r = &res["fmnist_hadamard"];
+    let (f64_10k, f32_10k) = (
+        had_r["latency_us_exact_p50"].as_f64().unwrap_or(f64::NAN),
+        had_r["latency_us_exact_f32_p50"]
+            .as_f64()
+            .unwrap_or(f64::NAN),
+    );
+    let f64_60k = r60.timing.latency_us_exact_p50.unwrap_or(f64::NAN);
+    for (name, a, b) in [("fmnist10k", f64_10k, f32_10k), ("fmnist60k", f64_60k, e1)] {
+        ratios.insert(
+            name.into(),
+            json!({"f64_us": a, "f32_us": b, "ratio": a / b}),
+        );
+    }
+    let min_ratio = ratios
+        .values()
+        .filter_map(|v| v["ratio"].as_f64())
+        .fold(f64::INFINITY, f64::min);
+    say(&format!(
+        "exact f32 over f64, smallest single-row ratio: {min_ratio:.2}"
+    ));
+    res.insert(
+        "exact_f32_over_f64".into(),
+        serde_json::Value::Object(ratios),
+    );
+    res.insert("exact_f32_over_f64_min".into(), json!(min_ratio));
     res.insert("fmnist60k_head_precision".into(), json!(p60));
     res.insert("fmnist60k_speedup_single".into(), json!(s60));
     res.insert("fmnist60k_speedup_batch".into(), json!(b60));
@@ -460,6 +520,48 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     std::fs::write(&out, format!("{text}\n"))?;
     say(&format!("wrote {out}"));
     Ok(())
+}
+
+/// An invented narrow scenario: three classes of 20 measurements, each class a blob with
+/// unit noise around centres drawn once (seed 20), overlapping enough that most of the
+/// 6,000 training rows become support vectors; a Gaussian SVM (γ = 1/20, C = 1) on the
+/// standardised rows, and 1,000 other rows to time it on.
+fn narrow_scenario(
+) -> Result<(kernelpress::model::ExactModel, Array2<f64>), Box<dyn std::error::Error>> {
+    use rand::{RngExt, SeedableRng};
+    use rand_distr::{Distribution, Normal};
+    const COLS: usize = 20;
+    let mut rng = rand::rngs::ChaCha20Rng::seed_from_u64(20);
+    let noise = Normal::new(0.0, 1.0)?;
+    let centres = Array2::from_shape_fn((3, COLS), |_| 0.6 * noise.sample(&mut rng));
+    let mut draw = |n: usize| {
+        let mut x = Array2::zeros((n, COLS));
+        let mut y = Vec::with_capacity(n);
+        for i in 0..n {
+            let c = rng.random_range(0..3usize);
+            for j in 0..COLS {
+                x[[i, j]] = centres[[c, j]] + noise.sample(&mut rng);
+            }
+            y.push(format!("class{c}"));
+        }
+        (x, y)
+    };
+    let (xtr, ytr) = draw(6_000);
+    let (xte, _) = draw(1_000);
+    let scaler = Standardizer::fit(xtr.view());
+    let kernel: kernelpress::kernel::Kernel = "gaussian(gamma=0.05)".parse()?;
+    let m = fit_svm(
+        &kernel,
+        scaler.apply(xtr.view()).view(),
+        &ytr,
+        &SmoOptions {
+            c: 1.0,
+            ..SmoOptions::default()
+        },
+        Some(scaler),
+        &Silent,
+    )?;
+    Ok((m, xte))
 }
 
 /// The model with each low-precision head: its report on the test images (timed, the exact
